@@ -1,0 +1,69 @@
+package pipeline
+
+import (
+	"time"
+
+	"go.etcd.io/bbolt"
+
+	"etpulse/hourly"
+)
+
+// HourHandler receives every closed (or revised) hour inside the bbolt
+// transaction that closes it, so the handler's own state change commits
+// atomically with the hour. Returning an error aborts the transaction: the
+// hour stays open and is closed again on the next tick.
+//
+// Revisions: a handler sees rec.Revision 0 first, then rec.Revision n > 0
+// each time a late reading changes the hour. A revision REPLACES the earlier
+// record of the same (station, Start): a water balance applies the difference
+// between the new and the previous ET, a store overwrites by timestamp. The
+// pipeline never emits two records with the same revision for one hour.
+type HourHandler interface {
+	HandleHour(tx *bbolt.Tx, rec hourly.Record) error
+}
+
+// SampleObserver sees every accepted sample (drift and fault monitors). It is
+// called after the sample is durable, outside any transaction, and must not
+// block for long; now is the pipeline's clock at that moment.
+type SampleObserver interface {
+	ObserveSample(site, station string, s hourly.Sample, now time.Time)
+}
+
+// QualityGate is asked, when an hour is computed, which flags to add and
+// which quantities to exclude from it.
+type QualityGate interface {
+	Gate(site, station string, hourStart time.Time) Gate
+}
+
+// Gate is a QualityGate's verdict on one station-hour.
+//
+// Flags are appended to the record's flags. A quantity in Exclude is dropped
+// from the hour's samples before aggregation; an excluded hourly.Solar is
+// replaced by the Hargreaves-Samani estimate (FAO-56 eq. 50, kRs 0.16) from
+// the hour's Ra and the last 24 h air temperature range, and the record says
+// so in Fill ("hargreaves-samani-rs") and a flag. StopET emits the hour with
+// no ET (Result nil, Complete false, flag "et:stopped").
+type Gate struct {
+	Flags   []string
+	Exclude []hourly.Quantity
+	StopET  bool
+}
+
+// HourHandlerFunc adapts a function to HourHandler.
+type HourHandlerFunc func(tx *bbolt.Tx, rec hourly.Record) error
+
+// HandleHour calls f.
+func (f HourHandlerFunc) HandleHour(tx *bbolt.Tx, rec hourly.Record) error { return f(tx, rec) }
+
+// SampleObserverFunc adapts a function to SampleObserver.
+type SampleObserverFunc func(site, station string, s hourly.Sample, now time.Time)
+
+// ObserveSample calls f.
+func (f SampleObserverFunc) ObserveSample(site, station string, s hourly.Sample, now time.Time) {
+	f(site, station, s, now)
+}
+
+var (
+	_ HourHandler    = HourHandlerFunc(nil)
+	_ SampleObserver = SampleObserverFunc(nil)
+)
