@@ -1,0 +1,394 @@
+package pipeline
+
+import (
+	"errors"
+	"fmt"
+	"math"
+	"slices"
+	"strconv"
+	"time"
+
+	"go.etcd.io/bbolt"
+
+	"etpulse/hourly"
+)
+
+// Flags the pipeline writes into records.
+const (
+	FlagFcdDefault   = "fcd:default"             // no carried cloudiness was available; hourly's default was used
+	FlagETStopped    = "et:stopped"              // the quality gate stopped ET for the hour
+	FlagSolarFill    = "solar:hargreaves-samani" // solar excluded, Hargreaves-Samani estimate used
+	FlagSilenceClose = "closed:silence"          // closed by the wall clock, the station had gone quiet
+	flagIncomplete   = "incomplete:"             // + quantity
+	flagError        = "error:"                  // + aggregate | compute
+)
+
+// hourStatsKeep is how long closed-hour states are kept at least: the
+// Hargreaves-Samani fill needs the last 24 hours' temperature range.
+const hourStatsKeep = 25 * time.Hour
+
+// Tick closes every hour that is due at now and re-emits every closed hour
+// that received late readings, each in its own transaction, and prunes
+// samples older than the late window. It returns the records it emitted, in
+// order; they are also kept as pending until MarkPublished.
+func (p *Pipeline) Tick(now time.Time) ([]hourly.Record, error) {
+	p.mu.Lock()
+	defer p.mu.Unlock()
+	var out []hourly.Record
+	var errs []error
+	for _, st := range p.order {
+		recs, err := p.tickStation(st, now)
+		out = append(out, recs...)
+		if err != nil {
+			errs = append(errs, fmt.Errorf("station %s/%s: %w", st.site, st.id, err))
+		}
+	}
+	return out, errors.Join(errs...)
+}
+
+func (p *Pipeline) tickStation(st *station, now time.Time) ([]hourly.Record, error) {
+	var out []hourly.Record
+	grace, silence := st.cfg.CloseGrace.D(), st.cfg.SilenceClose.D()
+	for st.hasCursor {
+		end := st.cursor.Add(time.Hour)
+		byData := !st.watermark.Before(end.Add(grace))
+		bySilence := !now.Before(end.Add(silence))
+		if !byData && !bySilence {
+			break
+		}
+		rec, err := p.closeHour(st, st.cursor, !byData)
+		if err != nil {
+			return out, err
+		}
+		out = append(out, rec)
+	}
+	if st.dirty {
+		recs, err := p.revise(st)
+		out = append(out, recs...)
+		if err != nil {
+			return out, err
+		}
+		st.dirty = false
+	}
+	if err := p.prune(st, now); err != nil {
+		return out, err
+	}
+	return out, nil
+}
+
+// closeHour closes the station's hour at st.cursor in one transaction.
+func (p *Pipeline) closeHour(st *station, hour time.Time, silent bool) (hourly.Record, error) {
+	gate := p.gateFor(st, hour)
+	var rec hourly.Record
+	err := p.db.Update(func(tx *bbolt.Tx) error {
+		sb, err := st.buckets(tx)
+		if err != nil {
+			return err
+		}
+		var cj carryJSON
+		if _, err := getJSON(sb.meta, keyCarry, &cj); err != nil {
+			return err
+		}
+		carryIn := cj.carry()
+		var tmin, tmax *float64
+		rec, tmin, tmax, err = p.build(sb, st, hour, carryIn, gate)
+		if err != nil {
+			return err
+		}
+		if silent {
+			rec.Flags = append(rec.Flags, FlagSilenceClose)
+		}
+		for _, h := range p.handlers {
+			if err := h.HandleHour(tx, rec); err != nil {
+				return fmt.Errorf("hour handler: %w", err)
+			}
+		}
+		j := toJSON(rec)
+		hs := hourState{Revision: 0, CarryIn: carryToJSON(carryIn), TMin: tmin, TMax: tmax, ClosedAt: hour.Add(time.Hour), Record: &j}
+		if err := putJSON(sb.hours, hourKey(hour), hs); err != nil {
+			return err
+		}
+		if err := putJSON(sb.meta, keyCarry, carryToJSON(rec.Carry)); err != nil {
+			return err
+		}
+		if err := putTime(sb.meta, keyCursor, hour.Add(time.Hour)); err != nil {
+			return err
+		}
+		return putPending(tx, st, rec)
+	})
+	if err != nil {
+		return hourly.Record{}, fmt.Errorf("close hour %s: %w", hour.Format(time.RFC3339), err)
+	}
+	st.cursor = hour.Add(time.Hour)
+	p.m.closed.WithLabelValues(st.id, strconv.FormatBool(rec.Complete)).Inc()
+	p.observeRecord(st, rec)
+	return rec, nil
+}
+
+// revise re-emits every closed hour of the station marked dirty.
+func (p *Pipeline) revise(st *station) ([]hourly.Record, error) {
+	var hours []time.Time
+	if err := p.db.View(func(tx *bbolt.Tx) error {
+		sb, err := st.buckets(tx)
+		if err != nil {
+			return err
+		}
+		return sb.hours.ForEach(func(k, v []byte) error {
+			var hs hourState
+			if _, err := getJSON(sb.hours, k, &hs); err != nil {
+				return err
+			}
+			if hs.Dirty {
+				hours = append(hours, hourFromKey(k))
+			}
+			return nil
+		})
+	}); err != nil {
+		return nil, err
+	}
+	var out []hourly.Record
+	for _, hour := range hours {
+		gate := p.gateFor(st, hour)
+		var rec hourly.Record
+		err := p.db.Update(func(tx *bbolt.Tx) error {
+			sb, err := st.buckets(tx)
+			if err != nil {
+				return err
+			}
+			var hs hourState
+			if _, err := getJSON(sb.hours, hourKey(hour), &hs); err != nil {
+				return err
+			}
+			var tmin, tmax *float64
+			rec, tmin, tmax, err = p.build(sb, st, hour, hs.CarryIn.carry(), gate)
+			if err != nil {
+				return err
+			}
+			rec.Revision = hs.Revision + 1
+			if hs.Record != nil && slices.Contains(hs.Record.Flags, FlagSilenceClose) {
+				rec.Flags = append(rec.Flags, FlagSilenceClose)
+			}
+			for _, h := range p.handlers {
+				if err := h.HandleHour(tx, rec); err != nil {
+					return fmt.Errorf("hour handler: %w", err)
+				}
+			}
+			j := toJSON(rec)
+			hs.Revision, hs.Dirty, hs.TMin, hs.TMax, hs.Record = rec.Revision, false, tmin, tmax, &j
+			if err := putJSON(sb.hours, hourKey(hour), hs); err != nil {
+				return err
+			}
+			if hour.Add(time.Hour).Equal(st.cursor) {
+				// The latest closed hour: later hours have not used its carry yet.
+				if err := putJSON(sb.meta, keyCarry, carryToJSON(rec.Carry)); err != nil {
+					return err
+				}
+			}
+			return putPending(tx, st, rec)
+		})
+		if err != nil {
+			return out, fmt.Errorf("revise hour %s: %w", hour.Format(time.RFC3339), err)
+		}
+		p.m.revisions.WithLabelValues(st.id).Inc()
+		p.observeRecord(st, rec)
+		out = append(out, rec)
+	}
+	return out, nil
+}
+
+func (p *Pipeline) observeRecord(st *station, rec hourly.Record) {
+	if rec.Result != nil {
+		p.m.lastET.WithLabelValues(st.id, string(rec.Reference)).Set(rec.Result.ET)
+	}
+	p.m.lastClosed.WithLabelValues(st.id).Set(float64(rec.End.Unix()))
+}
+
+func (p *Pipeline) gateFor(st *station, hour time.Time) Gate {
+	if p.gate == nil {
+		return Gate{}
+	}
+	return p.gate.Gate(st.site, st.id, hour)
+}
+
+// build aggregates and computes one hour from its stored samples. It returns
+// the record (revision 0) and the hour's air temperature range when known.
+func (p *Pipeline) build(sb stationBuckets, st *station, hour time.Time, carryIn hourly.Carry, gate Gate) (hourly.Record, *float64, *float64, error) {
+	rec := hourly.Record{
+		Site: st.site, Station: st.id, Reference: st.cfg.Reference,
+		Start: hour, End: hour.Add(time.Hour), LocalStart: st.localStart(hour),
+		Carry: carryIn,
+		Flags: append([]string(nil), gate.Flags...),
+	}
+	samples, err := loadHour(sb, hour)
+	if err != nil {
+		return rec, nil, nil, err
+	}
+	excludeSolar := slices.Contains(gate.Exclude, hourly.Solar)
+	if len(gate.Exclude) > 0 {
+		samples = slices.DeleteFunc(samples, func(s hourly.Sample) bool { return slices.Contains(gate.Exclude, s.Quantity) })
+	}
+	agg, err := hourly.AggregateHour(hour, samples, hourly.AggregateOptions{
+		WindHeight: st.cfg.WindHeight, MinCoverage: st.cfg.MinCoverage,
+	})
+	if err != nil {
+		p.log.Warn("hour not aggregated", "station", st.id, "hour", hour, "err", err)
+		rec.Flags = append(rec.Flags, flagError+"aggregate")
+		return rec, nil, nil, nil
+	}
+	rec.Inputs, rec.Stats, rec.Rain = agg.Hour, agg.Stats, agg.Rain
+	rec.Inputs.Start = hour
+	var tmin, tmax *float64
+	if t, ok := agg.Stats[hourly.AirTemp]; ok && t.Count > 0 {
+		tmin, tmax = &t.Min, &t.Max
+	}
+	missing := agg.Missing
+	if excludeSolar {
+		missing = slices.DeleteFunc(slices.Clone(missing), func(q hourly.Quantity) bool { return q == hourly.Solar })
+	}
+	for _, q := range missing {
+		rec.Flags = append(rec.Flags, flagIncomplete+string(q))
+	}
+	if gate.StopET {
+		rec.Flags = append(rec.Flags, FlagETStopped)
+	}
+	if len(missing) > 0 || gate.StopET {
+		return rec, tmin, tmax, nil
+	}
+	if excludeSolar {
+		rs, ok, err := p.hargreavesSolar(sb, st, hour, rec.Inputs, tmin, tmax)
+		if err != nil {
+			return rec, tmin, tmax, err
+		}
+		if !ok {
+			rec.Flags = append(rec.Flags, flagIncomplete+string(hourly.Solar))
+			return rec, tmin, tmax, nil
+		}
+		rec.Inputs.Solar = rs
+		rec.Fill = FillHargreaves
+		rec.Flags = append(rec.Flags, FlagSolarFill)
+	}
+	res, carryOut, err := hourly.Compute(st.hs, st.cfg.Reference, rec.Inputs, carryIn)
+	if err != nil {
+		p.log.Warn("hour not computed", "station", st.id, "hour", hour, "err", err)
+		rec.Flags = append(rec.Flags, flagError+"compute")
+		return rec, tmin, tmax, nil
+	}
+	rec.Complete, rec.Result, rec.Carry = true, &res, carryOut
+	if res.FcdSource == hourly.FcdDefault {
+		rec.Flags = append(rec.Flags, FlagFcdDefault)
+	}
+	return rec, tmin, tmax, nil
+}
+
+// hargreavesSolar estimates the hour's Rs by FAO-56 eq. 50 from its Ra and
+// the air temperature range of the last 24 hours (this hour and the 23 before).
+func (p *Pipeline) hargreavesSolar(sb stationBuckets, st *station, hour time.Time, in hourly.Hour, tmin, tmax *float64) (float64, bool, error) {
+	lo, hi := math.Inf(1), math.Inf(-1)
+	if tmin != nil {
+		lo, hi = *tmin, *tmax
+	}
+	c := sb.hours.Cursor()
+	from := hour.Add(-23 * time.Hour)
+	for k, v := c.Seek(hourKey(from)); k != nil && hourFromKey(k).Before(hour); k, v = c.Next() {
+		var hs hourState
+		if err := jsonUnmarshal(v, &hs); err != nil {
+			return 0, false, err
+		}
+		if hs.TMin != nil && hs.TMax != nil {
+			lo, hi = min(lo, *hs.TMin), max(hi, *hs.TMax)
+		}
+	}
+	if math.IsInf(lo, 0) || hi < lo {
+		return 0, false, nil
+	}
+	// Ra of the hour does not depend on solar: compute once with Rs = 0.
+	probe := in
+	probe.Solar = 0
+	res, _, err := hourly.Compute(st.hs, st.cfg.Reference, probe, hourly.Carry{})
+	if err != nil {
+		return 0, false, nil
+	}
+	return hourly.HargreavesSolar(res.Ra, hi, lo, hargreavesKRs), true, nil
+}
+
+// loadHour reads every stored sample of the hour, in time order.
+func loadHour(sb stationBuckets, hour time.Time) ([]hourly.Sample, error) {
+	prefix := hourKey(hour)
+	var out []hourly.Sample
+	c := sb.samples.Cursor()
+	for k, v := c.Seek(prefix); k != nil && string(k[:8]) == string(prefix); k, v = c.Next() {
+		s, err := decodeSample(k, v)
+		if err != nil {
+			return nil, err
+		}
+		out = append(out, s)
+	}
+	return out, nil
+}
+
+// prune deletes samples of closed hours whose late window has passed, and
+// closed-hour states older than both the late window and hourStatsKeep.
+func (p *Pipeline) prune(st *station, now time.Time) error {
+	if !st.hasCursor {
+		return nil
+	}
+	sampleLimit := now.Add(-st.cfg.LateWindow.D() - time.Hour)
+	stateLimit := now.Add(-max(st.cfg.LateWindow.D(), hourStatsKeep) - time.Hour)
+	if st.cursor.Before(sampleLimit) {
+		sampleLimit = st.cursor
+	}
+	if st.cursor.Before(stateLimit) {
+		stateLimit = st.cursor
+	}
+	need := false
+	if err := p.db.View(func(tx *bbolt.Tx) error {
+		sb, err := st.buckets(tx)
+		if err != nil {
+			return err
+		}
+		if k, _ := sb.samples.Cursor().First(); k != nil && hourFromKey(k).Before(sampleLimit) {
+			need = true
+		}
+		if k, _ := sb.hours.Cursor().First(); k != nil && hourFromKey(k).Before(stateLimit) {
+			need = true
+		}
+		return nil
+	}); err != nil {
+		return err
+	}
+	if !need {
+		return nil
+	}
+	return p.db.Update(func(tx *bbolt.Tx) error {
+		sb, err := st.buckets(tx)
+		if err != nil {
+			return err
+		}
+		if err := deleteBefore(sb.samples, sampleLimit); err != nil {
+			return err
+		}
+		return deleteBefore(sb.hours, stateLimit)
+	})
+}
+
+func deleteBefore(b *bbolt.Bucket, limit time.Time) error {
+	c := b.Cursor()
+	for k, _ := c.First(); k != nil && hourFromKey(k).Before(limit); k, _ = c.First() {
+		if err := c.Delete(); err != nil {
+			return fmt.Errorf("prune: %w", err)
+		}
+	}
+	return nil
+}
+
+func putPending(tx *bbolt.Tx, st *station, rec hourly.Record) error {
+	b, err := MarshalRecord(rec)
+	if err != nil {
+		return err
+	}
+	pb, err := tx.CreateBucketIfNotExists(bucketPending)
+	if err != nil {
+		return fmt.Errorf("pending bucket: %w", err)
+	}
+	return pb.Put(pendingKey(st, rec.Start, rec.Revision), b)
+}

@@ -1,0 +1,104 @@
+package pipeline
+
+import (
+	"fmt"
+	"log/slog"
+	"sync"
+	"time"
+
+	"github.com/prometheus/client_golang/prometheus"
+
+	"etpulse/gateway/ingest"
+)
+
+// metrics are the pipeline's Prometheus collectors.
+type metrics struct {
+	received   *prometheus.CounterVec // station
+	rejected   *prometheus.CounterVec // station, reason
+	duplicates *prometheus.CounterVec // station
+	closed     *prometheus.CounterVec // station, complete
+	revisions  *prometheus.CounterVec // station
+	lastET     *prometheus.GaugeVec   // station, reference
+	lastClosed *prometheus.GaugeVec   // station
+}
+
+func newMetrics(reg prometheus.Registerer) (*metrics, error) {
+	m := &metrics{
+		received: prometheus.NewCounterVec(prometheus.CounterOpts{
+			Name: "etpulse_messages_received_total",
+			Help: "MQTT messages received, by station (\"unknown\" when the topic matches no sensor).",
+		}, []string{"station"}),
+		rejected: prometheus.NewCounterVec(prometheus.CounterOpts{
+			Name: "etpulse_messages_rejected_total",
+			Help: "Messages or readings that could not be used, by station and reason.",
+		}, []string{"station", "reason"}),
+		duplicates: prometheus.NewCounterVec(prometheus.CounterOpts{
+			Name: "etpulse_readings_duplicate_total",
+			Help: "Readings dropped because the same sensor and timestamp were already stored (QoS 1 redelivery).",
+		}, []string{"station"}),
+		closed: prometheus.NewCounterVec(prometheus.CounterOpts{
+			Name: "etpulse_hours_closed_total",
+			Help: "Station hours closed (first emission), by completeness.",
+		}, []string{"station", "complete"}),
+		revisions: prometheus.NewCounterVec(prometheus.CounterOpts{
+			Name: "etpulse_hour_revisions_total",
+			Help: "Hourly records re-emitted after a late reading.",
+		}, []string{"station"}),
+		lastET: prometheus.NewGaugeVec(prometheus.GaugeOpts{
+			Name: "etpulse_last_et_mm",
+			Help: "Reference ET of the station's most recently closed complete hour, mm.",
+		}, []string{"station", "reference"}),
+		lastClosed: prometheus.NewGaugeVec(prometheus.GaugeOpts{
+			Name: "etpulse_last_hour_closed_timestamp_seconds",
+			Help: "End of the station's most recently closed hour, Unix seconds.",
+		}, []string{"station"}),
+	}
+	if reg == nil {
+		return m, nil
+	}
+	for _, c := range []prometheus.Collector{m.received, m.rejected, m.duplicates, m.closed, m.revisions, m.lastET, m.lastClosed} {
+		if err := reg.Register(c); err != nil {
+			return nil, fmt.Errorf("register pipeline metrics: %w", err)
+		}
+	}
+	return m, nil
+}
+
+// rejectLog logs rejected readings at a bounded rate: the first
+// rejectLogBurst per reason in each minute, then one summary line per reason
+// when the minute ends.
+type rejectLog struct {
+	mu         sync.Mutex
+	log        *slog.Logger
+	window     time.Time
+	logged     map[ingest.Reason]int
+	suppressed map[ingest.Reason]int
+}
+
+const rejectLogBurst = 5
+
+func newRejectLog(l *slog.Logger) *rejectLog {
+	return &rejectLog{log: l, logged: map[ingest.Reason]int{}, suppressed: map[ingest.Reason]int{}}
+}
+
+func (r *rejectLog) note(now time.Time, station string, rej ingest.Rejection) {
+	r.mu.Lock()
+	defer r.mu.Unlock()
+	win := now.Truncate(time.Minute)
+	if !win.Equal(r.window) {
+		for reason, n := range r.suppressed {
+			if n > 0 {
+				r.log.Warn("rejected readings not logged", "reason", string(reason), "count", n, "minute", r.window)
+			}
+		}
+		clear(r.logged)
+		clear(r.suppressed)
+		r.window = win
+	}
+	if r.logged[rej.Reason] >= rejectLogBurst {
+		r.suppressed[rej.Reason]++
+		return
+	}
+	r.logged[rej.Reason]++
+	r.log.Warn("reading rejected", "station", station, "sensor", rej.Sensor, "reason", string(rej.Reason), "err", rej.Err)
+}

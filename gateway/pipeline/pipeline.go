@@ -1,0 +1,387 @@
+package pipeline
+
+import (
+	"errors"
+	"fmt"
+	"log/slog"
+	"strconv"
+	"sync"
+	"time"
+
+	"github.com/prometheus/client_golang/prometheus"
+	"go.etcd.io/bbolt"
+
+	"etpulse/gateway/config"
+	"etpulse/gateway/ingest"
+	"etpulse/hourly"
+)
+
+// Reasons the pipeline itself rejects a reading for, besides the ingest
+// package's decoding reasons.
+const (
+	// ReasonUnknownStation: the reading names a station the configuration lacks.
+	ReasonUnknownStation ingest.Reason = "unknown_station"
+	// ReasonStaleCounter: a cumulative rain counter reading older than the
+	// counter value already used; the next reading in order carries its rain.
+	ReasonStaleCounter ingest.Reason = "stale_counter"
+	// ReasonBadCounter: the counter increment could not be computed.
+	ReasonBadCounter ingest.Reason = "bad_counter"
+)
+
+// Hargreaves-Samani kRs for interior locations (FAO-56 eq. 50 and its notes:
+// 0.16 interior, 0.19 coastal). The pipeline uses the interior value.
+const hargreavesKRs = 0.16
+
+// FillHargreaves names the solar fill method written in hourly.Record.Fill.
+const FillHargreaves = "hargreaves-samani-rs"
+
+var errNoState = errors.New("no pipeline state yet")
+
+// Options are the pipeline's dependencies.
+type Options struct {
+	DB         *bbolt.DB
+	Logger     *slog.Logger          // nil discards
+	Registerer prometheus.Registerer // nil: metrics are kept but not registered
+	Handlers   []HourHandler         // called inside each closing transaction, in order
+	Observers  []SampleObserver      // called for each accepted sample after commit
+	Gate       QualityGate           // optional
+}
+
+// Pipeline keeps the durable hour bins of every configured station and closes
+// hours into records. Its methods are safe for concurrent use, but Ingest and
+// Tick are meant to be driven by one goroutine (the gateway's intake loop, the
+// replay command, a test).
+type Pipeline struct {
+	db        *bbolt.DB
+	log       *slog.Logger
+	m         *metrics
+	rejects   *rejectLog
+	handlers  []HourHandler
+	observers []SampleObserver
+	gate      QualityGate
+
+	mu       sync.Mutex // serialises Ingest/Tick and guards the station mirrors
+	stations map[stationID]*station
+	order    []*station // configuration order, for stable output
+}
+
+type stationID struct{ site, station string }
+
+// station is one configured station and an in-memory mirror of its cursor
+// and watermark (the durable copies live in its meta bucket).
+type station struct {
+	site, id string
+	key      []byte // "<site>/<station>"
+	cfg      config.Station
+	hs       hourly.Station
+	offset   time.Duration // standard-time offset from UTC
+	zone     *time.Location
+
+	hasCursor bool
+	cursor    time.Time // start of the earliest hour not yet closed
+	watermark time.Time // latest reading time accepted
+	dirty     bool      // a closed hour may need a revision
+}
+
+// New builds a pipeline for every station of cfg and loads their state.
+func New(cfg *config.Config, o Options) (*Pipeline, error) {
+	if o.DB == nil {
+		return nil, errors.New("new pipeline: no state database")
+	}
+	if o.Logger == nil {
+		o.Logger = slog.New(slog.DiscardHandler)
+	}
+	m, err := newMetrics(o.Registerer)
+	if err != nil {
+		return nil, err
+	}
+	p := &Pipeline{
+		db: o.DB, log: o.Logger, m: m, rejects: newRejectLog(o.Logger),
+		handlers: o.Handlers, observers: o.Observers, gate: o.Gate,
+		stations: map[stationID]*station{},
+	}
+	for _, site := range cfg.Sites {
+		for _, sc := range site.Stations {
+			st := newStation(site.ID, sc)
+			p.stations[stationID{site.ID, sc.ID}] = st
+			p.order = append(p.order, st)
+		}
+	}
+	if err := p.db.Update(func(tx *bbolt.Tx) error {
+		if _, err := tx.CreateBucketIfNotExists(bucketPending); err != nil {
+			return err
+		}
+		for _, st := range p.order {
+			sb, err := st.buckets(tx)
+			if err != nil {
+				return err
+			}
+			st.cursor, st.hasCursor = getTime(sb.meta, keyCursor)
+			st.watermark, _ = getTime(sb.meta, keyWatermark)
+			st.dirty = true // look for revisions left pending by a crash
+		}
+		return nil
+	}); err != nil {
+		return nil, fmt.Errorf("new pipeline: load state: %w", err)
+	}
+	return p, nil
+}
+
+func newStation(site string, sc config.Station) *station {
+	off := time.Duration(sc.UTCOffset * float64(time.Hour))
+	name := "UTC" + strconv.FormatFloat(sc.UTCOffset, 'f', -1, 64)
+	if sc.UTCOffset >= 0 {
+		name = "UTC+" + strconv.FormatFloat(sc.UTCOffset, 'f', -1, 64)
+	}
+	st := &station{
+		site: site, id: sc.ID, key: []byte(site + "/" + sc.ID), cfg: sc,
+		hs: hourly.Station{
+			Latitude: sc.Latitude, Longitude: sc.Longitude, Elevation: sc.Elevation,
+			UTCOffset: sc.UTCOffset, ClearSky: sc.ClearSky,
+		},
+		offset: off,
+		zone:   time.FixedZone(name, int(off/time.Second)),
+	}
+	return st
+}
+
+// hourStart returns the start (UTC) of the standard-time hour holding t.
+func (st *station) hourStart(t time.Time) time.Time {
+	return t.Add(st.offset).Truncate(time.Hour).Add(-st.offset).UTC()
+}
+
+func (st *station) localStart(h time.Time) string {
+	return h.In(st.zone).Format("2006-01-02T15:04")
+}
+
+// IngestResult summarises one call of Ingest.
+type IngestResult struct {
+	Accepted   int                // readings stored (including late ones)
+	Late       int                // of Accepted, readings for an already closed hour (a revision follows)
+	Duplicates int                // readings already stored (same sensor and timestamp)
+	Rejected   []ingest.Rejection // readings refused, each with its reason
+}
+
+// Ingest stores readings durably, in one transaction. now is the pipeline
+// clock; it decides what is too old or too far in the future. When Ingest
+// returns without error every accepted reading is on disk and the MQTT
+// messages carrying them may be acknowledged. A returned error means nothing
+// of the batch was stored.
+func (p *Pipeline) Ingest(now time.Time, readings []ingest.Reading) (IngestResult, error) {
+	p.mu.Lock()
+	defer p.mu.Unlock()
+	var res IngestResult
+	type accepted struct {
+		st *station
+		s  hourly.Sample
+	}
+	var acc []accepted
+	type mirror struct {
+		cursor    time.Time
+		hasCursor bool
+		watermark time.Time
+		dirty     bool
+	}
+	updates := map[*station]*mirror{}
+	var rejs []ingest.Rejection
+	var dups []string
+	err := p.db.Update(func(tx *bbolt.Tx) error {
+		acc, rejs, dups, res = acc[:0], rejs[:0], dups[:0], IngestResult{}
+		clear(updates)
+		seen := map[*station]map[string]seenState{}
+		for _, rd := range readings {
+			st := p.stations[stationID{rd.Site, rd.Station}]
+			if st == nil {
+				rejs = append(rejs, ingest.Rejection{Reason: ReasonUnknownStation, Site: rd.Site, Station: rd.Station, Sensor: rd.Sample.Sensor,
+					Err: fmt.Errorf("station %s/%s is not configured", rd.Site, rd.Station)})
+				continue
+			}
+			mu := updates[st]
+			if mu == nil {
+				mu = &mirror{cursor: st.cursor, hasCursor: st.hasCursor, watermark: st.watermark}
+				updates[st] = mu
+			}
+			sb, err := st.buckets(tx)
+			if err != nil {
+				return err
+			}
+			s := rd.Sample
+			s.Time = s.Time.UTC()
+			if s.Time.Before(time.Unix(0, 0)) {
+				rejs = append(rejs, ingest.Rejection{Site: st.site, Station: st.id, Reason: ingest.ReasonTooOld, Sensor: s.Sensor,
+					Err: fmt.Errorf("%s reading time %s is before 1970", s.Quantity, s.Time.Format(time.RFC3339))})
+				continue
+			}
+			if lim := now.Add(st.cfg.MaxFuture.D()); s.Time.After(lim) {
+				rejs = append(rejs, ingest.Rejection{Site: st.site, Station: st.id, Reason: ingest.ReasonTooFuture, Sensor: s.Sensor,
+					Err: fmt.Errorf("%s reading time %s is more than %s ahead of the gateway clock %s",
+						s.Quantity, s.Time.Format(time.RFC3339), st.cfg.MaxFuture, now.UTC().Format(time.RFC3339))})
+				continue
+			}
+			hour := st.hourStart(s.Time)
+			late := false
+			if mu.hasCursor && hour.Before(mu.cursor) {
+				var hs hourState
+				ok, err := getJSON(sb.hours, hourKey(hour), &hs)
+				if err != nil {
+					return err
+				}
+				end := hour.Add(time.Hour)
+				switch {
+				case !ok && noneClosed(sb):
+					// Nothing closed yet at or before this hour: move the cursor back.
+					mu.cursor = hour
+				case !ok || now.Sub(end) > st.cfg.LateWindow.D():
+					rejs = append(rejs, ingest.Rejection{Site: st.site, Station: st.id, Reason: ingest.ReasonTooOld, Sensor: s.Sensor,
+						Err: fmt.Errorf("%s reading at %s: its hour closed and the late window of %s has passed",
+							s.Quantity, s.Time.Format(time.RFC3339), st.cfg.LateWindow)})
+					continue
+				default:
+					late = true
+				}
+			}
+			key := sampleKey(hour, s)
+			if sb.samples.Get(key) != nil {
+				dups = append(dups, st.id)
+				continue
+			}
+			if rd.Counter {
+				inc, r, err := counterIncrement(sb.counters, s, rd.Rollover)
+				if err != nil {
+					return err
+				}
+				if r != nil {
+					r.Site, r.Station = st.site, st.id
+					rejs = append(rejs, *r)
+					continue
+				}
+				s.Value = inc
+			}
+			if err := sb.samples.Put(key, sampleValue(s)); err != nil {
+				return fmt.Errorf("store sample: %w", err)
+			}
+			if late {
+				var hs hourState
+				if _, err := getJSON(sb.hours, hourKey(hour), &hs); err != nil {
+					return err
+				}
+				if !hs.Dirty {
+					hs.Dirty = true
+					if err := putJSON(sb.hours, hourKey(hour), hs); err != nil {
+						return err
+					}
+				}
+				mu.dirty = true
+				res.Late++
+			}
+			if !mu.hasCursor {
+				mu.cursor, mu.hasCursor = hour, true
+			}
+			if s.Time.After(mu.watermark) {
+				mu.watermark = s.Time
+			}
+			if seen[st] == nil {
+				seen[st] = map[string]seenState{}
+			}
+			ss := seen[st][s.Sensor]
+			ss.Arrival = now.UTC()
+			if s.Time.After(ss.Reading) {
+				ss.Reading = s.Time
+			}
+			seen[st][s.Sensor] = ss
+			acc = append(acc, accepted{st, s})
+			res.Accepted++
+		}
+		for st, mu := range updates {
+			sb, err := st.buckets(tx)
+			if err != nil {
+				return err
+			}
+			if mu.hasCursor && (!st.hasCursor || !mu.cursor.Equal(st.cursor)) {
+				if err := putTime(sb.meta, keyCursor, mu.cursor); err != nil {
+					return err
+				}
+			}
+			if mu.watermark.After(st.watermark) {
+				if err := putTime(sb.meta, keyWatermark, mu.watermark); err != nil {
+					return err
+				}
+			}
+		}
+		for st, m := range seen {
+			sb, err := st.buckets(tx)
+			if err != nil {
+				return err
+			}
+			for sensor, ss := range m {
+				var old seenState
+				if _, err := getJSON(sb.seen, []byte(sensor), &old); err != nil {
+					return err
+				}
+				if old.Reading.After(ss.Reading) {
+					ss.Reading = old.Reading
+				}
+				if err := putJSON(sb.seen, []byte(sensor), ss); err != nil {
+					return err
+				}
+			}
+		}
+		return nil
+	})
+	if err != nil {
+		return IngestResult{}, fmt.Errorf("ingest: %w", err)
+	}
+	for st, mu := range updates {
+		st.cursor, st.hasCursor, st.watermark = mu.cursor, mu.hasCursor, mu.watermark
+		st.dirty = st.dirty || mu.dirty
+	}
+	for _, r := range rejs {
+		p.m.rejected.WithLabelValues(stationLabel(r.Station), string(r.Reason)).Inc()
+		p.rejects.note(now, stationLabel(r.Station), r)
+	}
+	res.Rejected = rejs
+	for _, id := range dups {
+		p.m.duplicates.WithLabelValues(id).Inc()
+	}
+	res.Duplicates = len(dups)
+	for _, a := range acc {
+		for _, o := range p.observers {
+			o.ObserveSample(a.st.site, a.st.id, a.s, now)
+		}
+	}
+	return res, nil
+}
+
+// noneClosed reports whether the station has never closed an hour. Hours
+// close in sequence and their states outlive the late window, so once one
+// closed the bucket is never empty again.
+func noneClosed(sb stationBuckets) bool {
+	k, _ := sb.hours.Cursor().First()
+	return k == nil
+}
+
+// counterIncrement turns a cumulative counter reading into the rain fallen
+// since the previous reading and stores the reading as the new previous one.
+// The first reading of a counter only sets the baseline (increment 0).
+func counterIncrement(b *bbolt.Bucket, s hourly.Sample, rollover float64) (float64, *ingest.Rejection, error) {
+	var prev counterState
+	ok, err := getJSON(b, []byte(s.Sensor), &prev)
+	if err != nil {
+		return 0, nil, err
+	}
+	if ok && !s.Time.After(prev.Time) {
+		return 0, &ingest.Rejection{Reason: ReasonStaleCounter, Sensor: s.Sensor,
+			Err: fmt.Errorf("rain counter reading at %s is not after the previous one at %s", s.Time.Format(time.RFC3339), prev.Time.Format(time.RFC3339))}, nil
+	}
+	inc := 0.0
+	if ok {
+		inc, err = ingest.CounterIncrement(prev.Value, s.Value, rollover)
+		if err != nil {
+			return 0, &ingest.Rejection{Reason: ReasonBadCounter, Sensor: s.Sensor, Err: fmt.Errorf("rain counter: %w", err)}, nil
+		}
+	}
+	if err := putJSON(b, []byte(s.Sensor), counterState{Time: s.Time, Value: s.Value}); err != nil {
+		return 0, nil, err
+	}
+	return inc, nil, nil
+}

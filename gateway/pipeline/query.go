@@ -1,0 +1,210 @@
+package pipeline
+
+import (
+	"encoding/json"
+	"fmt"
+	"sort"
+	"time"
+
+	"go.etcd.io/bbolt"
+
+	"etpulse/gateway/ingest"
+	"etpulse/hourly"
+)
+
+func jsonUnmarshal(b []byte, v any) error {
+	if err := json.Unmarshal(b, v); err != nil {
+		return fmt.Errorf("decode state: %w", err)
+	}
+	return nil
+}
+
+// Pending returns the records emitted but not yet marked published, oldest
+// hour first. After a crash between an hour's commit and its publication,
+// the gateway publishes these on start.
+func (p *Pipeline) Pending() ([]hourly.Record, error) {
+	var out []hourly.Record
+	err := p.db.View(func(tx *bbolt.Tx) error {
+		b := tx.Bucket(bucketPending)
+		if b == nil {
+			return nil
+		}
+		return b.ForEach(func(k, v []byte) error {
+			rec, err := UnmarshalRecord(v)
+			if err != nil {
+				return err
+			}
+			out = append(out, rec)
+			return nil
+		})
+	})
+	if err != nil {
+		return nil, fmt.Errorf("pending records: %w", err)
+	}
+	sort.SliceStable(out, func(i, j int) bool {
+		if !out[i].Start.Equal(out[j].Start) {
+			return out[i].Start.Before(out[j].Start)
+		}
+		return out[i].Revision < out[j].Revision
+	})
+	return out, nil
+}
+
+// MarkPublished forgets pending records once they are published.
+func (p *Pipeline) MarkPublished(recs ...hourly.Record) error {
+	err := p.db.Update(func(tx *bbolt.Tx) error {
+		b := tx.Bucket(bucketPending)
+		if b == nil {
+			return nil
+		}
+		for _, rec := range recs {
+			st := p.stations[stationID{rec.Site, rec.Station}]
+			if st == nil {
+				continue
+			}
+			if err := b.Delete(pendingKey(st, rec.Start, rec.Revision)); err != nil {
+				return err
+			}
+		}
+		return nil
+	})
+	if err != nil {
+		return fmt.Errorf("mark published: %w", err)
+	}
+	return nil
+}
+
+// Seen is when one sensor was last heard.
+type Seen struct {
+	Sensor  string
+	Arrival time.Time // pipeline clock when its latest reading was accepted
+	Reading time.Time // latest reading timestamp accepted
+}
+
+// LastSeen returns, for every sensor of the station that has been heard, when
+// it was last heard (persisted, so it survives restarts). Sensors never heard
+// are absent.
+func (p *Pipeline) LastSeen(site, stationID string) ([]Seen, error) {
+	st := p.lookup(site, stationID)
+	if st == nil {
+		return nil, fmt.Errorf("last seen: station %s/%s is not configured", site, stationID)
+	}
+	var out []Seen
+	err := p.db.View(func(tx *bbolt.Tx) error {
+		sb, err := st.buckets(tx)
+		if err != nil {
+			return err
+		}
+		return sb.seen.ForEach(func(k, v []byte) error {
+			var ss seenState
+			if err := jsonUnmarshal(v, &ss); err != nil {
+				return err
+			}
+			out = append(out, Seen{Sensor: string(k), Arrival: ss.Arrival, Reading: ss.Reading})
+			return nil
+		})
+	})
+	if err != nil {
+		return nil, fmt.Errorf("last seen: %w", err)
+	}
+	return out, nil
+}
+
+// Record returns the latest emitted record of a closed hour still held in
+// state (hours are kept for at least the late window and 25 hours).
+func (p *Pipeline) Record(site, stationID string, hourStart time.Time) (hourly.Record, bool, error) {
+	st := p.lookup(site, stationID)
+	if st == nil {
+		return hourly.Record{}, false, fmt.Errorf("record: station %s/%s is not configured", site, stationID)
+	}
+	var rec hourly.Record
+	found := false
+	err := p.db.View(func(tx *bbolt.Tx) error {
+		sb, err := st.buckets(tx)
+		if err != nil {
+			return err
+		}
+		var hs hourState
+		ok, err := getJSON(sb.hours, hourKey(hourStart.UTC()), &hs)
+		if err != nil || !ok || hs.Record == nil {
+			return err
+		}
+		rec, found = hs.Record.record(), true
+		return nil
+	})
+	if err != nil {
+		return hourly.Record{}, false, fmt.Errorf("record: %w", err)
+	}
+	return rec, found, nil
+}
+
+// NextDeadline returns the earliest wall-clock time at which a station's open
+// hour closes by silence, or the zero time when no station has an open hour.
+// The gateway sleeps until then when no readings arrive.
+func (p *Pipeline) NextDeadline() time.Time {
+	p.mu.Lock()
+	defer p.mu.Unlock()
+	var next time.Time
+	for _, st := range p.order {
+		if !st.hasCursor {
+			continue
+		}
+		d := st.cursor.Add(time.Hour + st.cfg.SilenceClose.D())
+		if next.IsZero() || d.Before(next) {
+			next = d
+		}
+	}
+	return next
+}
+
+// Flush closes every hour up to the one holding the latest reading of each
+// station, as if the stations' clocks had moved on by an hour plus the grace
+// period. Replay calls it at the end of its input.
+func (p *Pipeline) Flush() ([]hourly.Record, error) {
+	p.mu.Lock()
+	var latest time.Time
+	for _, st := range p.order {
+		if st.hasCursor && st.watermark.After(latest) {
+			latest = st.watermark
+		}
+	}
+	for _, st := range p.order {
+		if st.hasCursor && st.watermark.After(st.cursor) {
+			st.watermark = st.hourStart(st.watermark).Add(time.Hour + st.cfg.CloseGrace.D())
+		}
+	}
+	p.mu.Unlock()
+	return p.Tick(latest)
+}
+
+// Stations lists the configured stations as site/station pairs.
+func (p *Pipeline) Stations() [][2]string {
+	out := make([][2]string, 0, len(p.order))
+	for _, st := range p.order {
+		out = append(out, [2]string{st.site, st.id})
+	}
+	return out
+}
+
+// stationLabel is the metrics label of a station id: the id, or "unknown".
+func stationLabel(id string) string {
+	if id == "" {
+		return "unknown"
+	}
+	return id
+}
+
+// CountMessage counts one received MQTT message for the station ("" when the
+// topic matched no sensor).
+func (p *Pipeline) CountMessage(station string) {
+	p.m.received.WithLabelValues(stationLabel(station)).Inc()
+}
+
+// Reject counts and logs (rate-limited) a message or reading refused before
+// it reached Ingest, e.g. by the payload decoder.
+func (p *Pipeline) Reject(now time.Time, station string, rej ingest.Rejection) {
+	p.m.rejected.WithLabelValues(stationLabel(station), string(rej.Reason)).Inc()
+	p.rejects.note(now, stationLabel(station), rej)
+}
+
+func (p *Pipeline) lookup(site, id string) *station { return p.stations[stationID{site, id}] }

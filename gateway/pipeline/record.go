@@ -1,0 +1,239 @@
+package pipeline
+
+import (
+	"encoding/json"
+	"fmt"
+	"math"
+	"strconv"
+	"time"
+
+	"etpulse/hourly"
+)
+
+// num is a float64 that encodes NaN and infinities as JSON null instead of
+// failing the whole record.
+type num float64
+
+// MarshalJSON encodes finite values as numbers and the rest as null.
+func (n num) MarshalJSON() ([]byte, error) {
+	f := float64(n)
+	if math.IsNaN(f) || math.IsInf(f, 0) {
+		return []byte("null"), nil
+	}
+	return strconv.AppendFloat(nil, f, 'g', -1, 64), nil
+}
+
+// UnmarshalJSON decodes a number; null decodes as NaN.
+func (n *num) UnmarshalJSON(b []byte) error {
+	if string(b) == "null" {
+		*n = num(math.NaN())
+		return nil
+	}
+	f, err := strconv.ParseFloat(string(b), 64)
+	if err != nil {
+		return fmt.Errorf("decode number %q: %w", b, err)
+	}
+	*n = num(f)
+	return nil
+}
+
+// recordJSON is the wire form of an hourly.Record on the results topic and in
+// the state file. Field names carry their units; README.md documents them.
+type recordJSON struct {
+	Site       string                     `json:"site"`
+	Station    string                     `json:"station"`
+	Reference  hourly.Reference           `json:"reference"`
+	Start      time.Time                  `json:"start"`
+	End        time.Time                  `json:"end"`
+	LocalStart string                     `json:"local_start"`
+	Revision   int                        `json:"revision"`
+	Complete   bool                       `json:"complete"`
+	ETmm       *num                       `json:"et_mm"`
+	Inputs     inputsJSON                 `json:"inputs"`
+	RainMM     num                        `json:"rain_mm"`
+	Stats      map[hourly.Quantity]statsJ `json:"stats"`
+	Result     *resultJSON                `json:"result"`
+	Carry      carryJSON                  `json:"carry"`
+	Flags      []string                   `json:"flags"`
+	Fill       string                     `json:"fill,omitempty"`
+}
+
+type inputsJSON struct {
+	AirTempC     num  `json:"air_temp_c"`
+	EaKPa        num  `json:"ea_kpa"`
+	Wind2MS      num  `json:"wind2_m_s"`
+	SolarMJ      num  `json:"solar_mj_m2"`
+	NetRadMJ     *num `json:"net_rad_mj_m2,omitempty"`
+	SoilHeatMJ   *num `json:"soil_heat_mj_m2,omitempty"`
+	LengthSecond int  `json:"length_s"`
+}
+
+type statsJ struct {
+	Count    int `json:"count"`
+	Min      num `json:"min"`
+	Max      num `json:"max"`
+	Mean     num `json:"mean"`
+	Coverage num `json:"coverage"`
+}
+
+type carryJSON struct {
+	Fcd   num       `json:"fcd"`
+	From  time.Time `json:"from"`
+	Valid bool      `json:"valid"`
+}
+
+type resultJSON struct {
+	Reference        hourly.Reference `json:"reference"`
+	Day              bool             `json:"day"`
+	PressureKPa      num              `json:"pressure_kpa"`
+	GammaKPaC        num              `json:"gamma_kpa_c"`
+	DeltaKPaC        num              `json:"delta_kpa_c"`
+	EsKPa            num              `json:"es_kpa"`
+	EaKPa            num              `json:"ea_kpa"`
+	VPDKPa           num              `json:"vpd_kpa"`
+	SunElevationRad  num              `json:"sun_elevation_rad"`
+	RaMJ             num              `json:"ra_mj_m2"`
+	RsoMJ            num              `json:"rso_mj_m2"`
+	RsRso            num              `json:"rs_rso"`
+	Fcd              num              `json:"fcd"`
+	FcdSource        hourly.FcdSource `json:"fcd_source"`
+	RnsMJ            num              `json:"rns_mj_m2"`
+	RnlMJ            num              `json:"rnl_mj_m2"`
+	RnMJ             num              `json:"rn_mj_m2"`
+	GMJ              num              `json:"g_mj_m2"`
+	NetRadMeasured   bool             `json:"net_rad_measured"`
+	SoilHeatMeasured bool             `json:"soil_heat_measured"`
+	Cn               num              `json:"cn"`
+	Cd               num              `json:"cd"`
+	RadiationTermMM  num              `json:"radiation_term_mm"`
+	AeroTermMM       num              `json:"aerodynamic_term_mm"`
+	ETmm             num              `json:"et_mm"`
+}
+
+func carryToJSON(c hourly.Carry) carryJSON {
+	return carryJSON{Fcd: num(c.Fcd), From: c.From.UTC(), Valid: c.Valid}
+}
+
+func (c carryJSON) carry() hourly.Carry {
+	f := float64(c.Fcd)
+	if math.IsNaN(f) {
+		f = 0
+	}
+	return hourly.Carry{Fcd: f, From: c.From, Valid: c.Valid}
+}
+
+func toJSON(rec hourly.Record) recordJSON {
+	j := recordJSON{
+		Site: rec.Site, Station: rec.Station, Reference: rec.Reference,
+		Start: rec.Start.UTC(), End: rec.End.UTC(), LocalStart: rec.LocalStart,
+		Revision: rec.Revision, Complete: rec.Complete,
+		Inputs: inputsJSON{
+			AirTempC: num(rec.Inputs.AirTemp), EaKPa: num(rec.Inputs.Ea),
+			Wind2MS: num(rec.Inputs.Wind2), SolarMJ: num(rec.Inputs.Solar),
+			LengthSecond: int(rec.End.Sub(rec.Start) / time.Second),
+		},
+		RainMM: num(rec.Rain),
+		Stats:  make(map[hourly.Quantity]statsJ, len(rec.Stats)),
+		Carry:  carryToJSON(rec.Carry),
+		Flags:  append([]string{}, rec.Flags...),
+		Fill:   rec.Fill,
+	}
+	if rec.Inputs.HasNetRad {
+		v := num(rec.Inputs.NetRad)
+		j.Inputs.NetRadMJ = &v
+	}
+	if rec.Inputs.HasSoilHeat {
+		v := num(rec.Inputs.SoilHeat)
+		j.Inputs.SoilHeatMJ = &v
+	}
+	for q, s := range rec.Stats {
+		j.Stats[q] = statsJ{Count: s.Count, Min: num(s.Min), Max: num(s.Max), Mean: num(s.Mean), Coverage: num(s.Coverage)}
+	}
+	if r := rec.Result; r != nil {
+		et := num(r.ET)
+		j.ETmm = &et
+		j.Result = &resultJSON{
+			Reference: r.Reference, Day: r.Day,
+			PressureKPa: num(r.Pressure), GammaKPaC: num(r.Gamma), DeltaKPaC: num(r.Delta),
+			EsKPa: num(r.Es), EaKPa: num(r.Ea), VPDKPa: num(r.VPD),
+			SunElevationRad: num(r.SunElevation), RaMJ: num(r.Ra), RsoMJ: num(r.Rso),
+			RsRso: num(r.RsRso), Fcd: num(r.Fcd), FcdSource: r.FcdSource,
+			RnsMJ: num(r.Rns), RnlMJ: num(r.Rnl), RnMJ: num(r.Rn), GMJ: num(r.G),
+			NetRadMeasured: r.NetRadMeasured, SoilHeatMeasured: r.SoilHeatMeasured,
+			Cn: num(r.Cn), Cd: num(r.Cd),
+			RadiationTermMM: num(r.RadiationTerm), AeroTermMM: num(r.AerodynamicTerm),
+			ETmm: num(r.ET),
+		}
+	}
+	return j
+}
+
+func (j recordJSON) record() hourly.Record {
+	rec := hourly.Record{
+		Site: j.Site, Station: j.Station, Reference: j.Reference,
+		Start: j.Start.UTC(), End: j.End.UTC(), LocalStart: j.LocalStart,
+		Revision: j.Revision, Complete: j.Complete,
+		Inputs: hourly.Hour{
+			Start: j.Start.UTC(), Length: time.Duration(j.Inputs.LengthSecond) * time.Second,
+			AirTemp: float64(j.Inputs.AirTempC), Ea: float64(j.Inputs.EaKPa),
+			Wind2: float64(j.Inputs.Wind2MS), Solar: float64(j.Inputs.SolarMJ),
+		},
+		Rain:  float64(j.RainMM),
+		Stats: make(map[hourly.Quantity]hourly.Stats, len(j.Stats)),
+		Carry: j.Carry.carry(),
+		Flags: append([]string(nil), j.Flags...),
+		Fill:  j.Fill,
+	}
+	if j.Inputs.NetRadMJ != nil {
+		rec.Inputs.NetRad, rec.Inputs.HasNetRad = float64(*j.Inputs.NetRadMJ), true
+	}
+	if j.Inputs.SoilHeatMJ != nil {
+		rec.Inputs.SoilHeat, rec.Inputs.HasSoilHeat = float64(*j.Inputs.SoilHeatMJ), true
+	}
+	for q, s := range j.Stats {
+		rec.Stats[q] = hourly.Stats{Count: s.Count, Min: float64(s.Min), Max: float64(s.Max), Mean: float64(s.Mean), Coverage: float64(s.Coverage)}
+	}
+	if r := j.Result; r != nil {
+		rec.Result = &hourly.Result{
+			Reference: r.Reference, Day: r.Day,
+			Pressure: float64(r.PressureKPa), Gamma: float64(r.GammaKPaC), Delta: float64(r.DeltaKPaC),
+			Es: float64(r.EsKPa), Ea: float64(r.EaKPa), VPD: float64(r.VPDKPa),
+			SunElevation: float64(r.SunElevationRad), Ra: float64(r.RaMJ), Rso: float64(r.RsoMJ),
+			RsRso: float64(r.RsRso), Fcd: float64(r.Fcd), FcdSource: r.FcdSource,
+			Rns: float64(r.RnsMJ), Rnl: float64(r.RnlMJ), Rn: float64(r.RnMJ), G: float64(r.GMJ),
+			NetRadMeasured: r.NetRadMeasured, SoilHeatMeasured: r.SoilHeatMeasured,
+			Cn: float64(r.Cn), Cd: float64(r.Cd),
+			RadiationTerm: float64(r.RadiationTermMM), AerodynamicTerm: float64(r.AeroTermMM),
+			ET: float64(r.ETmm),
+		}
+	}
+	return rec
+}
+
+// MarshalRecord encodes a record as the JSON published on the results topic
+// (field list in README.md, "Hourly records over MQTT").
+func MarshalRecord(rec hourly.Record) ([]byte, error) {
+	b, err := json.Marshal(toJSON(rec))
+	if err != nil {
+		return nil, fmt.Errorf("encode record %s/%s %s: %w", rec.Site, rec.Station, rec.Start.Format(time.RFC3339), err)
+	}
+	return b, nil
+}
+
+// UnmarshalRecord decodes a record published by MarshalRecord.
+func UnmarshalRecord(b []byte) (hourly.Record, error) {
+	var j recordJSON
+	if err := json.Unmarshal(b, &j); err != nil {
+		return hourly.Record{}, fmt.Errorf("decode record: %w", err)
+	}
+	return j.record(), nil
+}
+
+// ResultsTopic is the topic a station's hourly records are published on:
+// <prefix>/<site>/<station>/hour.
+func ResultsTopic(prefix, site, station string) string {
+	return prefix + "/" + site + "/" + station + "/hour"
+}
+
+// DefaultTopicPrefix is the first level of every topic the gateway publishes.
+const DefaultTopicPrefix = "etpulse"

@@ -1,0 +1,184 @@
+package pipeline
+
+import (
+	"encoding/binary"
+	"encoding/json"
+	"fmt"
+	"math"
+	"time"
+
+	"go.etcd.io/bbolt"
+
+	"etpulse/hourly"
+)
+
+// Layout of the pipeline's part of the state file:
+//
+//	pipeline/                     top bucket
+//	  <site>/<station>/           one bucket per station
+//	    samples/   hour(8) | time(8) | sensor  -> value(8) | quantity
+//	    hours/     hour(8)                     -> JSON hourState (closed hours)
+//	    meta/      "cursor", "watermark", "carry"
+//	    counters/  sensor                      -> JSON counterState
+//	    seen/      sensor                      -> JSON seenState
+//	pipeline.pending/  <site>/<station>/hour(8)/revision(8) -> record JSON
+//
+// hour and time are big-endian unsigned Unix seconds and nanoseconds, so a
+// cursor walks hours and samples in time order. Times before 1970 are
+// refused on ingest.
+var (
+	bucketRoot     = []byte("pipeline")
+	bucketPending  = []byte("pipeline.pending")
+	bucketSamples  = []byte("samples")
+	bucketHours    = []byte("hours")
+	bucketMeta     = []byte("meta")
+	bucketCounters = []byte("counters")
+	bucketSeen     = []byte("seen")
+
+	keyCursor    = []byte("cursor")
+	keyWatermark = []byte("watermark")
+	keyCarry     = []byte("carry")
+)
+
+// hourState is what the pipeline keeps for a closed hour.
+type hourState struct {
+	Revision int          `json:"revision"`
+	CarryIn  carryJSON    `json:"carry_in"` // night carry the hour was computed with
+	Dirty    bool         `json:"dirty"`    // a late reading arrived; recompute on the next tick
+	TMin     *float64     `json:"t_min,omitempty"`
+	TMax     *float64     `json:"t_max,omitempty"`
+	ClosedAt time.Time    `json:"closed_at"`
+	Record   *recordJSON  `json:"record,omitempty"`
+}
+
+// counterState is the previous value of a cumulative rain counter.
+type counterState struct {
+	Time  time.Time `json:"time"`
+	Value float64   `json:"value"`
+}
+
+// seenState is when a sensor was last heard.
+type seenState struct {
+	Arrival time.Time `json:"arrival"` // pipeline clock when the reading was accepted
+	Reading time.Time `json:"reading"` // the reading's own timestamp (latest seen)
+}
+
+func u64(v uint64) []byte {
+	var b [8]byte
+	binary.BigEndian.PutUint64(b[:], v)
+	return b[:]
+}
+
+func hourKey(start time.Time) []byte { return u64(uint64(start.Unix())) }
+
+func hourFromKey(k []byte) time.Time {
+	return time.Unix(int64(binary.BigEndian.Uint64(k[:8])), 0).UTC()
+}
+
+func sampleKey(hour time.Time, s hourly.Sample) []byte {
+	k := make([]byte, 0, 16+len(s.Sensor))
+	k = append(k, hourKey(hour)...)
+	k = append(k, u64(uint64(s.Time.UnixNano()))...)
+	return append(k, s.Sensor...)
+}
+
+func sampleValue(s hourly.Sample) []byte {
+	v := make([]byte, 0, 8+len(s.Quantity))
+	v = append(v, u64(math.Float64bits(s.Value))...)
+	return append(v, s.Quantity...)
+}
+
+func decodeSample(k, v []byte) (hourly.Sample, error) {
+	if len(k) < 16 || len(v) < 8 {
+		return hourly.Sample{}, fmt.Errorf("decode sample: short key or value (%d, %d bytes)", len(k), len(v))
+	}
+	return hourly.Sample{
+		Sensor:   string(k[16:]),
+		Quantity: hourly.Quantity(v[8:]),
+		Time:     time.Unix(0, int64(binary.BigEndian.Uint64(k[8:16]))).UTC(),
+		Value:    math.Float64frombits(binary.BigEndian.Uint64(v[:8])),
+	}, nil
+}
+
+// stationBuckets are one station's buckets inside a transaction.
+type stationBuckets struct {
+	samples, hours, meta, counters, seen *bbolt.Bucket
+}
+
+// buckets returns the station's buckets, creating them in a writable tx.
+func (st *station) buckets(tx *bbolt.Tx) (stationBuckets, error) {
+	var sb stationBuckets
+	root := tx.Bucket(bucketRoot)
+	if root == nil {
+		if !tx.Writable() {
+			return sb, errNoState
+		}
+		var err error
+		if root, err = tx.CreateBucketIfNotExists(bucketRoot); err != nil {
+			return sb, fmt.Errorf("create bucket: %w", err)
+		}
+	}
+	b := root.Bucket(st.key)
+	if b == nil {
+		if !tx.Writable() {
+			return sb, errNoState
+		}
+		var err error
+		if b, err = root.CreateBucket(st.key); err != nil {
+			return sb, fmt.Errorf("create station bucket: %w", err)
+		}
+		for _, name := range [][]byte{bucketSamples, bucketHours, bucketMeta, bucketCounters, bucketSeen} {
+			if _, err := b.CreateBucket(name); err != nil {
+				return sb, fmt.Errorf("create station bucket: %w", err)
+			}
+		}
+	}
+	sb.samples = b.Bucket(bucketSamples)
+	sb.hours = b.Bucket(bucketHours)
+	sb.meta = b.Bucket(bucketMeta)
+	sb.counters = b.Bucket(bucketCounters)
+	sb.seen = b.Bucket(bucketSeen)
+	if sb.samples == nil || sb.hours == nil || sb.meta == nil || sb.counters == nil || sb.seen == nil {
+		return sb, fmt.Errorf("station %s: state file is missing a bucket", st.key)
+	}
+	return sb, nil
+}
+
+func getTime(b *bbolt.Bucket, key []byte) (time.Time, bool) {
+	v := b.Get(key)
+	if len(v) != 8 {
+		return time.Time{}, false
+	}
+	return time.Unix(0, int64(binary.BigEndian.Uint64(v))).UTC(), true
+}
+
+func putTime(b *bbolt.Bucket, key []byte, t time.Time) error {
+	return b.Put(key, u64(uint64(t.UnixNano())))
+}
+
+func getJSON(b *bbolt.Bucket, key []byte, v any) (bool, error) {
+	raw := b.Get(key)
+	if raw == nil {
+		return false, nil
+	}
+	if err := json.Unmarshal(raw, v); err != nil {
+		return false, fmt.Errorf("decode %s: %w", key, err)
+	}
+	return true, nil
+}
+
+func putJSON(b *bbolt.Bucket, key []byte, v any) error {
+	raw, err := json.Marshal(v)
+	if err != nil {
+		return fmt.Errorf("encode %s: %w", key, err)
+	}
+	return b.Put(key, raw)
+}
+
+func pendingKey(st *station, hour time.Time, revision int) []byte {
+	k := make([]byte, 0, len(st.key)+17)
+	k = append(k, st.key...)
+	k = append(k, '/')
+	k = append(k, hourKey(hour)...)
+	return append(k, u64(uint64(revision))...)
+}
