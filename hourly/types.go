@@ -47,6 +47,13 @@ type Station struct {
 	Elevation float64  // m above sea level
 	UTCOffset float64  // hours of the station's standard time relative to UTC, e.g. -8
 	ClearSky  ClearSky // Rso form; empty means ClearSkySimple
+
+	// Turbidity is Kt of the ASCE-EWRI 2005 Appendix D clear-sky form
+	// (1.0 clean air, 0.5 extremely turbid); zero means 1.0.
+	Turbidity float64
+	// NightRsRso is the Rs/Rso assumed for the night cloudiness function when
+	// no carried value exists (FcdDefault); zero means DefaultNightRsRso (0.8).
+	NightRsRso float64
 }
 
 // Hour is one period (normally one clock hour) of aggregated weather, the
@@ -127,7 +134,10 @@ type Result struct {
 
 	RadiationTerm   float64 // 0.408 Δ (Rn - G) / (Δ + γ (1 + Cd u2)), mm per period
 	AerodynamicTerm float64 // γ Cn/(T+273) u2 (es - ea) / (Δ + γ (1 + Cd u2)), mm per period
-	ET              float64 // reference ET, mm per period (never negative? see Compute)
+	// ET is the reference ET in mm per period as the equation gives it. It
+	// may be slightly negative in calm humid night hours (condensation/dew);
+	// it is kept so, for audit. Water-balance callers use WaterUse.
+	ET float64
 }
 
 // Quantity names a measured weather quantity.

@@ -1,0 +1,267 @@
+package hourly
+
+import (
+	"errors"
+	"fmt"
+	"math"
+	"time"
+)
+
+// ErrConfig is wrapped by every error about a bad station description or
+// reference, as opposed to bad weather data (ErrInput).
+var ErrConfig = errors.New("bad configuration")
+
+// Tolerances of input validation.
+const (
+	// RHTolerance is how far (in % RH) a relative humidity may lie outside
+	// 0..100 and still be accepted, clamped to the range (capacitive sensors
+	// read a few % above 100 in fog; common practice, no source).
+	RHTolerance = 3.0
+	// EaTolerance is the relative amount by which ea may exceed e°(T) and
+	// still be accepted, clamped to e°(T). Averaging per-sample ea over an
+	// hour with changing temperature lands slightly above e° of the mean
+	// temperature at saturation (common practice, no source).
+	EaTolerance = 0.03
+	// SolarTolerance is the mean flux in W m-2 by which solar radiation may
+	// be negative (pyranometer night offsets) and still be accepted, counted
+	// as zero (common practice, no source).
+	SolarTolerance = 10.0
+	// MinAirTemp and MaxAirTemp bound a plausible air temperature, °C
+	// (beyond the recorded extremes of about -89 and +57; from memory).
+	MinAirTemp = -90.0
+	MaxAirTemp = 65.0
+	// MaxWind bounds a plausible hourly mean wind speed at 2 m, m/s.
+	MaxWind = 100.0
+	// MaxSolar bounds a plausible mean solar flux, W m-2 (the solar
+	// constant is about 1367 W m-2; common practice, no source).
+	MaxSolar = 1600.0
+	// MaxFlux bounds the magnitude of a measured net radiation or soil heat
+	// flux mean, W m-2 (common practice, no source).
+	MaxFlux = 1500.0
+)
+
+// constants of one reference surface for hourly periods.
+type refConstants struct {
+	cnDay, cdDay     float64 // ASCE-EWRI 2005 Table 1
+	cnNight, cdNight float64
+	gDay, gNight     float64 // G/Rn ratios, ASCE-EWRI 2005 eq. 65/66, FAO-56 eq. 45/46
+	sigmaHour        float64 // Stefan-Boltzmann constant per hour
+}
+
+func hourlyConstants(ref Reference) (refConstants, bool) {
+	switch ref {
+	case Short: // ASCE-EWRI 2005 Table 1, hourly short reference
+		return refConstants{37, 0.24, 37, 0.96, 0.1, 0.5, SigmaHourASCE}, true
+	case Tall: // ASCE-EWRI 2005 Table 1, hourly tall reference
+		return refConstants{66, 0.25, 66, 1.7, 0.04, 0.2, SigmaHourASCE}, true
+	case FAO56: // FAO-56 eq. 53 (rs = 70 s/m at all hours), G by FAO-56 eq. 45/46
+		return refConstants{37, 0.34, 37, 0.34, 0.1, 0.5, SigmaDayFAO / 24}, true
+	}
+	return refConstants{}, false
+}
+
+// References lists the supported references in a stable order.
+var References = []Reference{Short, Tall, FAO56}
+
+// ParseReference returns the Reference named s ("short", "tall", "fao56").
+func ParseReference(s string) (Reference, error) {
+	r := Reference(s)
+	if _, ok := hourlyConstants(r); !ok {
+		return "", fmt.Errorf("parse reference: %q is not one of short, tall, fao56: %w", s, ErrConfig)
+	}
+	return r, nil
+}
+
+// ParseClearSky returns the ClearSky form named s ("simple", "full"; "" is simple).
+func ParseClearSky(s string) (ClearSky, error) {
+	switch ClearSky(s) {
+	case "", ClearSkySimple:
+		return ClearSkySimple, nil
+	case ClearSkyFull:
+		return ClearSkyFull, nil
+	}
+	return "", fmt.Errorf("parse clear-sky form: %q is not one of simple, full: %w", s, ErrConfig)
+}
+
+func finite(v float64) bool { return !math.IsNaN(v) && !math.IsInf(v, 0) }
+
+// Validate checks a station description: finite latitude -90..90, longitude
+// -180..180, elevation -500..9000 m, UTC offset -14..14 h, a known clear-sky
+// form, turbidity 0..1 and night Rs/Rso 0 or 0.3..1. Errors wrap ErrConfig.
+func (st Station) Validate() error {
+	switch {
+	case !finite(st.Latitude) || st.Latitude < -90 || st.Latitude > 90:
+		return fmt.Errorf("station latitude: %v degrees outside -90..90: %w", st.Latitude, ErrConfig)
+	case !finite(st.Longitude) || st.Longitude < -180 || st.Longitude > 180:
+		return fmt.Errorf("station longitude: %v degrees outside -180..180 (east positive): %w", st.Longitude, ErrConfig)
+	case !finite(st.Elevation) || st.Elevation < -500 || st.Elevation > 9000:
+		return fmt.Errorf("station elevation: %v m outside -500..9000: %w", st.Elevation, ErrConfig)
+	case !finite(st.UTCOffset) || st.UTCOffset < -14 || st.UTCOffset > 14:
+		return fmt.Errorf("station utc offset: %v h outside -14..14: %w", st.UTCOffset, ErrConfig)
+	case st.ClearSky != "" && st.ClearSky != ClearSkySimple && st.ClearSky != ClearSkyFull:
+		return fmt.Errorf("station clear-sky form: %q is not one of simple, full: %w", st.ClearSky, ErrConfig)
+	case !finite(st.Turbidity) || st.Turbidity < 0 || st.Turbidity > 1:
+		return fmt.Errorf("station turbidity: %v outside 0..1: %w", st.Turbidity, ErrConfig)
+	case !finite(st.NightRsRso) || (st.NightRsRso != 0 && (st.NightRsRso < 0.3 || st.NightRsRso > 1)):
+		return fmt.Errorf("station night Rs/Rso: %v outside 0.3..1: %w", st.NightRsRso, ErrConfig)
+	}
+	return nil
+}
+
+// checkFlux validates a measured flux held as MJ m-2 over hours hours.
+func checkFlux(name string, mj, hours float64) error {
+	if !finite(mj) {
+		return fmt.Errorf("%s: %v MJ/m2 is not a finite number: %w", name, mj, ErrInput)
+	}
+	if w := MJToWatts(mj, hours); math.Abs(w) > MaxFlux {
+		return fmt.Errorf("%s: mean %.4g W/m2 outside -%g..%g: %w", name, w, MaxFlux, MaxFlux, ErrInput)
+	}
+	return nil
+}
+
+// Compute returns the reference ET of one period (normally an hour, at most
+// one hour) with every intermediate, and the cloudiness carry to pass to the
+// next period.
+//
+// Equations: ASCE-EWRI 2005 eq. 1 with the Table 1 hourly constants for
+// Short and Tall, FAO-56 eq. 53 for FAO56. Daytime is Rn > 0; it selects Cd
+// and the G/Rn ratio. A measured Rn (h.HasNetRad) and/or G (h.HasSoilHeat)
+// replaces the estimate. The cloudiness function fcd is computed from Rs/Rso
+// when the sun at mid-period is above 0.3 rad and returned in the new carry;
+// otherwise the carried value is used, or, when carry is not Valid, the fcd
+// of the station's NightRsRso (FcdDefault). The caller resets carry to the
+// zero value after a gap in the data if it does not want it bridged.
+//
+// Result.ET keeps the value of the equation, which can be slightly negative
+// at night (dew); see Result.WaterUse.
+//
+// Bad weather values return an error wrapping ErrInput that names the
+// quantity and value; a bad station or reference wraps ErrConfig. On error
+// the carry is returned unchanged.
+func Compute(st Station, ref Reference, h Hour, carry Carry) (Result, Carry, error) {
+	var r Result
+	c, ok := hourlyConstants(ref)
+	if !ok {
+		return r, carry, fmt.Errorf("compute: reference %q is not one of short, tall, fao56: %w", ref, ErrConfig)
+	}
+	if err := st.Validate(); err != nil {
+		return r, carry, fmt.Errorf("compute: %w", err)
+	}
+	length := h.Length
+	if length == 0 {
+		length = time.Hour
+	}
+	if length < time.Minute || length > time.Hour {
+		return r, carry, fmt.Errorf("compute: period length: %v outside 1m..1h: %w", length, ErrInput)
+	}
+	hours := length.Hours()
+
+	t := h.AirTemp
+	if err := checkTemp("air temperature", t); err != nil {
+		return r, carry, fmt.Errorf("compute: %w", err)
+	}
+	if !finite(h.Wind2) || h.Wind2 < 0 || h.Wind2 > MaxWind {
+		return r, carry, fmt.Errorf("compute: wind speed at 2 m: %v m/s outside 0..%g: %w", h.Wind2, MaxWind, ErrInput)
+	}
+	rs := h.Solar
+	if !finite(rs) {
+		return r, carry, fmt.Errorf("compute: solar radiation: %v MJ/m2 is not a finite number: %w", rs, ErrInput)
+	}
+	if w := MJToWatts(rs, hours); w < -SolarTolerance || w > MaxSolar {
+		return r, carry, fmt.Errorf("compute: solar radiation: mean %.4g W/m2 outside 0..%g: %w", w, MaxSolar, ErrInput)
+	}
+	rs = math.Max(rs, 0)
+	if h.HasNetRad {
+		if err := checkFlux("net radiation", h.NetRad, hours); err != nil {
+			return r, carry, fmt.Errorf("compute: %w", err)
+		}
+	}
+	if h.HasSoilHeat {
+		if err := checkFlux("soil heat flux", h.SoilHeat, hours); err != nil {
+			return r, carry, fmt.Errorf("compute: %w", err)
+		}
+	}
+
+	r.Reference = ref
+	r.Pressure = Pressure(st.Elevation)         // FAO-56 eq. 7
+	r.Gamma = PsychrometricConstant(r.Pressure) // FAO-56 eq. 8
+	r.Es = SatVapourPressure(t)                 // FAO-56 eq. 11 at the hourly mean T
+	r.Delta = satSlopeFrom(t, r.Es)             // FAO-56 eq. 13
+
+	ea := h.Ea
+	if !finite(ea) || ea < 0 {
+		return Result{}, carry, fmt.Errorf("compute: actual vapour pressure: %v kPa must be >= 0: %w", ea, ErrInput)
+	}
+	if ea > r.Es {
+		if ea > r.Es*(1+EaTolerance) {
+			return Result{}, carry, fmt.Errorf("compute: actual vapour pressure: %.4g kPa exceeds saturation %.4g kPa at %.4g degC: %w", ea, r.Es, t, ErrInput)
+		}
+		ea = r.Es
+	}
+	r.Ea = ea
+	r.VPD = r.Es - ea
+
+	sun := SunForPeriod(st, h.Start, length)
+	r.SunElevation = sun.Elevation
+	r.Ra = sun.Ra
+	if st.ClearSky == ClearSkyFull {
+		r.Rso = RsoFull(sun.Ra, r.Pressure, ea, sun.SinBeta, st.Turbidity) // ASCE-EWRI 2005 eq. D.1
+	} else {
+		r.Rso = RsoSimple(sun.Ra, st.Elevation) // ASCE-EWRI 2005 eq. 47
+	}
+
+	switch {
+	case sun.Elevation > HighSunElevation && r.Rso > 0:
+		r.RsRso = ClampRsRso(rs / r.Rso)
+		r.Fcd = CloudFactor(r.RsRso) // ASCE-EWRI 2005 eq. 45
+		r.FcdSource = FcdComputed
+		carry = Carry{Fcd: r.Fcd, From: h.Start, Valid: true}
+	case carry.Valid && finite(carry.Fcd) && carry.Fcd >= 0.05 && carry.Fcd <= 1:
+		r.Fcd = carry.Fcd
+		r.RsRso = (r.Fcd + 0.35) / 1.35
+		r.FcdSource = FcdCarried
+	default:
+		r.RsRso = st.NightRsRso
+		if r.RsRso == 0 {
+			r.RsRso = DefaultNightRsRso
+		}
+		r.Fcd = CloudFactor(r.RsRso)
+		r.FcdSource = FcdDefault
+	}
+
+	r.Rns = NetShortwave(rs)                             // FAO-56 eq. 38
+	r.Rnl = NetLongwave(c.sigmaHour*hours, t, ea, r.Fcd) // ASCE-EWRI 2005 eq. 44
+	if h.HasNetRad {
+		r.Rn = h.NetRad
+		r.NetRadMeasured = true
+	} else {
+		r.Rn = r.Rns - r.Rnl // FAO-56 eq. 40
+	}
+	r.Day = r.Rn > 0
+	gRatio := c.gNight
+	r.Cn, r.Cd = c.cnNight, c.cdNight
+	if r.Day {
+		gRatio = c.gDay
+		r.Cn, r.Cd = c.cnDay, c.cdDay
+	}
+	if h.HasSoilHeat {
+		r.G = h.SoilHeat
+		r.SoilHeatMeasured = true
+	} else {
+		r.G = gRatio * r.Rn // ASCE-EWRI 2005 eq. 65/66, FAO-56 eq. 45/46
+	}
+
+	// ASCE-EWRI 2005 eq. 1 (FAO-56 eq. 53 with Cn 37, Cd 0.34); Cn is per
+	// hour, so the aerodynamic term scales with the period length.
+	den := r.Delta + r.Gamma*(1+r.Cd*h.Wind2)
+	r.RadiationTerm = 0.408 * r.Delta * (r.Rn - r.G) / den
+	r.AerodynamicTerm = r.Gamma * r.Cn / (t + 273) * h.Wind2 * r.VPD * hours / den
+	r.ET = r.RadiationTerm + r.AerodynamicTerm
+	return r, carry, nil
+}
+
+// WaterUse returns ET limited below at zero, the value a water balance
+// should debit (dew does not refill the root zone).
+func (r Result) WaterUse() float64 {
+	return math.Max(r.ET, 0)
+}

@@ -1,0 +1,271 @@
+package hourly
+
+import (
+	"math"
+	"time"
+)
+
+// Radiation constants.
+const (
+	// SolarConstant is Gsc in MJ m-2 min-1 (FAO-56 eq. 21/28).
+	SolarConstant = 0.0820
+	// Albedo of the grass/alfalfa reference surface (FAO-56 eq. 38,
+	// ASCE-EWRI 2005 eq. 43).
+	Albedo = 0.23
+	// SigmaHourASCE is the Stefan-Boltzmann constant per hour used by
+	// ASCE-EWRI 2005 eq. 44, MJ K-4 m-2 h-1.
+	SigmaHourASCE = 2.042e-10
+	// SigmaDayASCE is the daily Stefan-Boltzmann constant of ASCE-EWRI 2005
+	// eq. 39, MJ K-4 m-2 d-1.
+	SigmaDayASCE = 4.901e-9
+	// SigmaDayFAO is the daily Stefan-Boltzmann constant of FAO-56 eq. 39,
+	// MJ K-4 m-2 d-1; FAO-56 uses SigmaDayFAO/24 for hourly periods.
+	SigmaDayFAO = 4.903e-9
+	// KelvinLongwave is the Kelvin offset of the long-wave terms (FAO-56
+	// eq. 39, ASCE-EWRI 2005 eq. 44). The aerodynamic term uses 273.
+	KelvinLongwave = 273.16
+	// HighSunElevation is the sun elevation (rad) above which the hourly
+	// cloudiness function is computed from Rs/Rso; below it the value of the
+	// last such hour is carried (ASCE-EWRI 2005, notes to eq. 45).
+	HighSunElevation = 0.3
+	// DefaultNightRsRso is the Rs/Rso assumed for the cloudiness function
+	// when no carried value exists: FAO-56 Example 19 assumes 0.8 for its
+	// night hour (FAO-56 ch. 3 suggests about 0.7-0.8 in arid and
+	// semi-arid and 0.4-0.6 in humid climates; from memory).
+	DefaultNightRsRso = 0.8
+)
+
+// InverseRelativeDistance returns dr, the inverse relative Earth-Sun
+// distance on day of year doy (FAO-56 eq. 23).
+func InverseRelativeDistance(doy int) float64 {
+	return 1 + 0.033*math.Cos(2*math.Pi/365*float64(doy)) // FAO-56 eq. 23
+}
+
+// SolarDeclination returns δ in rad on day of year doy (FAO-56 eq. 24).
+func SolarDeclination(doy int) float64 {
+	return 0.409 * math.Sin(2*math.Pi/365*float64(doy)-1.39) // FAO-56 eq. 24
+}
+
+// SeasonalCorrection returns Sc, the seasonal correction for solar time in
+// hours on day of year doy (FAO-56 eq. 32/33, ASCE-EWRI 2005 eq. 57/58).
+func SeasonalCorrection(doy int) float64 {
+	b := 2 * math.Pi * float64(doy-81) / 364                             // FAO-56 eq. 33
+	return 0.1645*math.Sin(2*b) - 0.1255*math.Cos(b) - 0.025*math.Sin(b) // FAO-56 eq. 32
+}
+
+// SunsetHourAngle returns ωs in rad for latitude lat (rad) and declination
+// decl (rad) (FAO-56 eq. 25). Polar night gives 0 and polar day π, where the
+// equation itself is undefined.
+func SunsetHourAngle(lat, decl float64) float64 {
+	x := -math.Tan(lat) * math.Tan(decl)
+	switch {
+	case x >= 1:
+		return 0
+	case x <= -1:
+		return math.Pi
+	}
+	return math.Acos(x) // FAO-56 eq. 25
+}
+
+// DailyRa returns the daily extraterrestrial radiation in MJ m-2 d-1 at
+// latitude latDeg (degrees, north positive) on day of year doy (FAO-56
+// eq. 21).
+func DailyRa(latDeg float64, doy int) float64 {
+	lat := latDeg * math.Pi / 180 // FAO-56 eq. 22
+	decl := SolarDeclination(doy)
+	ws := SunsetHourAngle(lat, decl)
+	ra := 24 * 60 / math.Pi * SolarConstant * InverseRelativeDistance(doy) *
+		(ws*math.Sin(lat)*math.Sin(decl) + math.Cos(lat)*math.Cos(decl)*math.Sin(ws)) // FAO-56 eq. 21
+	return math.Max(ra, 0)
+}
+
+// DaylightHours returns the maximum possible sunshine duration N in hours at
+// latitude latDeg (degrees) on day of year doy (FAO-56 eq. 34).
+func DaylightHours(latDeg float64, doy int) float64 {
+	return 24 / math.Pi * SunsetHourAngle(latDeg*math.Pi/180, SolarDeclination(doy)) // FAO-56 eq. 34
+}
+
+// SolarPeriod describes the sun during one period at one station.
+type SolarPeriod struct {
+	DayOfYear   int     // J of the period mid-point in station standard time
+	MidHour     float64 // standard clock time of the mid-point, hours (t of FAO-56 eq. 31)
+	Hours       float64 // period length t1, hours
+	Dr          float64 // inverse relative Earth-Sun distance (FAO-56 eq. 23)
+	Declination float64 // δ, rad (FAO-56 eq. 24)
+	Sc          float64 // seasonal correction for solar time, hours (FAO-56 eq. 32)
+	Omega       float64 // solar time angle at the mid-point, rad, in [-π, π) (FAO-56 eq. 31)
+	Omega1      float64 // solar time angle at the start, rad, after clipping to ±ωs
+	Omega2      float64 // solar time angle at the end, rad, after clipping to ±ωs
+	OmegaS      float64 // sunset hour angle, rad (FAO-56 eq. 25)
+	SinBeta     float64 // sine of the sun elevation at the mid-point
+	Elevation   float64 // sun elevation β at the mid-point, rad (ASCE-EWRI 2005 eq. 62)
+	Ra          float64 // extraterrestrial radiation, MJ m-2 per period (FAO-56 eq. 28)
+}
+
+// SunForPeriod computes the solar geometry and extraterrestrial radiation of
+// the period [start, start+length) at station st. A zero length means one
+// hour. The station's UTCOffset gives its standard meridian
+// (Lz = -15 x UTCOffset degrees west) and its east-positive Longitude gives
+// Lm = -Longitude degrees west (FAO-56 eq. 31). The caller validates the
+// station; SunForPeriod does not.
+func SunForPeriod(st Station, start time.Time, length time.Duration) SolarPeriod {
+	if length <= 0 {
+		length = time.Hour
+	}
+	var sp SolarPeriod
+	sp.Hours = length.Hours()
+
+	// Mid-point in station standard time, as seconds since the Unix epoch.
+	offset := int64(math.Round(st.UTCOffset * 3600))
+	mid := start.Add(length / 2)
+	secs := mid.Unix() + offset
+	day := secs / 86400
+	rem := secs - day*86400
+	if rem < 0 {
+		rem += 86400
+		day--
+	}
+	sp.MidHour = (float64(rem) + float64(mid.Nanosecond())/1e9) / 3600
+	sp.DayOfYear = time.Unix(day*86400, 0).UTC().YearDay()
+
+	j := sp.DayOfYear
+	sp.Dr = InverseRelativeDistance(j)
+	sp.Declination = SolarDeclination(j)
+	sp.Sc = SeasonalCorrection(j)
+
+	lat := st.Latitude * math.Pi / 180 // FAO-56 eq. 22
+	lzMinusLm := st.Longitude - 15*st.UTCOffset
+	w := math.Pi / 12 * ((sp.MidHour + 0.06667*lzMinusLm + sp.Sc) - 12) // FAO-56 eq. 31
+	for w < -math.Pi {
+		w += 2 * math.Pi
+	}
+	for w >= math.Pi {
+		w -= 2 * math.Pi
+	}
+	sp.Omega = w
+	half := math.Pi * sp.Hours / 24
+	w1 := w - half // FAO-56 eq. 29
+	w2 := w + half // FAO-56 eq. 30
+
+	sinLat, cosLat := math.Sincos(lat)
+	sinDec, cosDec := math.Sincos(sp.Declination)
+	ws := SunsetHourAngle(lat, sp.Declination)
+	sp.OmegaS = ws
+	if ws < math.Pi {
+		// ASCE-EWRI 2005 eq. 56: keep the integration between sunrise and sunset.
+		w1 = math.Min(math.Max(w1, -ws), ws)
+		w2 = math.Min(math.Max(w2, -ws), ws)
+		if w1 > w2 {
+			w1 = w2
+		}
+	}
+	sp.Omega1, sp.Omega2 = w1, w2
+
+	sp.SinBeta = sinLat*sinDec + cosLat*cosDec*math.Cos(w)
+	sp.Elevation = math.Asin(math.Max(-1, math.Min(1, sp.SinBeta))) // ASCE-EWRI 2005 eq. 62
+
+	ra := 12 * 60 / math.Pi * SolarConstant * sp.Dr *
+		((w2-w1)*sinLat*sinDec + cosLat*cosDec*(math.Sin(w2)-math.Sin(w1))) // FAO-56 eq. 28
+	sp.Ra = math.Max(ra, 0)
+	return sp
+}
+
+// RsoSimple returns clear-sky radiation from Ra and the station elevation z
+// in m (FAO-56 eq. 37, ASCE-EWRI 2005 eq. 47): Rso = (0.75 + 2e-5 z) Ra.
+func RsoSimple(ra, z float64) float64 {
+	return (0.75 + 2e-5*z) * ra // FAO-56 eq. 37
+}
+
+// minSinBeta bounds sin β in the Appendix D beam index so that the hour
+// around sunrise/sunset, whose mid-point may be below the horizon while Ra is
+// not zero, stays finite (common practice, no source).
+const minSinBeta = 0.01
+
+// RsoFull returns clear-sky radiation by ASCE-EWRI 2005 Appendix D
+// (equation numbers and constants from memory): Rso = (KB + KD) Ra (D.1),
+// KB = 0.98 exp(-0.00146 P / (Kt sinβ) - 0.075 (W / sinβ)^0.4) (D.2),
+// W = 0.14 ea P + 2.1 mm of precipitable water (D.3), KD = 0.35 - 0.36 KB
+// for KB >= 0.15 and 0.18 + 0.82 KB otherwise (D.4). ra is in any energy
+// unit (Rso comes out in the same), p in kPa, ea in kPa, sinBeta the sine
+// of the sun elevation (hourly: at mid-period, ASCE eq. 62; daily: D.5),
+// kt the turbidity coefficient (1 clean air, 0.5 extremely turbid; zero
+// means 1).
+func RsoFull(ra, p, ea, sinBeta, kt float64) float64 {
+	if ra <= 0 {
+		return 0
+	}
+	if kt <= 0 {
+		kt = 1
+	}
+	sb := math.Max(sinBeta, minSinBeta)
+	w := 0.14*ea*p + 2.1                                                // ASCE-EWRI 2005 eq. D.3
+	kb := 0.98 * math.Exp(-0.00146*p/(kt*sb)-0.075*math.Pow(w/sb, 0.4)) // ASCE-EWRI 2005 eq. D.2
+	var kd float64
+	if kb >= 0.15 {
+		kd = 0.35 - 0.36*kb // ASCE-EWRI 2005 eq. D.4
+	} else {
+		kd = 0.18 + 0.82*kb // ASCE-EWRI 2005 eq. D.4
+	}
+	return (kb + kd) * ra // ASCE-EWRI 2005 eq. D.1
+}
+
+// DailySinBeta returns sin φ24, the daily mean of the sine of the sun angle
+// weighted by Ra, for Appendix D daily clear-sky radiation (ASCE-EWRI 2005
+// eq. D.5, from memory): sin(0.85 + 0.3 φ sin(2πJ/365 - 1.39) - 0.42 φ²).
+func DailySinBeta(latDeg float64, doy int) float64 {
+	lat := latDeg * math.Pi / 180
+	return math.Sin(0.85 + 0.3*lat*math.Sin(2*math.Pi/365*float64(doy)-1.39) - 0.42*lat*lat) // ASCE-EWRI 2005 eq. D.5
+}
+
+// NetShortwave returns Rns = (1 - 0.23) Rs (FAO-56 eq. 38).
+func NetShortwave(rs float64) float64 {
+	return (1 - Albedo) * rs // FAO-56 eq. 38
+}
+
+// ClampRsRso limits relative shortwave radiation to 0.3..1.0 (ASCE-EWRI
+// 2005, limits of eq. 45).
+func ClampRsRso(r float64) float64 {
+	return math.Min(math.Max(r, 0.3), 1.0)
+}
+
+// CloudFactor returns the cloudiness function fcd = 1.35 Rs/Rso - 0.35 with
+// Rs/Rso first limited to 0.3..1.0 (ASCE-EWRI 2005 eq. 45; FAO-56 eq. 39
+// factor), so fcd stays in 0.055..1.0.
+func CloudFactor(rsRso float64) float64 {
+	return 1.35*ClampRsRso(rsRso) - 0.35 // ASCE-EWRI 2005 eq. 45
+}
+
+// NetLongwave returns the net outgoing long-wave radiation in MJ m-2 per
+// period (ASCE-EWRI 2005 eq. 44; FAO-56 eq. 39 with an hourly σ):
+// Rnl = σ fcd (0.34 - 0.14 √ea) (T + 273.16)^4, with sigma already scaled to
+// the period (e.g. SigmaHourASCE x hours), t in °C and ea in kPa.
+func NetLongwave(sigma, t, ea, fcd float64) float64 {
+	k := t + KelvinLongwave
+	k2 := k * k
+	return sigma * fcd * (0.34 - 0.14*math.Sqrt(ea)) * k2 * k2 // ASCE-EWRI 2005 eq. 44
+}
+
+// HargreavesSolar estimates solar radiation from the temperature range
+// (FAO-56 eq. 50): Rs = kRs √(Tmax - Tmin) Ra. ra is the extraterrestrial
+// radiation of the period being estimated (an hour's Ra gives an hour's
+// Rs), tmax/tmin the extremes of the surrounding 24 h in °C, krs the
+// adjustment coefficient (0.16 interior, 0.19 coastal; FAO-56 eq. 50 notes).
+// A range below zero counts as zero. The Rs returned is not limited to Rso;
+// the caller may cap it.
+func HargreavesSolar(ra, tmax, tmin, krs float64) float64 {
+	d := tmax - tmin
+	if !(d > 0) || !(ra > 0) {
+		return 0
+	}
+	return krs * math.Sqrt(d) * ra // FAO-56 eq. 50
+}
+
+// SunshineSolar returns Rs from the sunshine duration n (hours), the
+// daylight hours N and Ra, with the Angstrom values as = 0.25 and bs = 0.50
+// recommended when no calibration exists (FAO-56 eq. 35).
+func SunshineSolar(n, daylight, ra float64) float64 {
+	if daylight <= 0 {
+		return 0.25 * ra
+	}
+	return (0.25 + 0.50*n/daylight) * ra // FAO-56 eq. 35
+}
