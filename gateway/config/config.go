@@ -72,7 +72,7 @@ func (c *Config) setDefaults() {
 	if c.State.Path == "" {
 		c.State.Path = "etpulse.db"
 	}
-	c.Broker.setDefaults()
+	c.Broker.setDefaults(c)
 	for i := range c.Sites {
 		s := &c.Sites[i]
 		for j := range s.Stations {
@@ -110,6 +110,7 @@ func (c *Config) Validate() error {
 		siteIDs[s.ID] = true
 		s.validate(path, &p)
 	}
+	validateTopics(c, &p)
 	c.Store.validate("store", &p)
 	c.Alerts.validate("alerts", &p, c)
 	c.HTTP.validate("http", &p)
@@ -202,6 +203,21 @@ func (e *ValidationError) Error() string {
 type Secret struct {
 	Env  string `yaml:"env"`  // name of an environment variable holding the value
 	File string `yaml:"file"` // path of a file holding the value (trailing newline trimmed)
+
+	inline bool // the YAML held the value itself (rejected by validation; the value is not kept)
+}
+
+// UnmarshalYAML accepts a mapping with env or file. A plain string (an inline
+// credential) is remembered only as a fact, not its value, so that
+// validation can explain the fix without echoing the secret.
+func (s *Secret) UnmarshalYAML(unmarshal func(any) error) error {
+	var inline string
+	if err := unmarshal(&inline); err == nil {
+		*s = Secret{inline: inline != ""}
+		return nil
+	}
+	type plain Secret
+	return unmarshal((*plain)(s))
 }
 
 // IsSet reports whether a source is configured.
@@ -239,6 +255,9 @@ func (s Secret) String() string {
 }
 
 func (s Secret) validate(path string, p *Problems) {
+	if s.inline {
+		p.Add(path, "must not be written inline; read it from an environment variable ({env: NAME}) or a file ({file: PATH})")
+	}
 	if s.Env != "" && s.File != "" {
 		p.Add(path, "set either env or file, not both")
 	}

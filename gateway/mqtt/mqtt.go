@@ -8,7 +8,9 @@ import "context"
 type Message struct {
 	Topic     string
 	Payload   []byte
-	Duplicate bool
+	Duplicate bool // the broker is redelivering it
+	QoS       byte
+	Retained  bool
 	Ack       func()
 }
 

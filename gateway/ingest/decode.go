@@ -1,0 +1,385 @@
+package ingest
+
+import (
+	"bytes"
+	"encoding/json"
+	"fmt"
+	"math"
+	"slices"
+	"sort"
+	"strconv"
+	"strings"
+	"time"
+
+	"etpulse/hourly"
+)
+
+// number decodes a bare decimal number such as "21.4" (surrounding white
+// space allowed). The reading takes the arrival time.
+func (d *decoding) number(payload []byte) {
+	s := strings.TrimSpace(string(payload))
+	v, err := parseDecimal(s)
+	if err != nil {
+		d.rejectAll(ReasonUnparseable, fmt.Errorf("payload: %w", err))
+		return
+	}
+	d.emit("", d.b.sensor.Channel, d.b.sensor.Unit, v, d.arrival)
+}
+
+// json decodes {"<value_key>": 21.4, "<time_key>": ...}; other keys are
+// ignored (they carry nothing this sensor is configured for).
+func (d *decoding) json(payload []byte) {
+	obj, err := decodeObject(payload)
+	if err != nil {
+		d.rejectAll(ReasonUnparseable, err)
+		return
+	}
+	at, err := d.objectTime(obj)
+	if err != nil {
+		d.rejectAll(ReasonUnparseable, err)
+		return
+	}
+	key := d.b.sensor.ValueKey
+	raw, ok := obj[key]
+	if !ok {
+		d.rejectAll(ReasonUnparseable, fmt.Errorf("payload: value key %q is missing", key))
+		return
+	}
+	v, present, err := jsonNumber(raw)
+	switch {
+	case err != nil:
+		d.rejectAll(ReasonUnparseable, fmt.Errorf("payload: %s: %w", key, err))
+	case !present:
+		d.rejectAll(ReasonUnparseable, fmt.Errorf("payload: %s is null", key))
+	default:
+		d.emit("", d.b.sensor.Channel, d.b.sensor.Unit, v, at)
+	}
+}
+
+// fields decodes one JSON object carrying several quantities. A mapped key
+// with a null value is "no reading" and skipped; a key neither mapped nor
+// ignored is rejected as unknown_field while the other keys pass.
+func (d *decoding) fields(payload []byte) {
+	obj, err := decodeObject(payload)
+	if err != nil {
+		d.rejectAll(ReasonUnparseable, err)
+		return
+	}
+	at, err := d.objectTime(obj)
+	if err != nil {
+		d.rejectAll(ReasonUnparseable, err)
+		return
+	}
+	keys := make([]string, 0, len(obj))
+	for k := range obj {
+		keys = append(keys, k)
+	}
+	sort.Strings(keys)
+	for _, k := range keys {
+		if k == d.b.sensor.TimeKey || d.b.ignore[k] {
+			continue
+		}
+		ch, ok := d.b.sensor.Fields[k]
+		if !ok {
+			d.rejectAll(ReasonUnknownField, fmt.Errorf("field %q is not mapped in fields or listed in ignore", truncate(k, 100)))
+			continue
+		}
+		v, present, err := jsonNumber(obj[k])
+		if err != nil {
+			d.rejectKey(k, ReasonUnparseable, fmt.Errorf("%s: %w", k, err))
+			continue
+		}
+		if present {
+			d.emit(k, ch, ch.Unit, v, at)
+		}
+	}
+}
+
+// senmlRecord is one record of a SenML pack (RFC 8428 section 4, JSON labels
+// from section 5). Pointers tell absent from zero.
+type senmlRecord struct {
+	BaseName    *string  `json:"bn"`
+	BaseTime    *float64 `json:"bt"`
+	BaseUnit    *string  `json:"bu"`
+	BaseValue   *float64 `json:"bv"`
+	BaseSum     *float64 `json:"bs"`
+	BaseVersion *float64 `json:"bver"`
+	Name        *string  `json:"n"`
+	Unit        *string  `json:"u"`
+	Value       *float64 `json:"v"`
+	StringValue *string  `json:"vs"`
+	BoolValue   *bool    `json:"vb"`
+	DataValue   *string  `json:"vd"`
+	Sum         *float64 `json:"s"`
+	Time        *float64 `json:"t"`
+	UpdateTime  *float64 `json:"ut"`
+}
+
+// senmlRelativeLimit: resolved times below 2^28 s are relative to the
+// current time (RFC 8428 section 4.5.3).
+const senmlRelativeLimit = 1 << 28
+
+// senml decodes a SenML pack in its JSON representation (RFC 8428). Base
+// fields apply to their record and all following ones until changed
+// (RFC 8428 section 4.1); name = bn + n, time = bt + t (relative to arrival
+// when below 2^28), value = bv + v, or bs + s for a record with only a sum;
+// unit = u, else bu, else the unit configured for the record. Records whose
+// resolved name is neither mapped nor ignored are rejected as unknown_field.
+func (d *decoding) senml(payload []byte) {
+	var pack []json.RawMessage
+	if err := json.Unmarshal(payload, &pack); err != nil {
+		d.rejectAll(ReasonUnparseable, fmt.Errorf("senml pack: %w", jsonErr(err)))
+		return
+	}
+	var bn, bu string
+	var bt, bv, bs float64
+	for i, raw := range pack {
+		var r senmlRecord
+		if err := json.Unmarshal(raw, &r); err != nil {
+			d.rejectAll(ReasonUnparseable, fmt.Errorf("senml record %d: %w", i, jsonErr(err)))
+			continue
+		}
+		if mu := mustUnderstand(raw); mu != "" {
+			d.rejectAll(ReasonUnparseable, fmt.Errorf("senml record %d: unsupported must-understand label %q", i, truncate(mu, 100)))
+			continue
+		}
+		if r.BaseVersion != nil && *r.BaseVersion > 10 {
+			d.rejectAll(ReasonUnparseable, fmt.Errorf("senml record %d: unsupported version %v", i, *r.BaseVersion))
+			continue
+		}
+		if r.BaseName != nil {
+			bn = *r.BaseName
+		}
+		if r.BaseTime != nil {
+			bt = *r.BaseTime
+		}
+		if r.BaseUnit != nil {
+			bu = *r.BaseUnit
+		}
+		if r.BaseValue != nil {
+			bv = *r.BaseValue
+		}
+		if r.BaseSum != nil {
+			bs = *r.BaseSum
+		}
+		hasValue := r.Value != nil || r.Sum != nil || r.StringValue != nil || r.BoolValue != nil || r.DataValue != nil
+		if r.Name == nil && !hasValue {
+			continue // a record of base fields only
+		}
+		name := bn
+		if r.Name != nil {
+			name += *r.Name
+		}
+		if name == "" {
+			d.rejectAll(ReasonUnparseable, fmt.Errorf("senml record %d: empty name", i))
+			continue
+		}
+		if d.b.ignore[name] {
+			continue
+		}
+		ch, ok := d.b.sensor.Records[name]
+		if !ok {
+			d.rejectAll(ReasonUnknownField, fmt.Errorf("senml record %q is not mapped in records or listed in ignore", truncate(name, 100)))
+			continue
+		}
+		var v float64
+		switch {
+		case r.Value != nil:
+			v = bv + *r.Value
+		case r.Sum != nil:
+			v = bs + *r.Sum
+		default:
+			d.rejectKey(name, ReasonUnparseable, fmt.Errorf("senml record %q: no numeric value (v or s)", name))
+			continue
+		}
+		at, err := d.senmlTime(bt, r.Time)
+		if err != nil {
+			d.rejectKey(name, ReasonUnparseable, fmt.Errorf("senml record %q: %w", name, err))
+			continue
+		}
+		unit := ch.Unit
+		pu := bu
+		if r.Unit != nil {
+			pu = *r.Unit
+		}
+		if pu != "" && !(ch.Quantity == hourly.Rain && ch.MMPerTip > 0) {
+			eu, ok := senmlUnit(ch.Quantity, pu)
+			if !ok {
+				d.rejectKey(name, ReasonUnitMismatch, fmt.Errorf("senml record %q: unit %q is not valid for %s (accepted: %v or their SenML names)",
+					name, truncate(pu, 40), ch.Quantity, hourly.UnitsFor(ch.Quantity)))
+				continue
+			}
+			unit = eu
+		}
+		d.emit(name, ch, unit, v, at)
+	}
+}
+
+func (d *decoding) senmlTime(bt float64, t *float64) (time.Time, error) {
+	rt := bt
+	if t != nil {
+		rt += *t
+	}
+	if math.IsNaN(rt) || math.IsInf(rt, 0) {
+		return time.Time{}, fmt.Errorf("time %v is not finite", rt)
+	}
+	if rt < senmlRelativeLimit {
+		if math.Abs(rt) > 10*365*24*3600 {
+			return time.Time{}, fmt.Errorf("relative time %v s is out of range", rt)
+		}
+		return d.arrival.Add(time.Duration(rt * float64(time.Second))), nil
+	}
+	return unixSeconds(rt)
+}
+
+// senmlUnits maps SenML unit names (RFC 8428 section 12.1 registry, from
+// memory) to the engine's unit names where they differ.
+var senmlUnits = map[string]string{
+	"Cel": "degC",
+	"%RH": "%",
+	"/":   "fraction",
+}
+
+// senmlUnit resolves a payload unit for q: a SenML name or an engine name.
+func senmlUnit(q hourly.Quantity, u string) (string, bool) {
+	if e, ok := senmlUnits[u]; ok {
+		u = e
+	}
+	return u, slices.Contains(hourly.UnitsFor(q), u)
+}
+
+// mustUnderstand returns the first label ending in "_" in a record: such
+// labels change the meaning of the record and must be understood
+// (RFC 8428 section 4.4), so a record carrying one is rejected.
+func mustUnderstand(raw json.RawMessage) string {
+	var labels map[string]json.RawMessage
+	if json.Unmarshal(raw, &labels) != nil {
+		return ""
+	}
+	var keys []string
+	for k := range labels {
+		if strings.HasSuffix(k, "_") {
+			keys = append(keys, k)
+		}
+	}
+	if len(keys) == 0 {
+		return ""
+	}
+	sort.Strings(keys)
+	return keys[0]
+}
+
+// decodeObject decodes a JSON object into its raw members.
+func decodeObject(payload []byte) (map[string]json.RawMessage, error) {
+	var obj map[string]json.RawMessage
+	if err := json.Unmarshal(payload, &obj); err != nil {
+		return nil, fmt.Errorf("payload: %w", jsonErr(err))
+	}
+	if obj == nil {
+		return nil, fmt.Errorf("payload: want a JSON object, got null")
+	}
+	return obj, nil
+}
+
+// jsonErr shortens encoding/json errors to the part a reader needs.
+func jsonErr(err error) error {
+	if te, ok := err.(*json.UnmarshalTypeError); ok {
+		return fmt.Errorf("want %s, got JSON %s", te.Type, te.Value)
+	}
+	return err
+}
+
+// objectTime reads the optional timestamp of a json or fields payload.
+func (d *decoding) objectTime(obj map[string]json.RawMessage) (time.Time, error) {
+	key := d.b.sensor.TimeKey
+	raw, ok := obj[key]
+	if !ok || isNull(raw) {
+		return d.arrival, nil
+	}
+	t, err := parseTime(raw)
+	if err != nil {
+		return time.Time{}, fmt.Errorf("payload: %s: %w", key, err)
+	}
+	return t, nil
+}
+
+func isNull(raw json.RawMessage) bool { return bytes.Equal(bytes.TrimSpace(raw), []byte("null")) }
+
+// parseTime reads an RFC 3339 string, or a number of unix seconds, or of unix
+// milliseconds when its magnitude is 1e11 or more (1e11 s lies in the year
+// 5138, 1e11 ms in 1973).
+func parseTime(raw json.RawMessage) (time.Time, error) {
+	var s string
+	if json.Unmarshal(raw, &s) == nil {
+		t, err := time.Parse(time.RFC3339Nano, s)
+		if err != nil {
+			return time.Time{}, fmt.Errorf("%q is not an RFC 3339 time", truncate(s, 64))
+		}
+		return t, nil
+	}
+	var n float64
+	if err := json.Unmarshal(raw, &n); err != nil {
+		return time.Time{}, fmt.Errorf("want an RFC 3339 string or unix seconds/milliseconds, got %s", truncate(string(raw), 64))
+	}
+	if math.Abs(n) >= 1e11 {
+		n /= 1000
+	}
+	return unixSeconds(n)
+}
+
+// unixSeconds converts fractional unix seconds to a UTC time, bounded to
+// years 1970-2200.
+func unixSeconds(n float64) (time.Time, error) {
+	const maxUnix = 7258118400 // 2200-01-01T00:00:00Z
+	if math.IsNaN(n) || n < 0 || n >= maxUnix {
+		return time.Time{}, fmt.Errorf("unix time %v outside 1970..2200", n)
+	}
+	sec, frac := math.Modf(n)
+	return time.Unix(int64(sec), int64(math.Round(frac*1e9))).UTC(), nil
+}
+
+// jsonNumber reads a number, or a string holding a decimal number. present
+// is false for JSON null.
+func jsonNumber(raw json.RawMessage) (v float64, present bool, err error) {
+	raw = bytes.TrimSpace(raw)
+	if len(raw) == 0 || isNull(raw) {
+		return 0, false, nil
+	}
+	switch raw[0] {
+	case '"':
+		var s string
+		if err := json.Unmarshal(raw, &s); err != nil {
+			return 0, false, err
+		}
+		v, err := parseDecimal(strings.TrimSpace(s))
+		return v, err == nil, err
+	case '{':
+		return 0, false, fmt.Errorf("want a number, got an object")
+	case '[':
+		return 0, false, fmt.Errorf("want a number, got an array")
+	case 't', 'f':
+		return 0, false, fmt.Errorf("want a number, got %s", truncate(string(raw), 8))
+	}
+	if err := json.Unmarshal(raw, &v); err != nil {
+		return 0, false, fmt.Errorf("want a number, got %s", truncate(string(raw), 64))
+	}
+	return v, true, nil
+}
+
+// parseDecimal parses a finite decimal number; hexadecimal, NaN and Inf
+// spellings are refused.
+func parseDecimal(s string) (float64, error) {
+	if s == "" {
+		return 0, fmt.Errorf("empty, want a number")
+	}
+	for _, c := range s {
+		if !(c >= '0' && c <= '9' || c == '.' || c == '-' || c == '+' || c == 'e' || c == 'E') {
+			return 0, fmt.Errorf("%q is not a decimal number", truncate(s, 64))
+		}
+	}
+	v, err := strconv.ParseFloat(s, 64)
+	if err != nil || math.IsInf(v, 0) {
+		return 0, fmt.Errorf("%q is not a decimal number", truncate(s, 64))
+	}
+	return v, nil
+}
