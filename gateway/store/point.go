@@ -29,6 +29,10 @@ type Point struct {
 	Tags        map[string]string
 	Fields      map[string]any // float64, int64, bool or string values
 	Time        time.Time
+	// Notes are text kept in the local history only and never sent to the
+	// store (victoria-metrics would store text fields as 0): quality flags,
+	// a gap-filling method's name, the local hour.
+	Notes map[string]string
 }
 
 // Enqueuer commits points to the outbox inside the caller's transaction.

@@ -1,0 +1,165 @@
+package store
+
+import (
+	"bytes"
+	"encoding/binary"
+	"fmt"
+	"time"
+
+	"go.etcd.io/bbolt"
+)
+
+// item is one pending point read from the outbox for writing.
+type item struct {
+	seq      uint64
+	skey     []byte
+	point    Point
+	line     []byte
+	enqueued time.Time
+}
+
+// next reads up to maxHead of the oldest pending points and, when more are
+// pending, up to maxLive of the newest ones (the live share of a batch during
+// a backfill). The result is in sequence order: head first, then the live
+// tail. A point that cannot be decoded is quarantined on the spot.
+func (o *Outbox) next(maxHead, maxLive int) ([]item, error) {
+	var items []item
+	var corrupt []uint64
+	err := o.db.View(func(tx *bbolt.Tx) error {
+		c := tx.Bucket(bucketOutbox).Cursor()
+		read := func(k, v []byte) {
+			seq := binary.BigEndian.Uint64(k)
+			if len(v) < 8 {
+				corrupt = append(corrupt, seq)
+				return
+			}
+			p, err := decodePoint(v[8:])
+			if err != nil {
+				corrupt = append(corrupt, seq)
+				return
+			}
+			items = append(items, item{
+				seq:      seq,
+				skey:     appendSeriesKey(nil, p),
+				point:    p,
+				line:     AppendLine(nil, p),
+				enqueued: time.Unix(0, int64(binary.BigEndian.Uint64(v))),
+			})
+		}
+		var lastHead []byte
+		n := 0
+		for k, v := c.First(); k != nil && n < maxHead; k, v = c.Next() {
+			read(k, v)
+			lastHead = bytes.Clone(k)
+			n++
+		}
+		if maxLive <= 0 {
+			return nil
+		}
+		var tail []item
+		headItems := items
+		items = nil
+		n = 0
+		for k, v := c.Last(); k != nil && n < maxLive && (lastHead == nil || bytes.Compare(k, lastHead) > 0); k, v = c.Prev() {
+			read(k, v)
+			n++
+		}
+		tail = items
+		for i, j := 0, len(tail)-1; i < j; i, j = i+1, j-1 {
+			tail[i], tail[j] = tail[j], tail[i]
+		}
+		items = append(headItems, tail...)
+		return nil
+	})
+	if err != nil {
+		return nil, fmt.Errorf("outbox next: %w", err)
+	}
+	if len(corrupt) > 0 {
+		if err := o.dropCorrupt(corrupt); err != nil {
+			return nil, err
+		}
+	}
+	return items, nil
+}
+
+// dropCorrupt moves undecodable entries to the quarantine.
+func (o *Outbox) dropCorrupt(seqs []uint64) error {
+	err := o.db.Update(func(tx *bbolt.Tx) error {
+		q, err := openBuckets(tx)
+		if err != nil {
+			return err
+		}
+		for _, seq := range seqs {
+			k := seqKey(seq)
+			v := q.outbox.Get(k)
+			if v == nil {
+				continue
+			}
+			qp := fmt.Sprintf(`{"at":%q,"reason":"undecodable outbox entry","point":"%x"}`,
+				o.now().UTC().Format(time.RFC3339Nano), v)
+			qs, err := q.quarantineB.NextSequence()
+			if err != nil {
+				return err
+			}
+			if err := q.quarantineB.Put(seqKey(qs), []byte(qp)); err != nil {
+				return err
+			}
+			if err := q.outbox.Delete(k); err != nil {
+				return err
+			}
+			if err := q.raw.Delete(k); err != nil {
+				return err
+			}
+			q.count--
+		}
+		return q.saveCount()
+	})
+	if err != nil {
+		return fmt.Errorf("outbox quarantine corrupt: %w", err)
+	}
+	o.metrics.quarantined.Add(float64(len(seqs)))
+	o.log.Error("outbox: undecodable entries quarantined", "count", len(seqs))
+	return nil
+}
+
+// done removes written points and quarantines refused ones (reasons[i] for
+// bad[i]) in one transaction.
+func (o *Outbox) done(written []item, bad []item, reasons []string) error {
+	if len(written) == 0 && len(bad) == 0 {
+		return nil
+	}
+	now := o.now()
+	err := o.db.Update(func(tx *bbolt.Tx) error {
+		q, err := openBuckets(tx)
+		if err != nil {
+			return err
+		}
+		for _, it := range written {
+			if err := q.remove(it.seq, it.skey); err != nil {
+				return err
+			}
+		}
+		for i, it := range bad {
+			if q.outbox.Get(seqKey(it.seq)) == nil {
+				continue // superseded by a revision meanwhile
+			}
+			if err := q.quarantine(now, it.point, reasons[i]); err != nil {
+				return err
+			}
+			if err := q.remove(it.seq, it.skey); err != nil {
+				return err
+			}
+		}
+		return q.saveCount()
+	})
+	if err != nil {
+		return fmt.Errorf("outbox remove: %w", err)
+	}
+	if len(bad) > 0 {
+		o.metrics.quarantined.Add(float64(len(bad)))
+		for i := range bad {
+			o.log.Warn("outbox: point quarantined", "reason", reasons[i], "point", string(bad[i].line))
+		}
+	}
+	return nil
+}
