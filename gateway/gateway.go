@@ -1,0 +1,353 @@
+// Package gateway composes the live gateway: MQTT intake, the hour pipeline,
+// and the components that plug into it (store, zone balance, alerts). This
+// file is the one place where the parts are wired together.
+package gateway
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"log/slog"
+	"sync"
+	"sync/atomic"
+	"time"
+
+	"github.com/prometheus/client_golang/prometheus"
+	"go.etcd.io/bbolt"
+
+	"etpulse/gateway/config"
+	"etpulse/gateway/ingest"
+	"etpulse/gateway/mqtt"
+	"etpulse/gateway/pipeline"
+	"etpulse/hourly"
+)
+
+// Service is a background loop owned by the gateway (store drain, zone
+// scheduler, alert publisher). Run returns when ctx is cancelled; a non-nil
+// error other than ctx's stops the whole gateway.
+type Service interface {
+	Run(ctx context.Context) error
+}
+
+// Flusher is a Service that has work to finish at shutdown (e.g. an outbox to
+// drain). Flush is called after intake and every Service have stopped, with
+// a context bounded by Deps.FlushTimeout.
+type Flusher interface {
+	Flush(ctx context.Context) error
+}
+
+// Broker is the MQTT connection the gateway uses.
+type Broker interface {
+	mqtt.Publisher
+	mqtt.Subscriber
+}
+
+// Components are the parts that plug into the pipeline. The caller may pass
+// some in Deps (e.g. the demo's table printer); New adds the configured ones.
+type Components struct {
+	Handlers  []pipeline.HourHandler    // called inside each hour's closing transaction, in order
+	Observers []pipeline.SampleObserver // see every accepted sample
+	Gate      pipeline.QualityGate      // optional
+	Services  []Service                 // background loops, run until shutdown
+}
+
+// Deps are the gateway's dependencies, all injected.
+type Deps struct {
+	Logger     *slog.Logger          // nil discards
+	Registerer prometheus.Registerer // nil: metrics not registered
+	// Clock is the gateway's time; nil means time.Now. The demo passes an
+	// accelerated clock.
+	Clock func() time.Time
+	// After returns a channel that fires once d of Clock time has passed;
+	// nil means time.After (correct for a real-time Clock only).
+	After func(d time.Duration) <-chan time.Time
+	DB    *bbolt.DB // the state file (state.Open); the caller closes it after Run
+	MQTT  Broker    // the broker connection; the caller closes it after Run
+
+	Components
+
+	// TopicPrefix is the first level of published topics; "" means
+	// pipeline.DefaultTopicPrefix.
+	TopicPrefix string
+	// OnRecord, when set, is called with each record after it is published.
+	OnRecord func(hourly.Record)
+	// QueueSize bounds received messages not yet stored; 0 means 1024.
+	QueueSize int
+	// FlushTimeout bounds the Flushers at shutdown; 0 means 10s.
+	FlushTimeout time.Duration
+}
+
+// Gateway is the composed live gateway.
+type Gateway struct {
+	cfg    *config.Config
+	deps   Deps
+	log    *slog.Logger
+	router *ingest.Router
+	pipe   *pipeline.Pipeline
+	comp   Components
+	queue  chan mqtt.Message
+
+	handled       atomic.Uint64
+	publishFailed atomic.Bool
+}
+
+// New composes the gateway for cfg. It does not start anything.
+func New(cfg *config.Config, deps Deps) (*Gateway, error) {
+	if deps.DB == nil {
+		return nil, errors.New("new gateway: no state database")
+	}
+	if deps.Logger == nil {
+		deps.Logger = slog.New(slog.DiscardHandler)
+	}
+	if deps.Clock == nil {
+		deps.Clock = time.Now
+	}
+	if deps.After == nil {
+		deps.After = time.After
+	}
+	if deps.TopicPrefix == "" {
+		deps.TopicPrefix = pipeline.DefaultTopicPrefix
+	}
+	if deps.QueueSize <= 0 {
+		deps.QueueSize = 1024
+	}
+	if deps.FlushTimeout <= 0 {
+		deps.FlushTimeout = 10 * time.Second
+	}
+	router, err := ingest.NewRouter(cfg)
+	if err != nil {
+		return nil, fmt.Errorf("new gateway: %w", err)
+	}
+	g := &Gateway{cfg: cfg, deps: deps, log: deps.Logger, router: router, queue: make(chan mqtt.Message, deps.QueueSize)}
+	comp := deps.Components
+	comp.Handlers = append([]pipeline.HourHandler(nil), comp.Handlers...)
+	comp.Observers = append([]pipeline.SampleObserver(nil), comp.Observers...)
+	comp.Services = append([]Service(nil), comp.Services...)
+
+	// ---- Components wiring: the store, zone and alerts work add their parts
+	// here (an HourHandler runs inside the closing transaction; a Service runs
+	// until shutdown). g.pipe is set below; reach it from closures only.
+	// ---- end of components wiring ----
+
+	g.comp = comp
+	g.pipe, err = pipeline.New(cfg, pipeline.Options{
+		DB: deps.DB, Logger: deps.Logger.With("component", "pipeline"), Registerer: deps.Registerer,
+		Handlers: comp.Handlers, Observers: comp.Observers, Gate: comp.Gate,
+	})
+	if err != nil {
+		return nil, fmt.Errorf("new gateway: %w", err)
+	}
+	return g, nil
+}
+
+// Pipeline returns the gateway's hour pipeline (e.g. for LastSeen).
+func (g *Gateway) Pipeline() *pipeline.Pipeline { return g.pipe }
+
+// Handled returns how many MQTT messages have been fully handled: stored and
+// acknowledged (or rejected), and the hours they closed published.
+func (g *Gateway) Handled() uint64 { return g.handled.Load() }
+
+// Run subscribes, runs intake and every Service until ctx is cancelled, then
+// shuts down in order: stop intake (the last batch is stored, acknowledged
+// and its hours published), stop the services (no new commands), flush, and
+// return. Messages received but not stored are not acknowledged, so the
+// broker redelivers them to the next run.
+func (g *Gateway) Run(ctx context.Context) error {
+	g.publishPending(ctx)
+
+	svcCtx, stopServices := context.WithCancel(context.WithoutCancel(ctx))
+	defer stopServices()
+	intakeCtx, stopIntake := context.WithCancel(ctx)
+	defer stopIntake()
+
+	fatal := make(chan error, len(g.comp.Services)+1)
+	var svcWG sync.WaitGroup
+	for _, s := range g.comp.Services {
+		svcWG.Add(1)
+		go func() {
+			defer svcWG.Done()
+			if err := s.Run(svcCtx); err != nil && svcCtx.Err() == nil {
+				fatal <- fmt.Errorf("service %T: %w", s, err)
+			}
+		}()
+	}
+
+	for _, f := range g.router.Filters() {
+		if err := g.deps.MQTT.Subscribe(f, 1, func(m mqtt.Message) {
+			select {
+			case g.queue <- m:
+			case <-intakeCtx.Done(): // not acknowledged: redelivered next run
+			}
+		}); err != nil {
+			stopServices()
+			svcWG.Wait()
+			return fmt.Errorf("run gateway: subscribe %s: %w", f, err)
+		}
+	}
+	g.log.Info("gateway running", "topics", len(g.router.Filters()), "stations", len(g.pipe.Stations()))
+
+	intakeDone := make(chan struct{})
+	go func() {
+		defer close(intakeDone)
+		if err := g.intake(intakeCtx); err != nil {
+			fatal <- err
+		}
+	}()
+
+	var runErr error
+	select {
+	case <-ctx.Done():
+	case runErr = <-fatal:
+		g.log.Error("gateway stopping on error", "err", runErr)
+	}
+	stopIntake()
+	<-intakeDone
+	stopServices()
+	svcWG.Wait()
+	fctx, cancel := context.WithTimeout(context.WithoutCancel(ctx), g.deps.FlushTimeout)
+	defer cancel()
+	var errs []error
+	if runErr != nil {
+		errs = append(errs, runErr)
+	}
+	for _, s := range g.comp.Services {
+		if f, ok := s.(Flusher); ok {
+			if err := f.Flush(fctx); err != nil {
+				errs = append(errs, fmt.Errorf("flush %T: %w", s, err))
+			}
+		}
+	}
+	g.log.Info("gateway stopped", "handled", g.handled.Load())
+	return errors.Join(errs...)
+}
+
+// maxBatch bounds the messages stored in one transaction.
+const maxBatch = 512
+
+// intake drains the queue in batches: route, store in one transaction, ack,
+// close due hours, publish. It also wakes at the next silence deadline.
+func (g *Gateway) intake(ctx context.Context) error {
+	batch := make([]mqtt.Message, 0, maxBatch)
+	for {
+		batch = batch[:0]
+		var wake <-chan time.Time
+		if next := g.pipe.NextDeadline(); !next.IsZero() {
+			wake = g.deps.After(max(next.Sub(g.deps.Clock()), 0))
+		}
+		if g.publishFailed.Load() {
+			wake = g.deps.After(10 * time.Second)
+		}
+		select {
+		case <-ctx.Done():
+			return nil
+		case m := <-g.queue:
+			batch = append(batch, m)
+		fill:
+			for len(batch) < maxBatch {
+				select {
+				case m := <-g.queue:
+					batch = append(batch, m)
+				default:
+					break fill
+				}
+			}
+		case <-wake:
+		}
+		if err := g.step(ctx, batch); err != nil {
+			return err
+		}
+	}
+}
+
+// step handles one batch (possibly empty: a timer wake-up).
+func (g *Gateway) step(ctx context.Context, batch []mqtt.Message) error {
+	now := g.deps.Clock()
+	var readings []ingest.Reading
+	for _, m := range batch {
+		rds, rejs := g.router.Route(m.Topic, m.Payload, now)
+		station := ""
+		if len(rds) > 0 {
+			station = rds[0].Station
+		} else if len(rejs) > 0 {
+			station = rejs[0].Station
+		}
+		g.pipe.CountMessage(station)
+		for _, r := range rejs {
+			g.pipe.Reject(now, r.Station, r)
+		}
+		readings = append(readings, rds...)
+	}
+	if len(readings) > 0 {
+		var err error
+		for attempt := 0; ; attempt++ {
+			if _, err = g.pipe.Ingest(now, readings); err == nil {
+				break
+			}
+			if attempt == 2 {
+				return fmt.Errorf("intake: store readings: %w", err)
+			}
+			g.log.Error("storing readings failed; retrying", "err", err)
+			select {
+			case <-time.After(time.Duration(attempt+1) * 200 * time.Millisecond):
+			case <-ctx.Done():
+				return nil // not acknowledged: redelivered next run
+			}
+		}
+	}
+	for _, m := range batch {
+		if m.Ack != nil {
+			m.Ack()
+		}
+	}
+	recs, err := g.pipe.Tick(now)
+	if err != nil {
+		g.log.Error("closing hours", "err", err)
+	}
+	if g.publishFailed.Load() {
+		g.publishPending(context.WithoutCancel(ctx)) // includes recs, in hour order
+	} else {
+		g.publish(context.WithoutCancel(ctx), recs)
+	}
+	g.handled.Add(uint64(len(batch)))
+	return nil
+}
+
+// publish sends records on their stations' results topics and forgets the
+// published ones; the rest stay pending and are retried.
+func (g *Gateway) publish(ctx context.Context, recs []hourly.Record) {
+	var done []hourly.Record
+	for _, rec := range recs {
+		b, err := pipeline.MarshalRecord(rec)
+		if err == nil {
+			pctx, cancel := context.WithTimeout(ctx, 10*time.Second)
+			err = g.deps.MQTT.Publish(pctx, pipeline.ResultsTopic(g.deps.TopicPrefix, rec.Site, rec.Station), 1, false, b)
+			cancel()
+		}
+		if err != nil {
+			g.publishFailed.Store(true)
+			g.log.Warn("hour record not published; will retry", "station", rec.Station, "hour", rec.LocalStart, "revision", rec.Revision, "err", err)
+			continue
+		}
+		done = append(done, rec)
+		if g.deps.OnRecord != nil {
+			g.deps.OnRecord(rec)
+		}
+	}
+	if len(done) > 0 {
+		if err := g.pipe.MarkPublished(done...); err != nil {
+			g.log.Error("marking records published", "err", err)
+		}
+	}
+}
+
+// publishPending publishes records committed but not yet published (a crash
+// or a broker outage between commit and publish).
+func (g *Gateway) publishPending(ctx context.Context) {
+	recs, err := g.pipe.Pending()
+	if err != nil {
+		g.log.Error("reading pending records", "err", err)
+		return
+	}
+	g.publishFailed.Store(false)
+	g.publish(ctx, recs)
+}
