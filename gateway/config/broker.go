@@ -130,10 +130,10 @@ func (b *Broker) validate(path string, p *Problems) {
 		p.Add(path+".tls", "cert_file and key_file must be set together")
 	}
 	if d := b.KeepAlive.D(); d < time.Second || d > 18*time.Hour {
-		p.Addf(path+".keepalive", "must be between 1s and 18h, got %s", d)
+		p.Addf(path+".keepalive", "must be between 1s and 18h, got %s", fmtDur(d))
 	}
 	if d := b.ConnectTimeout.D(); d < 100*time.Millisecond || d > 10*time.Minute {
-		p.Addf(path+".connect_timeout", "must be between 100ms and 10m, got %s", d)
+		p.Addf(path+".connect_timeout", "must be between 100ms and 10m, got %s", fmtDur(d))
 	}
 	if b.MaxInflight < 1 || b.MaxInflight > 65535 {
 		p.Addf(path+".max_inflight", "must be between 1 and 65535, got %d", b.MaxInflight)

@@ -249,17 +249,19 @@ func (s *Station) validate(path string, p *Problems) {
 	if !(s.MinCoverage > 0 && s.MinCoverage <= 1) {
 		p.Addf(path+".min_coverage", "must be a fraction above 0 and at most 1, got %g", s.MinCoverage)
 	}
-	checkDur := func(key string, d Duration, lo, hi time.Duration) {
+	checkDur := func(key string, d Duration, lo, hi time.Duration) bool {
 		if d.D() < lo || d.D() > hi {
-			p.Addf(path+"."+key, "must be between %s and %s, got %s", lo, hi, d)
+			p.Addf(path+"."+key, "must be between %s and %s, got %s", fmtDur(lo), fmtDur(hi), fmtDur(d.D()))
+			return false
 		}
+		return true
 	}
-	checkDur("close_grace", s.CloseGrace, time.Second, time.Hour)
+	graceOK := checkDur("close_grace", s.CloseGrace, time.Second, time.Hour)
 	checkDur("late_window", s.LateWindow, 0, 7*24*time.Hour)
-	checkDur("silence_close", s.SilenceClose, time.Minute, 24*time.Hour)
+	silenceOK := checkDur("silence_close", s.SilenceClose, time.Minute, 24*time.Hour)
 	checkDur("max_future", s.MaxFuture, time.Second, 24*time.Hour)
-	if s.SilenceClose.D() < s.CloseGrace.D() {
-		p.Addf(path+".silence_close", "must not be shorter than close_grace (%s), got %s", s.CloseGrace, s.SilenceClose)
+	if graceOK && silenceOK && s.SilenceClose.D() < s.CloseGrace.D() {
+		p.Addf(path+".silence_close", "must not be shorter than close_grace (%s), got %s", fmtDur(s.CloseGrace.D()), fmtDur(s.SilenceClose.D()))
 	}
 
 	if len(s.Sensors) == 0 {
@@ -294,7 +296,9 @@ func (s *Station) validate(path string, p *Problems) {
 }
 
 func (s *Sensor) validate(path string, p *Problems) {
-	if msg := topicProblem(s.Topic); msg != "" {
+	if s.Topic == "" {
+		p.Add(path+".topic", "required (the exact MQTT topic the sensor publishes on)")
+	} else if msg := topicProblem(s.Topic); msg != "" {
 		p.Addf(path+".topic", "%s, got %q", msg, s.Topic)
 	}
 	single := s.Format == FormatNumber || s.Format == FormatJSON
@@ -468,4 +472,16 @@ func validateTopics(c *Config, p *Problems) {
 			}
 		}
 	}
+}
+
+// fmtDur prints a duration without trailing zero units ("1h", "90s", "2h30m").
+func fmtDur(d time.Duration) string {
+	s := d.String()
+	if strings.HasSuffix(s, "m0s") {
+		s = strings.TrimSuffix(s, "0s")
+	}
+	if strings.HasSuffix(s, "h0m") {
+		s = strings.TrimSuffix(s, "0m")
+	}
+	return s
 }

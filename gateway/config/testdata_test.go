@@ -1,0 +1,65 @@
+package config
+
+import (
+	"errors"
+	"flag"
+	"os"
+	"path/filepath"
+	"strings"
+	"testing"
+
+	"github.com/stretchr/testify/assert"
+	"github.com/stretchr/testify/require"
+)
+
+var update = flag.Bool("update", false, "rewrite testdata/config/invalid-*.txt from the current messages")
+
+const configDir = "../../testdata/config"
+
+// TestInvalidConfigs loads every testdata/config/invalid-*.yaml and compares
+// the error with the paired invalid-*.txt, exactly.
+func TestInvalidConfigs(t *testing.T) {
+	files, err := filepath.Glob(filepath.Join(configDir, "invalid-*.yaml"))
+	require.NoError(t, err)
+	require.NotEmpty(t, files)
+	for _, f := range files {
+		name := strings.TrimSuffix(filepath.Base(f), ".yaml")
+		t.Run(name, func(t *testing.T) {
+			_, err := Load(f)
+			require.Error(t, err, "%s must not load", f)
+			got := err.Error()
+			want := strings.TrimSuffix(f, ".yaml") + ".txt"
+			if *update {
+				require.NoError(t, os.WriteFile(want, []byte(got+"\n"), 0o644))
+			}
+			b, err := os.ReadFile(want)
+			require.NoError(t, err, "every invalid-*.yaml needs its expected message in a .txt")
+			assert.Equal(t, strings.TrimRight(string(b), "\n"), got)
+		})
+	}
+}
+
+// TestInvalidConfigsOneProblemEach keeps the invalid files focused: each
+// breaks exactly one rule.
+func TestInvalidConfigsOneProblemEach(t *testing.T) {
+	files, err := filepath.Glob(filepath.Join(configDir, "invalid-*.yaml"))
+	require.NoError(t, err)
+	for _, f := range files {
+		_, err := Load(f)
+		var ve *ValidationError
+		if errors.As(err, &ve) {
+			assert.Len(t, ve.Problems, 1, "%s: %v", f, ve.Problems)
+		}
+	}
+}
+
+// TestValidConfigs loads the valid examples.
+func TestValidConfigs(t *testing.T) {
+	for _, f := range []string{"farm.yaml", "minimal.yaml", "broker-tls.yaml"} {
+		t.Run(f, func(t *testing.T) {
+			c, err := Load(filepath.Join(configDir, f))
+			require.NoError(t, err)
+			require.NotEmpty(t, c.Sites)
+		})
+	}
+}
