@@ -1,0 +1,395 @@
+package controllers
+
+import (
+	"fmt"
+	"math"
+	"sort"
+	"time"
+)
+
+// WeatherHolds are a zone's weather conditions for not watering.
+type WeatherHolds struct {
+	// WindMax: sprinkler zones do not start while the latest hour's mean wind
+	// at 2 m exceeds it (m/s); 0 disables. Unknown wind also holds.
+	WindMax float64
+	// Frost: no zone starts while the latest hour's mean air temperature is
+	// below FrostC (°C); HasFrost enables. Unknown temperature also holds.
+	FrostC   float64
+	HasFrost bool
+	// RainSkip: no start when the measured rain of the last RainLookback is
+	// at least RainSkipMM (0 disables), or at least the net need.
+	RainSkipMM   float64
+	RainLookback time.Duration
+}
+
+// Hold is a manual hold or a rain delay.
+type Hold struct {
+	Until   time.Time // the hold ends at Until
+	Forever bool      // the hold lasts until released
+	Reason  string
+}
+
+// Active reports whether the hold is in force at now.
+func (h Hold) Active(now time.Time) bool { return h.Forever || now.Before(h.Until) }
+
+// Holds are the manual holds and rain delays of a site and its zones.
+type Holds struct {
+	Site  Hold
+	Zones map[string]Hold
+}
+
+// For returns the hold in force for a zone at now, if any.
+func (h Holds) For(zone string, now time.Time) (Hold, bool) {
+	if h.Site.Active(now) {
+		return h.Site, true
+	}
+	if z, ok := h.Zones[zone]; ok && z.Active(now) {
+		return z, true
+	}
+	return Hold{}, false
+}
+
+// Source is a water source shared by zones: a well, a pump, a main.
+type Source struct {
+	ID        string
+	MaxValves int     // valves open at once; 0: no limit
+	MaxFlow   float64 // L/min; 0: no limit
+}
+
+// ZoneInput is one zone and its current balance, for Decide.
+type ZoneInput struct {
+	Zone  *Zone
+	State *State
+}
+
+// Skip says why a zone got no command.
+type Skip struct {
+	Zone   string
+	Reason string
+	Alert  bool // the condition should be alerted (e.g. stale ET)
+}
+
+// Plan is the result of Decide.
+type Plan struct {
+	Commands []Command
+	Skips    []Skip
+}
+
+// Flow returns the zone's flow, L/min.
+func (z *Zone) Flow() float64 {
+	if z.System.Flow > 0 {
+		return z.System.Flow
+	}
+	return z.System.Rate * z.Area / 60
+}
+
+// Blocked reports why the zone must not start water at now, or "" when it
+// may: manual hold or rain delay, stale ET without fallback, rain, wind
+// (sprinklers), frost. Decide checks it before planning and the scheduler
+// again before sending.
+func (z *Zone) Blocked(st *State, holds Holds, now time.Time) (reason string, alert bool) {
+	if h, ok := holds.For(z.ID, now); ok {
+		r := "hold"
+		if h.Reason != "" {
+			r += ": " + h.Reason
+		}
+		return r, false
+	}
+	if z.Stale(st, now) && !z.FailSafe.Fallback {
+		return fmt.Sprintf("no valid ET for more than %d h", z.FailSafe.MaxMissingHours), true
+	}
+	w := st.Recent(now, z.Holds.RainLookback)
+	if z.Holds.RainSkipMM > 0 && w.Rain >= z.Holds.RainSkipMM {
+		return fmt.Sprintf("rain %.1f mm in the last %v", w.Rain, z.Holds.RainLookback), false
+	}
+	if z.System.Kind == Sprinkler && z.Holds.WindMax > 0 {
+		if !w.HasWind {
+			return "wind unknown", false
+		}
+		if w.Wind2 > z.Holds.WindMax {
+			return fmt.Sprintf("wind %.1f m/s above %.1f", w.Wind2, z.Holds.WindMax), false
+		}
+	}
+	if z.Holds.HasFrost {
+		if !w.HasTemp {
+			return "air temperature unknown", false
+		}
+		if w.AirTemp < z.Holds.FrostC {
+			return fmt.Sprintf("air temperature %.1f °C below frost limit %.1f", w.AirTemp, z.Holds.FrostC), false
+		}
+	}
+	return "", false
+}
+
+type interval struct {
+	start, end time.Time
+	flow       float64
+}
+
+type candidate struct {
+	in      ZoneInput
+	lv      Levels
+	minutes int
+	slot    Slot
+}
+
+// Decide plans the commands that are due at now. A zone gets a run when its
+// depletion has reached its trigger, no command of it is still open, no hold
+// applies, and now lies inside one of its windows. The run brings the
+// depletion back to the target: net = Dr - target, gross minutes =
+// net / efficiency / rate (rounded up), limited to MaxMinutes, raised to
+// MinMinutes only when that much water still fits below field capacity,
+// split into cycles with soaks, each cycle placed inside the current window
+// occurrence and inside the day's remaining cap.
+//
+// Sequencing: zones are served most depleted relative to their TAW first
+// (ties by zone id). Each cycle starts at the earliest minute at which its
+// source stays within its valve and flow limits for the whole cycle, counting
+// open commands already in the ledger. A cycle that does not fit in the
+// window, or in the day's cap, is left for a later decision.
+func Decide(now time.Time, zones []ZoneInput, sources []Source, ledger []Command, holds Holds) Plan {
+	var plan Plan
+	open := map[string]bool{}
+	var unreported []*Command
+	bySource := map[string][]interval{}
+	for i := range ledger {
+		c := &ledger[i]
+		if c.State == Expired && !c.Credited && c.Attempts > 0 {
+			unreported = append(unreported, c)
+		}
+		if !c.State.Open() {
+			continue
+		}
+		open[c.Zone] = true
+		start := c.Start
+		if c.State == Started && !c.StartedAt.IsZero() {
+			start = c.StartedAt
+		}
+		bySource[c.Source] = append(bySource[c.Source], interval{start, start.Add(time.Duration(c.Minutes) * time.Minute), c.Flow})
+	}
+	srcs := map[string]Source{}
+	for _, s := range sources {
+		srcs[s.ID] = s
+	}
+
+	var cands []candidate
+	for _, in := range zones {
+		z, st := in.Zone, in.State
+		skip := func(reason string, alert bool) { plan.Skips = append(plan.Skips, Skip{z.ID, reason, alert}) }
+		if open[z.ID] {
+			skip("a command is still open", false)
+			continue
+		}
+		if r, alert := z.Blocked(st, holds, now); r != "" {
+			skip(r, alert)
+			continue
+		}
+		lv := z.LevelsAt(st, now)
+		if st.Depletion < lv.Trigger {
+			continue
+		}
+		slot, ok := SlotAt(z.Windows, z.Loc, now)
+		if !ok {
+			skip("outside watering windows", false)
+			continue
+		}
+		if lost := lostIn(unreported, z.ID, slot); lost != "" {
+			// It may have run with its report lost: do not water again in
+			// this window occurrence.
+			skip("command "+lost+" expired without a report in this window", true)
+			continue
+		}
+		need := st.Depletion - lv.Target
+		if w := st.Recent(now, z.Holds.RainLookback); z.Holds.RainLookback > 0 && w.Rain > 0 && w.Rain >= need {
+			skip(fmt.Sprintf("recent rain %.1f mm covers the need %.1f mm", w.Rain, need), false)
+			continue
+		}
+		m := GrossMinutes(need, z.System.Efficiency, z.System.Rate)
+		if m > z.System.MaxMinutes {
+			m = z.System.MaxMinutes
+		}
+		if m < z.System.MinMinutes {
+			if NetMM(float64(z.System.MinMinutes), z.System.Rate, z.System.Efficiency) > st.Depletion {
+				skip("need below the minimum run", false)
+				continue
+			}
+			m = z.System.MinMinutes
+		}
+		cands = append(cands, candidate{in, lv, m, slot})
+	}
+	sort.SliceStable(cands, func(i, j int) bool {
+		ri := cands[i].in.State.Depletion / cands[i].lv.TAW
+		rj := cands[j].in.State.Depletion / cands[j].lv.TAW
+		if ri != rj {
+			return ri > rj
+		}
+		return cands[i].in.Zone.ID < cands[j].in.Zone.ID
+	})
+
+	used := dayUse(ledger, zoneIndex(zones))
+	for _, c := range cands {
+		z, st := c.in.Zone, c.in.State
+		src := srcs[z.Source]
+		flow := z.Flow()
+		if src.MaxFlow > 0 && flow > src.MaxFlow {
+			plan.Skips = append(plan.Skips, Skip{z.ID, fmt.Sprintf("zone flow %.0f L/min exceeds source %s limit %.0f", flow, src.ID, src.MaxFlow), true})
+			continue
+		}
+		cycles := SplitCycles(c.minutes, z.System.CycleMinutes)
+		earliest := ceilMinute(now.Add(z.Policy.SendLead))
+		if earliest.Before(c.slot.Start) {
+			earliest = c.slot.Start
+		}
+		var planned []Command
+		for k, m := range cycles {
+			start, ok := earliestFit(bySource[z.Source], src, earliest, time.Duration(m)*time.Minute, flow, c.slot.End)
+			if !ok {
+				break
+			}
+			key := z.ID + "/" + dayKey(start, z.Loc)
+			if rest := z.System.MaxPerDay - used[key]; m > rest {
+				if rest < z.System.MinMinutes {
+					break
+				}
+				m = rest
+			}
+			end := start.Add(time.Duration(m) * time.Minute)
+			planned = append(planned, Command{
+				ID: CommandID(z.ID, start, k+1), Zone: z.ID, Valve: z.Valve, Source: z.Source,
+				Minutes: m, Start: start, Expiry: start.Add(z.Policy.StartTolerance), Cycle: k + 1,
+				Reason: Reason{DepletionMM: round2(st.Depletion), TriggerMM: round2(c.lv.Trigger), EtcSinceLastMM: round2(st.EtcSinceRun)},
+				Rate:   z.System.Rate, Efficiency: z.System.Efficiency, Area: z.Area, Flow: flow,
+				State: Planned,
+			})
+			used[key] += m
+			bySource[z.Source] = append(bySource[z.Source], interval{start, end, flow})
+			earliest = end.Add(time.Duration(z.System.SoakMinutes) * time.Minute)
+		}
+		if len(planned) == 0 {
+			plan.Skips = append(plan.Skips, Skip{z.ID, "no room in the window or the day's cap", false})
+			continue
+		}
+		for i := range planned {
+			planned[i].Cycles = len(planned)
+		}
+		plan.Commands = append(plan.Commands, planned...)
+	}
+	plan.Commands = enforceCaps(plan.Commands, zones, ledger)
+	return plan
+}
+
+func lostIn(unreported []*Command, zone string, slot Slot) string {
+	for _, c := range unreported {
+		if c.Zone == zone && !c.Start.Before(slot.Start) && c.Start.Before(slot.End) {
+			return c.ID
+		}
+	}
+	return ""
+}
+
+// dayUse sums the minutes charged per zone and standard-time day of the
+// planned start ("zone/2006-01-02"), from the ledger.
+func dayUse(ledger []Command, byID map[string]*Zone) map[string]int {
+	used := map[string]int{}
+	for i := range ledger {
+		c := &ledger[i]
+		if z := byID[c.Zone]; z != nil {
+			used[c.Zone+"/"+dayKey(c.Start, z.Loc)] += c.chargedMinutes()
+		}
+	}
+	return used
+}
+
+func zoneIndex(zones []ZoneInput) map[string]*Zone {
+	byID := map[string]*Zone{}
+	for _, in := range zones {
+		byID[in.Zone.ID] = in.Zone
+	}
+	return byID
+}
+
+// earliestFit finds the earliest start >= from at which a run of length d
+// with the given flow keeps the source within its limits for the whole run
+// and ends by limit. Occupancy only drops when a run ends, so the candidates
+// are from and the ends of runs after it.
+func earliestFit(busy []interval, src Source, from time.Time, d time.Duration, flow float64, limit time.Time) (time.Time, bool) {
+	cands := []time.Time{from}
+	for _, iv := range busy {
+		if iv.end.After(from) {
+			cands = append(cands, ceilMinute(iv.end))
+		}
+	}
+	sort.Slice(cands, func(i, j int) bool { return cands[i].Before(cands[j]) })
+	for _, s := range cands {
+		e := s.Add(d)
+		if e.After(limit) {
+			return time.Time{}, false
+		}
+		if fits(busy, src, s, e, flow) {
+			return s, true
+		}
+	}
+	return time.Time{}, false
+}
+
+// fits checks the valve count and flow at every moment of [s, e): the load
+// only rises where a run starts, so checking s and each start inside is enough.
+func fits(busy []interval, src Source, s, e time.Time, flow float64) bool {
+	points := []time.Time{s}
+	for _, iv := range busy {
+		if iv.start.After(s) && iv.start.Before(e) {
+			points = append(points, iv.start)
+		}
+	}
+	for _, p := range points {
+		n, f := 1, flow
+		for _, iv := range busy {
+			if !iv.start.After(p) && iv.end.After(p) {
+				n++
+				f += iv.flow
+			}
+		}
+		if src.MaxValves > 0 && n > src.MaxValves {
+			return false
+		}
+		if src.MaxFlow > 0 && f > src.MaxFlow+1e-9 {
+			return false
+		}
+	}
+	return true
+}
+
+// enforceCaps is the last line of defence: it drops any new command that
+// would break a zone's per-run, per-cycle or per-day cap, whatever happened
+// above. It never fires when the planning is right.
+func enforceCaps(cmds []Command, zones []ZoneInput, ledger []Command) []Command {
+	byID := zoneIndex(zones)
+	day := dayUse(ledger, byID)
+	event := map[string]int{}
+	out := cmds[:0]
+	for _, c := range cmds {
+		z := byID[c.Zone]
+		key := c.Zone + "/" + dayKey(c.Start, z.Loc)
+		ok := c.Minutes >= 1 && c.Minutes <= z.System.MaxMinutes &&
+			(z.System.CycleMinutes == 0 || c.Minutes <= z.System.CycleMinutes) &&
+			event[c.Zone]+c.Minutes <= z.System.MaxMinutes &&
+			day[key]+c.Minutes <= z.System.MaxPerDay
+		if !ok {
+			continue
+		}
+		event[c.Zone] += c.Minutes
+		day[key] += c.Minutes
+		out = append(out, c)
+	}
+	return out
+}
+
+func ceilMinute(t time.Time) time.Time {
+	r := t.Truncate(time.Minute)
+	if r.Before(t) {
+		r = r.Add(time.Minute)
+	}
+	return r
+}
+
+func round2(v float64) float64 { return math.Round(v*100) / 100 }

@@ -1,0 +1,334 @@
+package controllers
+
+import (
+	"fmt"
+	"math"
+	"time"
+)
+
+// CommandState is where a command is in its life.
+type CommandState string
+
+// The command states. Planned -> Sent -> Accepted -> Started -> Finished or
+// Failed; Sent/Accepted/Started -> Expired when reports stop; Planned ->
+// Cancelled when a hold arrives before it is sent.
+const (
+	Planned   CommandState = "planned"
+	Sent      CommandState = "sent"
+	Accepted  CommandState = "accepted"
+	Started   CommandState = "started"
+	Finished  CommandState = "finished"
+	Failed    CommandState = "failed"
+	Expired   CommandState = "expired"
+	Cancelled CommandState = "cancelled"
+)
+
+// Open reports whether the command may still run or report (not yet
+// finished, failed, expired or cancelled).
+func (s CommandState) Open() bool {
+	return s == Planned || s == Sent || s == Accepted || s == Started
+}
+
+// CommandPolicy is the timing of commands and retries.
+type CommandPolicy struct {
+	SendLead       time.Duration // publish this long before the planned start
+	AckTimeout     time.Duration // re-send when no report came this long after sending
+	MaxAttempts    int           // sends per command, first one included
+	StartTolerance time.Duration // a controller must not start later than planned start + this (the command's expiry)
+	FinishGrace    time.Duration // wait this long past the planned end for the finished report
+}
+
+// DefaultPolicy is the policy used when none is configured.
+var DefaultPolicy = CommandPolicy{
+	SendLead:       time.Minute,
+	AckTimeout:     2 * time.Minute,
+	MaxAttempts:    3,
+	StartTolerance: 15 * time.Minute,
+	FinishGrace:    15 * time.Minute,
+}
+
+// Validate reports an impossible policy.
+func (p CommandPolicy) Validate() error {
+	if p.SendLead < 0 || p.AckTimeout <= 0 || p.MaxAttempts < 1 || p.MaxAttempts > 10 || p.StartTolerance <= 0 || p.FinishGrace < 0 {
+		return fmt.Errorf("command policy: need send lead >= 0, ack timeout > 0, 1-10 attempts, start tolerance > 0, finish grace >= 0, got %+v: %w", p, ErrInput)
+	}
+	return nil
+}
+
+// Reason says why a command was planned.
+type Reason struct {
+	DepletionMM    float64 `json:"depletion_mm"`
+	TriggerMM      float64 `json:"trigger_mm"`
+	EtcSinceLastMM float64 `json:"etc_since_last_mm"`
+}
+
+// Command is one valve run and its ledger entry. Rate, Efficiency and Area
+// are copied from the zone when planned, so a later configuration change does
+// not change how its reported water is credited.
+type Command struct {
+	ID      string    `json:"id"`
+	Zone    string    `json:"zone"`
+	Valve   string    `json:"valve"`
+	Source  string    `json:"source,omitempty"`
+	Minutes int       `json:"minutes"`
+	Start   time.Time `json:"start"`  // planned start
+	Expiry  time.Time `json:"expiry"` // latest start the controller may make
+	Cycle   int       `json:"cycle"`  // 1-based
+	Cycles  int       `json:"cycles"`
+	Reason  Reason    `json:"reason"`
+
+	Rate       float64 `json:"rate_mm_h"`
+	Efficiency float64 `json:"efficiency"`
+	Area       float64 `json:"area_m2"`
+	Flow       float64 `json:"flow_l_min"`
+
+	State      CommandState `json:"state"`
+	Attempts   int          `json:"attempts"`
+	SentAt     time.Time    `json:"sent_at,omitzero"`
+	StartedAt  time.Time    `json:"started_at,omitzero"`
+	EndedAt    time.Time    `json:"ended_at,omitzero"`
+	MinutesRun float64      `json:"minutes_run"`
+	RunKnown   bool         `json:"run_known"` // a report gave minutes_run
+	VolumeL    float64      `json:"volume_l"`
+	CreditMM   float64      `json:"credit_mm"`
+	Credited   bool         `json:"credited"`
+	Note       string       `json:"note,omitempty"`
+}
+
+// CommandID derives a command's id from its zone, planned start and cycle, so
+// that planning the same run again (e.g. after a restart) gives the same id.
+func CommandID(zone string, start time.Time, cycle int) string {
+	return fmt.Sprintf("%s-%s-c%d", zone, start.UTC().Format("20060102T1504Z"), cycle)
+}
+
+// ReportState is the state a valve controller reports.
+type ReportState string
+
+// The report states.
+const (
+	ReportAccepted ReportState = "accepted"
+	ReportStarted  ReportState = "started"
+	ReportFinished ReportState = "finished"
+	ReportFailed   ReportState = "failed"
+)
+
+// Report is a valve controller's report about one command.
+type Report struct {
+	ID         string
+	State      ReportState
+	MinutesRun float64 // when HasMinutes
+	HasMinutes bool
+	VolumeL    float64 // flow-meter volume, litres, when HasVolume
+	HasVolume  bool
+	Reason     string
+}
+
+// Validate checks the report's fields.
+func (r Report) Validate() error {
+	switch r.State {
+	case ReportAccepted, ReportStarted, ReportFinished, ReportFailed:
+	default:
+		return fmt.Errorf("report %s: state: unknown %q: %w", r.ID, r.State, ErrInput)
+	}
+	if r.ID == "" {
+		return fmt.Errorf("report: id: empty: %w", ErrInput)
+	}
+	if r.HasMinutes && !(r.MinutesRun >= 0 && r.MinutesRun <= 1440) {
+		return fmt.Errorf("report %s: minutes_run: must be within 0-1440, got %v: %w", r.ID, r.MinutesRun, ErrInput)
+	}
+	if r.HasVolume && !(r.VolumeL >= 0 && !math.IsInf(r.VolumeL, 0)) {
+		return fmt.Errorf("report %s: volume_l: must be >= 0, got %v: %w", r.ID, r.VolumeL, ErrInput)
+	}
+	return nil
+}
+
+// Outcome is what applying a report did.
+type Outcome struct {
+	Changed   bool    // the command's state changed
+	Duplicate bool    // the report repeated what was already known
+	Credit    bool    // water is to be credited to the zone now
+	CreditMM  float64 // net depth to credit, mm
+	Late      bool    // the report arrived after the command had expired
+}
+
+// CreditFor returns the net depth a report credits, mm. Only the water that
+// reaches the root zone counts, so the application efficiency applies to
+// both forms: volume / area x efficiency with a flow-meter volume, else
+// minutes_run / 60 x rate x efficiency. A finished report without either is
+// taken to have run the commanded minutes; a failed one without either
+// credits nothing.
+func (c *Command) CreditFor(r Report) float64 {
+	switch {
+	case r.HasVolume:
+		return r.VolumeL / c.Area * c.Efficiency
+	case r.HasMinutes:
+		return NetMM(r.MinutesRun, c.Rate, c.Efficiency)
+	case r.State == ReportFinished:
+		return NetMM(float64(c.Minutes), c.Rate, c.Efficiency)
+	}
+	return 0
+}
+
+// Apply applies a report received at now. Reports are idempotent: a
+// duplicate, or one older than the known state, changes nothing; water is
+// credited once, on the first finished or failed report, even when it comes
+// after the command expired (the water did run; the report is late, not
+// wrong). Reports for a cancelled command are refused.
+func (c *Command) Apply(r Report, now time.Time) (Outcome, error) {
+	if err := r.Validate(); err != nil {
+		return Outcome{}, err
+	}
+	if r.ID != c.ID {
+		return Outcome{}, fmt.Errorf("report %s: for command %s: %w", r.ID, c.ID, ErrInput)
+	}
+	switch c.State {
+	case Finished, Failed:
+		return Outcome{Duplicate: true}, nil
+	case Cancelled:
+		return Outcome{}, fmt.Errorf("report %s: command was cancelled before it was sent: %w", r.ID, ErrInput)
+	}
+	rank := map[CommandState]int{Planned: 0, Sent: 1, Accepted: 2, Started: 3}
+	switch r.State {
+	case ReportAccepted, ReportStarted:
+		next := Accepted
+		if r.State == ReportStarted {
+			next = Started
+		}
+		if c.State == Expired || rank[c.State] >= rank[next] {
+			return Outcome{Duplicate: true}, nil
+		}
+		c.State = next
+		if next == Started {
+			c.StartedAt = now
+		}
+		return Outcome{Changed: true}, nil
+	}
+	late := c.State == Expired
+	if r.State == ReportFinished {
+		c.State = Finished
+	} else {
+		c.State = Failed
+	}
+	c.EndedAt = now
+	c.MinutesRun, c.VolumeL = r.MinutesRun, r.VolumeL
+	c.RunKnown = r.HasMinutes
+	if !r.HasMinutes && r.State == ReportFinished && !r.HasVolume {
+		c.MinutesRun = float64(c.Minutes)
+	}
+	if r.Reason != "" {
+		c.Note = r.Reason
+	}
+	mm := c.CreditFor(r)
+	c.CreditMM = mm
+	c.Credited = true
+	return Outcome{Changed: true, Credit: true, CreditMM: mm, Late: late}, nil
+}
+
+// Action is what the scheduler must do with a command now.
+type Action int
+
+// The actions.
+const (
+	None   Action = iota
+	Send          // publish (first attempt or a retry) and MarkSent
+	Expire        // no (further) report can be expected: MarkExpired and alert
+)
+
+// Due returns what to do with the command at now under policy p.
+func (c *Command) Due(now time.Time, p CommandPolicy) Action {
+	switch c.State {
+	case Planned:
+		if !now.Before(c.Expiry) {
+			return Expire
+		}
+		if !now.Before(c.Start.Add(-p.SendLead)) {
+			return Send
+		}
+	case Sent:
+		if !now.Before(c.Expiry) {
+			return Expire
+		}
+		if c.Attempts < p.MaxAttempts && !now.Before(c.SentAt.Add(p.AckTimeout)) {
+			return Send
+		}
+	case Accepted, Started:
+		if !now.Before(c.finishDeadline(p)) {
+			return Expire
+		}
+	}
+	return None
+}
+
+// NextWake returns when Due may next return an action (zero: never).
+func (c *Command) NextWake(p CommandPolicy) time.Time {
+	switch c.State {
+	case Planned:
+		return c.Start.Add(-p.SendLead)
+	case Sent:
+		if c.Attempts < p.MaxAttempts {
+			if t := c.SentAt.Add(p.AckTimeout); t.Before(c.Expiry) {
+				return t
+			}
+		}
+		return c.Expiry
+	case Accepted, Started:
+		return c.finishDeadline(p)
+	}
+	return time.Time{}
+}
+
+func (c *Command) finishDeadline(p CommandPolicy) time.Time {
+	run := time.Duration(c.Minutes) * time.Minute
+	if c.State == Started && !c.StartedAt.IsZero() {
+		return c.StartedAt.Add(run + p.FinishGrace)
+	}
+	return c.Expiry.Add(run + p.FinishGrace)
+}
+
+// MarkSent records a (re-)send at now.
+func (c *Command) MarkSent(now time.Time) {
+	if c.State == Planned {
+		c.State = Sent
+	}
+	c.Attempts++
+	c.SentAt = now
+}
+
+// MarkExpired records that no (further) report is expected. The command is
+// never credited unless a late finished or failed report arrives.
+func (c *Command) MarkExpired(now time.Time, note string) {
+	c.State = Expired
+	c.EndedAt = now
+	c.Note = note
+}
+
+// Cancel withdraws a planned command before it is sent.
+func (c *Command) Cancel(now time.Time, note string) error {
+	if c.State != Planned {
+		return fmt.Errorf("cancel %s: state is %s, only planned commands can be cancelled: %w", c.ID, c.State, ErrInput)
+	}
+	c.State = Cancelled
+	c.EndedAt = now
+	c.Note = note
+	return nil
+}
+
+// chargedMinutes is what a command counts against its zone's daily cap:
+// everything that may have run counts in full (an expired command may have
+// run with its report lost), a failed one counts what it reported, a
+// cancelled one nothing.
+func (c *Command) chargedMinutes() int {
+	switch c.State {
+	case Cancelled:
+		return 0
+	case Failed:
+		if c.RunKnown {
+			return int(math.Ceil(c.MinutesRun - 1e-9))
+		}
+	case Finished:
+		if c.RunKnown && c.MinutesRun > float64(c.Minutes) {
+			return int(math.Ceil(c.MinutesRun - 1e-9))
+		}
+	}
+	return c.Minutes
+}
