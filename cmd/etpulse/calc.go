@@ -2,12 +2,224 @@ package main
 
 import (
 	"context"
+	"errors"
+	"flag"
 	"fmt"
 	"io"
+	"math"
+	"os"
+	"strings"
+
+	"etpulse/gateway/hourcsv"
+	"etpulse/hourly"
 )
 
-// TEMPORARY: replaced by the command's implementation.
+const calcHelp = `usage: etpulse calc --lat DEG --lon DEG --elevation M --utc-offset H [flags] [--in FILE]
+
+Computes hourly Penman-Monteith reference ET from an hourly weather CSV
+(stdin, or --in FILE) and writes a results CSV to stdout. Messages about gaps
+and skipped rows go to stderr.
+
+Station (all four required):
+  --lat DEG          latitude, degrees, north positive (-90..90)
+  --lon DEG          longitude, degrees, EAST positive (-180..180); 16.25 W is -16.25
+  --elevation M      elevation above sea level, m (-500..9000)
+  --utc-offset H     UTC offset of the station's STANDARD time, hours (e.g. -8;
+                     no daylight-saving time: solar geometry uses standard time)
+
+Method:
+  --reference REF    short (ASCE-EWRI 2005 standardized ETos, default),
+                     tall (ASCE-EWRI 2005 ETrs) or fao56 (FAO-56 hourly grass)
+  --wind-height M    height of the wind sensor, m (default 2; other heights
+                     are adjusted to 2 m by FAO-56 eq. 47; 0.5..100)
+  --clear-sky FORM   clear-sky radiation: simple (FAO-56 eq. 37, default) or
+                     full (ASCE-EWRI 2005 Appendix D, with precipitable water)
+  --turbidity KT     turbidity for --clear-sky full: 1 clean air (default),
+                     0.5 extremely turbid
+
+Input and output:
+  --in FILE          weather CSV (default: stdin)
+  --daily            one line per local date instead of one per hour
+  --skip-bad         report bad rows on stderr and go on (default: stop at the
+                     first bad row, exit 1)
+  --help             this text
+
+Input columns, named in a header line, in any order ('#' starts a comment line):
+  time           hour START in station standard time, 2026-07-01T14:00, or
+                 RFC 3339 with an offset (2026-07-01T22:00:00Z), which is
+                 converted to station standard time. One row per hour, in
+                 increasing order; a missing hour is reported on stderr and
+                 restarts the night cloudiness carry; a repeated or earlier
+                 time is a bad row.
+  air_temp_c     mean air temperature, degC
+  exactly one of:
+    rh_pct       mean relative humidity, %  (ea from this row's RH and air
+                 temperature, FAO-56 eq. 54)
+    dewpoint_c   mean dew point, degC       (ea = e°(Tdew), FAO-56 eq. 14)
+    ea_kpa       actual vapour pressure, kPa
+  wind_ms        mean wind speed at --wind-height, m/s
+  solar_wm2      mean incoming solar radiation over the hour, W/m2
+  optional (an empty cell means "not measured this hour"):
+    net_rad_wm2    measured net radiation, mean W/m2 (replaces the estimate)
+    soil_heat_wm2  measured soil heat flux, mean W/m2, positive into the soil
+                   (replaces G = 0.1/0.5 Rn short, 0.04/0.2 Rn tall)
+    rain_mm        rain over the hour, mm (summed by --daily)
+
+Output columns (hourly):
+  time      hour start, station standard time
+  et_mm     reference ET over the hour, mm (can be slightly negative at
+            night: dew)
+  ra_mj     extraterrestrial radiation, MJ/m2
+  rso_mj    clear-sky radiation, MJ/m2
+  fcd       cloudiness function (night: carried from the last hour with the
+            sun above 0.3 rad, or the 0.8 Rs/Rso default after a start or gap)
+  rn_mj     net radiation, MJ/m2
+  g_mj      soil heat flux, MJ/m2
+  es_kpa    saturation vapour pressure, kPa
+  ea_kpa    actual vapour pressure, kPa
+  day       1 when Rn > 0 (daytime constants), else 0
+
+Output columns (--daily):
+  date, hours (computed hours of the date), et_mm (sum of hourly ET),
+  et_daily_mm (daily equation, FAO-56 eq. 6 / ASCE-EWRI 2005, from the
+  day's aggregates; empty unless all 24 hours are present), rain_mm (empty
+  without rain values), rs_mj, rn_mj (sums), tmin_c, tmax_c (of the hourly
+  means), ea_kpa, wind_ms (means)
+
+Exit status: 0 success (also when --skip-bad skipped rows), 1 bad data or
+unreadable input, 2 bad command line.
+
+Example (the bundled demo orchard, invented data; wind measured at 3 m):
+  etpulse calc --in testdata/calc/halcyon-terrace.csv \
+    --lat 37.48 --lon 14.06 --elevation 310 --utc-offset 1 --wind-height 3
+`
+
 func runCalc(ctx context.Context, args []string, stdin io.Reader, stdout, stderr io.Writer) int {
-	fmt.Fprintln(stderr, "etpulse: not implemented yet")
-	return exitError
+	fs := flag.NewFlagSet("calc", flag.ContinueOnError)
+	fs.SetOutput(io.Discard)
+	var (
+		in         = fs.String("in", "", "")
+		lat        = fs.Float64("lat", math.NaN(), "")
+		lon        = fs.Float64("lon", math.NaN(), "")
+		elevation  = fs.Float64("elevation", math.NaN(), "")
+		utcOffset  = fs.Float64("utc-offset", math.NaN(), "")
+		reference  = fs.String("reference", string(hourly.Short), "")
+		windHeight = fs.Float64("wind-height", 2, "")
+		clearSky   = fs.String("clear-sky", string(hourly.ClearSkySimple), "")
+		turbidity  = fs.Float64("turbidity", 1, "")
+		daily      = fs.Bool("daily", false, "")
+		skipBad    = fs.Bool("skip-bad", false, "")
+	)
+	usageErr := func(format string, a ...any) int {
+		fmt.Fprintf(stderr, "etpulse calc: "+format+"\n", a...)
+		fmt.Fprintln(stderr, "run 'etpulse calc --help' for usage")
+		return exitUsage
+	}
+	if err := fs.Parse(args); err != nil {
+		if errors.Is(err, flag.ErrHelp) {
+			fmt.Fprint(stdout, calcHelp)
+			return exitOK
+		}
+		return usageErr("%v", err)
+	}
+	if fs.NArg() > 0 {
+		return usageErr("unexpected argument %q (the input file goes after --in)", fs.Arg(0))
+	}
+	set := map[string]bool{}
+	fs.Visit(func(f *flag.Flag) { set[f.Name] = true })
+	for _, req := range []struct{ name, what string }{
+		{"lat", "station latitude, degrees north positive"},
+		{"lon", "station longitude, degrees east positive"},
+		{"elevation", "station elevation, m"},
+		{"utc-offset", "UTC offset of the station's standard time, hours"},
+	} {
+		if !set[req.name] {
+			return usageErr("missing --%s (%s)", req.name, req.what)
+		}
+	}
+	ref, err := hourly.ParseReference(*reference)
+	if err != nil {
+		return usageErr("--reference: %q is not one of short, tall, fao56", *reference)
+	}
+	cs, err := hourly.ParseClearSky(*clearSky)
+	if err != nil {
+		return usageErr("--clear-sky: %q is not one of simple, full", *clearSky)
+	}
+	if set["turbidity"] && cs != hourly.ClearSkyFull {
+		return usageErr("--turbidity applies only with --clear-sky full")
+	}
+	if !(*turbidity >= 0.5 && *turbidity <= 1) {
+		return usageErr("--turbidity: %v outside 0.5..1", *turbidity)
+	}
+	if _, err := hourly.WindFactor(*windHeight); err != nil {
+		return usageErr("--wind-height: %v m outside 0.5..100", *windHeight)
+	}
+	st := hourly.Station{Latitude: *lat, Longitude: *lon, Elevation: *elevation, UTCOffset: *utcOffset, ClearSky: cs, Turbidity: *turbidity}
+	for _, c := range []struct {
+		name   string
+		v      float64
+		lo, hi float64
+		unit   string
+	}{
+		{"lat", st.Latitude, -90, 90, "degrees"},
+		{"lon", st.Longitude, -180, 180, "degrees (east positive)"},
+		{"elevation", st.Elevation, -500, 9000, "m"},
+		{"utc-offset", st.UTCOffset, -14, 14, "hours"},
+	} {
+		if !(c.v >= c.lo && c.v <= c.hi) {
+			return usageErr("--%s: %v outside %g..%g %s", c.name, c.v, c.lo, c.hi, c.unit)
+		}
+	}
+	if _, err := hourcsv.StandardZone(st.UTCOffset); err != nil {
+		return usageErr("--utc-offset: %v is not a whole number of quarter hours", st.UTCOffset)
+	}
+	if err := st.Validate(); err != nil {
+		return usageErr("%v", err)
+	}
+
+	input := stdin
+	if *in != "" && *in != "-" {
+		f, err := os.Open(*in)
+		if err != nil {
+			fmt.Fprintf(stderr, "etpulse calc: %v\n", err)
+			return exitError
+		}
+		defer f.Close() // read-only
+		input = f
+	}
+	report := &prefixWriter{w: stderr, prefix: "etpulse calc: "}
+	sum, err := hourcsv.Calc(ctx, input, stdout, hourcsv.CalcOptions{
+		Station:    st,
+		Reference:  ref,
+		WindHeight: *windHeight,
+		Daily:      *daily,
+		SkipBad:    *skipBad,
+		Report:     report,
+	})
+	if err != nil {
+		fmt.Fprintf(stderr, "etpulse %v\n", err)
+		return exitError
+	}
+	if sum.Skipped > 0 || sum.Gaps > 0 {
+		fmt.Fprintf(stderr, "etpulse calc: %d hours computed, %d bad rows skipped, %d gaps\n", sum.Hours, sum.Skipped, sum.Gaps)
+	}
+	return exitOK
+}
+
+// prefixWriter writes each line it receives to w with a prefix.
+type prefixWriter struct {
+	w      io.Writer
+	prefix string
+}
+
+func (p *prefixWriter) Write(b []byte) (int, error) {
+	for _, line := range strings.SplitAfter(string(b), "\n") {
+		if line == "" {
+			continue
+		}
+		if _, err := io.WriteString(p.w, p.prefix+line); err != nil {
+			return 0, err
+		}
+	}
+	return len(b), nil
 }

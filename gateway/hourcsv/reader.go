@@ -1,0 +1,359 @@
+// Package hourcsv reads hourly weather CSV files into hourly.Hour values and
+// writes hourly and daily reference-ET results as CSV. It is the file adapter
+// behind `etpulse calc`: columns are found by header name, every bad row is
+// reported with its line number, column and value, and the science (vapour
+// pressure, wind height, unit conversion) is done by package hourly.
+package hourcsv
+
+import (
+	"encoding/csv"
+	"errors"
+	"fmt"
+	"io"
+	"math"
+	"slices"
+	"strconv"
+	"strings"
+	"time"
+
+	"etpulse/hourly"
+)
+
+// Input column names.
+const (
+	ColTime      = "time"          // hour start: station standard time, or RFC 3339 with an offset
+	ColAirTemp   = "air_temp_c"    // mean air temperature, °C
+	ColRH        = "rh_pct"        // mean relative humidity, %
+	ColDewPoint  = "dewpoint_c"    // mean dew point, °C
+	ColEa        = "ea_kpa"        // actual vapour pressure, kPa
+	ColWind      = "wind_ms"       // mean wind speed at the sensor height, m/s
+	ColSolar     = "solar_wm2"     // mean incoming solar radiation over the hour, W m-2
+	ColNetRad    = "net_rad_wm2"   // optional measured net radiation, mean W m-2
+	ColSoilHeat  = "soil_heat_wm2" // optional measured soil heat flux, mean W m-2, positive into the soil
+	ColRain      = "rain_mm"       // optional rain over the hour, mm
+	humidityCols = ColRH + ", " + ColDewPoint + " or " + ColEa
+)
+
+// Columns lists every accepted input column, required ones first.
+var Columns = []string{ColTime, ColAirTemp, ColRH, ColDewPoint, ColEa, ColWind, ColSolar, ColNetRad, ColSoilHeat, ColRain}
+
+// ErrHeader is wrapped by every error about the header line: an unknown,
+// duplicate or missing column. Such a file cannot be read at all.
+var ErrHeader = errors.New("bad header")
+
+// RowError is a bad data row. Reading may continue after it.
+type RowError struct {
+	Line   int    // 1-based line number in the input
+	Column string // column name; empty when the row as a whole is bad
+	Value  string // the offending cell; empty when Column is empty
+	Err    error
+}
+
+func (e *RowError) Error() string {
+	if e.Column == "" {
+		return fmt.Sprintf("line %d: %v", e.Line, e.Err)
+	}
+	return fmt.Sprintf("line %d: column %s: value %q: %v", e.Line, e.Column, e.Value, e.Err)
+}
+
+func (e *RowError) Unwrap() error { return e.Err }
+
+// Options describe the station the file comes from.
+type Options struct {
+	// UTCOffset is the station's standard-time offset from UTC in hours
+	// (e.g. -8). Times without an offset are in this standard time; times
+	// with one are converted to it.
+	UTCOffset float64
+	// WindHeight is the height of the wind sensor in m; wind is adjusted to
+	// 2 m (FAO-56 eq. 47, by hourly.WindAt2m). Zero means 2 m.
+	WindHeight float64
+}
+
+// Row is one good data row.
+type Row struct {
+	Line int // 1-based line number in the input
+	// Hour is the row as input to hourly.Compute: Start in station standard
+	// time, Ea in kPa, Wind2 at 2 m, radiation in MJ m-2 per hour.
+	Hour    hourly.Hour
+	Rain    float64 // mm over the hour; 0 when absent
+	HasRain bool
+	// Gap is the time missing between the end of the previous good row and
+	// this row's start; 0 for the first row and for contiguous hours. A gap
+	// means the night cloudiness carry must restart.
+	Gap time.Duration
+}
+
+type humidityKind int
+
+const (
+	humRH humidityKind = iota
+	humDewPoint
+	humEa
+)
+
+// Reader reads rows of an hourly weather CSV. It is not safe for
+// concurrent use.
+type Reader struct {
+	csv        *csv.Reader
+	opt        Options
+	zone       *time.Location
+	nfields    int
+	idxTime    int
+	idxTemp    int
+	idxHum     int
+	hum        humidityKind
+	idxWind    int
+	idxSolar   int
+	idxNetRad  int // -1 when absent
+	idxSoil    int
+	idxRain    int
+	windFactor float64
+	prev       time.Time
+	havePrev   bool
+	prevLine   int
+	headerLine int
+}
+
+// NewReader reads the header line and returns a Reader positioned at the
+// first data row. Lines starting with '#' are comments; blank lines are
+// ignored. The header names columns in any order (case and surrounding
+// spaces do not matter). Errors about the header wrap ErrHeader.
+func NewReader(r io.Reader, opt Options) (*Reader, error) {
+	zone, err := StandardZone(opt.UTCOffset)
+	if err != nil {
+		return nil, fmt.Errorf("read weather csv: %w", err)
+	}
+	if opt.WindHeight == 0 {
+		opt.WindHeight = 2
+	}
+	windFactor, err := hourly.WindFactor(opt.WindHeight)
+	if err != nil {
+		return nil, fmt.Errorf("read weather csv: %w", err)
+	}
+	cr := csv.NewReader(r)
+	cr.Comment = '#'
+	cr.ReuseRecord = true
+	cr.FieldsPerRecord = -1 // counted here, to give a better message
+	head, err := cr.Read()
+	if errors.Is(err, io.EOF) {
+		return nil, fmt.Errorf("read weather csv: %w: empty input, expected a header line naming the columns", ErrHeader)
+	}
+	if err != nil {
+		return nil, fmt.Errorf("read weather csv: header: %w", err)
+	}
+	line, _ := cr.FieldPos(0)
+	rd := &Reader{csv: cr, opt: opt, zone: zone, windFactor: windFactor, nfields: len(head), headerLine: line,
+		idxTime: -1, idxTemp: -1, idxHum: -1, idxWind: -1, idxSolar: -1, idxNetRad: -1, idxSoil: -1, idxRain: -1}
+	if err := rd.mapHeader(head, line); err != nil {
+		return nil, fmt.Errorf("read weather csv: %w", err)
+	}
+	return rd, nil
+}
+
+func (rd *Reader) mapHeader(head []string, line int) error {
+	seen := make(map[string]int, len(head))
+	var humCols []string
+	for i, raw := range head {
+		name := strings.ToLower(strings.TrimSpace(strings.TrimPrefix(raw, "\ufeff")))
+		if name == "" {
+			return fmt.Errorf("%w: line %d: column %d has an empty name", ErrHeader, line, i+1)
+		}
+		if j, dup := seen[name]; dup {
+			return fmt.Errorf("%w: line %d: column %q appears twice (columns %d and %d)", ErrHeader, line, name, j+1, i+1)
+		}
+		seen[name] = i
+		switch name {
+		case ColTime:
+			rd.idxTime = i
+		case ColAirTemp:
+			rd.idxTemp = i
+		case ColRH, ColDewPoint, ColEa:
+			humCols = append(humCols, name)
+			rd.idxHum = i
+			rd.hum = map[string]humidityKind{ColRH: humRH, ColDewPoint: humDewPoint, ColEa: humEa}[name]
+		case ColWind:
+			rd.idxWind = i
+		case ColSolar:
+			rd.idxSolar = i
+		case ColNetRad:
+			rd.idxNetRad = i
+		case ColSoilHeat:
+			rd.idxSoil = i
+		case ColRain:
+			rd.idxRain = i
+		default:
+			return fmt.Errorf("%w: line %d: unknown column %q (accepted: %s)", ErrHeader, line, raw, strings.Join(Columns, ", "))
+		}
+	}
+	for _, req := range []struct {
+		idx  int
+		name string
+	}{{rd.idxTime, ColTime}, {rd.idxTemp, ColAirTemp}, {rd.idxWind, ColWind}, {rd.idxSolar, ColSolar}} {
+		if req.idx < 0 {
+			return fmt.Errorf("%w: line %d: missing required column %q", ErrHeader, line, req.name)
+		}
+	}
+	switch len(humCols) {
+	case 0:
+		return fmt.Errorf("%w: line %d: missing humidity column: give exactly one of %s", ErrHeader, line, humidityCols)
+	case 1:
+	default:
+		slices.Sort(humCols)
+		return fmt.Errorf("%w: line %d: columns %s all give humidity: give exactly one of %s", ErrHeader, line, strings.Join(humCols, " and "), humidityCols)
+	}
+	return nil
+}
+
+// Read returns the next good row, io.EOF at the end of the input, a
+// *RowError for a bad row (reading may continue with the next call), or
+// another error when the input cannot be read further.
+func (rd *Reader) Read() (Row, error) {
+	rec, err := rd.csv.Read()
+	if err != nil {
+		var pe *csv.ParseError
+		if errors.As(err, &pe) {
+			return Row{}, &RowError{Line: pe.Line, Err: pe.Err}
+		}
+		if errors.Is(err, io.EOF) {
+			return Row{}, io.EOF
+		}
+		return Row{}, fmt.Errorf("read weather csv: %w", err)
+	}
+	line, _ := rd.csv.FieldPos(0)
+	if len(rec) != rd.nfields {
+		return Row{}, &RowError{Line: line, Err: fmt.Errorf("has %d fields, the header has %d", len(rec), rd.nfields)}
+	}
+	row := Row{Line: line}
+	h := &row.Hour
+
+	cell := strings.TrimSpace(rec[rd.idxTime])
+	start, err := parseTime(cell, rd.zone)
+	if err != nil {
+		return Row{}, &RowError{Line: line, Column: ColTime, Value: cell, Err: err}
+	}
+	if _, m, s := start.Clock(); m != 0 || s != 0 || start.Nanosecond() != 0 {
+		return Row{}, &RowError{Line: line, Column: ColTime, Value: cell,
+			Err: fmt.Errorf("not the start of an hour of station standard time (%s): %s", rd.zone, AppendLocal(nil, start))}
+	}
+	if rd.havePrev {
+		if !start.After(rd.prev) {
+			return Row{}, &RowError{Line: line, Column: ColTime, Value: cell,
+				Err: fmt.Errorf("not after the previous hour %s (line %d): hours must be in increasing order without repeats", AppendLocal(nil, rd.prev), rd.prevLine)}
+		}
+		row.Gap = start.Sub(rd.prev) - time.Hour
+	}
+	h.Start = start
+
+	if h.AirTemp, err = rd.number(rec, rd.idxTemp, ColAirTemp, line); err != nil {
+		return Row{}, err
+	}
+	if h.Ea, err = rd.humidity(rec, h.AirTemp, line); err != nil {
+		return Row{}, err
+	}
+	if h.Wind2, err = rd.wind(rec, line); err != nil {
+		return Row{}, err
+	}
+	solar, err := rd.number(rec, rd.idxSolar, ColSolar, line)
+	if err != nil {
+		return Row{}, err
+	}
+	h.Solar = hourly.WattsToMJ(solar, 1)
+	if v, ok, err := rd.optional(rec, rd.idxNetRad, ColNetRad, line); err != nil {
+		return Row{}, err
+	} else if ok {
+		h.NetRad, h.HasNetRad = hourly.WattsToMJ(v, 1), true
+	}
+	if v, ok, err := rd.optional(rec, rd.idxSoil, ColSoilHeat, line); err != nil {
+		return Row{}, err
+	} else if ok {
+		h.SoilHeat, h.HasSoilHeat = hourly.WattsToMJ(v, 1), true
+	}
+	if v, ok, err := rd.optional(rec, rd.idxRain, ColRain, line); err != nil {
+		return Row{}, err
+	} else if ok {
+		if v < 0 {
+			return Row{}, &RowError{Line: line, Column: ColRain, Value: cellAt(rec, rd.idxRain), Err: errors.New("rain must be >= 0 mm")}
+		}
+		row.Rain, row.HasRain = v, true
+	}
+
+	rd.prev, rd.havePrev, rd.prevLine = start, true, line
+	return row, nil
+}
+
+func cellAt(rec []string, i int) string { return strings.TrimSpace(rec[i]) }
+
+// number parses a required numeric cell.
+func (rd *Reader) number(rec []string, i int, col string, line int) (float64, error) {
+	v, ok, err := rd.optional(rec, i, col, line)
+	if err != nil {
+		return 0, err
+	}
+	if !ok {
+		return 0, &RowError{Line: line, Column: col, Value: "", Err: errors.New("empty, and the column is required")}
+	}
+	return v, nil
+}
+
+// optional parses a numeric cell that may be empty (ok false) or absent (i < 0).
+func (rd *Reader) optional(rec []string, i int, col string, line int) (v float64, ok bool, err error) {
+	if i < 0 {
+		return 0, false, nil
+	}
+	s := cellAt(rec, i)
+	if s == "" {
+		return 0, false, nil
+	}
+	v, err = strconv.ParseFloat(s, 64)
+	if err != nil {
+		return 0, false, &RowError{Line: line, Column: col, Value: s, Err: errors.New("not a number")}
+	}
+	if math.IsNaN(v) || math.IsInf(v, 0) {
+		return 0, false, &RowError{Line: line, Column: col, Value: s, Err: errors.New("not a finite number")}
+	}
+	return v, true, nil
+}
+
+// humidity returns the hour's actual vapour pressure ea, kPa, from whichever
+// humidity column the file has.
+func (rd *Reader) humidity(rec []string, airTemp float64, line int) (float64, error) {
+	col := ColRH
+	switch rd.hum {
+	case humDewPoint:
+		col = ColDewPoint
+	case humEa:
+		col = ColEa
+	}
+	v, err := rd.number(rec, rd.idxHum, col, line)
+	if err != nil {
+		return 0, err
+	}
+	var ea float64
+	switch rd.hum {
+	case humRH:
+		ea, err = hourly.VapourPressureFromRH(airTemp, v)
+	case humDewPoint:
+		ea, err = hourly.VapourPressureFromDewPoint(v)
+	default:
+		ea = v
+		if v < 0 {
+			err = errors.New("vapour pressure must be >= 0 kPa")
+		}
+	}
+	if err != nil {
+		return 0, &RowError{Line: line, Column: col, Value: cellAt(rec, rd.idxHum), Err: err}
+	}
+	return ea, nil
+}
+
+// wind returns the wind speed adjusted from the sensor height to 2 m.
+func (rd *Reader) wind(rec []string, line int) (float64, error) {
+	v, err := rd.number(rec, rd.idxWind, ColWind, line)
+	if err != nil {
+		return 0, err
+	}
+	if v < 0 {
+		return 0, &RowError{Line: line, Column: ColWind, Value: cellAt(rec, rd.idxWind), Err: errors.New("wind speed must be >= 0 m/s")}
+	}
+	return v * rd.windFactor, nil // FAO-56 eq. 47 factor from hourly.WindFactor
+}
