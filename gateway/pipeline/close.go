@@ -255,7 +255,7 @@ func (p *Pipeline) build(sb stationBuckets, st *station, hour time.Time, carryIn
 		return rec, tmin, tmax, nil
 	}
 	if excludeSolar {
-		rs, ok, err := p.hargreavesSolar(sb, st, hour, rec.Inputs, tmin, tmax)
+		rs, ok, err := p.hargreavesSolar(sb, st, hour, tmin, tmax)
 		if err != nil {
 			return rec, tmin, tmax, err
 		}
@@ -282,7 +282,7 @@ func (p *Pipeline) build(sb stationBuckets, st *station, hour time.Time, carryIn
 
 // hargreavesSolar estimates the hour's Rs by FAO-56 eq. 50 from its Ra and
 // the air temperature range of the last 24 hours (this hour and the 23 before).
-func (p *Pipeline) hargreavesSolar(sb stationBuckets, st *station, hour time.Time, in hourly.Hour, tmin, tmax *float64) (float64, bool, error) {
+func (p *Pipeline) hargreavesSolar(sb stationBuckets, st *station, hour time.Time, tmin, tmax *float64) (float64, bool, error) {
 	lo, hi := math.Inf(1), math.Inf(-1)
 	if tmin != nil {
 		lo, hi = *tmin, *tmax
@@ -301,14 +301,8 @@ func (p *Pipeline) hargreavesSolar(sb stationBuckets, st *station, hour time.Tim
 	if math.IsInf(lo, 0) || hi < lo {
 		return 0, false, nil
 	}
-	// Ra of the hour does not depend on solar: compute once with Rs = 0.
-	probe := in
-	probe.Solar = 0
-	res, _, err := hourly.Compute(st.hs, st.cfg.Reference, probe, hourly.Carry{})
-	if err != nil {
-		return 0, false, nil
-	}
-	return hourly.HargreavesSolar(res.Ra, hi, lo, hargreavesKRs), true, nil
+	ra := hourly.SunForPeriod(st.hs, hour, time.Hour).Ra // FAO-56 eq. 28
+	return hourly.HargreavesSolar(ra, hi, lo, hargreavesKRs), true, nil // FAO-56 eq. 50
 }
 
 // loadHour reads every stored sample of the hour, in time order.
