@@ -301,7 +301,7 @@ func (p *Pipeline) hargreavesSolar(sb stationBuckets, st *station, hour time.Tim
 	if math.IsInf(lo, 0) || hi < lo {
 		return 0, false, nil
 	}
-	ra := hourly.SunForPeriod(st.hs, hour, time.Hour).Ra // FAO-56 eq. 28
+	ra := hourly.SunForPeriod(st.hs, hour, time.Hour).Ra                // FAO-56 eq. 28
 	return hourly.HargreavesSolar(ra, hi, lo, hargreavesKRs), true, nil // FAO-56 eq. 50
 }
 
