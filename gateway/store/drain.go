@@ -19,10 +19,11 @@ type item struct {
 }
 
 // next reads up to maxHead of the oldest pending points and, when more are
-// pending, up to maxLive of the newest ones (the live share of a batch during
-// a backfill). The result is in sequence order: head first, then the live
-// tail. A point that cannot be decoded is quarantined on the spot.
-func (o *Outbox) next(maxHead, maxLive int) ([]item, error) {
+// pending, up to maxLive of the newest ones enqueued at or after liveSince
+// (the live share of a batch during a backfill). The result is in sequence
+// order: head first, then the live tail. A point that cannot be decoded is
+// quarantined on the spot.
+func (o *Outbox) next(maxHead, maxLive int, liveSince time.Time) ([]item, error) {
 	var items []item
 	var corrupt []uint64
 	err := o.db.View(func(tx *bbolt.Tx) error {
@@ -61,6 +62,9 @@ func (o *Outbox) next(maxHead, maxLive int) ([]item, error) {
 		items = nil
 		n = 0
 		for k, v := c.Last(); k != nil && n < maxLive && (lastHead == nil || bytes.Compare(k, lastHead) > 0); k, v = c.Prev() {
+			if len(v) >= 8 && int64(binary.BigEndian.Uint64(v)) < liveSince.UnixNano() {
+				break
+			}
 			read(k, v)
 			n++
 		}

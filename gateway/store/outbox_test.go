@@ -54,7 +54,7 @@ func rawPt(h int) Point {
 // pending returns the lines waiting in the outbox, oldest first.
 func pending(t testing.TB, o *Outbox) []string {
 	t.Helper()
-	items, err := o.next(1<<30, 0)
+	items, err := o.next(1<<30, 0, time.Time{})
 	require.NoError(t, err)
 	var lines []string
 	for _, it := range items {

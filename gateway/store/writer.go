@@ -1,0 +1,346 @@
+package store
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"log/slog"
+	"math/rand/v2"
+	"net/http"
+	"strconv"
+	"time"
+
+	influxdb2 "github.com/influxdata/influxdb-client-go/v2"
+	"github.com/influxdata/influxdb-client-go/v2/api"
+	http2 "github.com/influxdata/influxdb-client-go/v2/api/http"
+	"github.com/prometheus/client_golang/prometheus"
+)
+
+// Defaults of WriterOptions.
+const (
+	DefaultBatchSize     = 500
+	DefaultFlushInterval = time.Second
+	DefaultMinBackoff    = 500 * time.Millisecond
+	DefaultMaxBackoff    = 5 * time.Minute
+	DefaultBackfillRate  = 1000 // points per second
+	DefaultMaxFuture     = 48 * time.Hour
+	DefaultWriteTimeout  = 30 * time.Second
+	DefaultShutdownFlush = 5 * time.Second
+)
+
+// WriterOptions configures a Writer.
+type WriterOptions struct {
+	URL    string // base URL of a server with the InfluxDB v2 write API
+	Org    string
+	Bucket string
+	Token  string
+
+	BatchSize     int           // points per write request; 0: DefaultBatchSize
+	FlushInterval time.Duration // wait after new points arrive, to batch them; 0: DefaultFlushInterval
+	MinBackoff    time.Duration // first retry delay after an error; 0: DefaultMinBackoff
+	MaxBackoff    time.Duration // cap of the exponential retry delay; 0: DefaultMaxBackoff
+	// BackfillRate bounds, in points per second, how fast a backlog (more
+	// than one batch pending) drains; live points are exempt. 0: DefaultBackfillRate.
+	BackfillRate float64
+	// MaxFuture quarantines points further ahead of the clock; 0: DefaultMaxFuture.
+	MaxFuture time.Duration
+	// MaxAge quarantines points older than the server's retention; 0: no limit.
+	MaxAge        time.Duration
+	WriteTimeout  time.Duration // per request; 0: DefaultWriteTimeout
+	ShutdownFlush time.Duration // last drain attempt when Run stops; 0: DefaultShutdownFlush
+
+	Logger     *slog.Logger          // nil: discard
+	Registerer prometheus.Registerer // nil: metrics are not registered
+}
+
+// lineWriter sends lines of line protocol; api.WriteAPIBlocking satisfies it.
+type lineWriter interface {
+	WriteRecord(ctx context.Context, line ...string) error
+}
+
+var _ lineWriter = (api.WriteAPIBlocking)(nil)
+
+// Writer drains an Outbox to the store in batches, oldest first. It is a
+// gateway service: Run loops until its context ends.
+//
+// Backfill rule: while more than one batch is pending, each batch is made of
+// the oldest points, at most BackfillRate per second, plus up to a quarter of
+// the batch taken from the newest points enqueued since the writer last
+// recovered (live points), so current data keeps flowing during a long
+// drain. Reordering cannot change what the store ends up holding: the outbox
+// keeps at most one pending point per measurement, tags and time (a revision
+// replaces the pending earlier emission), so no two points in flight ever
+// overwrite each other.
+type Writer struct {
+	o       *Outbox
+	opt     WriterOptions
+	client  influxdb2.Client
+	api     lineWriter
+	log     *slog.Logger
+	metrics *writerMetrics
+
+	liveSince time.Time // points enqueued since then count as live
+}
+
+// NewWriter returns a writer of o's points to the server at opt.URL. It does
+// not contact the server.
+func NewWriter(o *Outbox, opt WriterOptions) (*Writer, error) {
+	if opt.URL == "" {
+		return nil, errors.New("new writer: no store url")
+	}
+	if o.opt.LocalOnly {
+		return nil, errors.New("new writer: the outbox keeps local history only")
+	}
+	setDefault(&opt.BatchSize, DefaultBatchSize)
+	setDefault(&opt.FlushInterval, DefaultFlushInterval)
+	setDefault(&opt.MinBackoff, DefaultMinBackoff)
+	setDefault(&opt.MaxBackoff, DefaultMaxBackoff)
+	setDefault(&opt.BackfillRate, DefaultBackfillRate)
+	setDefault(&opt.MaxFuture, DefaultMaxFuture)
+	setDefault(&opt.WriteTimeout, DefaultWriteTimeout)
+	setDefault(&opt.ShutdownFlush, DefaultShutdownFlush)
+	if opt.BatchSize < 1 {
+		return nil, fmt.Errorf("new writer: batch size must be > 0, got %d", opt.BatchSize)
+	}
+	if opt.BackfillRate < 0 {
+		return nil, fmt.Errorf("new writer: backfill rate must be > 0, got %g", opt.BackfillRate)
+	}
+	if opt.Logger == nil {
+		opt.Logger = slog.New(slog.DiscardHandler)
+	}
+	m, err := newWriterMetrics(opt.Registerer)
+	if err != nil {
+		return nil, fmt.Errorf("new writer: %w", err)
+	}
+	copt := influxdb2.DefaultOptions().
+		SetPrecision(time.Nanosecond).
+		SetHTTPRequestTimeout(uint(max(opt.WriteTimeout.Seconds(), 1)))
+	client := influxdb2.NewClientWithOptions(opt.URL, opt.Token, copt)
+	return &Writer{
+		o:         o,
+		opt:       opt,
+		client:    client,
+		api:       client.WriteAPIBlocking(opt.Org, opt.Bucket),
+		log:       opt.Logger,
+		metrics:   m,
+		liveSince: o.now(),
+	}, nil
+}
+
+func setDefault[T comparable](v *T, d T) {
+	var zero T
+	if *v == zero {
+		*v = d
+	}
+}
+
+// Run drains the outbox until ctx ends, then makes one last bounded attempt
+// to write what is pending (ShutdownFlush) and closes the client. What stays
+// unwritten remains in the outbox for the next start.
+func (w *Writer) Run(ctx context.Context) error {
+	defer w.client.Close()
+	tokens := float64(w.opt.BatchSize)
+	last := time.Now()
+	backoff := time.Duration(0)
+	failing := false
+	for {
+		depth, _ := w.o.Stats()
+		if depth == 0 {
+			if !w.waitForPoints(ctx) {
+				break
+			}
+			continue
+		}
+		now := time.Now()
+		tokens = min(tokens+now.Sub(last).Seconds()*w.opt.BackfillRate, float64(w.opt.BatchSize))
+		last = now
+		head, live := w.opt.BatchSize, 0
+		backlog := depth > w.opt.BatchSize
+		if backlog {
+			live = w.opt.BatchSize / 4
+			head = min(w.opt.BatchSize-live, int(tokens))
+		}
+		n, err := w.step(ctx, head, live)
+		if err != nil {
+			if ctx.Err() != nil {
+				break
+			}
+			backoff = nextBackoff(backoff, w.opt.MinBackoff, w.opt.MaxBackoff)
+			if !failing {
+				w.log.Warn("store: write failed, retrying", "err", err, "pending", depth, "retry_in", backoff.String())
+			} else {
+				w.log.Debug("store: write failed again", "err", err, "retry_in", backoff.String())
+			}
+			failing = true
+			if !sleep(ctx, backoff) {
+				break
+			}
+			continue
+		}
+		if failing {
+			w.log.Info("store: writes recovered", "pending", depth)
+			failing = false
+			w.liveSince = w.o.now()
+		}
+		backoff = 0
+		if n.read == 0 && head > 0 {
+			// The depth says points are pending but none could be read:
+			// do not spin; wait for the next commit or flush interval.
+			if !sleep(ctx, w.opt.FlushInterval) {
+				break
+			}
+			continue
+		}
+		if backlog {
+			tokens -= float64(n.head)
+			if tokens < 1 {
+				wait := time.Duration((1 - tokens) / w.opt.BackfillRate * float64(time.Second))
+				if !sleep(ctx, wait) {
+					break
+				}
+			}
+		}
+	}
+	fctx, cancel := context.WithTimeout(context.Background(), w.opt.ShutdownFlush)
+	defer cancel()
+	if err := w.Flush(fctx); err != nil {
+		depth, _ := w.o.Stats()
+		w.log.Warn("store: points left in the outbox at shutdown", "pending", depth, "err", err)
+	}
+	return nil
+}
+
+// waitForPoints waits until new points are committed, then lets FlushInterval
+// pass so a burst goes out as one batch. It reports false when ctx ended.
+func (w *Writer) waitForPoints(ctx context.Context) bool {
+	select {
+	case <-ctx.Done():
+		return false
+	case <-w.o.notify:
+	}
+	if d, _ := w.o.Stats(); d >= w.opt.BatchSize {
+		return true
+	}
+	return sleep(ctx, w.opt.FlushInterval)
+}
+
+// Flush writes every pending point, ignoring the backfill rate, until the
+// outbox is empty, a write fails or ctx ends.
+func (w *Writer) Flush(ctx context.Context) error {
+	for {
+		n, err := w.step(ctx, w.opt.BatchSize, 0)
+		if err != nil {
+			return fmt.Errorf("flush: %w", err)
+		}
+		if n.read == 0 {
+			return nil
+		}
+	}
+}
+
+// stepCount tells what one step did: points read from the outbox, how many
+// of them were backlog (not live), and how many the store accepted.
+type stepCount struct{ read, head, written int }
+
+// step writes one batch of up to head oldest and live newest points.
+func (w *Writer) step(ctx context.Context, head, live int) (stepCount, error) {
+	items, err := w.o.next(head, live, w.liveSince)
+	if err != nil {
+		return stepCount{}, err
+	}
+	nHead := len(items)
+	if live > 0 {
+		nHead = 0
+		for _, it := range items {
+			if it.enqueued.Before(w.liveSince) {
+				nHead++
+			}
+		}
+	}
+	// Points the server would silently drop go to the quarantine first.
+	now := w.o.now()
+	var ok, bad []item
+	var reasons []string
+	for _, it := range items {
+		if err := CheckTime(it.point.Time, now, w.opt.MaxFuture, w.opt.MaxAge); err != nil {
+			bad = append(bad, it)
+			reasons = append(reasons, err.Error())
+			continue
+		}
+		ok = append(ok, it)
+	}
+	if len(bad) > 0 {
+		if err := w.o.done(nil, bad, reasons); err != nil {
+			return stepCount{}, err
+		}
+	}
+	written, err := w.write(ctx, ok)
+	return stepCount{read: len(items), head: nHead, written: written}, err
+}
+
+// write sends items and removes them from the outbox once accepted. When
+// the server refuses the batch as invalid (400, 413, 422), it splits the
+// batch in halves to find the bad points and quarantines them with the
+// server's reason; the rest is written.
+func (w *Writer) write(ctx context.Context, items []item) (int, error) {
+	if len(items) == 0 {
+		return 0, nil
+	}
+	lines := make([]string, len(items))
+	for i, it := range items {
+		lines[i] = string(it.line)
+	}
+	start := time.Now()
+	err := w.api.WriteRecord(ctx, lines...)
+	w.metrics.duration.Observe(time.Since(start).Seconds())
+	if err == nil {
+		if err := w.o.done(items, nil, nil); err != nil {
+			return 0, err
+		}
+		w.metrics.written.Add(float64(len(items)))
+		return len(items), nil
+	}
+	w.metrics.errors.Inc()
+	var he *http2.Error
+	if !errors.As(err, &he) || !refusedAsInvalid(he.StatusCode) {
+		return 0, fmt.Errorf("write %d points: %w", len(items), err)
+	}
+	if len(items) == 1 {
+		reason := "store refused: " + strconv.Itoa(he.StatusCode) + " " + http.StatusText(he.StatusCode) + ": " + he.Error()
+		return 0, w.o.done(nil, items, []string{reason})
+	}
+	half := len(items) / 2
+	n1, err := w.write(ctx, items[:half])
+	if err != nil {
+		return n1, err
+	}
+	n2, err := w.write(ctx, items[half:])
+	return n1 + n2, err
+}
+
+// refusedAsInvalid reports whether a status code means the request's content
+// is at fault (so retrying it unchanged can never succeed).
+func refusedAsInvalid(code int) bool {
+	return code == http.StatusBadRequest || code == http.StatusRequestEntityTooLarge || code == http.StatusUnprocessableEntity
+}
+
+// nextBackoff doubles the previous delay up to max, with jitter of up to a
+// quarter so several gateways do not retry in step.
+func nextBackoff(prev, minD, maxD time.Duration) time.Duration {
+	d := min(max(prev*2, minD), maxD)
+	return d - time.Duration(rand.Int64N(int64(d)/4+1))
+}
+
+func sleep(ctx context.Context, d time.Duration) bool {
+	if d <= 0 {
+		return ctx.Err() == nil
+	}
+	t := time.NewTimer(d)
+	defer t.Stop()
+	select {
+	case <-ctx.Done():
+		return false
+	case <-t.C:
+		return true
+	}
+}
