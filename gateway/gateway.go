@@ -55,6 +55,7 @@ type Components struct {
 type Deps struct {
 	Logger     *slog.Logger          // nil discards
 	Registerer prometheus.Registerer // nil: metrics not registered
+	Gatherer   prometheus.Gatherer   // the registry behind Registerer, for a metrics endpoint; may be nil
 	// Clock is the gateway's time; nil means time.Now. The demo passes an
 	// accelerated clock.
 	Clock func() time.Time

@@ -2,12 +2,115 @@ package main
 
 import (
 	"context"
+	"errors"
+	"flag"
 	"fmt"
 	"io"
+	"log/slog"
+	"strings"
+	"time"
+
+	"github.com/prometheus/client_golang/prometheus"
+	"github.com/prometheus/client_golang/prometheus/collectors"
+
+	"etpulse/gateway"
+	"etpulse/gateway/config"
+	"etpulse/gateway/mqtt"
+	"etpulse/gateway/state"
 )
 
-// TEMPORARY: replaced by the command's implementation.
+// runDaemon is `etpulse run --config FILE`: the live gateway until the first
+// SIGINT/SIGTERM, then an ordered shutdown and exit 0.
 func runDaemon(ctx context.Context, args []string, stdin io.Reader, stdout, stderr io.Writer) int {
-	fmt.Fprintln(stderr, "etpulse: not implemented yet")
-	return exitError
+	fs := flag.NewFlagSet("run", flag.ContinueOnError)
+	fs.SetOutput(stderr)
+	cfgPath := fs.String("config", "", "configuration file (YAML)")
+	logFormat := fs.String("log-format", "text", "log format: text or json")
+	logLevel := fs.String("log-level", "info", "log level: debug, info, warn or error")
+	fs.Usage = func() {
+		fmt.Fprintln(stderr, "usage: etpulse run --config FILE [--log-format text|json] [--log-level LEVEL]")
+		fs.PrintDefaults()
+	}
+	if err := fs.Parse(args); err != nil {
+		if errors.Is(err, flag.ErrHelp) {
+			return exitOK
+		}
+		return exitUsage
+	}
+	if *cfgPath == "" || fs.NArg() > 0 {
+		fs.Usage()
+		return exitUsage
+	}
+	log, err := newLogger(stderr, *logFormat, *logLevel)
+	if err != nil {
+		fmt.Fprintf(stderr, "etpulse run: %v\n", err)
+		return exitUsage
+	}
+	cfg, err := config.Load(*cfgPath)
+	if err != nil {
+		fmt.Fprintf(stderr, "etpulse run: %v\n", err)
+		return exitUsage
+	}
+	if err := daemon(ctx, cfg, log); err != nil {
+		log.Error("gateway failed", "err", err)
+		return exitError
+	}
+	return exitOK
+}
+
+// daemon opens the state file, connects to the broker, runs the gateway
+// until ctx ends, and closes what it opened in reverse order.
+func daemon(ctx context.Context, cfg *config.Config, log *slog.Logger) (err error) {
+	reg := prometheus.NewRegistry()
+	reg.MustRegister(collectors.NewGoCollector(), collectors.NewProcessCollector(collectors.ProcessCollectorOpts{}))
+
+	db, err := state.Open(cfg.State.Path)
+	if err != nil {
+		return err
+	}
+	defer func() {
+		if cerr := db.Close(); cerr != nil && err == nil {
+			err = fmt.Errorf("close state: %w", cerr)
+		}
+	}()
+
+	mo, err := mqtt.OptionsFromConfig(cfg.Broker)
+	if err != nil {
+		return err
+	}
+	mo.Logger = log.With("component", "mqtt")
+	mo.Registerer = reg
+	log.Info("connecting to broker", "url", cfg.Broker.URL, "client_id", cfg.Broker.ClientID)
+	client, err := mqtt.Dial(ctx, mo)
+	if err != nil {
+		if ctx.Err() != nil {
+			log.Info("stopped before the broker connection was up")
+			return nil
+		}
+		return err
+	}
+	defer client.Close(2 * time.Second)
+
+	g, err := gateway.New(cfg, gateway.Deps{
+		Logger: log, Registerer: reg, Gatherer: reg, DB: db, MQTT: client,
+	})
+	if err != nil {
+		return err
+	}
+	return g.Run(ctx)
+}
+
+func newLogger(w io.Writer, format, level string) (*slog.Logger, error) {
+	var lv slog.Level
+	if err := lv.UnmarshalText([]byte(level)); err != nil {
+		return nil, fmt.Errorf("--log-level: %q is not debug, info, warn or error", level)
+	}
+	opts := &slog.HandlerOptions{Level: lv}
+	switch strings.ToLower(format) {
+	case "text":
+		return slog.New(slog.NewTextHandler(w, opts)), nil
+	case "json":
+		return slog.New(slog.NewJSONHandler(w, opts)), nil
+	}
+	return nil, fmt.Errorf("--log-format: %q is not text or json", format)
 }
