@@ -140,13 +140,14 @@ type candidate struct {
 // net / efficiency / rate (rounded up), limited to MaxMinutes, raised to
 // MinMinutes only when that much water still fits below field capacity,
 // split into cycles with soaks, each cycle placed inside the current window
-// occurrence and inside the day's remaining cap.
+// occurrence (shortened to end with it) and inside the day's remaining cap.
 //
 // Sequencing: zones are served most depleted relative to their TAW first
 // (ties by zone id). Each cycle starts at the earliest minute at which its
 // source stays within its valve and flow limits for the whole cycle, counting
 // open commands already in the ledger. A cycle that does not fit in the
-// window, or in the day's cap, is left for a later decision.
+// window, or in the day's cap, with at least MinMinutes is left for a later
+// decision.
 func Decide(now time.Time, zones []ZoneInput, sources []Source, ledger []Command, holds Holds) Plan {
 	var plan Plan
 	open := map[string]bool{}
@@ -242,10 +243,12 @@ func Decide(now time.Time, zones []ZoneInput, sources []Source, ledger []Command
 		}
 		var planned []Command
 		for k, m := range cycles {
-			start, ok := earliestFit(bySource[z.Source], src, earliest, time.Duration(m)*time.Minute, flow, c.slot.End)
+			start, d, ok := earliestFit(bySource[z.Source], src, earliest, time.Duration(m)*time.Minute,
+				time.Duration(z.System.MinMinutes)*time.Minute, flow, c.slot.End)
 			if !ok {
 				break
 			}
+			m = int(d / time.Minute)
 			key := z.ID + "/" + dayKey(start, z.Loc)
 			if rest := z.System.MaxPerDay - used[key]; m > rest {
 				if rest < z.System.MinMinutes {
@@ -308,11 +311,11 @@ func zoneIndex(zones []ZoneInput) map[string]*Zone {
 	return byID
 }
 
-// earliestFit finds the earliest start >= from at which a run of length d
-// with the given flow keeps the source within its limits for the whole run
-// and ends by limit. Occupancy only drops when a run ends, so the candidates
-// are from and the ends of runs after it.
-func earliestFit(busy []interval, src Source, from time.Time, d time.Duration, flow float64, limit time.Time) (time.Time, bool) {
+// earliestFit finds the earliest start >= from at which a run of up to d
+// (shortened to end by limit, but not below min) with the given flow keeps
+// the source within its limits for the whole run. Occupancy only drops when a
+// run ends, so the candidates are from and the ends of runs after it.
+func earliestFit(busy []interval, src Source, from time.Time, d, min time.Duration, flow float64, limit time.Time) (time.Time, time.Duration, bool) {
 	cands := []time.Time{from}
 	for _, iv := range busy {
 		if iv.end.After(from) {
@@ -321,15 +324,18 @@ func earliestFit(busy []interval, src Source, from time.Time, d time.Duration, f
 	}
 	sort.Slice(cands, func(i, j int) bool { return cands[i].Before(cands[j]) })
 	for _, s := range cands {
-		e := s.Add(d)
-		if e.After(limit) {
-			return time.Time{}, false
+		dd := d
+		if room := limit.Sub(s).Truncate(time.Minute); room < dd {
+			dd = room
 		}
-		if fits(busy, src, s, e, flow) {
-			return s, true
+		if dd < min {
+			return time.Time{}, 0, false
+		}
+		if fits(busy, src, s, s.Add(dd), flow) {
+			return s, dd, true
 		}
 	}
-	return time.Time{}, false
+	return time.Time{}, 0, false
 }
 
 // fits checks the valve count and flow at every moment of [s, e): the load

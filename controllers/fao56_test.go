@@ -49,9 +49,9 @@ func TestPAdjustment(t *testing.T) {
 	// FAO-56 Table 22 footnote: p = p_table + 0.04 (5 - ETc), limited to 0.1-0.8.
 	s := loam()
 	s.AdjustP = true
-	assert.InDelta(t, 0.47, s.PFor(7), 1e-9)  // 0.55 + 0.04 (5 - 7) = 0.47
-	assert.InDelta(t, 0.67, s.PFor(2), 1e-9)  // 0.55 + 0.04 (5 - 2) = 0.67
-	assert.InDelta(t, 0.75, s.PFor(0), 1e-9)  // 0.55 + 0.04 x 5 = 0.75
+	assert.InDelta(t, 0.47, s.PFor(7), 1e-9) // 0.55 + 0.04 (5 - 7) = 0.47
+	assert.InDelta(t, 0.67, s.PFor(2), 1e-9) // 0.55 + 0.04 (5 - 2) = 0.67
+	assert.InDelta(t, 0.75, s.PFor(0), 1e-9) // 0.55 + 0.04 x 5 = 0.75
 	s.P = 0.65
 	assert.InDelta(t, 0.80, s.PFor(0), 1e-9) // 0.65 + 0.20 = 0.85 -> limited to 0.8
 	s.P = 0.55
@@ -87,7 +87,7 @@ func TestKcCurveEq66(t *testing.T) {
 	// Development, day 50: 0.6 + (50 - 30)/40 x (1.15 - 0.6) = 0.6 + 0.275 = 0.875 (eq. 66).
 	assert.InDelta(t, 0.875, s.KcAt(50), 1e-12)
 	assert.InDelta(t, 1.15, s.KcAt(70), 1e-12) // end of development
-	assert.Equal(t, 1.15, s.KcAt(110))          // mid-season
+	assert.Equal(t, 1.15, s.KcAt(110))         // mid-season
 	// Late, day 120: 1.15 + (120 - 110)/25 x (0.80 - 1.15) = 1.15 - 0.14 = 1.01 (eq. 66).
 	assert.InDelta(t, 1.01, s.KcAt(120), 1e-12)
 	assert.InDelta(t, 0.80, s.KcAt(135), 1e-12)
