@@ -311,6 +311,10 @@ func setInt(p *int, v int) {
 	}
 }
 
+// ApplyDefaults fills every unset alert setting with its default, as
+// loading a configuration does (for settings built in code).
+func (a *Alerts) ApplyDefaults() { a.setDefaults() }
+
 func (a *Alerts) setDefaults() {
 	if a.TopicPrefix == "" {
 		a.TopicPrefix = DefaultAlertTopicPrefix

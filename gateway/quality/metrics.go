@@ -1,0 +1,45 @@
+package quality
+
+import (
+	"fmt"
+
+	"github.com/prometheus/client_golang/prometheus"
+)
+
+// metrics are the monitor's Prometheus metrics.
+type metrics struct {
+	active        *prometheus.GaugeVec
+	raised        *prometheus.CounterVec
+	cleared       *prometheus.CounterVec
+	publishErrors prometheus.Counter
+}
+
+func newMetrics(reg prometheus.Registerer) (*metrics, error) {
+	m := &metrics{
+		active: prometheus.NewGaugeVec(prometheus.GaugeOpts{
+			Name: "etpulse_alerts_active",
+			Help: "Alerts currently active, by kind of check.",
+		}, []string{"kind"}),
+		raised: prometheus.NewCounterVec(prometheus.CounterOpts{
+			Name: "etpulse_alerts_raised_total",
+			Help: "Alerts raised, by kind of check.",
+		}, []string{"kind"}),
+		cleared: prometheus.NewCounterVec(prometheus.CounterOpts{
+			Name: "etpulse_alerts_cleared_total",
+			Help: "Alerts cleared, by kind of check.",
+		}, []string{"kind"}),
+		publishErrors: prometheus.NewCounter(prometheus.CounterOpts{
+			Name: "etpulse_alert_publish_errors_total",
+			Help: "Failed attempts to publish an alert message on MQTT.",
+		}),
+	}
+	if reg == nil {
+		return m, nil
+	}
+	for _, c := range []prometheus.Collector{m.active, m.raised, m.cleared, m.publishErrors} {
+		if err := reg.Register(c); err != nil {
+			return nil, fmt.Errorf("register alert metrics: %w", err)
+		}
+	}
+	return m, nil
+}

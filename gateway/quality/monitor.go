@@ -1,0 +1,871 @@
+package quality
+
+import (
+	"bytes"
+	"context"
+	"encoding/binary"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"log/slog"
+	"maps"
+	"math"
+	"slices"
+	"strings"
+	"sync"
+	"time"
+
+	"github.com/prometheus/client_golang/prometheus"
+	"go.etcd.io/bbolt"
+
+	"etpulse/gateway/config"
+	"etpulse/gateway/mqtt"
+	"etpulse/gateway/pipeline"
+	"etpulse/gateway/store"
+	"etpulse/hourly"
+)
+
+// Buckets of the state file owned by the monitor.
+var (
+	bucketAlerts  = []byte("alerts/state")   // Key.String() -> JSON Alert (active, and cleared ones for a while)
+	bucketHours   = []byte("alerts/hours")   // "site/station" -> hour start (8 bytes, unix s) -> JSON HourObs
+	bucketPublish = []byte("alerts/publish") // topic -> retained payload to publish (empty: clear)
+)
+
+// Retention rules of the monitor's state (common practice, no source).
+const (
+	// keepCleared: cleared alerts are kept this long so that a revised hour
+	// is gated as it was when first closed.
+	keepCleared = 48 * time.Hour
+	// keepHours: closed-hour observations kept for the day-scale checks.
+	keepHours = (config.MaxAlertWindowDays + 1) * 24 * time.Hour
+	// keepAccumulated: readings accumulated per hour for quantities the
+	// gate excluded from the record.
+	keepAccumulated = 30 * time.Hour
+	// maxPublishBackoff bounds the wait between failed publish attempts.
+	maxPublishBackoff = time.Minute
+)
+
+// Options are the monitor's dependencies.
+type Options struct {
+	Config *config.Config // the whole configuration (stations and alert settings)
+	DB     *bbolt.DB      // the state file
+	// Outbox receives one ClassAlert point per alert event; nil stores none.
+	Outbox store.Enqueuer
+	// Publisher publishes the retained alert topics; nil publishes nothing
+	// (the pending messages stay in the state file).
+	Publisher mqtt.Publisher
+	// Logger; nil discards.
+	Logger *slog.Logger
+	// Registerer for the alert metrics; nil registers none.
+	Registerer prometheus.Registerer
+	// Clock is the gateway's time; nil means time.Now.
+	Clock func() time.Time
+	// After fires once d of Clock time has passed; nil means time.After.
+	After func(d time.Duration) <-chan time.Time
+	// OnEvent, when set, is called with every committed alert event (the
+	// demo prints them). It must not block.
+	OnEvent func(Event)
+}
+
+type stationID struct{ site, station string }
+
+type stationInfo struct {
+	cfg      *config.Station
+	hs       hourly.Station
+	choices  config.StationAlerts
+	readings *ReadingChecks
+}
+
+// accKey identifies readings accumulated for one station-hour.
+type accKey struct {
+	st   stationID
+	hour time.Time
+}
+
+// Monitor runs the checks, keeps alert state in the state file, publishes
+// alerts on MQTT (retained), writes them to the store through the outbox,
+// counts them in metrics, and answers the pipeline's quality gate.
+//
+// It implements pipeline.SampleObserver, pipeline.HourHandler and
+// pipeline.QualityGate, and is a gateway Service (Run) that persists
+// reading-level events, checks for silent sensors and publishes.
+type Monitor struct {
+	cfg      *config.Config
+	alerts   *config.Alerts
+	db       *bbolt.DB
+	outbox   store.Enqueuer
+	pub      mqtt.Publisher
+	log      *slog.Logger
+	clock    func() time.Time
+	after    func(time.Duration) <-chan time.Time
+	onEvent  func(Event)
+	metrics  *metrics
+	notify   chan struct{}
+	stations map[stationID]*stationInfo
+
+	mu      sync.Mutex
+	state   map[Key]Alert // committed state: active alerts and recently cleared ones
+	pending []Event       // reading-level events not yet persisted
+	acc     map[accKey]map[hourly.Quantity]*QStats
+	next    time.Time // earliest silence deadline
+}
+
+var (
+	_ pipeline.SampleObserver = (*Monitor)(nil)
+	_ pipeline.HourHandler    = (*Monitor)(nil)
+	_ pipeline.QualityGate    = (*Monitor)(nil)
+)
+
+// New opens the monitor's buckets, loads the alert state and registers the
+// metrics. Every configured sensor is expected to report from now on.
+func New(o Options) (*Monitor, error) {
+	if o.Config == nil || o.DB == nil {
+		return nil, errors.New("new alert monitor: config and state database are required")
+	}
+	if o.Logger == nil {
+		o.Logger = slog.New(slog.DiscardHandler)
+	}
+	if o.Clock == nil {
+		o.Clock = time.Now
+	}
+	if o.After == nil {
+		o.After = time.After
+	}
+	m := &Monitor{
+		cfg: o.Config, alerts: &o.Config.Alerts, db: o.DB, outbox: o.Outbox, pub: o.Publisher,
+		log: o.Logger, clock: o.Clock, after: o.After, onEvent: o.OnEvent,
+		notify:   make(chan struct{}, 1),
+		stations: map[stationID]*stationInfo{},
+		state:    map[Key]Alert{},
+		acc:      map[accKey]map[hourly.Quantity]*QStats{},
+	}
+	var err error
+	if m.metrics, err = newMetrics(o.Registerer); err != nil {
+		return nil, fmt.Errorf("new alert monitor: %w", err)
+	}
+	now := m.clock()
+	for i := range o.Config.Sites {
+		site := &o.Config.Sites[i]
+		for j := range site.Stations {
+			sc := &site.Stations[j]
+			info := &stationInfo{
+				cfg: sc, hs: sc.HourlyStation(),
+				choices:  m.alerts.StationChoices(site.ID, sc.ID),
+				readings: NewReadingChecks(site.ID, sc.ID, m.alerts),
+			}
+			for _, sensor := range sc.Sensors {
+				channels := sensor.Channels()
+				for _, k := range config.SortedKeys(channels) {
+					name := sensor.ID
+					if k != "" {
+						name += "." + k
+					}
+					info.readings.Expect(name, channels[k].Quantity, now)
+				}
+			}
+			m.stations[stationID{site.ID, sc.ID}] = info
+		}
+	}
+	err = m.db.Update(func(tx *bbolt.Tx) error {
+		for _, b := range [][]byte{bucketAlerts, bucketHours, bucketPublish} {
+			if _, err := tx.CreateBucketIfNotExists(b); err != nil {
+				return err
+			}
+		}
+		return tx.Bucket(bucketAlerts).ForEach(func(k, v []byte) error {
+			var a Alert
+			if err := json.Unmarshal(v, &a); err != nil {
+				m.log.Warn("alert state unreadable; dropped", "key", string(k), "err", err)
+				return nil
+			}
+			m.state[a.Key] = a
+			return nil
+		})
+	})
+	if err != nil {
+		return nil, fmt.Errorf("new alert monitor: %w", err)
+	}
+	for _, a := range m.state {
+		if a.Active() {
+			m.metrics.active.WithLabelValues(string(a.Kind)).Inc()
+		}
+	}
+	m.recomputeNext()
+	return m, nil
+}
+
+// Config returns the alert settings in use.
+func (m *Monitor) Config() *config.Alerts { return m.alerts }
+
+// Active returns the active alerts, ordered by key.
+func (m *Monitor) Active() []Alert {
+	m.mu.Lock()
+	defer m.mu.Unlock()
+	var out []Alert
+	for _, a := range m.state {
+		if a.Active() {
+			out = append(out, a)
+		}
+	}
+	slices.SortFunc(out, func(a, b Alert) int { return strings.Compare(a.Key.String(), b.Key.String()) })
+	return out
+}
+
+// ObserveSample runs the reading-level checks on one accepted sample. The
+// resulting events are persisted and published by Run (or Sync).
+func (m *Monitor) ObserveSample(site, station string, s hourly.Sample, now time.Time) {
+	if m.alerts.Disabled {
+		return
+	}
+	info := m.stations[stationID{site, station}]
+	if info == nil {
+		return
+	}
+	s.Sensor = topicSafe(s.Sensor)
+	m.mu.Lock()
+	defer m.mu.Unlock()
+	m.accumulate(stationID{site, station}, info, s)
+	n := len(m.pending)
+	for _, f := range info.readings.Observe(s, now) {
+		m.stepLocked(f)
+	}
+	if !m.next.IsZero() && !now.Before(m.next) {
+		m.silenceLocked(now)
+	}
+	m.recomputeNextLocked()
+	if len(m.pending) > n {
+		m.wake()
+	}
+}
+
+// accumulate keeps a per-hour summary of each quantity's readings so the
+// hour-level checks still see a quantity the gate excluded from the record.
+func (m *Monitor) accumulate(id stationID, info *stationInfo, s hourly.Sample) {
+	off := time.Duration(math.Round(info.hs.UTCOffset*3600)) * time.Second
+	hour := s.Time.Add(off).Truncate(time.Hour).Add(-off).UTC()
+	k := accKey{id, hour}
+	qs := m.acc[k]
+	if qs == nil {
+		qs = map[hourly.Quantity]*QStats{}
+		m.acc[k] = qs
+	}
+	st := qs[s.Quantity]
+	if st == nil {
+		qs[s.Quantity] = &QStats{N: 1, Min: s.Value, Max: s.Value, Mean: s.Value}
+		return
+	}
+	st.N++
+	st.Min, st.Max = math.Min(st.Min, s.Value), math.Max(st.Max, s.Value)
+	st.Mean += (s.Value - st.Mean) / float64(st.N)
+}
+
+// stepLocked applies a reading-level finding to the in-memory state and
+// queues its event.
+func (m *Monitor) stepLocked(f Finding) {
+	prev, has := m.state[f.Key]
+	next, changed, ev := Step(prev, has, f, m.alerts.UpdateEvery.D())
+	if !changed {
+		return
+	}
+	if ev == nil {
+		m.state[f.Key] = next // clearing clock only; not worth a write
+		return
+	}
+	m.state[f.Key] = next
+	m.pending = append(m.pending, *ev)
+}
+
+func (m *Monitor) silenceLocked(now time.Time) {
+	for _, info := range m.stations {
+		for _, f := range info.readings.Silence(now) {
+			m.stepLocked(f)
+		}
+	}
+}
+
+func (m *Monitor) recomputeNext() {
+	m.mu.Lock()
+	defer m.mu.Unlock()
+	m.recomputeNextLocked()
+}
+
+func (m *Monitor) recomputeNextLocked() {
+	m.next = time.Time{}
+	for _, info := range m.stations {
+		if n := info.readings.NextSilence(); !n.IsZero() && (m.next.IsZero() || n.Before(m.next)) {
+			m.next = n
+		}
+	}
+}
+
+func (m *Monitor) wake() {
+	select {
+	case m.notify <- struct{}{}:
+	default:
+	}
+}
+
+// CheckSilence runs the silence check at now; events are queued for Sync.
+func (m *Monitor) CheckSilence(now time.Time) {
+	if m.alerts.Disabled {
+		return
+	}
+	m.mu.Lock()
+	defer m.mu.Unlock()
+	n := len(m.pending)
+	m.silenceLocked(now)
+	// A silent sensor stays due: look again one silence limit later.
+	m.recomputeNextLocked()
+	if !m.next.After(now) {
+		m.next = now.Add(time.Minute)
+	}
+	if len(m.pending) > n {
+		m.wake()
+	}
+}
+
+// Sync persists the queued reading-level events in one transaction: alert
+// state, retained message to publish, and store point.
+func (m *Monitor) Sync() error {
+	m.mu.Lock()
+	evs := m.pending
+	m.pending = nil
+	m.mu.Unlock()
+	if len(evs) == 0 {
+		return nil
+	}
+	err := m.db.Update(func(tx *bbolt.Tx) error {
+		for _, ev := range evs {
+			if err := m.persist(tx, ev.Alert, &ev); err != nil {
+				return err
+			}
+		}
+		tx.OnCommit(func() { m.committed(evs, nil, false) })
+		return nil
+	})
+	if err != nil {
+		m.mu.Lock()
+		m.pending = append(evs, m.pending...)
+		m.mu.Unlock()
+		return fmt.Errorf("sync alerts: %w", err)
+	}
+	return nil
+}
+
+// persist writes one alert's state, and for an event its retained message
+// and store point, in tx.
+func (m *Monitor) persist(tx *bbolt.Tx, a Alert, ev *Event) error {
+	b, err := json.Marshal(a)
+	if err != nil {
+		return err
+	}
+	if err := tx.Bucket(bucketAlerts).Put([]byte(a.Key.String()), b); err != nil {
+		return err
+	}
+	if ev == nil {
+		return nil
+	}
+	payload, err := MarshalAlert(ev.Alert)
+	if err != nil {
+		return err
+	}
+	if err := tx.Bucket(bucketPublish).Put([]byte(Topic(m.alerts.TopicPrefix, ev.Alert.Key)), payload); err != nil {
+		return err
+	}
+	if m.outbox != nil {
+		if err := m.outbox.Enqueue(tx, AlertPoint(*ev)); err != nil {
+			return err
+		}
+	}
+	return nil
+}
+
+// committed applies persisted changes to metrics and callbacks, and, for
+// changes made inside a transaction (fromTx: hour-level and external
+// alerts), to the in-memory state. Reading-level changes are in memory
+// before they are persisted. states holds states changed without an event.
+func (m *Monitor) committed(evs []Event, states []Alert, fromTx bool) {
+	m.mu.Lock()
+	for _, a := range states {
+		m.state[a.Key] = a
+	}
+	if fromTx {
+		for _, ev := range evs {
+			m.state[ev.Alert.Key] = ev.Alert
+		}
+	}
+	m.mu.Unlock()
+	for _, ev := range evs {
+		kind := string(ev.Alert.Kind)
+		switch ev.Type {
+		case EventRaised:
+			m.metrics.raised.WithLabelValues(kind).Inc()
+			m.metrics.active.WithLabelValues(kind).Inc()
+			m.log.Warn("alert raised", "alert", ev.Alert.Key.String(), "severity", ev.Alert.Severity, "evidence", ev.Alert.Message)
+		case EventUpdated:
+			m.log.Info("alert updated", "alert", ev.Alert.Key.String(), "evidence", ev.Alert.Message)
+		case EventCleared:
+			m.metrics.cleared.WithLabelValues(kind).Inc()
+			m.metrics.active.WithLabelValues(kind).Dec()
+			m.log.Info("alert cleared", "alert", ev.Alert.Key.String(), "evidence", ev.Alert.Message)
+		}
+		if m.onEvent != nil {
+			m.onEvent(ev)
+		}
+	}
+	if len(evs) > 0 {
+		m.wake()
+	}
+}
+
+// HandleHour records the closed hour for the hour-level checks, runs them,
+// and commits their alert changes in tx (the hour's closing transaction).
+func (m *Monitor) HandleHour(tx *bbolt.Tx, rec hourly.Record) error {
+	if m.alerts.Disabled {
+		return nil
+	}
+	id := stationID{rec.Site, rec.Station}
+	info := m.stations[id]
+	if info == nil {
+		return nil
+	}
+	obs := m.observe(info, rec)
+	hb, err := tx.Bucket(bucketHours).CreateBucketIfNotExists([]byte(rec.Site + "/" + rec.Station))
+	if err != nil {
+		return fmt.Errorf("alerts: handle hour: %w", err)
+	}
+	if err := putObs(hb, obs); err != nil {
+		return fmt.Errorf("alerts: handle hour: %w", err)
+	}
+	if err := pruneObs(hb, obs.Start.Add(-keepHours)); err != nil {
+		return fmt.Errorf("alerts: handle hour: %w", err)
+	}
+	w, err := readWindow(hb)
+	if err != nil {
+		return fmt.Errorf("alerts: handle hour: %w", err)
+	}
+	findings := HourChecks(rec.Site, rec.Station, m.alerts, info.choices, w)
+	if info.choices.Neighbours {
+		windows := map[string][]HourObs{rec.Station: w}
+		for oid, other := range m.stations {
+			if oid.site != rec.Site || oid.station == rec.Station || !other.choices.Neighbours {
+				continue
+			}
+			ob := tx.Bucket(bucketHours).Bucket([]byte(oid.site + "/" + oid.station))
+			if ob == nil {
+				continue
+			}
+			if windows[oid.station], err = readWindow(ob); err != nil {
+				return fmt.Errorf("alerts: handle hour: %w", err)
+			}
+		}
+		findings = append(findings, NeighbourChecks(rec.Site, rec.Station, m.alerts, windows)...)
+	}
+	evs, states, err := m.applyTx(tx, findings)
+	if err != nil {
+		return fmt.Errorf("alerts: handle hour: %w", err)
+	}
+	m.pruneAcc(obs.Start.Add(-keepAccumulated))
+	if len(evs) > 0 || len(states) > 0 {
+		tx.OnCommit(func() { m.committed(evs, states, true) })
+	}
+	return nil
+}
+
+// applyTx steps each finding against the alert state stored in tx and
+// writes the changes.
+func (m *Monitor) applyTx(tx *bbolt.Tx, findings []Finding) ([]Event, []Alert, error) {
+	ab := tx.Bucket(bucketAlerts)
+	var evs []Event
+	var states []Alert
+	for _, f := range findings {
+		var prev Alert
+		has := false
+		if v := ab.Get([]byte(f.Key.String())); v != nil {
+			if err := json.Unmarshal(v, &prev); err == nil {
+				has = true
+			}
+		}
+		next, changed, ev := Step(prev, has, f, m.alerts.UpdateEvery.D())
+		if !changed {
+			continue
+		}
+		if err := m.persist(tx, next, ev); err != nil {
+			return nil, nil, err
+		}
+		if ev != nil {
+			evs = append(evs, *ev)
+		} else {
+			states = append(states, next)
+		}
+	}
+	return evs, states, nil
+}
+
+// observe builds the hour-level summary of a record.
+func (m *Monitor) observe(info *stationInfo, rec hourly.Record) HourObs {
+	o := HourObs{Start: rec.Start.UTC(), Revision: rec.Revision, Q: map[hourly.Quantity]QStats{}}
+	off := time.Duration(math.Round(info.hs.UTCOffset*3600)) * time.Second
+	o.Local = rec.Start.UTC().Add(off)
+	if r := rec.Result; r != nil {
+		o.HasSun, o.SunElevation, o.Ra, o.Rso = true, r.SunElevation, r.Ra, r.Rso
+		o.Ea = r.Ea
+	} else {
+		sp := hourly.SunForPeriod(info.hs, rec.Start, time.Hour) // FAO-56 eq. 28-31, ASCE-EWRI 2005 eq. 62
+		o.HasSun, o.SunElevation, o.Ra = true, sp.Elevation, sp.Ra
+		o.Rso = hourly.RsoSimple(sp.Ra, info.hs.Elevation) // FAO-56 eq. 37
+	}
+	for q, s := range rec.Stats {
+		if s.Count > 0 {
+			o.Q[q] = QStats{N: s.Count, Min: s.Min, Max: s.Max, Mean: s.Mean}
+		}
+	}
+	m.mu.Lock()
+	for q, s := range m.acc[accKey{stationID{rec.Site, rec.Station}, o.Start}] {
+		if _, ok := o.Q[q]; !ok {
+			o.Q[q] = *s // excluded from the record by the gate: use the readings seen
+		}
+	}
+	m.mu.Unlock()
+	return o
+}
+
+func (m *Monitor) pruneAcc(before time.Time) {
+	m.mu.Lock()
+	defer m.mu.Unlock()
+	maps.DeleteFunc(m.acc, func(k accKey, _ map[hourly.Quantity]*QStats) bool { return k.hour.Before(before) })
+}
+
+func obsKey(t time.Time) []byte { return binary.BigEndian.AppendUint64(nil, uint64(t.Unix())) }
+
+func putObs(b *bbolt.Bucket, o HourObs) error {
+	v, err := json.Marshal(o)
+	if err != nil {
+		return err
+	}
+	return b.Put(obsKey(o.Start), v)
+}
+
+func pruneObs(b *bbolt.Bucket, before time.Time) error {
+	c := b.Cursor()
+	limit := obsKey(before)
+	for k, _ := c.First(); k != nil && bytes.Compare(k, limit) < 0; k, _ = c.First() {
+		if err := b.Delete(k); err != nil {
+			return err
+		}
+	}
+	return nil
+}
+
+func readWindow(b *bbolt.Bucket) ([]HourObs, error) {
+	var w []HourObs
+	err := b.ForEach(func(_, v []byte) error {
+		var o HourObs
+		if err := json.Unmarshal(v, &o); err != nil {
+			return fmt.Errorf("read hour window: %w", err)
+		}
+		w = append(w, o)
+		return nil
+	})
+	return w, err
+}
+
+// Gate flags an hour computed while an alert on its station was active (at
+// any time within the hour) and applies the configured response to the
+// alerted quantity: critical alerts only; warnings just flag. Flags read
+// "alert:<kind>:<quantity>".
+func (m *Monitor) Gate(site, station string, hourStart time.Time) pipeline.Gate {
+	var g pipeline.Gate
+	if m.alerts.Disabled {
+		return g
+	}
+	end := hourStart.Add(time.Hour)
+	m.mu.Lock()
+	defer m.mu.Unlock()
+	flags := map[string]bool{}
+	exclude := map[hourly.Quantity]bool{}
+	for _, a := range m.state {
+		if a.Site != site || a.Station != station || !a.Since.Before(end) || (!a.Active() && !a.Cleared.After(hourStart)) {
+			continue
+		}
+		flags["alert:"+string(a.Kind)+":"+string(a.Quantity)] = true
+		if a.Severity != SeverityCritical || a.Kind == KindSilence || !slices.Contains(hourly.Quantities, a.Quantity) {
+			continue
+		}
+		switch m.alerts.ResponseFor(site, station, a.Quantity) {
+		case config.RespondExclude:
+			exclude[a.Quantity] = true
+		case config.RespondStop:
+			g.StopET = true
+		}
+	}
+	g.Flags = slices.Sorted(maps.Keys(flags))
+	g.Exclude = slices.Sorted(maps.Keys(exclude))
+	return g
+}
+
+// Raise raises (or updates) an alert on behalf of another component, e.g.
+// the zone balance ("command-expired", "stale-et"). With a nil tx it runs its
+// own transaction. a.Since is the time of the event.
+func (m *Monitor) Raise(tx *bbolt.Tx, a Alert) error {
+	if err := a.Key.Validate(); err != nil {
+		return fmt.Errorf("raise alert: %w", err)
+	}
+	if a.Severity == "" {
+		a.Severity = SeverityWarning
+	}
+	f := Finding{Key: a.Key, Status: StatusBad, Severity: a.Severity, Message: a.Message, Value: a.Value, Limit: a.Limit, At: a.Since}
+	if f.At.IsZero() {
+		f.At = m.clock()
+	}
+	return m.external(tx, f)
+}
+
+// Clear clears an alert raised with Raise; message says why. Clearing an
+// alert that is not active does nothing.
+func (m *Monitor) Clear(tx *bbolt.Tx, key Key, at time.Time, message string) error {
+	if err := key.Validate(); err != nil {
+		return fmt.Errorf("clear alert: %w", err)
+	}
+	if at.IsZero() {
+		at = m.clock()
+	}
+	return m.external(tx, Finding{Key: key, Status: StatusGood, Message: message, At: at})
+}
+
+func (m *Monitor) external(tx *bbolt.Tx, f Finding) error {
+	run := func(tx *bbolt.Tx) error {
+		evs, states, err := m.applyTx(tx, []Finding{f})
+		if err != nil {
+			return fmt.Errorf("alert %s: %w", f.Key, err)
+		}
+		if len(evs) > 0 || len(states) > 0 {
+			tx.OnCommit(func() { m.committed(evs, states, true) })
+		}
+		return nil
+	}
+	if tx != nil {
+		return run(tx)
+	}
+	return m.db.Update(run)
+}
+
+// Run is the monitor's background loop: it persists reading-level events,
+// runs the silence check when a sensor falls due, publishes pending alert
+// messages (retrying with backoff while the broker is away) and prunes old
+// cleared alerts. It returns when ctx is cancelled.
+func (m *Monitor) Run(ctx context.Context) error {
+	backoff := time.Duration(0)
+	for {
+		now := m.clock()
+		m.mu.Lock()
+		due := !m.next.IsZero() && !now.Before(m.next)
+		m.mu.Unlock()
+		if due {
+			m.CheckSilence(now)
+		}
+		if err := m.Sync(); err != nil {
+			m.log.Error("persisting alerts", "err", err)
+		}
+		if err := m.prune(now); err != nil {
+			m.log.Error("pruning alerts", "err", err)
+		}
+		var retry <-chan time.Time
+		if err := m.publishPending(ctx); err != nil {
+			if ctx.Err() != nil {
+				return nil
+			}
+			backoff = min(max(2*backoff, time.Second), maxPublishBackoff)
+			m.log.Warn("alert messages not published; will retry", "err", err, "in", backoff)
+			retry = time.After(backoff)
+		} else {
+			backoff = 0
+		}
+		var silence <-chan time.Time
+		m.mu.Lock()
+		next := m.next
+		m.mu.Unlock()
+		if !next.IsZero() {
+			silence = m.after(max(next.Sub(m.clock()), 0))
+		}
+		select {
+		case <-ctx.Done():
+			return nil
+		case <-m.notify:
+		case <-retry:
+		case <-silence:
+		}
+	}
+}
+
+// Flush persists queued events and tries once to publish what is pending;
+// the gateway calls it at shutdown.
+func (m *Monitor) Flush(ctx context.Context) error {
+	return errors.Join(m.Sync(), m.publishPending(ctx))
+}
+
+// publishPending publishes every pending retained alert message and forgets
+// the ones published (unless they changed meanwhile).
+func (m *Monitor) publishPending(ctx context.Context) error {
+	if m.pub == nil {
+		return nil
+	}
+	type msg struct {
+		topic   string
+		payload []byte
+	}
+	var msgs []msg
+	err := m.db.View(func(tx *bbolt.Tx) error {
+		return tx.Bucket(bucketPublish).ForEach(func(k, v []byte) error {
+			msgs = append(msgs, msg{string(k), bytes.Clone(v)})
+			return nil
+		})
+	})
+	if err != nil || len(msgs) == 0 {
+		return err
+	}
+	var done []msg
+	var errs []error
+	for _, x := range msgs {
+		pctx, cancel := context.WithTimeout(ctx, 10*time.Second)
+		err := m.pub.Publish(pctx, x.topic, 1, true, x.payload)
+		cancel()
+		if err != nil {
+			m.metrics.publishErrors.Inc()
+			errs = append(errs, fmt.Errorf("publish %s: %w", x.topic, err))
+			break // the broker is probably away; keep the order for the retry
+		}
+		done = append(done, x)
+	}
+	if len(done) > 0 {
+		err := m.db.Update(func(tx *bbolt.Tx) error {
+			b := tx.Bucket(bucketPublish)
+			for _, x := range done {
+				if bytes.Equal(b.Get([]byte(x.topic)), x.payload) {
+					if err := b.Delete([]byte(x.topic)); err != nil {
+						return err
+					}
+				}
+			}
+			return nil
+		})
+		errs = append(errs, err)
+	}
+	return errors.Join(errs...)
+}
+
+// prune forgets alerts cleared longer than keepCleared ago.
+func (m *Monitor) prune(now time.Time) error {
+	m.mu.Lock()
+	var old []Key
+	for k, a := range m.state {
+		if !a.Active() && now.Sub(a.Cleared) > keepCleared {
+			old = append(old, k)
+		}
+	}
+	m.mu.Unlock()
+	if len(old) == 0 {
+		return nil
+	}
+	err := m.db.Update(func(tx *bbolt.Tx) error {
+		b := tx.Bucket(bucketAlerts)
+		for _, k := range old {
+			v := b.Get([]byte(k.String()))
+			var a Alert
+			if v == nil || json.Unmarshal(v, &a) != nil || a.Active() {
+				continue // raised again meanwhile
+			}
+			if err := b.Delete([]byte(k.String())); err != nil {
+				return err
+			}
+		}
+		return nil
+	})
+	if err != nil {
+		return err
+	}
+	m.mu.Lock()
+	for _, k := range old {
+		if a, ok := m.state[k]; ok && !a.Active() {
+			delete(m.state, k)
+		}
+	}
+	m.mu.Unlock()
+	return nil
+}
+
+// Topic returns the retained topic of an alert:
+// <prefix>/<site>/alerts/<station>/<sensor>/<quantity>/<kind>.
+func Topic(prefix string, k Key) string {
+	return strings.Join([]string{prefix, k.Site, "alerts", k.Station, k.Sensor, string(k.Quantity), string(k.Kind)}, "/")
+}
+
+// alertJSON is the retained payload of an active alert.
+type alertJSON struct {
+	Site     string    `json:"site"`
+	Station  string    `json:"station"`
+	Sensor   string    `json:"sensor"`
+	Quantity string    `json:"quantity"`
+	Kind     string    `json:"kind"`
+	Severity string    `json:"severity"`
+	State    string    `json:"state"`
+	Message  string    `json:"message"`
+	Value    *float64  `json:"value,omitempty"`
+	Limit    *float64  `json:"limit,omitempty"`
+	Since    time.Time `json:"since"`
+	Updated  time.Time `json:"updated"`
+}
+
+func finite(v float64) *float64 {
+	if math.IsNaN(v) || math.IsInf(v, 0) {
+		return nil
+	}
+	return &v
+}
+
+// MarshalAlert returns the retained payload of an alert: its JSON while
+// active, empty once cleared (an empty retained message removes the topic's
+// retained state at the broker).
+func MarshalAlert(a Alert) ([]byte, error) {
+	if !a.Active() {
+		return []byte{}, nil
+	}
+	return json.Marshal(alertJSON{
+		Site: a.Site, Station: a.Station, Sensor: a.Sensor, Quantity: string(a.Quantity), Kind: string(a.Kind),
+		Severity: string(a.Severity), State: "active", Message: a.Message,
+		Value: finite(a.Value), Limit: finite(a.Limit), Since: a.Since.UTC(), Updated: a.Updated.UTC(),
+	})
+}
+
+// AlertPoint returns the store point of an alert event: measurement
+// sensor_alert, tags site, station, sensor, kind, quantity, severity, event;
+// fields active (bool), value, limit, message; time = the event time.
+func AlertPoint(ev Event) store.Point {
+	a := ev.Alert
+	fields := map[string]any{"active": a.Active(), "message": a.Message}
+	if v := finite(a.Value); v != nil {
+		fields["value"] = *v
+	}
+	if v := finite(a.Limit); v != nil {
+		fields["limit"] = *v
+	}
+	p := store.AlertPoint(a.Site, a.Station, a.Sensor, string(a.Kind), a.Updated, fields)
+	p.Tags["quantity"] = string(a.Quantity)
+	p.Tags["severity"] = string(a.Severity)
+	p.Tags["event"] = string(ev.Type)
+	return p
+}
+
+// topicSafe replaces the characters MQTT reserves in topic levels.
+func topicSafe(s string) string {
+	if !strings.ContainsAny(s, "/+#") {
+		return s
+	}
+	return strings.Map(func(r rune) rune {
+		if r == '/' || r == '+' || r == '#' {
+			return '_'
+		}
+		return r
+	}, s)
+}

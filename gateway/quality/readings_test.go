@@ -1,0 +1,123 @@
+package quality
+
+import (
+	"testing"
+	"time"
+
+	"github.com/stretchr/testify/assert"
+	"github.com/stretchr/testify/require"
+
+	"etpulse/hourly"
+)
+
+var t0 = time.Date(2026, 6, 3, 18, 0, 0, 0, time.UTC)
+
+func sample(sensor string, q hourly.Quantity, minute int, v float64) hourly.Sample {
+	return hourly.Sample{Sensor: sensor, Quantity: q, Time: t0.Add(time.Duration(minute) * time.Minute), Value: v}
+}
+
+// observe feeds samples (arriving at their own time) and returns every
+// finding of kind k.
+func observe(c *ReadingChecks, k Kind, ss ...hourly.Sample) []Finding {
+	var out []Finding
+	for _, s := range ss {
+		for _, f := range c.Observe(s, s.Time) {
+			if f.Kind == k {
+				out = append(out, f)
+			}
+		}
+	}
+	return out
+}
+
+func TestRangeCheck(t *testing.T) {
+	c := NewReadingChecks("brackenfold", "orchard", testAlerts())
+	fs := observe(c, KindRange, sample("t1", hourly.AirTemp, 0, 21.4), sample("t1", hourly.AirTemp, 1, 61.0), sample("t1", hourly.AirTemp, 2, -45))
+	require.Len(t, fs, 3)
+	assert.Equal(t, StatusGood, fs[0].Status)
+	assert.Equal(t, StatusBad, fs[1].Status)
+	assert.Equal(t, "air_temp reading 61 above the plausible maximum 55", fs[1].Message)
+	assert.Equal(t, StatusBad, fs[2].Status)
+	assert.Equal(t, "air_temp reading -45 below the plausible minimum -40", fs[2].Message)
+}
+
+func TestSpikeCheck(t *testing.T) {
+	c := NewReadingChecks("brackenfold", "orchard", testAlerts())
+	// Normal minute-by-minute warming, then a 9 °C jump in one minute.
+	fs := observe(c, KindSpike,
+		sample("t1", hourly.AirTemp, 0, 20.0), sample("t1", hourly.AirTemp, 1, 20.2),
+		sample("t1", hourly.AirTemp, 2, 20.3), sample("t1", hourly.AirTemp, 3, 29.3))
+	require.Len(t, fs, 3)
+	assert.Equal(t, StatusGood, fs[0].Status)
+	assert.Equal(t, StatusGood, fs[1].Status)
+	assert.Equal(t, StatusBad, fs[2].Status)
+	assert.Equal(t, 9.0, fs[2].Value)
+	assert.Contains(t, fs[2].Message, "limit 3 per minute")
+
+	// Fast sampling: 0.4 °C in 10 s is compared as per minute, not x6.
+	c = NewReadingChecks("brackenfold", "orchard", testAlerts())
+	s1 := sample("t1", hourly.AirTemp, 0, 20.0)
+	s2 := s1
+	s2.Time, s2.Value = s1.Time.Add(10*time.Second), 20.4
+	fs = observe(c, KindSpike, s1, s2)
+	require.Len(t, fs, 1)
+	assert.Equal(t, StatusGood, fs[0].Status)
+
+	// A gap is not a jump.
+	c = NewReadingChecks("brackenfold", "orchard", testAlerts())
+	fs = observe(c, KindSpike, sample("t1", hourly.AirTemp, 0, 12), sample("t1", hourly.AirTemp, 45, 25))
+	assert.Empty(t, fs)
+
+	// Solar has no spike limit by default: clouds.
+	c = NewReadingChecks("brackenfold", "orchard", testAlerts())
+	fs = observe(c, KindSpike, sample("p1", hourly.Solar, 0, 900), sample("p1", hourly.Solar, 1, 150))
+	assert.Empty(t, fs)
+}
+
+func TestRHAboveSaturation(t *testing.T) {
+	c := NewReadingChecks("brackenfold", "orchard", testAlerts())
+	fs := observe(c, KindRHHigh, sample("h1", hourly.RelHumidity, 0, 101.5), sample("h1", hourly.RelHumidity, 1, 104.2))
+	require.Len(t, fs, 2)
+	assert.Equal(t, StatusGood, fs[0].Status, "within the 3 % tolerance")
+	assert.Equal(t, StatusBad, fs[1].Status)
+	assert.Equal(t, "relative humidity 104.2 %, more than 3 % above saturation", fs[1].Message)
+}
+
+func TestDewPointAboveAir(t *testing.T) {
+	c := NewReadingChecks("brackenfold", "orchard", testAlerts())
+	fs := observe(c, KindDewAboveAir,
+		sample("t1", hourly.AirTemp, 0, 14.0),
+		sample("d1", hourly.DewPoint, 1, 13.6), // normal near-saturated night
+		sample("d1", hourly.DewPoint, 2, 16.2), // 2.2 °C above the air
+		sample("t1", hourly.AirTemp, 3, 14.1),  // re-checked against the new air reading
+		sample("d1", hourly.DewPoint, 30, 9.0), // too far from the last air reading: no pair
+	)
+	require.Len(t, fs, 3)
+	assert.Equal(t, StatusGood, fs[0].Status)
+	assert.Equal(t, StatusBad, fs[1].Status)
+	assert.Contains(t, fs[1].Message, "dew point 16.2 °C above air temperature 14 °C by 2.2 °C")
+	assert.Equal(t, "d1", fs[2].Sensor)
+	assert.Equal(t, StatusBad, fs[2].Status)
+}
+
+func TestSilence(t *testing.T) {
+	c := NewReadingChecks("brackenfold", "orchard", testAlerts())
+	c.Expect("t1", hourly.AirTemp, t0)
+	c.Expect("r1", hourly.Rain, t0) // rain gauges report only while it rains
+	assert.Equal(t, t0.Add(15*time.Minute), c.NextSilence())
+
+	fs := c.Silence(t0.Add(10 * time.Minute))
+	require.Len(t, fs, 1)
+	assert.Equal(t, StatusGood, fs[0].Status)
+
+	fs = c.Silence(t0.Add(20 * time.Minute))
+	require.Len(t, fs, 1)
+	assert.Equal(t, StatusBad, fs[0].Status)
+	assert.Equal(t, "no air_temp reading since 2026-06-03T18:00:00Z (20m0s), limit 15m0s", fs[0].Message)
+
+	// A reading arrives: the silence verdict is good at once.
+	got := observe(c, KindSilence, sample("t1", hourly.AirTemp, 21, 18.5))
+	require.Len(t, got, 1)
+	assert.Equal(t, StatusGood, got[0].Status)
+	assert.Equal(t, t0.Add(36*time.Minute), c.NextSilence())
+}
