@@ -157,8 +157,13 @@ func (w *Writer) Run(ctx context.Context) error {
 		head, live := w.opt.BatchSize, 0
 		backlog := depth > w.opt.BatchSize
 		if backlog {
-			live = w.opt.BatchSize / 4
-			head = min(w.opt.BatchSize-live, int(tokens))
+			head = min(w.opt.BatchSize, int(tokens))
+			if !failing {
+				// While writes fail, every pending point is backlog;
+				// the live share starts again after the recovery.
+				live = w.opt.BatchSize / 4
+				head = min(w.opt.BatchSize-live, int(tokens))
+			}
 		}
 		n, err := w.step(ctx, head, live)
 		if err != nil {
