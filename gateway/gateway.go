@@ -19,6 +19,7 @@ import (
 	"etpulse/gateway/ingest"
 	"etpulse/gateway/mqtt"
 	"etpulse/gateway/pipeline"
+	"etpulse/gateway/store"
 	"etpulse/hourly"
 )
 
@@ -128,6 +129,18 @@ func New(cfg *config.Config, deps Deps) (*Gateway, error) {
 	// ---- Components wiring: the store, zone and alerts work add their parts
 	// here (an HourHandler runs inside the closing transaction; a Service runs
 	// until shutdown). g.pipe is set below; reach it from closures only.
+
+	// Store: the outbox records each hour inside its closing transaction and
+	// is the Enqueuer of the other parts; the writer drains it to the server.
+	outbox, writer, err := store.Setup(deps.DB, cfg.Store, deps.Logger.With("component", "store"), deps.Registerer, deps.Clock)
+	if err != nil {
+		return nil, fmt.Errorf("new gateway: %w", err)
+	}
+	comp.Handlers = append(comp.Handlers, outbox)
+	comp.Services = append(comp.Services, outbox.History())
+	if writer != nil {
+		comp.Services = append(comp.Services, writer)
+	}
 	// ---- end of components wiring ----
 
 	g.comp = comp
