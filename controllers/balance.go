@@ -103,6 +103,7 @@ type HourEntry struct {
 	ETcPot   float64   `json:"etc_pot"`  // Kc ET, mm
 	Rain     float64   `json:"rain"`     // measured rain, mm
 	EffRain  float64   `json:"eff_rain"` // effective rain applied, mm
+	Drainage float64   `json:"drainage"` // deep percolation counted in this hour's steps, mm
 	Wind2    float64   `json:"wind2"`    // mean wind at 2 m, m/s (when HasWind)
 	AirTemp  float64   `json:"air_temp"` // mean air temperature, °C (when HasTemp)
 	HasWind  bool      `json:"has_wind"`
@@ -189,6 +190,11 @@ type Step struct {
 
 	Missing  bool // the station produced no ET for the hour; none was applied
 	Fallback bool // fallback ET was used for the hour
+
+	// Hour holds the hour's totals after this step (for a first emission
+	// the same values as the step); a store that overwrites the hour's
+	// point by time keeps these.
+	Hour HourEntry
 }
 
 // Levels are a zone's thresholds at one moment.
@@ -321,8 +327,10 @@ func (z *Zone) StepHour(st *State, in HourInput) (Step, bool, error) {
 	st.EtcSinceRun += dETc
 	e.ETc = dETc
 	e.EffRain = eff
+	e.Drainage = s.Drainage
 	if prev != nil {
 		e.ETc = prev.ETc + dETc
+		e.Drainage += prev.Drainage
 		*prev = e
 	} else {
 		st.Hours = append(st.Hours, HourEntry{})
@@ -338,6 +346,7 @@ func (z *Zone) StepHour(st *State, in HourInput) (Step, bool, error) {
 	s.Depletion = d
 	s.Fallback = e.Fallback
 	s.Missing = !in.Valid && !e.Fallback
+	s.Hour = e
 	return s, true, nil
 }
 

@@ -47,6 +47,10 @@ func TestStepHourHandWorked(t *testing.T) {
 	assert.InDelta(t, 0.36, s.ETc, 1e-12)
 	assert.InDelta(t, 0.3, s.ET, 1e-12)
 	assert.InDelta(t, 54.38, s.Depletion, 1e-9)
+	// The hour's totals after the revision: ET 0.8, ETc 0.6 + 0.36 = 0.96.
+	assert.InDelta(t, 0.8, s.Hour.ET, 1e-12)
+	assert.InDelta(t, 0.96, s.Hour.ETc, 1e-12)
+	assert.Equal(t, 1, s.Hour.Revision)
 	// The same revision again changes nothing.
 	_, ok, err = z.StepHour(st, in)
 	require.NoError(t, err)

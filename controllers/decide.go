@@ -147,16 +147,17 @@ type candidate struct {
 // source stays within its valve and flow limits for the whole cycle, counting
 // open commands already in the ledger. A cycle that does not fit in the
 // window, or in the day's cap, with at least MinMinutes is left for a later
-// decision.
+// decision. After a command expired without any report, or failed, the zone
+// is not watered again in the same window occurrence (alerted skip).
 func Decide(now time.Time, zones []ZoneInput, sources []Source, ledger []Command, holds Holds) Plan {
 	var plan Plan
 	open := map[string]bool{}
-	var unreported []*Command
+	var troubled []*Command // expired without report, or failed
 	bySource := map[string][]interval{}
 	for i := range ledger {
 		c := &ledger[i]
-		if c.State == Expired && !c.Credited && c.Attempts > 0 {
-			unreported = append(unreported, c)
+		if (c.State == Expired && !c.Credited && c.Attempts > 0) || c.State == Failed {
+			troubled = append(troubled, c)
 		}
 		if !c.State.Open() {
 			continue
@@ -194,10 +195,11 @@ func Decide(now time.Time, zones []ZoneInput, sources []Source, ledger []Command
 			skip("outside watering windows", false)
 			continue
 		}
-		if lost := lostIn(unreported, z.ID, slot); lost != "" {
-			// It may have run with its report lost: do not water again in
-			// this window occurrence.
-			skip("command "+lost+" expired without a report in this window", true)
+		if c := troubleIn(troubled, z.ID, slot); c != nil {
+			// An expired command may have run with its report lost; a failed
+			// one will likely fail again: do not water again in this window
+			// occurrence, and say so.
+			skip(fmt.Sprintf("command %s %s in this window", c.ID, c.State), true)
 			continue
 		}
 		need := st.Depletion - lv.Target
@@ -281,13 +283,13 @@ func Decide(now time.Time, zones []ZoneInput, sources []Source, ledger []Command
 	return plan
 }
 
-func lostIn(unreported []*Command, zone string, slot Slot) string {
-	for _, c := range unreported {
+func troubleIn(troubled []*Command, zone string, slot Slot) *Command {
+	for _, c := range troubled {
 		if c.Zone == zone && !c.Start.Before(slot.Start) && c.Start.Before(slot.End) {
-			return c.ID
+			return c
 		}
 	}
-	return ""
+	return nil
 }
 
 // dayUse sums the minutes charged per zone and standard-time day of the

@@ -181,6 +181,12 @@ func TestDecideAfterLostReport(t *testing.T) {
 	p := Decide(now, []ZoneInput{{z, st}}, nil, []Command{lost}, Holds{})
 	assert.Empty(t, p.Commands)
 	assert.True(t, p.Skips[0].Alert)
+	// Likewise after a failure.
+	failed := lost
+	failed.State = Failed
+	p = Decide(now, []ZoneInput{{z, st}}, nil, []Command{failed}, Holds{})
+	assert.Empty(t, p.Commands)
+	assert.Contains(t, p.Skips[0].Reason, "failed")
 	// The next night it may water again.
 	now = at(2, 21, 0)
 	st = withWeather(&State{Depletion: 80}, now)
