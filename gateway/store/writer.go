@@ -25,7 +25,6 @@ const (
 	DefaultBackfillRate  = 1000 // points per second
 	DefaultMaxFuture     = 48 * time.Hour
 	DefaultWriteTimeout  = 30 * time.Second
-	DefaultShutdownFlush = 5 * time.Second
 )
 
 // WriterOptions configures a Writer.
@@ -45,9 +44,8 @@ type WriterOptions struct {
 	// MaxFuture quarantines points further ahead of the clock; 0: DefaultMaxFuture.
 	MaxFuture time.Duration
 	// MaxAge quarantines points older than the server's retention; 0: no limit.
-	MaxAge        time.Duration
-	WriteTimeout  time.Duration // per request; 0: DefaultWriteTimeout
-	ShutdownFlush time.Duration // last drain attempt when Run stops; 0: DefaultShutdownFlush
+	MaxAge       time.Duration
+	WriteTimeout time.Duration // per request; 0: DefaultWriteTimeout
 
 	Logger     *slog.Logger          // nil: discard
 	Registerer prometheus.Registerer // nil: metrics are not registered
@@ -98,7 +96,6 @@ func NewWriter(o *Outbox, opt WriterOptions) (*Writer, error) {
 	setDefault(&opt.BackfillRate, DefaultBackfillRate)
 	setDefault(&opt.MaxFuture, DefaultMaxFuture)
 	setDefault(&opt.WriteTimeout, DefaultWriteTimeout)
-	setDefault(&opt.ShutdownFlush, DefaultShutdownFlush)
 	if opt.BatchSize < 1 {
 		return nil, fmt.Errorf("new writer: batch size must be > 0, got %d", opt.BatchSize)
 	}
@@ -134,11 +131,10 @@ func setDefault[T comparable](v *T, d T) {
 	}
 }
 
-// Run drains the outbox until ctx ends, then makes one last bounded attempt
-// to write what is pending (ShutdownFlush) and closes the client. What stays
-// unwritten remains in the outbox for the next start.
+// Run drains the outbox until ctx ends. For a last drain at shutdown call
+// Flush with a bounded context afterwards (the gateway does: Writer is a
+// Flusher). What stays unwritten remains in the outbox for the next start.
 func (w *Writer) Run(ctx context.Context) error {
-	defer w.client.Close()
 	tokens := float64(w.opt.BatchSize)
 	last := time.Now()
 	backoff := time.Duration(0)
@@ -206,14 +202,11 @@ func (w *Writer) Run(ctx context.Context) error {
 			}
 		}
 	}
-	fctx, cancel := context.WithTimeout(context.Background(), w.opt.ShutdownFlush)
-	defer cancel()
-	if err := w.Flush(fctx); err != nil {
-		depth, _ := w.o.Stats()
-		w.log.Warn("store: points left in the outbox at shutdown", "pending", depth, "err", err)
-	}
 	return nil
 }
+
+// Close releases the client's connections. Call it after Run and Flush.
+func (w *Writer) Close() { w.client.Close() }
 
 // waitForPoints waits until new points are committed, then lets FlushInterval
 // pass so a burst goes out as one batch. It reports false when ctx ended.
