@@ -70,7 +70,11 @@ func normaliseRain(rd Reading, ch config.Channel, unit string, v float64) (Readi
 		if v < 0 || v > maxTipsPerMessage {
 			return Reading{}, ReasonOutOfRange, fmt.Errorf("rain: %g tips outside 0..%d: %w", v, maxTipsPerMessage, errOutOfRange)
 		}
-		rd.Sample.Value = v * ch.MMPerTip
+		mm := v * ch.MMPerTip
+		if err := checkRange(hourly.Rain, mm, "tips", v); err != nil {
+			return Reading{}, ReasonOutOfRange, err
+		}
+		rd.Sample.Value = mm
 		return rd, "", nil
 	case config.RainCounter:
 		if v < 0 {
