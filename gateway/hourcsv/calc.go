@@ -100,19 +100,19 @@ func Calc(ctx context.Context, in io.Reader, out io.Writer, opt CalcOptions) (Su
 			return sum, fmt.Errorf("calc: %w", context.Cause(ctx))
 		}
 		row, err := rd.Read()
-		if errors.Is(err, io.EOF) {
-			break
-		}
-		var re *RowError
-		if errors.As(err, &re) {
+		if err != nil {
+			if errors.Is(err, io.EOF) {
+				break
+			}
+			var re *RowError
+			if !errors.As(err, &re) {
+				return sum, fmt.Errorf("calc: %w", err)
+			}
 			if err := bad(re); err != nil {
 				_ = flush() // keep the hours already computed; the data error is what matters
 				return sum, fmt.Errorf("calc: %w", err)
 			}
 			continue
-		}
-		if err != nil {
-			return sum, fmt.Errorf("calc: %w", err)
 		}
 		if row.Gap > 0 {
 			sum.Gaps++

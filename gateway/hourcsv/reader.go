@@ -247,6 +247,12 @@ func (rd *Reader) Read() (Row, error) {
 	if h.AirTemp, err = rd.number(rec, rd.idxTemp, ColAirTemp, line); err != nil {
 		return Row{}, err
 	}
+	if h.AirTemp < hourly.MinAirTemp || h.AirTemp > hourly.MaxAirTemp {
+		// Checked here, before the humidity conversion uses it, so the error
+		// names the right column.
+		return Row{}, &RowError{Line: line, Column: ColAirTemp, Value: cellAt(rec, rd.idxTemp),
+			Err: fmt.Errorf("outside %g..%g degC: %w", hourly.MinAirTemp, hourly.MaxAirTemp, hourly.ErrInput)}
+	}
 	if h.Ea, err = rd.humidity(rec, h.AirTemp, line); err != nil {
 		return Row{}, err
 	}

@@ -16,8 +16,8 @@ const LocalLayout = "2006-01-02T15:04"
 // offset in hours (e.g. -8, 5.5). Daylight-saving time never applies: solar
 // geometry works in standard time.
 func StandardZone(utcOffset float64) (*time.Location, error) {
-	if math.IsNaN(utcOffset) || utcOffset < -12 || utcOffset > 14 {
-		return nil, fmt.Errorf("standard zone: utc offset must be within -12..14 hours, got %v", utcOffset)
+	if math.IsNaN(utcOffset) || utcOffset < -14 || utcOffset > 14 {
+		return nil, fmt.Errorf("standard zone: utc offset must be within -14..14 hours, got %v", utcOffset)
 	}
 	secs := int(math.Round(utcOffset * 3600))
 	if secs%900 != 0 {
@@ -163,6 +163,9 @@ func AppendDate(dst []byte, t time.Time) []byte {
 }
 
 func appendInt(dst []byte, v, width int) []byte {
+	if v >= 0 && v < 100 && width == 2 {
+		return append(dst, byte('0'+v/10), byte('0'+v%10))
+	}
 	if v < 0 {
 		dst = append(dst, '-')
 		v = -v
@@ -175,9 +178,35 @@ func appendInt(dst []byte, v, width int) []byte {
 	return append(dst, b...)
 }
 
-// AppendFixed appends v with prec decimals; a value that rounds to zero is
-// written without a minus sign ("0.0000", never "-0.0000").
+// AppendFixed appends v with prec decimals, exactly as strconv.AppendFloat
+// with format 'f' would, except that a value that rounds to zero is written
+// without a minus sign ("0.0000", never "-0.0000").
 func AppendFixed(dst []byte, v float64, prec int) []byte {
+	if prec >= 0 && prec < len(pow10) {
+		scaled := math.Abs(v) * pow10[prec]
+		// Below 2^52 the product keeps a fraction bit; rounding it can then
+		// differ from rounding the exact decimal expansion of v only when
+		// the product lands on a tie, which goes the slow way.
+		if fl := math.Floor(scaled); scaled < 1<<52 && scaled-fl != 0.5 {
+			n := uint64(math.Round(scaled))
+			if n != 0 && v < 0 {
+				dst = append(dst, '-')
+			}
+			p := uint64(pow10[prec])
+			dst = strconv.AppendUint(dst, n/p, 10)
+			if prec > 0 {
+				var frac [8]byte
+				f := n % p
+				for i := prec - 1; i >= 0; i-- {
+					frac[i] = byte('0' + f%10)
+					f /= 10
+				}
+				dst = append(dst, '.')
+				dst = append(dst, frac[:prec]...)
+			}
+			return dst
+		}
+	}
 	start := len(dst)
 	dst = strconv.AppendFloat(dst, v, 'f', prec, 64)
 	if dst[start] == '-' {
@@ -190,3 +219,5 @@ func AppendFixed(dst []byte, v float64, prec int) []byte {
 	}
 	return dst
 }
+
+var pow10 = [...]float64{1, 1e1, 1e2, 1e3, 1e4, 1e5, 1e6, 1e7, 1e8}

@@ -1,0 +1,396 @@
+package main
+
+import (
+	"bytes"
+	"context"
+	"encoding/csv"
+	"flag"
+	"os"
+	"path/filepath"
+	"strconv"
+	"strings"
+	"testing"
+
+	"github.com/stretchr/testify/assert"
+	"github.com/stretchr/testify/require"
+
+	"etpulse/gateway/hourcsv"
+)
+
+var update = flag.Bool("update", false, "rewrite the golden files of the calc tests")
+
+// demoArgs are the station flags of the bundled demo orchard (invented).
+var demoArgs = []string{"--lat", "37.48", "--lon", "14.06", "--elevation", "310", "--utc-offset", "1", "--wind-height", "3"}
+
+const demoFile = "../../testdata/calc/halcyon-terrace.csv"
+
+// calc runs `etpulse calc args...` with stdin and returns exit code, stdout
+// and stderr.
+func calc(t testing.TB, stdin string, args ...string) (int, string, string) {
+	t.Helper()
+	var out, errOut bytes.Buffer
+	code := run(context.Background(), append([]string{"calc"}, args...), strings.NewReader(stdin), &out, &errOut)
+	return code, out.String(), errOut.String()
+}
+
+// table parses CSV output into rows of named cells.
+func table(t *testing.T, out string) []map[string]string {
+	t.Helper()
+	recs, err := csv.NewReader(strings.NewReader(out)).ReadAll()
+	require.NoError(t, err)
+	require.NotEmpty(t, recs)
+	var rows []map[string]string
+	for _, rec := range recs[1:] {
+		m := map[string]string{}
+		for i, name := range recs[0] {
+			m[name] = rec[i]
+		}
+		rows = append(rows, m)
+	}
+	return rows
+}
+
+func num(t *testing.T, s string) float64 {
+	t.Helper()
+	v, err := strconv.ParseFloat(s, 64)
+	require.NoError(t, err, "cell %q", s)
+	return v
+}
+
+func golden(t *testing.T, name, got string) {
+	t.Helper()
+	path := filepath.Join("..", "..", "testdata", "calc", "golden", name)
+	if *update {
+		require.NoError(t, os.WriteFile(path, []byte(got), 0o644))
+	}
+	want, err := os.ReadFile(path)
+	require.NoError(t, err, "run go test ./cmd/etpulse -run TestCalcGolden -update to create it")
+	assert.Equal(t, string(want), got, "output differs from %s; if the change is intended, rerun with -update and review the diff", path)
+}
+
+// TestCalcGolden is a regression test: the bundled example's output must
+// not change unnoticed. The golden files are our own output, not check
+// values; the checks against published values are TestCalcFAO56Example19
+// and the tests of package hourly.
+func TestCalcGolden(t *testing.T) {
+	for _, tc := range []struct {
+		golden string
+		extra  []string
+	}{
+		{"halcyon-terrace-short.csv", nil},
+		{"halcyon-terrace-tall-full.csv", []string{"--reference", "tall", "--clear-sky", "full"}},
+		{"halcyon-terrace-fao56.csv", []string{"--reference", "fao56"}},
+		{"halcyon-terrace-daily.csv", []string{"--daily"}},
+	} {
+		t.Run(tc.golden, func(t *testing.T) {
+			code, out, errOut := calc(t, "", append(append([]string{"--in", demoFile}, demoArgs...), tc.extra...)...)
+			require.Equal(t, exitOK, code, errOut)
+			assert.Empty(t, errOut)
+			golden(t, tc.golden, out)
+		})
+	}
+}
+
+// TestCalcPlausible checks the bundled example against what any irrigator
+// expects of a hot, clear Mediterranean July (common practice, no source):
+// night hours about zero, midday hours a few tenths of a mm, daily totals of
+// several mm, and the sum of the hours close to the daily equation.
+func TestCalcPlausible(t *testing.T) {
+	code, out, errOut := calc(t, "", append([]string{"--in", demoFile}, demoArgs...)...)
+	require.Equal(t, exitOK, code, errOut)
+	rows := table(t, out)
+	require.Len(t, rows, 96)
+	for _, r := range rows {
+		et := num(t, r["et_mm"])
+		hour := r["time"][11:13]
+		switch {
+		case r["day"] == "0":
+			assert.InDelta(t, 0, et, 0.07, "night hour %s", r["time"])
+			assert.LessOrEqual(t, num(t, r["rn_mj"]), 0.0, "night hour %s", r["time"])
+		case hour >= "11" && hour <= "14" && r["time"][:10] != "2026-07-16": // the 16th has a storm
+			assert.Greater(t, et, 0.4, "midday hour %s", r["time"])
+			assert.Less(t, et, 1.0, "midday hour %s", r["time"])
+		}
+		assert.GreaterOrEqual(t, num(t, r["es_kpa"]), num(t, r["ea_kpa"]), r["time"])
+	}
+
+	code, out, errOut = calc(t, "", append([]string{"--in", demoFile, "--daily"}, demoArgs...)...)
+	require.Equal(t, exitOK, code, errOut)
+	days := table(t, out)
+	require.Len(t, days, 4)
+	for _, d := range days {
+		sum, daily := num(t, d["et_mm"]), num(t, d["et_daily_mm"])
+		assert.Equal(t, "24", d["hours"])
+		assert.Greater(t, sum, 4.0, d["date"])
+		assert.Less(t, sum, 9.0, d["date"])
+		// Sum of hourly ETos vs daily ETos: within 10 % (ASCE-EWRI 2005
+		// reports agreement of this order for the standardized equations,
+		// from memory; the tolerance itself is common practice, no source).
+		assert.InEpsilon(t, daily, sum, 0.10, d["date"])
+	}
+	assert.Equal(t, "9.50", days[2]["rain_mm"], "rain is summed per day")
+}
+
+// TestCalcFAO56Example19 reproduces FAO-56 Example 19 (hourly ETo at
+// N'Diaye, Senegal, 1 October; all values from memory, published to the
+// rounding shown) through the whole command: CSV in, CSV out. The example's
+// station is at 16°13' N (16.2167), 16°15' W (--lon -16.25), 8 m, with Lz =
+// 15° (standard time UTC-1). Rs = 2.450 MJ m-2 h-1 is written as mean W m-2:
+// 2.450 / 0.0036 = 680.5556.
+//
+// The night hour follows the day hour after a gap, so the night cloudiness
+// carry restarts and the 0.8 Rs/Rso default applies, which is exactly what
+// the example assumes for the night (fcd = 1.35 x 0.8 - 0.35 = 0.73).
+func TestCalcFAO56Example19(t *testing.T) {
+	in := "time,air_temp_c,rh_pct,wind_ms,solar_wm2\n" +
+		"2026-10-01T14:00,38,52,3.3,680.5556\n" +
+		"2026-10-02T02:00,28,90,1.9,0\n"
+	code, out, errOut := calc(t, in, "--lat", "16.2167", "--lon", "-16.25", "--elevation", "8", "--utc-offset", "-1", "--reference", "fao56")
+	require.Equal(t, exitOK, code, errOut)
+	assert.Contains(t, errOut, "line 3: 11 hours missing before 2026-10-02T02:00: night cloudiness carry restarted")
+	rows := table(t, out)
+	require.Len(t, rows, 2)
+
+	day, night := rows[0], rows[1]
+	assert.Equal(t, "2026-10-01T14:00", day["time"])
+	for _, c := range []struct {
+		col  string
+		want float64
+		tol  float64
+	}{
+		{"es_kpa", 6.625, 0.0005}, // FAO-56 Example 19: e°(38) = 6.625 kPa
+		{"ea_kpa", 3.445, 0.0005}, // FAO-56 Example 19: ea = 6.625 x 0.52 = 3.445 kPa
+		{"ra_mj", 3.543, 0.0005},  // FAO-56 Example 19: Ra = 3.543 MJ m-2 h-1
+		{"rso_mj", 2.658, 0.0005}, // FAO-56 Example 19: Rso = 0.75 Ra = 2.658
+		{"rn_mj", 1.749, 0.0005},  // FAO-56 Example 19: Rn = 1.887 - 0.137 = 1.749
+		{"g_mj", 0.175, 0.0005},   // FAO-56 Example 19: G = 0.1 Rn = 0.175
+		{"et_mm", 0.63, 0.005},    // FAO-56 Example 19: ETo = 0.63 mm/hour
+	} {
+		assert.InDelta(t, c.want, num(t, day[c.col]), c.tol, "day %s", c.col)
+	}
+	assert.Equal(t, "1", day["day"])
+
+	assert.Equal(t, "2026-10-02T02:00", night["time"])
+	for _, c := range []struct {
+		col  string
+		want float64
+		tol  float64
+	}{
+		{"es_kpa", 3.780, 0.0005}, // FAO-56 Example 19: e°(28) = 3.780 kPa
+		{"ea_kpa", 3.402, 0.0005}, // FAO-56 Example 19: ea = 3.780 x 0.90 = 3.402 kPa
+		{"ra_mj", 0, 0},           // FAO-56 Example 19: sun below the horizon, Ra = 0
+		{"fcd", 0.73, 0.0005},     // FAO-56 Example 19 assumes Rs/Rso = 0.8 at night
+		{"rn_mj", -0.100, 0.0005}, // FAO-56 Example 19: Rn = 0 - 0.100 = -0.100
+		{"g_mj", -0.050, 0.0005},  // FAO-56 Example 19: G = 0.5 Rn = -0.050
+		{"et_mm", 0.00, 0.005},    // FAO-56 Example 19: ETo = 0.00 mm/hour
+	} {
+		assert.InDelta(t, c.want, num(t, night[c.col]), c.tol, "night %s", c.col)
+	}
+	assert.Equal(t, "0", night["day"])
+}
+
+func TestCalcStdinAndRFC3339(t *testing.T) {
+	// The same FAO-56 Example 19 day hour given in UTC: 15:00Z is 14:00 at UTC-1.
+	in := "solar_wm2,wind_ms,rh_pct,air_temp_c,time\n680.5556,3.3,52,38,2026-10-01T15:00:00Z\n"
+	code, out, errOut := calc(t, in, "--lat", "16.2167", "--lon", "-16.25", "--elevation", "8", "--utc-offset", "-1", "--reference", "fao56")
+	require.Equal(t, exitOK, code, errOut)
+	rows := table(t, out)
+	require.Len(t, rows, 1)
+	assert.Equal(t, "2026-10-01T14:00", rows[0]["time"])
+	assert.Equal(t, "0.6269", rows[0]["et_mm"])
+}
+
+func TestCalcUsageErrors(t *testing.T) {
+	station := []string{"--lat", "37.48", "--lon", "14.06", "--elevation", "310", "--utc-offset", "1"}
+	without := func(flag string) []string {
+		var out []string
+		for i := 0; i < len(station); i += 2 {
+			if station[i] != flag {
+				out = append(out, station[i], station[i+1])
+			}
+		}
+		return out
+	}
+	for _, tc := range []struct {
+		name string
+		args []string
+		want string
+	}{
+		{"no lat", without("--lat"), "etpulse calc: missing --lat (station latitude, degrees north positive)"},
+		{"no lon", without("--lon"), "etpulse calc: missing --lon (station longitude, degrees east positive)"},
+		{"no elevation", without("--elevation"), "etpulse calc: missing --elevation (station elevation, m)"},
+		{"no utc offset", without("--utc-offset"), "etpulse calc: missing --utc-offset (UTC offset of the station's standard time, hours)"},
+		{"lat range", append(station, "--lat", "91"), "etpulse calc: --lat: 91 outside -90..90 degrees"},
+		{"lon range", append(station, "--lon", "-200"), "etpulse calc: --lon: -200 outside -180..180 degrees (east positive)"},
+		{"elevation range", append(station, "--elevation", "12000"), "etpulse calc: --elevation: 12000 outside -500..9000 m"},
+		{"utc offset range", append(station, "--utc-offset", "15"), "etpulse calc: --utc-offset: 15 outside -14..14 hours"},
+		{"utc offset quarter", append(station, "--utc-offset", "5.1"), "etpulse calc: --utc-offset: 5.1 is not a whole number of quarter hours"},
+		{"lat not a number", append(station, "--lat", "north"), `etpulse calc: invalid value "north" for flag -lat: parse error`},
+		{"reference", append(station, "--reference", "grass"), `etpulse calc: --reference: "grass" is not one of short, tall, fao56`},
+		{"clear sky", append(station, "--clear-sky", "fancy"), `etpulse calc: --clear-sky: "fancy" is not one of simple, full`},
+		{"wind height", append(station, "--wind-height", "0"), "etpulse calc: --wind-height: 0 m outside 0.5..100"},
+		{"turbidity without full", append(station, "--turbidity", "0.8"), "etpulse calc: --turbidity applies only with --clear-sky full"},
+		{"turbidity range", append(station, "--clear-sky", "full", "--turbidity", "2"), "etpulse calc: --turbidity: 2 outside 0.5..1"},
+		{"unknown flag", append(station, "--latitude", "3"), "etpulse calc: flag provided but not defined: -latitude"},
+		{"positional", append(station, "weather.csv"), `etpulse calc: unexpected argument "weather.csv" (the input file goes after --in)`},
+	} {
+		t.Run(tc.name, func(t *testing.T) {
+			code, out, errOut := calc(t, "", tc.args...)
+			assert.Equal(t, exitUsage, code)
+			assert.Empty(t, out)
+			assert.Equal(t, tc.want+"\nrun 'etpulse calc --help' for usage\n", errOut)
+		})
+	}
+}
+
+func TestCalcHelp(t *testing.T) {
+	code, out, errOut := calc(t, "", "--help")
+	assert.Equal(t, exitOK, code)
+	assert.Empty(t, errOut)
+	for _, flag := range []string{"--in", "--lat", "--lon", "--elevation", "--utc-offset", "--reference", "--wind-height",
+		"--clear-sky", "--turbidity", "--daily", "--skip-bad", "--help"} {
+		assert.Contains(t, out, "  "+flag+" ", "help documents %s", flag)
+	}
+	for _, col := range hourcsv.Columns {
+		assert.Contains(t, out, col, "help documents input column %s", col)
+	}
+	for _, col := range append(hourcsv.HourColumns, hourcsv.DayColumns...) {
+		assert.Contains(t, out, col, "help documents output column %s", col)
+	}
+	assert.Contains(t, out, "etpulse calc --in testdata/calc/halcyon-terrace.csv")
+}
+
+// TestCalcHelpExampleRuns runs the example printed by --help.
+func TestCalcHelpExampleRuns(t *testing.T) {
+	_, help, _ := calc(t, "", "--help")
+	i := strings.Index(help, "etpulse calc --in ")
+	require.GreaterOrEqual(t, i, 0)
+	example := strings.ReplaceAll(help[i:], "\\\n", " ")
+	fields := strings.Fields(strings.SplitN(example, "\n", 2)[0])[2:]
+	for j, f := range fields {
+		if f == "testdata/calc/halcyon-terrace.csv" {
+			fields[j] = demoFile
+		}
+	}
+	code, out, errOut := calc(t, "", fields...)
+	require.Equal(t, exitOK, code, errOut)
+	assert.Len(t, table(t, out), 96)
+}
+
+func TestCalcDataErrors(t *testing.T) {
+	station := []string{"--lat", "37.48", "--lon", "14.06", "--elevation", "310", "--utc-offset", "1"}
+	const head = "time,air_temp_c,rh_pct,wind_ms,solar_wm2\n"
+	for _, tc := range []struct {
+		name, in, want string
+		rows           int // hour lines written before the error
+	}{
+		{"unknown column", "time,air_temp_c,rh_pct,wind_ms,solar_wm2,leaf_wet\n",
+			`etpulse calc: read weather csv: bad header: line 1: unknown column "leaf_wet" (accepted: time, air_temp_c, rh_pct, dewpoint_c, ea_kpa, wind_ms, solar_wm2, net_rad_wm2, soil_heat_wm2, rain_mm)`, -1},
+		{"missing column", "time,air_temp_c,rh_pct,wind_ms\n",
+			`etpulse calc: read weather csv: bad header: line 1: missing required column "solar_wm2"`, -1},
+		{"bad number", head + "2026-07-14T12:00,31,40,2,900\n2026-07-14T13:00,31,40,2,9OO\n",
+			`etpulse calc: line 3: column solar_wm2: value "9OO": not a number`, 1},
+		{"temperature", head + "2026-07-14T12:00,71,40,2,900\n",
+			`etpulse calc: line 2: column air_temp_c: value "71": outside -90..65 degC: bad input`, 0},
+		{"engine refuses", "time,air_temp_c,ea_kpa,wind_ms,solar_wm2\n2026-07-14T12:00,20,3.1,2,900\n",
+			`etpulse calc: line 2: compute: actual vapour pressure: 3.1 kPa exceeds saturation 2.338 kPa at 20 degC: bad input`, 0},
+		{"backwards", head + "2026-07-14T12:00,31,40,2,900\n2026-07-14T11:00,31,40,2,900\n",
+			`etpulse calc: line 3: column time: value "2026-07-14T11:00": not after the previous hour 2026-07-14T12:00 (line 2): hours must be in increasing order without repeats`, 1},
+		{"empty input", "", "etpulse calc: read weather csv: bad header: empty input, expected a header line naming the columns", -1},
+	} {
+		t.Run(tc.name, func(t *testing.T) {
+			code, out, errOut := calc(t, tc.in, station...)
+			assert.Equal(t, exitError, code)
+			assert.Equal(t, tc.want+"\n", errOut)
+			if tc.rows < 0 {
+				assert.Empty(t, out)
+			} else {
+				assert.Len(t, table(t, out), tc.rows, "hours before the bad row are still written")
+			}
+		})
+	}
+
+	code, _, errOut := calc(t, "", append(station, "--in", filepath.Join(t.TempDir(), "nope.csv"))...)
+	assert.Equal(t, exitError, code)
+	assert.Contains(t, errOut, "nope.csv: no such file or directory")
+}
+
+func TestCalcSkipBad(t *testing.T) {
+	in := "time,air_temp_c,rh_pct,wind_ms,solar_wm2\n" +
+		"2026-07-14T10:00,27,50,2,850\n" +
+		"2026-07-14T11:00,abc,50,2,900\n" +
+		"2026-07-14T12:00,31,40,2,950\n" +
+		"2026-07-14T13:00,31,240,2,950\n" +
+		"2026-07-14T14:00,31,40\n" +
+		"2026-07-14T16:00,33,35,3,700\n"
+	args := []string{"--lat", "37.48", "--lon", "14.06", "--elevation", "310", "--utc-offset", "1", "--skip-bad"}
+	code, out, errOut := calc(t, in, args...)
+	require.Equal(t, exitOK, code, errOut)
+	rows := table(t, out)
+	require.Len(t, rows, 3)
+	assert.Equal(t, "2026-07-14T10:00", rows[0]["time"])
+	assert.Equal(t, "2026-07-14T12:00", rows[1]["time"])
+	assert.Equal(t, "2026-07-14T16:00", rows[2]["time"])
+	assert.Equal(t, `etpulse calc: skipped line 3: column air_temp_c: value "abc": not a number
+etpulse calc: line 4: 1 hour missing before 2026-07-14T12:00: night cloudiness carry restarted
+etpulse calc: skipped line 5: column rh_pct: value "240": relative humidity: 240 % outside 0..100: bad input
+etpulse calc: skipped line 6: has 3 fields, the header has 5
+etpulse calc: line 7: 3 hours missing before 2026-07-14T16:00: night cloudiness carry restarted
+etpulse calc: 3 hours computed, 3 bad rows skipped, 2 gaps
+`, errOut)
+
+	code, _, errOut = calc(t, in, args[:len(args)-1]...)
+	assert.Equal(t, exitError, code)
+	assert.Equal(t, "etpulse calc: line 3: column air_temp_c: value \"abc\": not a number\n", errOut)
+}
+
+// TestCalcGapRestartsCarry: after a gap the night hour must not use the
+// cloudiness of the last sunny hour before the gap; it uses the default.
+func TestCalcGapRestartsCarry(t *testing.T) {
+	station := []string{"--lat", "37.48", "--lon", "14.06", "--elevation", "310", "--utc-offset", "1"}
+	// A heavily overcast afternoon (low fcd), then the night.
+	contiguous := "time,air_temp_c,rh_pct,wind_ms,solar_wm2\n" +
+		"2026-07-14T15:00,25,70,2,120\n" +
+		"2026-07-14T16:00,24,72,2,100\n" +
+		"2026-07-14T22:00,20,80,1,0\n"
+	code, out, errOut := calc(t, contiguous, station...)
+	require.Equal(t, exitOK, code, errOut)
+	rows := table(t, out)
+	require.Len(t, rows, 3)
+	assert.Equal(t, "0.730", rows[2]["fcd"], "after the gap the default Rs/Rso 0.8 applies")
+
+	withoutGap := "time,air_temp_c,rh_pct,wind_ms,solar_wm2\n" +
+		"2026-07-14T15:00,25,70,2,120\n" +
+		"2026-07-14T16:00,24,72,2,100\n"
+	for h := 17; h <= 22; h++ {
+		withoutGap += "2026-07-14T" + strconv.Itoa(h) + ":00,20,80,1,0\n"
+	}
+	code, out, errOut = calc(t, withoutGap, station...)
+	require.Equal(t, exitOK, code, errOut)
+	rows = table(t, out)
+	require.Len(t, rows, 8)
+	assert.Equal(t, rows[1]["fcd"], rows[7]["fcd"], "without a gap the last sunny hour's fcd is carried")
+	assert.NotEqual(t, "0.730", rows[7]["fcd"])
+}
+
+// BenchmarkCalc runs `etpulse calc` over ten years of generated hourly
+// weather (87,600 rows) and reports rows/s. Target: >= 500,000 rows/s.
+func BenchmarkCalc(b *testing.B) {
+	data := string(hourcsv.SyntheticYears(2026, 10))
+	rows := strings.Count(data, "\n") - 1
+	b.SetBytes(int64(len(data)))
+	b.ReportAllocs()
+	for b.Loop() {
+		var out bytes.Buffer
+		out.Grow(8 << 20)
+		var errOut bytes.Buffer
+		code := run(context.Background(), append([]string{"calc"}, demoArgs...), strings.NewReader(data), &out, &errOut)
+		if code != exitOK {
+			b.Fatalf("exit %d: %s", code, errOut.String())
+		}
+		if n := bytes.Count(out.Bytes(), []byte{'\n'}) - 1; n != rows {
+			b.Fatalf("wrote %d rows, want %d", n, rows)
+		}
+	}
+	b.ReportMetric(float64(rows)*float64(b.N)/b.Elapsed().Seconds(), "rows/s")
+}
