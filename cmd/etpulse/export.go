@@ -2,12 +2,119 @@ package main
 
 import (
 	"context"
+	"errors"
+	"flag"
 	"fmt"
 	"io"
+	"slices"
+	"strings"
+	"time"
+
+	"go.etcd.io/bbolt"
+
+	"etpulse/gateway/config"
+	"etpulse/gateway/store"
 )
 
-// TEMPORARY: replaced by the command's implementation.
+// runExport prints the local history kept in the state file.
 func runExport(ctx context.Context, args []string, stdin io.Reader, stdout, stderr io.Writer) int {
-	fmt.Fprintln(stderr, "etpulse: not implemented yet")
-	return exitError
+	fs := flag.NewFlagSet("export", flag.ContinueOnError)
+	fs.SetOutput(stderr)
+	fs.Usage = func() {
+		fmt.Fprintln(stderr, "usage: etpulse export --from T --to T [--station S] [--measurement M,...] [--format csv|lp] (--state FILE | --config FILE)")
+		fmt.Fprintln(stderr)
+		fmt.Fprintln(stderr, "Prints the local history (hourly records, zone steps, commands, reports, alerts) kept")
+		fmt.Fprintln(stderr, "in the state file. Times: RFC 3339, or UTC 2006-01-02 / 2006-01-02T15:04. The state")
+		fmt.Fprintln(stderr, "file must not be open in a running gateway: stop it, or export from a copy.")
+		fmt.Fprintln(stderr)
+		fs.PrintDefaults()
+	}
+	from := fs.String("from", "", "first point time to print (inclusive)")
+	to := fs.String("to", "", "end of the period (exclusive)")
+	station := fs.String("station", "", "only points of this station")
+	meas := fs.String("measurement", "", "only these measurements, comma-separated ("+strings.Join(store.Measurements(), ", ")+")")
+	format := fs.String("format", "csv", "csv, or lp for InfluxDB line protocol (post it with precision=ns)")
+	statePath := fs.String("state", "", "state file")
+	configPath := fs.String("config", "", "configuration file (its state.path is used)")
+	if err := fs.Parse(args); err != nil {
+		if errors.Is(err, flag.ErrHelp) {
+			return exitOK
+		}
+		return exitUsage
+	}
+	usageErr := func(format string, a ...any) int {
+		fmt.Fprintf(stderr, "etpulse export: "+format+"\n", a...)
+		return exitUsage
+	}
+	if fs.NArg() > 0 {
+		return usageErr("unexpected argument %q", fs.Arg(0))
+	}
+	var f store.Filter
+	var err error
+	if *from == "" || *to == "" {
+		return usageErr("--from and --to are required")
+	}
+	if f.From, err = store.ParseTime(*from); err != nil {
+		return usageErr("--from: %v", err)
+	}
+	if f.To, err = store.ParseTime(*to); err != nil {
+		return usageErr("--to: %v", err)
+	}
+	if !f.To.After(f.From) {
+		return usageErr("--to %s must be after --from %s", f.To.Format(time.RFC3339), f.From.Format(time.RFC3339))
+	}
+	f.Station = *station
+	if *meas != "" {
+		for _, m := range strings.Split(*meas, ",") {
+			if !slices.Contains(store.Measurements(), m) {
+				return usageErr("--measurement: unknown measurement %q (known: %s)", m, strings.Join(store.Measurements(), ", "))
+			}
+			f.Measurements = append(f.Measurements, m)
+		}
+	}
+	if *format != "csv" && *format != "lp" {
+		return usageErr("--format must be csv or lp, got %q", *format)
+	}
+	path := *statePath
+	switch {
+	case path != "" && *configPath != "":
+		return usageErr("give --state or --config, not both")
+	case *configPath != "":
+		cfg, err := config.Load(*configPath)
+		if err != nil {
+			fmt.Fprintf(stderr, "etpulse export: %v\n", err)
+			return exitUsage
+		}
+		path = cfg.State.Path
+	case path == "":
+		return usageErr("--state FILE or --config FILE is required")
+	}
+
+	db, err := bbolt.Open(path, 0o600, &bbolt.Options{ReadOnly: true, Timeout: 2 * time.Second})
+	if err != nil {
+		if errors.Is(err, bbolt.ErrTimeout) {
+			fmt.Fprintf(stderr, "etpulse export: state file %s is in use by a running gateway; stop it or export from a copy\n", path)
+		} else {
+			fmt.Fprintf(stderr, "etpulse export: open state %s: %v\n", path, err)
+		}
+		return exitError
+	}
+	defer db.Close()
+	h, err := store.OpenHistory(db)
+	if err != nil {
+		fmt.Fprintf(stderr, "etpulse export: %s: %v\n", path, err)
+		return exitError
+	}
+	var n int
+	if *format == "lp" {
+		n, err = store.ExportLineProtocol(stdout, h, f)
+	} else {
+		n, err = store.ExportCSV(stdout, h, f)
+	}
+	if err != nil {
+		fmt.Fprintf(stderr, "etpulse export: %v\n", err)
+		return exitError
+	}
+	fmt.Fprintf(stderr, "etpulse export: %d points\n", n)
+	return exitOK
 }
