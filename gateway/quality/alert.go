@@ -86,7 +86,7 @@ type Alert struct {
 	Key
 	Severity Severity  `json:"severity"`
 	Message  string    `json:"message"`          // the evidence, e.g. "max Rs/Rso over the last 7 days 0.78, expected >= 0.85"
-	Value    float64   `json:"value"`            // the measured value the message names
+	Value    float64   `json:"value"`            // the measured value the message names (silence: unix time of the last reading)
 	Limit    float64   `json:"limit"`            // the limit it was compared with
 	Since    time.Time `json:"since"`            // when it was raised
 	Updated  time.Time `json:"updated"`          // when its evidence was last published
@@ -157,9 +157,10 @@ type Event struct {
 // alert with the finding's key is active) and returns the new state, whether
 // the state changed (and must be persisted), and the event to publish, if any.
 //
-// A bad verdict raises the alert once; while it stays active a changed
-// message is published as an update at most every updateEvery (a severity
-// change at once). A good verdict starts the clearing clock; the alert clears
+// A bad verdict raises the alert once; while it stays active, evidence whose
+// value changed (as shown in messages, about three significant digits) is
+// published as an update at most every updateEvery, a severity change at
+// once. A good verdict starts the clearing clock; the alert clears
 // when good verdicts have lasted ClearAfter with no bad one in between. A hold
 // verdict changes nothing.
 func Step(prev Alert, has bool, f Finding, updateEvery time.Duration) (next Alert, changed bool, ev *Event) {
@@ -179,7 +180,8 @@ func Step(prev Alert, has bool, f Finding, updateEvery time.Duration) (next Aler
 		changed = !a.GoodSince.IsZero()
 		a.GoodSince = time.Time{}
 		sevChanged := f.Severity != a.Severity
-		if (f.Message != a.Message || sevChanged) && (sevChanged || f.At.Sub(a.Updated) >= updateEvery) {
+		valueChanged := num(f.Value) != num(a.Value) && f.Value != a.Value
+		if sevChanged || (valueChanged && f.At.Sub(a.Updated) >= updateEvery) {
 			a.Severity, a.Message, a.Value, a.Limit, a.Updated = f.Severity, f.Message, f.Value, f.Limit, f.At
 			return a, true, &Event{Type: EventUpdated, Alert: a}
 		}

@@ -1,6 +1,7 @@
 package quality
 
 import (
+	"fmt"
 	"testing"
 	"time"
 
@@ -13,7 +14,9 @@ import (
 var stepKey = Key{Site: "brackenfold", Station: "orchard", Sensor: "t1", Quantity: hourly.AirTemp, Kind: KindRange}
 
 func finding(st Status, minute int, msg string) Finding {
-	return Finding{Key: stepKey, Status: st, Severity: SeverityCritical, Message: msg, At: t0.Add(time.Duration(minute) * time.Minute), ClearAfter: 30 * time.Minute}
+	var v float64
+	fmt.Sscan(msg, &v) // the value leads the message in these tests
+	return Finding{Key: stepKey, Status: st, Severity: SeverityCritical, Message: msg, Value: v, At: t0.Add(time.Duration(minute) * time.Minute), ClearAfter: 30 * time.Minute}
 }
 
 func TestStepLifecycle(t *testing.T) {
@@ -35,6 +38,7 @@ func TestStepLifecycle(t *testing.T) {
 	assert.Equal(t, "61 above 55", ev.Alert.Message)
 
 	assert.Nil(t, apply(finding(StatusBad, 2, "61 above 55")), "raised once")
+	assert.Nil(t, apply(finding(StatusBad, 30, "61 above the limit 55")), "same value, reworded: no update")
 	assert.Nil(t, apply(finding(StatusBad, 5, "62 above 55")), "updates are rate-limited")
 	ev = apply(finding(StatusBad, 17, "63 above 55"))
 	require.NotNil(t, ev)

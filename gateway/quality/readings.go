@@ -171,10 +171,12 @@ func (c *ReadingChecks) Silence(now time.Time) []Finding {
 		if lim <= 0 {
 			continue
 		}
-		f := Finding{Key: c.key(id.sensor, id.quantity, KindSilence), Severity: SeverityCritical, Value: now.Sub(t).Seconds(), Limit: lim.Seconds(), At: now}
+		// Value is the time of the last reading (unix seconds), so the
+		// evidence stays the same while the sensor stays silent.
+		f := Finding{Key: c.key(id.sensor, id.quantity, KindSilence), Severity: SeverityCritical, Value: float64(t.Unix()), Limit: lim.Seconds(), At: now}
 		if now.Sub(t) > lim {
 			f.Status = StatusBad
-			f.Message = fmt.Sprintf("no %s reading since %s (%s), limit %s", id.quantity, t.UTC().Format(time.RFC3339), now.Sub(t).Round(time.Second), lim)
+			f.Message = fmt.Sprintf("no %s reading since %s, limit %s", id.quantity, t.UTC().Format(time.RFC3339), lim)
 		} else {
 			f.Status = StatusGood
 			f.Message = fmt.Sprintf("%s reporting", id.quantity)
