@@ -74,6 +74,9 @@ func BenchmarkWriteBatch(b *testing.B) {
 			b.Fatal(err)
 		}
 		elapsed += time.Since(t)
+		if d, _ := o.Stats(); d != 0 {
+			b.Fatalf("%d points left after a flush", d)
+		}
 	}
 	b.StopTimer()
 	b.ReportMetric(float64(b.N*len(pts))/elapsed.Seconds(), "points/s")

@@ -58,6 +58,9 @@ type lineWriter interface {
 
 var _ lineWriter = (api.WriteAPIBlocking)(nil)
 
+// errServer marks a failed write to the server (as opposed to the state file).
+var errServer = errors.New("store server")
+
 // Writer drains an Outbox to the store in batches, oldest first. It is a
 // gateway service: Run loops until its context ends.
 //
@@ -223,10 +226,17 @@ func (w *Writer) waitForPoints(ctx context.Context) bool {
 }
 
 // Flush writes every pending point, ignoring the backfill rate, until the
-// outbox is empty, a write fails or ctx ends.
+// outbox is empty, a write fails or ctx ends. A failed write to the server
+// is logged, not returned: the points stay in the outbox for the next start,
+// which is no failure of a shutdown. Errors of the state file are returned.
 func (w *Writer) Flush(ctx context.Context) error {
 	for {
 		n, err := w.step(ctx, w.opt.BatchSize, 0)
+		if errors.Is(err, errServer) {
+			depth, _ := w.o.Stats()
+			w.log.Warn("store: flush stopped; points stay in the outbox", "pending", depth, "err", err)
+			return nil
+		}
 		if err != nil {
 			return fmt.Errorf("flush: %w", err)
 		}
@@ -301,7 +311,7 @@ func (w *Writer) write(ctx context.Context, items []item) (int, error) {
 	w.metrics.errors.Inc()
 	var he *http2.Error
 	if !errors.As(err, &he) || !refusedAsInvalid(he.StatusCode) {
-		return 0, fmt.Errorf("write %d points: %w", len(items), err)
+		return 0, fmt.Errorf("%w: write %d points: %w", errServer, len(items), err)
 	}
 	if len(items) == 1 {
 		reason := "store refused: " + strconv.Itoa(he.StatusCode) + " " + http.StatusText(he.StatusCode) + ": " + he.Error()

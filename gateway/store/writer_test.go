@@ -413,6 +413,8 @@ func TestRejectedPointsQuarantined(t *testing.T) {
 		enqueue(t, db, o, good(0), future, nan, good(1), good(2))
 		w := newTestWriter(t, o, base, nil, nil)
 		require.NoError(t, w.Flush(context.Background()))
+		depth, _ := o.Stats()
+		require.Zero(t, depth)
 		var reasons []string
 		require.NoError(t, o.Quarantine(func(q QuarantinedPoint) error { reasons = append(reasons, q.Reason); return nil }))
 		require.Len(t, reasons, 2)
@@ -449,5 +451,19 @@ func TestRejectedPointsQuarantined(t *testing.T) {
 }
 
 func zero() float64 { return 0 }
+
+func TestFlushWithServerDownKeepsPoints(t *testing.T) {
+	db := openTestDB(t)
+	o := openTestOutbox(t, db, OutboxOptions{Clock: time.Now})
+	enqueue(t, db, o, zonePt("z1", 0, 1), zonePt("z1", 1, 2))
+	reg := prometheus.NewRegistry()
+	// A loopback port nothing listens on: the uplink is down.
+	w := newTestWriter(t, o, "http://127.0.0.1:"+strconv.Itoa(freePort(t)), reg, nil)
+	require.NoError(t, w.Flush(context.Background()), "a down server is not a shutdown failure")
+	depth, _ := o.Stats()
+	assert.Equal(t, 2, depth)
+	assert.Equal(t, 1.0, testutil.ToFloat64(w.metrics.errors))
+	assert.Zero(t, testutil.ToFloat64(w.metrics.written))
+}
 
 var _ = hourly.FAO56
