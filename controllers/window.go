@@ -6,11 +6,12 @@ import (
 )
 
 // Window is an allowed watering window of local standard time, e.g.
-// 21:00-05:00. A window whose end is not after its start crosses midnight.
+// 21:00-05:00. A window whose end is not after its start crosses midnight;
+// 00:00-24:00 is the whole day (a run never spans midnight in it).
 // Times are the station's standard time all year: a window does not move
 // when daylight-saving time starts or ends.
 type Window struct {
-	Start, End int // minutes after midnight, 0-1439
+	Start, End int // minutes after midnight: Start 0-1439, End 0-1440
 }
 
 // ParseWindow parses "HH:MM-HH:MM".
@@ -22,7 +23,7 @@ func ParseWindow(s string) (Window, error) {
 	if h1 < 0 || h1 > 23 || h2 < 0 || h2 > 24 || m1 < 0 || m1 > 59 || m2 < 0 || m2 > 59 || (h2 == 24 && m2 != 0) {
 		return Window{}, fmt.Errorf("window %q: hours 0-23 (24:00 allowed as end), minutes 0-59: %w", s, ErrInput)
 	}
-	w := Window{Start: h1*60 + m1, End: (h2*60 + m2) % 1440}
+	w := Window{Start: h1*60 + m1, End: h2*60 + m2}
 	if w.Start == w.End {
 		return Window{}, fmt.Errorf("window %q: start equals end: %w", s, ErrInput)
 	}
@@ -35,7 +36,10 @@ func (w Window) String() string {
 
 // length returns the window's length.
 func (w Window) length() time.Duration {
-	m := (w.End - w.Start + 1440) % 1440
+	m := w.End - w.Start
+	if m <= 0 {
+		m += 1440
+	}
 	return time.Duration(m) * time.Minute
 }
 

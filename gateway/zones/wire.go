@@ -1,0 +1,140 @@
+package zones
+
+import (
+	"bytes"
+	"encoding/json"
+	"fmt"
+	"math"
+	"time"
+
+	"etpulse/controllers"
+)
+
+// CommandMessage is the JSON a valve controller receives on its zone's
+// command topic (QoS 1, not retained). The controller must run the valve for
+// Minutes starting at Start (at once if Start has passed), never start after
+// Expiry, and treat ID as idempotent: a repeated ID (a retry, Attempt > 1)
+// must not run the valve again; answer it with the latest report instead.
+type CommandMessage struct {
+	ID      string             `json:"id"`
+	Zone    string             `json:"zone"`
+	Valve   string             `json:"valve"`
+	Minutes int                `json:"minutes"`
+	Start   time.Time          `json:"start"`  // RFC 3339, UTC
+	Expiry  time.Time          `json:"expiry"` // RFC 3339, UTC
+	Cycle   int                `json:"cycle"`  // 1-based
+	Cycles  int                `json:"cycles"`
+	Attempt int                `json:"attempt"`
+	Reason  controllers.Reason `json:"reason"`
+}
+
+// ReportMessage is the JSON a valve controller publishes on its zone's
+// report topic. State is accepted, started, finished or failed. MinutesRun
+// and VolumeL (a flow-meter reading, litres) are optional.
+type ReportMessage struct {
+	ID         string   `json:"id"`
+	State      string   `json:"state"`
+	MinutesRun *float64 `json:"minutes_run,omitempty"`
+	VolumeL    *float64 `json:"volume_l,omitempty"`
+	Reason     string   `json:"reason,omitempty"`
+}
+
+// HoldRequest is a manual hold, release or rain delay, published on
+// <prefix>/<site>/hold. An empty Zone means the whole site.
+type HoldRequest struct {
+	ID     string  `json:"id"`     // the requester's id, echoed in the reply
+	Zone   string  `json:"zone"`   // zone id, or "" for the site
+	Action string  `json:"action"` // hold, release or rain_delay
+	Hours  float64 `json:"hours"`  // hold: 0 = until released; rain_delay: 1-240
+	Reason string  `json:"reason"`
+}
+
+// HoldReply answers a HoldRequest on <prefix>/<site>/hold/reply.
+type HoldReply struct {
+	ID     string     `json:"id"`
+	OK     bool       `json:"ok"`
+	Zone   string     `json:"zone,omitempty"`
+	Action string     `json:"action,omitempty"`
+	Until  *time.Time `json:"until,omitempty"` // absent: until released
+	Error  string     `json:"error,omitempty"`
+}
+
+// maxPayload bounds the messages this package decodes.
+const maxPayload = 4096
+
+func commandMessage(c *controllers.Command) CommandMessage {
+	return CommandMessage{ID: c.ID, Zone: c.Zone, Valve: c.Valve, Minutes: c.Minutes,
+		Start: c.Start.UTC(), Expiry: c.Expiry.UTC(), Cycle: c.Cycle, Cycles: c.Cycles,
+		Attempt: c.Attempts, Reason: c.Reason}
+}
+
+func decodeStrict(b []byte, v any) error {
+	if len(b) > maxPayload {
+		return fmt.Errorf("payload of %d bytes exceeds %d", len(b), maxPayload)
+	}
+	dec := json.NewDecoder(bytes.NewReader(b))
+	dec.DisallowUnknownFields()
+	if err := dec.Decode(v); err != nil {
+		return err
+	}
+	if dec.More() {
+		return fmt.Errorf("trailing data after the JSON object")
+	}
+	return nil
+}
+
+// DecodeCommand parses a command message (for valve controllers and tests).
+func DecodeCommand(b []byte) (CommandMessage, error) {
+	var c CommandMessage
+	if err := decodeStrict(b, &c); err != nil {
+		return CommandMessage{}, fmt.Errorf("decode command: %w", err)
+	}
+	return c, nil
+}
+
+// DecodeReport parses and checks a valve report.
+func DecodeReport(b []byte) (controllers.Report, error) {
+	var m ReportMessage
+	if err := decodeStrict(b, &m); err != nil {
+		return controllers.Report{}, fmt.Errorf("decode report: %w", err)
+	}
+	r := controllers.Report{ID: m.ID, State: controllers.ReportState(m.State), Reason: m.Reason}
+	if m.MinutesRun != nil {
+		r.MinutesRun, r.HasMinutes = *m.MinutesRun, true
+	}
+	if m.VolumeL != nil {
+		r.VolumeL, r.HasVolume = *m.VolumeL, true
+	}
+	if len(r.Reason) > 256 {
+		r.Reason = r.Reason[:256]
+	}
+	if err := r.Validate(); err != nil {
+		return controllers.Report{}, fmt.Errorf("decode report: %w", err)
+	}
+	return r, nil
+}
+
+// DecodeHoldRequest parses and checks a hold request.
+func DecodeHoldRequest(b []byte) (HoldRequest, error) {
+	var h HoldRequest
+	if err := decodeStrict(b, &h); err != nil {
+		return HoldRequest{}, fmt.Errorf("decode hold request: %w", err)
+	}
+	if len(h.ID) > 128 || len(h.Reason) > 256 || len(h.Zone) > 64 {
+		return HoldRequest{}, fmt.Errorf("decode hold request: id, zone or reason too long")
+	}
+	switch h.Action {
+	case "hold":
+		if !(h.Hours >= 0 && h.Hours <= 24*365) {
+			return HoldRequest{}, fmt.Errorf("decode hold request: hours: must be within 0-8760 (0: until released), got %v", h.Hours)
+		}
+	case "rain_delay":
+		if !(h.Hours >= 1 && h.Hours <= 240) || math.IsNaN(h.Hours) {
+			return HoldRequest{}, fmt.Errorf("decode hold request: hours: must be within 1-240 for a rain delay, got %v", h.Hours)
+		}
+	case "release":
+	default:
+		return HoldRequest{}, fmt.Errorf("decode hold request: action: must be hold, release or rain_delay, got %q", h.Action)
+	}
+	return h, nil
+}

@@ -1,0 +1,888 @@
+// Package zones is the gateway's adapter around the controllers: it steps
+// every zone's water balance inside each closing hour's transaction, runs the
+// scheduler that plans, publishes and tracks valve commands over MQTT,
+// credits reported water, and takes manual holds and rain delays.
+//
+// Everything durable lives in the state file (bucket "zones"): zone balance,
+// command ledger and holds. Every change is one bbolt transaction, together
+// with the store points that describe it.
+package zones
+
+import (
+	"context"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"log/slog"
+	"sort"
+	"sync"
+	"time"
+
+	"github.com/prometheus/client_golang/prometheus"
+	"go.etcd.io/bbolt"
+
+	"etpulse/controllers"
+	"etpulse/gateway/config"
+	"etpulse/gateway/mqtt"
+	"etpulse/gateway/store"
+	"etpulse/hourly"
+)
+
+// Broker is the MQTT connection the service uses.
+type Broker interface {
+	mqtt.Publisher
+	mqtt.Subscriber
+}
+
+// DefaultTopicPrefix is the first level of the hold topics.
+const DefaultTopicPrefix = "etpulse"
+
+// Options configure a Service.
+type Options struct {
+	Config *config.Config
+	DB     *bbolt.DB
+	MQTT   Broker         // nil: no commands are sent (replay); Run needs it
+	Store  store.Enqueuer // nil: no points
+	Logger *slog.Logger   // nil discards
+	// Registerer receives the zone metrics; nil: not registered.
+	Registerer prometheus.Registerer
+	Clock      func() time.Time                     // nil: time.Now
+	After      func(time.Duration) <-chan time.Time // nil: time.After
+	// TopicPrefix is the first level of <prefix>/<site>/hold and
+	// <prefix>/<site>/hold/reply; "" means DefaultTopicPrefix.
+	TopicPrefix string
+	// OnEvent, when set, sees every step, command and credit (demo output).
+	// It is called after the change is committed and must not block.
+	OnEvent func(Event)
+	// LedgerRetention keeps finished commands this long; 0 means 30 days.
+	LedgerRetention time.Duration
+}
+
+// EventKind names what happened.
+type EventKind string
+
+// The event kinds.
+const (
+	EventStep      EventKind = "step"      // an hour stepped the balance
+	EventPlanned   EventKind = "planned"   // a command was planned
+	EventSent      EventKind = "sent"      // a command was published (Attempt 1) or re-sent
+	EventCancelled EventKind = "cancelled" // a planned command was withdrawn (hold, weather)
+	EventExpired   EventKind = "expired"   // no (further) report came: alerted, not credited
+	EventReport    EventKind = "report"    // a valve report arrived
+	EventCredited  EventKind = "credited"  // reported water was credited
+	EventSkip      EventKind = "skip"      // a zone got no command (reason changed)
+	EventHold      EventKind = "hold"      // a hold, release or rain delay was applied
+	EventAlert     EventKind = "alert"     // the zone's ET went stale or came back
+)
+
+// Event is one thing the service did, for display.
+type Event struct {
+	Time    time.Time
+	Site    string
+	Zone    string
+	Kind    EventKind
+	Command *controllers.Command // planned, sent, cancelled, expired, report, credited
+	Step    *controllers.Step    // step, credited
+	Text    string
+}
+
+type zoneRef struct {
+	site, id    string
+	cfg         *config.Zone
+	z           *controllers.Zone
+	cmdTopic    string
+	reportTopic string
+	initial     float64
+	acceptsRef  map[hourly.Reference]bool
+}
+
+type siteRef struct {
+	id      string
+	zones   []*zoneRef
+	sources []controllers.Source
+}
+
+// Service is the zone balance (an hour handler) and the valve command
+// scheduler (a gateway service).
+type Service struct {
+	o         Options
+	log       *slog.Logger
+	sites     []*siteRef
+	zones     map[string]*zoneRef // site/zone
+	byStation map[[2]string][]*zoneRef
+	m         *metrics
+	wake      chan struct{}
+
+	mu       sync.Mutex
+	resumeAt time.Time // retries of commands sent before this run wait until then
+}
+
+// New builds the service for every zone of cfg.
+func New(o Options) (*Service, error) {
+	if o.Config == nil || o.DB == nil {
+		return nil, errors.New("new zones: config and state database are required")
+	}
+	if o.Logger == nil {
+		o.Logger = slog.New(slog.DiscardHandler)
+	}
+	if o.Clock == nil {
+		o.Clock = time.Now
+	}
+	if o.After == nil {
+		o.After = time.After
+	}
+	if o.TopicPrefix == "" {
+		o.TopicPrefix = DefaultTopicPrefix
+	}
+	if o.LedgerRetention <= 0 {
+		o.LedgerRetention = 30 * 24 * time.Hour
+	}
+	s := &Service{o: o, log: o.Logger, zones: map[string]*zoneRef{}, byStation: map[[2]string][]*zoneRef{}, wake: make(chan struct{}, 1)}
+	for i := range o.Config.Sites {
+		site := &o.Config.Sites[i]
+		sr := &siteRef{id: site.ID}
+		for j := range site.Sources {
+			sr.sources = append(sr.sources, site.Sources[j].Controller())
+		}
+		for j := range site.Zones {
+			zc := &site.Zones[j]
+			st := site.StationByID(zc.Station)
+			if st == nil {
+				return nil, fmt.Errorf("new zones: zone %s: no station %q", zc.ID, zc.Station)
+			}
+			cz, err := zc.Controller(st)
+			if err != nil {
+				return nil, fmt.Errorf("new zones: %w", err)
+			}
+			ref := &zoneRef{site: site.ID, id: zc.ID, cfg: zc, z: cz,
+				cmdTopic: zc.CommandTopicIn(site.ID), reportTopic: zc.ReportTopicIn(site.ID),
+				initial: zc.Soil.InitialDepletionMM, acceptsRef: map[hourly.Reference]bool{}}
+			for _, r := range []hourly.Reference{hourly.Short, hourly.Tall, hourly.FAO56} {
+				ref.acceptsRef[r] = zc.AcceptsReference(string(r))
+			}
+			sr.zones = append(sr.zones, ref)
+			s.zones[site.ID+"/"+zc.ID] = ref
+			k := [2]string{site.ID, zc.Station}
+			s.byStation[k] = append(s.byStation[k], ref)
+		}
+		if len(sr.zones) > 0 {
+			s.sites = append(s.sites, sr)
+		}
+	}
+	m, err := newMetrics(o.Registerer)
+	if err != nil {
+		return nil, fmt.Errorf("new zones: %w", err)
+	}
+	s.m = m
+	if err := o.DB.View(func(tx *bbolt.Tx) error {
+		b, err := openBuckets(tx)
+		if err != nil {
+			return err
+		}
+		for _, ref := range s.zones {
+			r, err := s.loadZone(b, ref)
+			if err != nil {
+				return err
+			}
+			s.m.setLevels(ref, &r.State, o.Clock())
+		}
+		return nil
+	}); err != nil {
+		return nil, fmt.Errorf("new zones: %w", err)
+	}
+	return s, nil
+}
+
+// Zones returns "site/zone" of every zone, sorted.
+func (s *Service) Zones() []string {
+	var out []string
+	for k := range s.zones {
+		out = append(out, k)
+	}
+	sort.Strings(out)
+	return out
+}
+
+func (s *Service) poke() {
+	select {
+	case s.wake <- struct{}{}:
+	default:
+	}
+}
+
+func (s *Service) emit(e Event) {
+	if s.o.OnEvent != nil {
+		s.o.OnEvent(e)
+	}
+}
+
+func (s *Service) enqueue(tx *bbolt.Tx, pts ...store.Point) error {
+	if s.o.Store == nil || len(pts) == 0 {
+		return nil
+	}
+	return s.o.Store.Enqueue(tx, pts...)
+}
+
+// HandleHour steps every zone driven by rec's station (and reference) inside
+// the transaction that closes the hour. A record the balance refuses (bad
+// values) is logged and skipped, never failing the hour.
+func (s *Service) HandleHour(tx *bbolt.Tx, rec hourly.Record) error {
+	refs := s.byStation[[2]string{rec.Site, rec.Station}]
+	if len(refs) == 0 {
+		return nil
+	}
+	b, err := openBuckets(tx)
+	if err != nil {
+		return fmt.Errorf("zones handle hour: %w", err)
+	}
+	var events []Event
+	for _, ref := range refs {
+		if !ref.acceptsRef[rec.Reference] {
+			continue
+		}
+		zr, err := s.loadZone(b, ref)
+		if err != nil {
+			return fmt.Errorf("zones handle hour: %w", err)
+		}
+		step, ok, err := ref.z.StepHour(&zr.State, controllers.InputFromRecord(rec))
+		if err != nil {
+			if errors.Is(err, controllers.ErrInput) {
+				s.log.Warn("zone hour refused", "site", ref.site, "zone", ref.id, "hour", rec.Start, "err", err)
+				continue
+			}
+			return fmt.Errorf("zones handle hour: %w", err)
+		}
+		if !ok {
+			continue
+		}
+		if err := putJSON(b.state, key(ref.site, ref.id), zr); err != nil {
+			return fmt.Errorf("zones handle hour: %w", err)
+		}
+		if err := s.enqueue(tx, stepPoint(ref.site, step)); err != nil {
+			return fmt.Errorf("zones handle hour: %w", err)
+		}
+		st := zr.State
+		ref := ref
+		tx.OnCommit(func() { s.m.setLevels(ref, &st, rec.End) })
+		events = append(events, Event{Time: rec.End, Site: ref.site, Zone: ref.id, Kind: EventStep, Step: &step})
+	}
+	if len(events) > 0 {
+		tx.OnCommit(func() {
+			for _, e := range events {
+				s.emit(e)
+			}
+			s.poke()
+		})
+	}
+	return nil
+}
+
+// stepPoint describes a balance step for the store. An hour's point carries
+// the hour's totals, so a revision overwriting it (same time) stays right.
+func stepPoint(site string, st controllers.Step) store.Point {
+	f := map[string]any{
+		"kc": st.Kc, "ks": st.Ks, "p": st.P,
+		"irrigation_mm": st.Irrigation, "depletion_mm": st.Depletion,
+		"taw_mm": st.TAW, "raw_mm": st.RAW, "adjust_mm": st.Adjust,
+		"revision": int64(st.Revision), "fallback": st.Fallback, "missing": st.Missing,
+	}
+	notes := map[string]string{"kind": string(st.Kind)}
+	if st.Kind == controllers.StepHour {
+		f["et_mm"], f["etc_mm"], f["rain_mm"], f["eff_rain_mm"], f["drainage_mm"] = st.Hour.ET, st.Hour.ETc, st.Hour.Rain, st.Hour.EffRain, st.Hour.Drainage
+	} else {
+		f["et_mm"], f["etc_mm"], f["rain_mm"], f["eff_rain_mm"], f["drainage_mm"] = 0.0, 0.0, 0.0, 0.0, st.Drainage
+		notes["command"] = st.CommandID
+	}
+	p := store.ZonePoint(site, st.Zone, st.Start, f)
+	p.Notes = notes
+	return p
+}
+
+func commandPoint(site string, c *controllers.Command, outcome string, t time.Time) store.Point {
+	p := store.CommandPoint(site, c.Zone, t, map[string]any{
+		"minutes": int64(c.Minutes), "cycle": int64(c.Cycle), "cycles": int64(c.Cycles), "attempt": int64(c.Attempts),
+		"depletion_mm": c.Reason.DepletionMM, "trigger_mm": c.Reason.TriggerMM, "etc_since_last_mm": c.Reason.EtcSinceLastMM,
+		"planned_start_unix": c.Start.Unix(),
+	})
+	p.Notes = map[string]string{"id": c.ID, "outcome": outcome, "valve": c.Valve, "state": string(c.State), "note": c.Note}
+	return p
+}
+
+func reportPoint(site, zone string, r controllers.Report, out controllers.Outcome, t time.Time) store.Point {
+	p := store.ReportPoint(site, zone, t, map[string]any{
+		"minutes_run": r.MinutesRun, "volume_l": r.VolumeL, "credit_mm": out.CreditMM,
+		"credited": out.Credit, "duplicate": out.Duplicate, "late": out.Late,
+	})
+	p.Notes = map[string]string{"id": r.ID, "state": string(r.State), "reason": r.Reason}
+	return p
+}
+
+func alertPoint(site, zone, kind string, raised bool, t time.Time, text string) store.Point {
+	p := store.AlertPoint(site, "", "", kind, t, map[string]any{"raised": raised})
+	p.Tags["zone"] = zone
+	p.Notes = map[string]string{"text": text}
+	return p
+}
+
+// outgoing is a command to publish once its transaction has committed.
+type outgoing struct {
+	topic   string
+	payload []byte
+	cmd     controllers.Command
+	first   bool
+}
+
+// Run subscribes to the report and hold topics and runs the scheduler until
+// ctx ends. It wakes at the next command deadline, window start, hold end or
+// staleness deadline, and whenever an hour, a report or a hold arrives.
+func (s *Service) Run(ctx context.Context) error {
+	if s.o.MQTT == nil {
+		return errors.New("run zones: no MQTT connection")
+	}
+	// Reports queued by the broker while we were away arrive after the
+	// subscription: give them one ack timeout before re-sending anything
+	// sent by an earlier run.
+	var grace time.Duration
+	for _, ref := range s.zones {
+		grace = max(grace, ref.z.Policy.AckTimeout)
+	}
+	s.mu.Lock()
+	s.resumeAt = s.o.Clock().Add(grace)
+	s.mu.Unlock()
+	for _, site := range s.sites {
+		for _, ref := range site.zones {
+			if err := s.o.MQTT.Subscribe(ref.reportTopic, 1, s.onReport(ref)); err != nil {
+				return fmt.Errorf("run zones: subscribe %s: %w", ref.reportTopic, err)
+			}
+		}
+		t := s.holdTopic(site.id)
+		if err := s.o.MQTT.Subscribe(t, 1, s.onHold(site)); err != nil {
+			return fmt.Errorf("run zones: subscribe %s: %w", t, err)
+		}
+	}
+	s.log.Info("zone scheduler running", "zones", len(s.zones))
+	for {
+		now := s.o.Clock()
+		next, sends, err := s.tick(now)
+		if err != nil {
+			return fmt.Errorf("run zones: %w", err)
+		}
+		s.publish(ctx, sends)
+		wait := max(next.Sub(s.o.Clock()), 0)
+		select {
+		case <-ctx.Done():
+			return nil
+		case <-s.wake:
+		case <-s.o.After(wait):
+		}
+	}
+}
+
+func (s *Service) holdTopic(site string) string { return s.o.TopicPrefix + "/" + site + "/hold" }
+
+func (s *Service) publish(ctx context.Context, sends []outgoing) {
+	for _, o := range sends {
+		pctx, cancel := context.WithTimeout(ctx, 10*time.Second)
+		err := s.o.MQTT.Publish(pctx, o.topic, 1, false, o.payload)
+		cancel()
+		c := o.cmd
+		if err != nil {
+			s.log.Warn("command publish failed; it will be retried", "site", c.Source, "zone", c.Zone, "id", c.ID, "attempt", c.Attempts, "err", err)
+			continue
+		}
+		s.log.Info("command sent", "zone", c.Zone, "id", c.ID, "minutes", c.Minutes, "start", c.Start, "attempt", c.Attempts)
+		s.emit(Event{Time: s.o.Clock(), Site: s.siteOf(c.Zone), Zone: c.Zone, Kind: EventSent, Command: &c})
+	}
+}
+
+func (s *Service) siteOf(zone string) string {
+	for _, site := range s.sites {
+		for _, ref := range site.zones {
+			if ref.id == zone {
+				return site.id
+			}
+		}
+	}
+	return ""
+}
+
+// tick runs one scheduling pass at now in one transaction: plan the due
+// runs, then send, re-send, cancel or expire ledger commands as due, raise
+// or clear stale-ET alerts and prune old ledger entries. It returns when to
+// tick next and the commands to publish now that the pass has committed
+// (Run publishes them).
+func (s *Service) tick(now time.Time) (time.Time, []outgoing, error) {
+	var sends []outgoing
+	var events []Event
+	next := now.Add(time.Hour)
+	soon := func(t time.Time) {
+		if !t.IsZero() && t.After(now) && t.Before(next) {
+			next = t
+		}
+	}
+	s.mu.Lock()
+	resumeAt := s.resumeAt
+	s.mu.Unlock()
+	soon(resumeAt)
+	err := s.o.DB.Update(func(tx *bbolt.Tx) error {
+		b, err := openBuckets(tx)
+		if err != nil {
+			return err
+		}
+		for _, site := range s.sites {
+			ledger, err := loadLedger(b, site.id)
+			if err != nil {
+				return err
+			}
+			holds, err := loadHolds(b, site.id)
+			if err != nil {
+				return err
+			}
+			recs := map[string]*zoneRecord{}
+			var inputs []controllers.ZoneInput
+			for _, ref := range site.zones {
+				zr, err := s.loadZone(b, ref)
+				if err != nil {
+					return err
+				}
+				recs[ref.id] = &zr
+				inputs = append(inputs, controllers.ZoneInput{Zone: ref.z, State: &recs[ref.id].State})
+			}
+
+			plan := controllers.Decide(now, inputs, site.sources, ledger, holds)
+			known := map[string]bool{}
+			for _, c := range ledger {
+				known[c.ID] = true
+			}
+			for i := range plan.Commands {
+				c := plan.Commands[i]
+				if known[c.ID] {
+					continue
+				}
+				ledger = append(ledger, c)
+				if err := putJSON(b.ledger, key(site.id, c.ID), c); err != nil {
+					return err
+				}
+				events = append(events, Event{Time: now, Site: site.id, Zone: c.Zone, Kind: EventPlanned, Command: &c})
+			}
+			skipped := map[string]controllers.Skip{}
+			for _, sk := range plan.Skips {
+				skipped[sk.Zone] = sk
+			}
+			for _, ref := range site.zones {
+				zr := recs[ref.id]
+				sk := skipped[ref.id]
+				if sk.Reason != zr.Skip {
+					zr.Skip = sk.Reason
+					if sk.Reason != "" {
+						lvl := slog.LevelInfo
+						if sk.Alert {
+							lvl = slog.LevelWarn
+						}
+						s.log.Log(context.Background(), lvl, "zone not watered", "site", site.id, "zone", ref.id, "reason", sk.Reason)
+						events = append(events, Event{Time: now, Site: site.id, Zone: ref.id, Kind: EventSkip, Text: sk.Reason})
+					}
+					if err := putJSON(b.state, key(site.id, ref.id), zr); err != nil {
+						return err
+					}
+				}
+				stale := ref.z.Stale(&zr.State, now)
+				if stale != zr.StaleAlert {
+					zr.StaleAlert = stale
+					text := fmt.Sprintf("no valid ET for more than %d h", ref.z.FailSafe.MaxMissingHours)
+					if ref.z.FailSafe.Fallback {
+						text += "; using fallback ET"
+					} else {
+						text += "; zone holds"
+					}
+					if !stale {
+						text = "valid ET again"
+					}
+					s.log.Log(context.Background(), map[bool]slog.Level{true: slog.LevelWarn, false: slog.LevelInfo}[stale], "zone ET alert", "site", site.id, "zone", ref.id, "raised", stale, "text", text)
+					if err := s.enqueue(tx, alertPoint(site.id, ref.id, "zone-et-stale", stale, now, text)); err != nil {
+						return err
+					}
+					if err := putJSON(b.state, key(site.id, ref.id), zr); err != nil {
+						return err
+					}
+					events = append(events, Event{Time: now, Site: site.id, Zone: ref.id, Kind: EventAlert, Text: text})
+				}
+				if !zr.State.LastValid.IsZero() && !stale {
+					soon(zr.State.LastValid.Add(time.Duration(ref.z.FailSafe.MaxMissingHours)*time.Hour + time.Second))
+				}
+				if _, in := controllers.SlotAt(ref.z.Windows, ref.z.Loc, now); !in {
+					soon(controllers.NextSlotStart(ref.z.Windows, ref.z.Loc, now))
+				}
+				if h, ok := holds.Zones[ref.id]; ok && !h.Forever {
+					soon(h.Until)
+				}
+			}
+			if !holds.Site.Forever {
+				soon(holds.Site.Until)
+			}
+
+			for i := range ledger {
+				c := &ledger[i]
+				if !c.State.Open() {
+					if !c.EndedAt.IsZero() && now.Sub(c.EndedAt) > s.o.LedgerRetention {
+						if err := b.ledger.Delete(key(site.id, c.ID)); err != nil {
+							return fmt.Errorf("prune %s: %w", c.ID, err)
+						}
+					}
+					continue
+				}
+				ref := s.zones[site.id+"/"+c.Zone]
+				policy := controllers.DefaultPolicy
+				if ref != nil {
+					policy = ref.z.Policy
+				}
+				changed := false
+				switch c.Due(now, policy) {
+				case controllers.Send:
+					if c.Attempts > 0 && now.Before(resumeAt) {
+						break
+					}
+					if c.State == controllers.Planned {
+						reason := "zone no longer configured"
+						if ref != nil {
+							reason, _ = ref.z.Blocked(&recs[ref.id].State, holds, now)
+						}
+						if reason != "" {
+							if err := c.Cancel(now, reason); err != nil {
+								return err
+							}
+							s.m.command(site.id, c.Zone, "cancelled")
+							if err := s.enqueue(tx, commandPoint(site.id, c, "cancelled", now)); err != nil {
+								return err
+							}
+							cc := *c
+							events = append(events, Event{Time: now, Site: site.id, Zone: c.Zone, Kind: EventCancelled, Command: &cc, Text: reason})
+							changed = true
+							break
+						}
+					}
+					first := c.Attempts == 0
+					c.MarkSent(now)
+					payload, err := json.Marshal(commandMessage(c))
+					if err != nil {
+						return fmt.Errorf("encode command %s: %w", c.ID, err)
+					}
+					topic := ""
+					if ref != nil {
+						topic = ref.cmdTopic
+					}
+					outcome := "sent"
+					if !first {
+						outcome = "resent"
+					}
+					s.m.command(site.id, c.Zone, outcome)
+					if err := s.enqueue(tx, commandPoint(site.id, c, outcome, now)); err != nil {
+						return err
+					}
+					sends = append(sends, outgoing{topic: topic, payload: payload, cmd: *c, first: first})
+					changed = true
+				case controllers.Expire:
+					note := "no report before expiry"
+					if c.State == controllers.Planned {
+						note = "not sent before expiry (gateway down)"
+					} else if c.State != controllers.Sent {
+						note = "no finished report (" + string(c.State) + ")"
+					}
+					c.MarkExpired(now, note)
+					s.m.command(site.id, c.Zone, "expired")
+					s.log.Warn("command expired, not credited", "site", site.id, "zone", c.Zone, "id", c.ID, "attempts", c.Attempts, "note", note)
+					if err := s.enqueue(tx, commandPoint(site.id, c, "expired", now),
+						alertPoint(site.id, c.Zone, "valve-no-report", true, now, c.ID+": "+note)); err != nil {
+						return err
+					}
+					cc := *c
+					events = append(events, Event{Time: now, Site: site.id, Zone: c.Zone, Kind: EventExpired, Command: &cc, Text: note})
+					changed = true
+				}
+				if changed {
+					if err := putJSON(b.ledger, key(site.id, c.ID), c); err != nil {
+						return err
+					}
+				}
+				if c.State.Open() {
+					w := c.NextWake(policy)
+					if c.State == controllers.Sent && w.Before(resumeAt) {
+						w = resumeAt
+					}
+					soon(w)
+				}
+			}
+		}
+		return nil
+	})
+	if err != nil {
+		return now.Add(10 * time.Second), nil, fmt.Errorf("tick: %w", err)
+	}
+	for _, e := range events {
+		s.emit(e)
+	}
+	for _, o := range sends {
+		if o.topic == "" {
+			s.log.Error("command for an unconfigured zone not sent", "zone", o.cmd.Zone, "id", o.cmd.ID)
+		}
+	}
+	if !next.After(now) {
+		next = now.Add(time.Second)
+	}
+	return next, sends, nil
+}
+
+// onReport handles a valve report: in one transaction the ledger entry
+// changes, reported water is credited to the zone's balance, and the report
+// (and credit step) points are enqueued. The message is acknowledged only
+// after the commit, or when it can never be applied (malformed, unknown).
+func (s *Service) onReport(ref *zoneRef) func(mqtt.Message) {
+	return func(m mqtt.Message) {
+		now := s.o.Clock()
+		r, err := DecodeReport(m.Payload)
+		if err != nil {
+			s.m.badReports.Inc()
+			s.log.Warn("valve report refused", "site", ref.site, "zone", ref.id, "topic", m.Topic, "err", err)
+			m.Ack()
+			return
+		}
+		var events []Event
+		var level controllers.State
+		credited := false
+		err = s.o.DB.Update(func(tx *bbolt.Tx) error {
+			b, err := openBuckets(tx)
+			if err != nil {
+				return err
+			}
+			var c controllers.Command
+			ok, err := getJSON(b.ledger, key(ref.site, r.ID), &c)
+			if err != nil {
+				return err
+			}
+			if !ok || c.Zone != ref.id {
+				s.m.badReports.Inc()
+				s.log.Warn("valve report for an unknown command", "site", ref.site, "zone", ref.id, "id", r.ID, "state", r.State)
+				return nil
+			}
+			out, err := c.Apply(r, now)
+			if err != nil {
+				s.m.badReports.Inc()
+				s.log.Warn("valve report refused", "site", ref.site, "zone", ref.id, "id", r.ID, "err", err)
+				return nil
+			}
+			if err := s.enqueue(tx, reportPoint(ref.site, ref.id, r, out, now)); err != nil {
+				return err
+			}
+			cc := c
+			events = append(events, Event{Time: now, Site: ref.site, Zone: ref.id, Kind: EventReport, Command: &cc, Text: string(r.State)})
+			switch {
+			case out.Duplicate:
+				s.m.command(ref.site, ref.id, "duplicate")
+			case r.State == controllers.ReportFailed:
+				s.m.command(ref.site, ref.id, "failed")
+				s.log.Warn("valve run failed", "site", ref.site, "zone", ref.id, "id", r.ID, "reason", r.Reason, "minutes_run", r.MinutesRun)
+				if err := s.enqueue(tx, alertPoint(ref.site, ref.id, "valve-failed", true, now, c.ID+": "+r.Reason)); err != nil {
+					return err
+				}
+			case r.State == controllers.ReportFinished:
+				s.m.command(ref.site, ref.id, "reported")
+			}
+			if out.Changed {
+				if err := putJSON(b.ledger, key(ref.site, c.ID), c); err != nil {
+					return err
+				}
+			}
+			if !out.Credit {
+				return nil
+			}
+			zr, err := s.loadZone(b, ref)
+			if err != nil {
+				return err
+			}
+			step, err := ref.z.Credit(&zr.State, c.ID, out.CreditMM, now)
+			if err != nil {
+				return err
+			}
+			if err := putJSON(b.state, key(ref.site, ref.id), zr); err != nil {
+				return err
+			}
+			if err := s.enqueue(tx, stepPoint(ref.site, step)); err != nil {
+				return err
+			}
+			level, credited = zr.State, true
+			events = append(events, Event{Time: now, Site: ref.site, Zone: ref.id, Kind: EventCredited, Command: &cc, Step: &step})
+			return nil
+		})
+		if err != nil {
+			// Not acknowledged: the broker redelivers it.
+			s.log.Error("valve report not stored", "site", ref.site, "zone", ref.id, "id", r.ID, "err", err)
+			return
+		}
+		m.Ack()
+		if credited {
+			s.m.setLevels(ref, &level, now)
+			s.log.Info("irrigation credited", "site", ref.site, "zone", ref.id, "id", r.ID, "depletion_mm", level.Depletion)
+		}
+		for _, e := range events {
+			s.emit(e)
+		}
+		s.poke()
+	}
+}
+
+// onHold applies hold requests of a site and answers them.
+func (s *Service) onHold(site *siteRef) func(mqtt.Message) {
+	return func(m mqtt.Message) {
+		now := s.o.Clock()
+		reply := s.applyHold(site, m.Payload, now)
+		b, err := json.Marshal(reply)
+		if err == nil {
+			ctx, cancel := context.WithTimeout(context.Background(), 10*time.Second)
+			err = s.o.MQTT.Publish(ctx, s.holdTopic(site.id)+"/reply", 1, false, b)
+			cancel()
+		}
+		if err != nil {
+			s.log.Warn("hold reply not published", "site", site.id, "err", err)
+		}
+		m.Ack()
+		s.poke()
+	}
+}
+
+// ApplyHold applies a hold request (as received on the hold topic) at now
+// and returns the reply. Planned commands of the held zones are cancelled in
+// the same transaction.
+func (s *Service) applyHold(site *siteRef, payload []byte, now time.Time) HoldReply {
+	req, err := DecodeHoldRequest(payload)
+	if err != nil {
+		s.log.Warn("hold request refused", "site", site.id, "err", err)
+		return HoldReply{OK: false, Error: err.Error()}
+	}
+	reply := HoldReply{ID: req.ID, Zone: req.Zone, Action: req.Action}
+	if req.Zone != "" && s.zones[site.id+"/"+req.Zone] == nil {
+		reply.Error = fmt.Sprintf("zone: no zone %q in site %s", req.Zone, site.id)
+		return reply
+	}
+	rec := holdRecord{Reason: req.Reason}
+	switch req.Action {
+	case "hold":
+		if req.Hours == 0 {
+			rec.Forever = true
+		} else {
+			rec.Until = now.Add(time.Duration(req.Hours * float64(time.Hour)))
+		}
+		if rec.Reason == "" {
+			rec.Reason = "manual hold"
+		}
+	case "rain_delay":
+		rec.Until = now.Add(time.Duration(req.Hours * float64(time.Hour)))
+		if rec.Reason == "" {
+			rec.Reason = fmt.Sprintf("rain delay %g h", req.Hours)
+		}
+	}
+	var events []Event
+	err = s.o.DB.Update(func(tx *bbolt.Tx) error {
+		b, err := openBuckets(tx)
+		if err != nil {
+			return err
+		}
+		k := key(site.id, req.Zone)
+		if req.Action == "release" {
+			if err := b.holds.Delete(k); err != nil {
+				return err
+			}
+			return nil
+		}
+		if err := putJSON(b.holds, k, rec); err != nil {
+			return err
+		}
+		ledger, err := loadLedger(b, site.id)
+		if err != nil {
+			return err
+		}
+		for i := range ledger {
+			c := &ledger[i]
+			if c.State != controllers.Planned || (req.Zone != "" && c.Zone != req.Zone) {
+				continue
+			}
+			if err := c.Cancel(now, rec.Reason); err != nil {
+				return err
+			}
+			s.m.command(site.id, c.Zone, "cancelled")
+			if err := putJSON(b.ledger, key(site.id, c.ID), c); err != nil {
+				return err
+			}
+			if err := s.enqueue(tx, commandPoint(site.id, c, "cancelled", now)); err != nil {
+				return err
+			}
+			cc := *c
+			events = append(events, Event{Time: now, Site: site.id, Zone: c.Zone, Kind: EventCancelled, Command: &cc, Text: rec.Reason})
+		}
+		return nil
+	})
+	if err != nil {
+		reply.Error = "not stored: " + err.Error()
+		s.log.Error("hold not stored", "site", site.id, "err", err)
+		return reply
+	}
+	reply.OK = true
+	if !rec.Forever && req.Action != "release" {
+		u := rec.Until.UTC()
+		reply.Until = &u
+	}
+	s.log.Info("hold applied", "site", site.id, "zone", req.Zone, "action", req.Action, "until", reply.Until, "reason", rec.Reason)
+	events = append(events, Event{Time: now, Site: site.id, Zone: req.Zone, Kind: EventHold, Text: req.Action + ": " + rec.Reason})
+	for _, e := range events {
+		s.emit(e)
+	}
+	return reply
+}
+
+// ZoneStatus is a zone's balance at one moment, for summaries and tests.
+type ZoneStatus struct {
+	Site, Zone string
+	State      controllers.State
+	Levels     controllers.Levels
+}
+
+// Status returns every zone's state and levels at now.
+func (s *Service) Status(now time.Time) ([]ZoneStatus, error) {
+	var out []ZoneStatus
+	err := s.o.DB.View(func(tx *bbolt.Tx) error {
+		b, err := openBuckets(tx)
+		if err != nil {
+			return err
+		}
+		for _, site := range s.sites {
+			for _, ref := range site.zones {
+				zr, err := s.loadZone(b, ref)
+				if err != nil {
+					return err
+				}
+				out = append(out, ZoneStatus{Site: site.id, Zone: ref.id, State: zr.State, Levels: ref.z.LevelsAt(&zr.State, now)})
+			}
+		}
+		return nil
+	})
+	if err != nil {
+		return nil, fmt.Errorf("zones status: %w", err)
+	}
+	return out, nil
+}
+
+// Ledger returns the commands of a site, ordered by id.
+func (s *Service) Ledger(site string) ([]controllers.Command, error) {
+	var out []controllers.Command
+	err := s.o.DB.View(func(tx *bbolt.Tx) error {
+		b, err := openBuckets(tx)
+		if err != nil {
+			return err
+		}
+		out, err = loadLedger(b, site)
+		return err
+	})
+	if err != nil {
+		return nil, fmt.Errorf("zones ledger: %w", err)
+	}
+	return out, nil
+}
