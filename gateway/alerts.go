@@ -1,0 +1,56 @@
+package gateway
+
+import (
+	"fmt"
+
+	"github.com/prometheus/client_golang/prometheus"
+
+	"etpulse/gateway/config"
+	"etpulse/gateway/httpapi"
+	"etpulse/gateway/quality"
+	"etpulse/gateway/store"
+)
+
+// setupAlerts builds the drift and fault monitor and the metrics and health
+// server, and adds them to comp: the monitor observes every sample, handles
+// every closed hour (after the outbox, so its points share the transaction),
+// gates the hours of alerted sensors, and runs as a Service that persists,
+// publishes and checks for silence; the HTTP server runs as a Service unless
+// disabled.
+func setupAlerts(cfg *config.Config, deps Deps, outbox *store.Outbox, comp *Components) (*quality.Monitor, error) {
+	mon, err := quality.New(quality.Options{
+		Config: cfg, DB: deps.DB, Outbox: outbox, Publisher: deps.MQTT,
+		Logger: deps.Logger.With("component", "alerts"), Registerer: deps.Registerer,
+		Clock: deps.Clock, After: deps.After,
+	})
+	if err != nil {
+		return nil, fmt.Errorf("set up alerts: %w", err)
+	}
+	if !cfg.Alerts.Disabled {
+		comp.Observers = append(comp.Observers, mon)
+		comp.Handlers = append(comp.Handlers, mon)
+		if comp.Gate == nil {
+			comp.Gate = mon
+		}
+	}
+	comp.Services = append(comp.Services, mon)
+	if cfg.HTTP.Disabled {
+		return mon, nil
+	}
+	gatherer := prometheus.DefaultGatherer
+	if g, ok := deps.Registerer.(prometheus.Gatherer); ok {
+		gatherer = g
+	}
+	checks := []httpapi.Check{httpapi.StateWritable(deps.DB, deps.Clock)}
+	if c, ok := deps.MQTT.(interface{ Connected() bool }); ok {
+		checks = append([]httpapi.Check{httpapi.BrokerConnected(c.Connected)}, checks...)
+	}
+	if outbox != nil {
+		checks = append(checks, httpapi.OutboxBelowCap(outbox.Stats, outbox.Cap()))
+	}
+	comp.Services = append(comp.Services, httpapi.New(httpapi.Options{
+		Addr: cfg.HTTP.Listen, Gatherer: gatherer, Checks: checks,
+		Logger: deps.Logger.With("component", "http"),
+	}))
+	return mon, nil
+}
