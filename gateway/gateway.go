@@ -89,8 +89,12 @@ type Gateway struct {
 	comp   Components
 	queue  chan mqtt.Message
 
-	handled       atomic.Uint64
-	publishFailed atomic.Bool
+	handled   atomic.Uint64
+	emitted   atomic.Uint64
+	published atomic.Uint64
+	kick      chan struct{} // wakes the record publisher
+	pubMu     sync.Mutex    // one publishPending at a time: a record goes out once
+	ready     chan struct{}
 }
 
 // New composes the gateway for cfg. It does not start anything.
@@ -120,7 +124,8 @@ func New(cfg *config.Config, deps Deps) (*Gateway, error) {
 	if err != nil {
 		return nil, fmt.Errorf("new gateway: %w", err)
 	}
-	g := &Gateway{cfg: cfg, deps: deps, log: deps.Logger, router: router, queue: make(chan mqtt.Message, deps.QueueSize)}
+	g := &Gateway{cfg: cfg, deps: deps, log: deps.Logger, router: router, queue: make(chan mqtt.Message, deps.QueueSize),
+		kick: make(chan struct{}, 1), ready: make(chan struct{})}
 	comp := deps.Components
 	comp.Handlers = append([]pipeline.HourHandler(nil), comp.Handlers...)
 	comp.Observers = append([]pipeline.SampleObserver(nil), comp.Observers...)
@@ -157,9 +162,19 @@ func New(cfg *config.Config, deps Deps) (*Gateway, error) {
 // Pipeline returns the gateway's hour pipeline (e.g. for LastSeen).
 func (g *Gateway) Pipeline() *pipeline.Pipeline { return g.pipe }
 
+// Ready is closed once Run has subscribed to every sensor topic.
+func (g *Gateway) Ready() <-chan struct{} { return g.ready }
+
 // Handled returns how many MQTT messages have been fully handled: stored and
-// acknowledged (or rejected), and the hours they closed published.
+// acknowledged (or rejected), and the hours they closed committed.
 func (g *Gateway) Handled() uint64 { return g.handled.Load() }
+
+// Emitted returns how many hourly records (first emissions and revisions)
+// have been committed; Published how many of them have been published.
+func (g *Gateway) Emitted() uint64 { return g.emitted.Load() }
+
+// Published returns how many hourly records have been published.
+func (g *Gateway) Published() uint64 { return g.published.Load() }
 
 // Run subscribes, runs intake and every Service until ctx is cancelled, then
 // shuts down in order: stop intake (the last batch is stored, acknowledged
@@ -167,8 +182,6 @@ func (g *Gateway) Handled() uint64 { return g.handled.Load() }
 // return. Messages received but not stored are not acknowledged, so the
 // broker redelivers them to the next run.
 func (g *Gateway) Run(ctx context.Context) error {
-	g.publishPending(ctx)
-
 	svcCtx, stopServices := context.WithCancel(context.WithoutCancel(ctx))
 	defer stopServices()
 	intakeCtx, stopIntake := context.WithCancel(ctx)
@@ -199,6 +212,18 @@ func (g *Gateway) Run(ctx context.Context) error {
 		}
 	}
 	g.log.Info("gateway running", "topics", len(g.router.Filters()), "stations", len(g.pipe.Stations()))
+	close(g.ready)
+
+	// Records are published from their own goroutine: publishing waits for
+	// the broker's acknowledgement, which must never wait on intake.
+	pubCtx, stopPublisher := context.WithCancel(context.WithoutCancel(ctx))
+	defer stopPublisher()
+	pubDone := make(chan struct{})
+	go func() {
+		defer close(pubDone)
+		g.publisher(pubCtx)
+	}()
+	g.kickPublisher() // records left pending by the previous run
 
 	intakeDone := make(chan struct{})
 	go func() {
@@ -216,6 +241,11 @@ func (g *Gateway) Run(ctx context.Context) error {
 	}
 	stopIntake()
 	<-intakeDone
+	dctx, cancelDrain := context.WithTimeout(context.WithoutCancel(ctx), 5*time.Second)
+	g.publishPending(dctx) // the last hours intake closed
+	cancelDrain()
+	stopPublisher()
+	<-pubDone
 	stopServices()
 	svcWG.Wait()
 	fctx, cancel := context.WithTimeout(context.WithoutCancel(ctx), g.deps.FlushTimeout)
@@ -247,9 +277,6 @@ func (g *Gateway) intake(ctx context.Context) error {
 		var wake <-chan time.Time
 		if next := g.pipe.NextDeadline(); !next.IsZero() {
 			wake = g.deps.After(max(next.Sub(g.deps.Clock()), 0))
-		}
-		if g.publishFailed.Load() {
-			wake = g.deps.After(10 * time.Second)
 		}
 		select {
 		case <-ctx.Done():
@@ -291,19 +318,23 @@ func (g *Gateway) step(ctx context.Context, batch []mqtt.Message) error {
 		}
 		readings = append(readings, rds...)
 	}
+	emitted := 0
 	if len(readings) > 0 {
-		var err error
 		for attempt := 0; ; attempt++ {
-			if _, err = g.pipe.Ingest(now, readings); err == nil {
+			res, err := g.pipe.Ingest(now, readings)
+			emitted += len(res.Records)
+			if err == nil {
 				break
 			}
 			if attempt == 2 {
+				g.emitted.Add(uint64(emitted))
 				return fmt.Errorf("intake: store readings: %w", err)
 			}
 			g.log.Error("storing readings failed; retrying", "err", err)
 			select {
 			case <-time.After(time.Duration(attempt+1) * 200 * time.Millisecond):
 			case <-ctx.Done():
+				g.emitted.Add(uint64(emitted))
 				return nil // not acknowledged: redelivered next run
 			}
 		}
@@ -317,19 +348,45 @@ func (g *Gateway) step(ctx context.Context, batch []mqtt.Message) error {
 	if err != nil {
 		g.log.Error("closing hours", "err", err)
 	}
-	if g.publishFailed.Load() {
-		g.publishPending(context.WithoutCancel(ctx)) // includes recs, in hour order
-	} else {
-		g.publish(context.WithoutCancel(ctx), recs)
+	if emitted += len(recs); emitted > 0 {
+		g.emitted.Add(uint64(emitted))
+		g.kickPublisher()
 	}
 	g.handled.Add(uint64(len(batch)))
 	return nil
 }
 
+func (g *Gateway) kickPublisher() {
+	select {
+	case g.kick <- struct{}{}:
+	default:
+	}
+}
+
+// publisher publishes pending records whenever intake commits some, and
+// retries failed ones every 10 s of real time.
+func (g *Gateway) publisher(ctx context.Context) {
+	var retry <-chan time.Time
+	for {
+		select {
+		case <-ctx.Done():
+			return
+		case <-g.kick:
+		case <-retry:
+		}
+		retry = nil
+		if !g.publishPending(ctx) {
+			retry = time.After(10 * time.Second)
+		}
+	}
+}
+
 // publish sends records on their stations' results topics and forgets the
-// published ones; the rest stay pending and are retried.
-func (g *Gateway) publish(ctx context.Context, recs []hourly.Record) {
+// published ones; the rest stay pending and are retried. It reports whether
+// every record went out.
+func (g *Gateway) publish(ctx context.Context, recs []hourly.Record) bool {
 	var done []hourly.Record
+	ok := true
 	for _, rec := range recs {
 		b, err := pipeline.MarshalRecord(rec)
 		if err == nil {
@@ -338,7 +395,7 @@ func (g *Gateway) publish(ctx context.Context, recs []hourly.Record) {
 			cancel()
 		}
 		if err != nil {
-			g.publishFailed.Store(true)
+			ok = false
 			g.log.Warn("hour record not published; will retry", "station", rec.Station, "hour", rec.LocalStart, "revision", rec.Revision, "err", err)
 			continue
 		}
@@ -351,17 +408,20 @@ func (g *Gateway) publish(ctx context.Context, recs []hourly.Record) {
 		if err := g.pipe.MarkPublished(done...); err != nil {
 			g.log.Error("marking records published", "err", err)
 		}
+		g.published.Add(uint64(len(done)))
 	}
+	return ok
 }
 
 // publishPending publishes records committed but not yet published (a crash
 // or a broker outage between commit and publish).
-func (g *Gateway) publishPending(ctx context.Context) {
+func (g *Gateway) publishPending(ctx context.Context) bool {
+	g.pubMu.Lock()
+	defer g.pubMu.Unlock()
 	recs, err := g.pipe.Pending()
 	if err != nil {
 		g.log.Error("reading pending records", "err", err)
-		return
+		return false
 	}
-	g.publishFailed.Store(false)
-	g.publish(ctx, recs)
+	return g.publish(ctx, recs)
 }

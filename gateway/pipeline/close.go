@@ -47,20 +47,9 @@ func (p *Pipeline) Tick(now time.Time) ([]hourly.Record, error) {
 }
 
 func (p *Pipeline) tickStation(st *station, now time.Time) ([]hourly.Record, error) {
-	var out []hourly.Record
-	grace, silence := st.cfg.CloseGrace.D(), st.cfg.SilenceClose.D()
-	for st.hasCursor {
-		end := st.cursor.Add(time.Hour)
-		byData := !st.watermark.Before(end.Add(grace))
-		bySilence := !now.Before(end.Add(silence))
-		if !byData && !bySilence {
-			break
-		}
-		rec, err := p.closeHour(st, st.cursor, !byData)
-		if err != nil {
-			return out, err
-		}
-		out = append(out, rec)
+	out, err := p.closeDue(st, st.watermark, now)
+	if err != nil {
+		return out, err
 	}
 	if st.dirty {
 		recs, err := p.revise(st)
@@ -72,6 +61,28 @@ func (p *Pipeline) tickStation(st *station, now time.Time) ([]hourly.Record, err
 	}
 	if err := p.prune(st, now); err != nil {
 		return out, err
+	}
+	return out, nil
+}
+
+// closeDue closes, in order, every open hour of the station that the
+// watermark has passed by the close grace or, when now is not zero, that the
+// wall clock has passed by the silence timeout.
+func (p *Pipeline) closeDue(st *station, watermark, now time.Time) ([]hourly.Record, error) {
+	var out []hourly.Record
+	grace, silence := st.cfg.CloseGrace.D(), st.cfg.SilenceClose.D()
+	for st.hasCursor {
+		end := st.cursor.Add(time.Hour)
+		byData := !watermark.Before(end.Add(grace))
+		bySilence := !now.IsZero() && !now.Before(end.Add(silence))
+		if !byData && !bySilence {
+			break
+		}
+		rec, err := p.closeHour(st, st.cursor, !byData)
+		if err != nil {
+			return out, err
+		}
+		out = append(out, rec)
 	}
 	return out, nil
 }

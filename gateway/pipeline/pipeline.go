@@ -157,39 +157,71 @@ func (st *station) localStart(h time.Time) string {
 // IngestResult summarises one call of Ingest.
 type IngestResult struct {
 	Accepted   int                // readings stored (including late ones)
-	Late       int                // of Accepted, readings for an already closed hour (a revision follows)
+	Late       int                // of Accepted, readings for an already closed hour (a revision follows on Tick)
 	Duplicates int                // readings already stored (same sensor and timestamp)
 	Rejected   []ingest.Rejection // readings refused, each with its reason
+	// Records are the hours the readings' own clock closed during the call
+	// (first emissions), in order; they are also pending until MarkPublished.
+	Records []hourly.Record
 }
 
-// Ingest stores readings durably, in one transaction. now is the pipeline
-// clock; it decides what is too old or too far in the future. When Ingest
-// returns without error every accepted reading is on disk and the MQTT
-// messages carrying them may be acknowledged. A returned error means nothing
-// of the batch was stored.
+// Ingest stores readings durably and closes the hours their clock passes.
+// now is the pipeline clock; it decides what is too old or too far in the
+// future.
+//
+// Readings are taken in order. When a reading moves its station's watermark
+// past an open hour's end plus the close grace, the readings before it are
+// committed, the due hours are closed (one transaction each), and the rest
+// follow; so which readings count as late does not depend on how messages
+// were batched. When Ingest returns without error every accepted reading is
+// on disk and the MQTT messages carrying them may be acknowledged. After an
+// error part of the batch may be stored: redelivery is safe, duplicates are
+// dropped.
 func (p *Pipeline) Ingest(now time.Time, readings []ingest.Reading) (IngestResult, error) {
 	p.mu.Lock()
 	defer p.mu.Unlock()
 	var res IngestResult
+	noStop := map[*station]bool{}
+	for len(readings) > 0 {
+		n, stop, err := p.ingestTx(now, readings, noStop, &res)
+		if err != nil {
+			return res, fmt.Errorf("ingest: %w", err)
+		}
+		readings = readings[n:]
+		if stop == nil {
+			continue
+		}
+		recs, err := p.closeDue(stop, readings[0].Sample.Time.UTC(), time.Time{})
+		res.Records = append(res.Records, recs...)
+		if err != nil {
+			// The hour stays open; Tick retries. Do not stop again for it.
+			p.log.Error("closing hour", "station", stop.id, "err", err)
+			noStop[stop] = true
+		}
+	}
+	return res, nil
+}
+
+// ingestTx stores readings in one transaction until one would make its
+// station's open hour due; it returns how many it consumed and that station.
+func (p *Pipeline) ingestTx(now time.Time, readings []ingest.Reading, noStop map[*station]bool, res *IngestResult) (int, *station, error) {
 	type accepted struct {
 		st *station
 		s  hourly.Sample
 	}
-	var acc []accepted
-	type mirror struct {
-		cursor    time.Time
-		hasCursor bool
-		watermark time.Time
-		dirty     bool
-	}
-	updates := map[*station]*mirror{}
-	var rejs []ingest.Rejection
-	var dups []string
+	var (
+		acc      []accepted
+		rejs     []ingest.Rejection
+		dups     []string
+		updates  = map[*station]*mirror{}
+		consumed int
+		stop     *station
+		late     int
+	)
 	err := p.db.Update(func(tx *bbolt.Tx) error {
-		acc, rejs, dups, res = acc[:0], rejs[:0], dups[:0], IngestResult{}
-		clear(updates)
 		seen := map[*station]map[string]seenState{}
-		for _, rd := range readings {
+		for i, rd := range readings {
+			consumed = i
 			st := p.stations[stationID{rd.Site, rd.Station}]
 			if st == nil {
 				rejs = append(rejs, ingest.Rejection{Reason: ReasonUnknownStation, Site: rd.Site, Station: rd.Station, Sensor: rd.Sample.Sensor,
@@ -207,19 +239,20 @@ func (p *Pipeline) Ingest(now time.Time, readings []ingest.Reading) (IngestResul
 			}
 			s := rd.Sample
 			s.Time = s.Time.UTC()
+			reject := func(reason ingest.Reason, err error) {
+				rejs = append(rejs, ingest.Rejection{Reason: reason, Site: st.site, Station: st.id, Sensor: s.Sensor, Err: err})
+			}
 			if s.Time.Before(time.Unix(0, 0)) {
-				rejs = append(rejs, ingest.Rejection{Site: st.site, Station: st.id, Reason: ingest.ReasonTooOld, Sensor: s.Sensor,
-					Err: fmt.Errorf("%s reading time %s is before 1970", s.Quantity, s.Time.Format(time.RFC3339))})
+				reject(ingest.ReasonTooOld, fmt.Errorf("%s reading time %s is before 1970", s.Quantity, s.Time.Format(time.RFC3339)))
 				continue
 			}
 			if lim := now.Add(st.cfg.MaxFuture.D()); s.Time.After(lim) {
-				rejs = append(rejs, ingest.Rejection{Site: st.site, Station: st.id, Reason: ingest.ReasonTooFuture, Sensor: s.Sensor,
-					Err: fmt.Errorf("%s reading time %s is more than %s ahead of the gateway clock %s",
-						s.Quantity, s.Time.Format(time.RFC3339), st.cfg.MaxFuture, now.UTC().Format(time.RFC3339))})
+				reject(ingest.ReasonTooFuture, fmt.Errorf("%s reading time %s is more than %s ahead of the gateway clock %s",
+					s.Quantity, s.Time.Format(time.RFC3339), st.cfg.MaxFuture, now.UTC().Format(time.RFC3339)))
 				continue
 			}
 			hour := st.hourStart(s.Time)
-			late := false
+			isLate := false
 			if mu.hasCursor && hour.Before(mu.cursor) {
 				var hs hourState
 				ok, err := getJSON(sb.hours, hourKey(hour), &hs)
@@ -229,21 +262,24 @@ func (p *Pipeline) Ingest(now time.Time, readings []ingest.Reading) (IngestResul
 				end := hour.Add(time.Hour)
 				switch {
 				case !ok && noneClosed(sb):
-					// Nothing closed yet at or before this hour: move the cursor back.
+					// Nothing closed yet: move the cursor back.
 					mu.cursor = hour
 				case !ok || now.Sub(end) > st.cfg.LateWindow.D():
-					rejs = append(rejs, ingest.Rejection{Site: st.site, Station: st.id, Reason: ingest.ReasonTooOld, Sensor: s.Sensor,
-						Err: fmt.Errorf("%s reading at %s: its hour closed and the late window of %s has passed",
-							s.Quantity, s.Time.Format(time.RFC3339), st.cfg.LateWindow)})
+					reject(ingest.ReasonTooOld, fmt.Errorf("%s reading at %s: its hour closed and the late window of %s has passed",
+						s.Quantity, s.Time.Format(time.RFC3339), st.cfg.LateWindow))
 					continue
 				default:
-					late = true
+					isLate = true
 				}
 			}
 			key := sampleKey(hour, s)
 			if sb.samples.Get(key) != nil {
 				dups = append(dups, st.id)
 				continue
+			}
+			if mu.hasCursor && !noStop[st] && !s.Time.Before(mu.cursor.Add(time.Hour+st.cfg.CloseGrace.D())) {
+				stop = st // close the due hours before taking this reading
+				return p.commitIngest(tx, updates, seen)
 			}
 			if rd.Counter {
 				inc, r, err := counterIncrement(sb.counters, s, rd.Rollover)
@@ -260,7 +296,7 @@ func (p *Pipeline) Ingest(now time.Time, readings []ingest.Reading) (IngestResul
 			if err := sb.samples.Put(key, sampleValue(s)); err != nil {
 				return fmt.Errorf("store sample: %w", err)
 			}
-			if late {
+			if isLate {
 				var hs hourState
 				if _, err := getJSON(sb.hours, hourKey(hour), &hs); err != nil {
 					return err
@@ -272,7 +308,7 @@ func (p *Pipeline) Ingest(now time.Time, readings []ingest.Reading) (IngestResul
 					}
 				}
 				mu.dirty = true
-				res.Late++
+				late++
 			}
 			if !mu.hasCursor {
 				mu.cursor, mu.hasCursor = hour, true
@@ -290,46 +326,12 @@ func (p *Pipeline) Ingest(now time.Time, readings []ingest.Reading) (IngestResul
 			}
 			seen[st][s.Sensor] = ss
 			acc = append(acc, accepted{st, s})
-			res.Accepted++
 		}
-		for st, mu := range updates {
-			sb, err := st.buckets(tx)
-			if err != nil {
-				return err
-			}
-			if mu.hasCursor && (!st.hasCursor || !mu.cursor.Equal(st.cursor)) {
-				if err := putTime(sb.meta, keyCursor, mu.cursor); err != nil {
-					return err
-				}
-			}
-			if mu.watermark.After(st.watermark) {
-				if err := putTime(sb.meta, keyWatermark, mu.watermark); err != nil {
-					return err
-				}
-			}
-		}
-		for st, m := range seen {
-			sb, err := st.buckets(tx)
-			if err != nil {
-				return err
-			}
-			for sensor, ss := range m {
-				var old seenState
-				if _, err := getJSON(sb.seen, []byte(sensor), &old); err != nil {
-					return err
-				}
-				if old.Reading.After(ss.Reading) {
-					ss.Reading = old.Reading
-				}
-				if err := putJSON(sb.seen, []byte(sensor), ss); err != nil {
-					return err
-				}
-			}
-		}
-		return nil
+		consumed = len(readings)
+		return p.commitIngest(tx, updates, seen)
 	})
 	if err != nil {
-		return IngestResult{}, fmt.Errorf("ingest: %w", err)
+		return 0, nil, err
 	}
 	for st, mu := range updates {
 		st.cursor, st.hasCursor, st.watermark = mu.cursor, mu.hasCursor, mu.watermark
@@ -339,17 +341,66 @@ func (p *Pipeline) Ingest(now time.Time, readings []ingest.Reading) (IngestResul
 		p.m.rejected.WithLabelValues(stationLabel(r.Station), string(r.Reason)).Inc()
 		p.rejects.note(now, stationLabel(r.Station), r)
 	}
-	res.Rejected = rejs
+	res.Rejected = append(res.Rejected, rejs...)
 	for _, id := range dups {
 		p.m.duplicates.WithLabelValues(id).Inc()
 	}
-	res.Duplicates = len(dups)
+	res.Duplicates += len(dups)
+	res.Accepted += len(acc)
+	res.Late += late
 	for _, a := range acc {
 		for _, o := range p.observers {
 			o.ObserveSample(a.st.site, a.st.id, a.s, now)
 		}
 	}
-	return res, nil
+	return consumed, stop, nil
+}
+
+// mirror is a station's cursor and watermark as a transaction changes them.
+type mirror struct {
+	cursor    time.Time
+	hasCursor bool
+	watermark time.Time
+	dirty     bool
+}
+
+// commitIngest writes the changed cursors, watermarks and last-seen times.
+func (p *Pipeline) commitIngest(tx *bbolt.Tx, updates map[*station]*mirror, seen map[*station]map[string]seenState) error {
+	for st, mu := range updates {
+		sb, err := st.buckets(tx)
+		if err != nil {
+			return err
+		}
+		if mu.hasCursor && (!st.hasCursor || !mu.cursor.Equal(st.cursor)) {
+			if err := putTime(sb.meta, keyCursor, mu.cursor); err != nil {
+				return err
+			}
+		}
+		if mu.watermark.After(st.watermark) {
+			if err := putTime(sb.meta, keyWatermark, mu.watermark); err != nil {
+				return err
+			}
+		}
+	}
+	for st, m := range seen {
+		sb, err := st.buckets(tx)
+		if err != nil {
+			return err
+		}
+		for sensor, ss := range m {
+			var old seenState
+			if _, err := getJSON(sb.seen, []byte(sensor), &old); err != nil {
+				return err
+			}
+			if old.Reading.After(ss.Reading) {
+				ss.Reading = old.Reading
+			}
+			if err := putJSON(sb.seen, []byte(sensor), ss); err != nil {
+				return err
+			}
+		}
+	}
+	return nil
 }
 
 // noneClosed reports whether the station has never closed an hour. Hours

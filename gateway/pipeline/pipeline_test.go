@@ -127,6 +127,16 @@ func benchReadings(from, to time.Time, step time.Duration) []ingest.Reading {
 	return out
 }
 
+// feed ingests readings and ticks at now, returning every record emitted.
+func feed(t testing.TB, p *Pipeline, now time.Time, rds []ingest.Reading) []hourly.Record {
+	t.Helper()
+	res, err := p.Ingest(now, rds)
+	require.NoError(t, err)
+	out, err := p.Tick(now)
+	require.NoError(t, err)
+	return append(res.Records, out...)
+}
+
 // latest returns the latest reading time of rds: the clock of a gateway that
 // has just received them.
 func latest(rds []ingest.Reading) time.Time {
@@ -184,10 +194,7 @@ func TestWatermarkClosesHourAndMatchesDirectComputation(t *testing.T) {
 	require.NoError(t, err)
 	assert.Empty(t, out)
 
-	_, err = p.Ingest(now, benchReadings(h10.Add(time.Hour+2*time.Minute), h10.Add(time.Hour+3*time.Minute), time.Minute))
-	require.NoError(t, err)
-	out, err = p.Tick(now.Add(2 * time.Minute))
-	require.NoError(t, err)
+	out = feed(t, p, now.Add(2*time.Minute), benchReadings(h10.Add(time.Hour+2*time.Minute), h10.Add(time.Hour+3*time.Minute), time.Minute))
 	require.Len(t, out, 1)
 	got := out[0]
 	require.Len(t, rec.recs, 1)
@@ -296,12 +303,8 @@ func TestLateReadingRevisesHour(t *testing.T) {
 		}
 		onTime = append(onTime, r)
 	}
-	_, err := p.Ingest(latest(onTime), onTime)
-	require.NoError(t, err)
-	_, err = p.Ingest(h10.Add(time.Hour), benchReadings(h10.Add(time.Hour), h10.Add(time.Hour+10*time.Minute), 5*time.Minute))
-	require.NoError(t, err)
-	out, err := p.Tick(h10.Add(time.Hour + 5*time.Minute))
-	require.NoError(t, err)
+	out := feed(t, p, latest(onTime), onTime)
+	out = append(out, feed(t, p, h10.Add(time.Hour+5*time.Minute), benchReadings(h10.Add(time.Hour), h10.Add(time.Hour+10*time.Minute), 5*time.Minute))...)
 	require.Len(t, out, 1)
 	first := out[0]
 	require.True(t, first.Complete, "10 of 12 solar slots meets 0.75")
@@ -384,6 +387,7 @@ func TestOutOfOrderFirstReadingsMoveCursorBack(t *testing.T) {
 	assert.Empty(t, res.Rejected)
 	out, err := p.Flush()
 	require.NoError(t, err)
+	out = append(res.Records, out...)
 	require.Len(t, out, 2)
 	assert.Equal(t, h10, out[0].Start)
 	assert.True(t, out[0].Complete)
@@ -445,11 +449,7 @@ func TestCarryPersistsAcrossRestart(t *testing.T) {
 		for i := 0; i < len(part); i += 8 {
 			j := min(i+8, len(part))
 			now := part[j-1].Sample.Time
-			_, err := p.Ingest(now, part[i:j])
-			require.NoError(t, err)
-			recs, err := p.Tick(now)
-			require.NoError(t, err)
-			out = append(out, recs...)
+			out = append(out, feed(t, p, now, part[i:j])...)
 		}
 		return out
 	}
@@ -523,10 +523,7 @@ func TestGateExcludesSolarUsesHargreaves(t *testing.T) {
 	})
 	p, cfg := newTestPipeline(t, db, Options{Gate: gate})
 	rds := benchReadings(day, target.Add(2*time.Hour+10*time.Minute), 5*time.Minute)
-	_, err := p.Ingest(latest(rds), rds)
-	require.NoError(t, err)
-	out, err := p.Tick(target.Add(2*time.Hour + 5*time.Minute))
-	require.NoError(t, err)
+	out := feed(t, p, latest(rds), rds)
 	require.Len(t, out, 14)
 
 	filled := out[12]
