@@ -16,11 +16,19 @@ import (
 	"etpulse/hourly"
 )
 
-// testConfig is an invented farm, "Fernhill": three drip zones on one
+// testConfig is an invented farm, "Fernhill": drip zones on one
 // well, each 1000 m2 at 6 mm/h (flow 100 L/min), efficiency 0.9, loam-like
 // soil (TAW 130 mm, RAW 65 mm), explicit trigger 20 mm, window all day.
-func testConfig(t testing.TB, extra string) *config.Config {
+// Without ids the zones are row-a, row-b and row-c.
+func testConfig(t testing.TB, ids ...string) *config.Config {
 	t.Helper()
+	if len(ids) == 0 {
+		ids = []string{"row-a", "row-b", "row-c"}
+	}
+	zones := ""
+	for _, id := range ids {
+		zones += zoneYAML(id)
+	}
 	doc := `
 broker: {url: 'tcp://127.0.0.1:1883', client_id: etpulse-fernhill}
 sites:
@@ -39,7 +47,7 @@ sites:
   sources:
   - {id: well, max_valves: 3}
   zones:
-` + zoneYAML("row-a") + zoneYAML("row-b") + zoneYAML("row-c") + extra
+` + zones
 	c, err := config.Parse([]byte(doc))
 	require.NoError(t, err)
 	return c

@@ -17,7 +17,7 @@ import (
 
 func TestHandleHourStepsZones(t *testing.T) {
 	start := time.Date(2026, 7, 1, 10, 0, 0, 0, fernLoc)
-	f := newFixture(t, testConfig(t, ""), nil, start)
+	f := newFixture(t, testConfig(t), nil, start)
 
 	// Kc 1.0, no stress at 30 mm (RAW 65): ETc = ET. 30 + 0.5 = 30.5 mm.
 	f.hour(t, record(start, 0.5, 0))
@@ -67,7 +67,7 @@ func fp(v float64) *float64 { return &v }
 
 func TestTickPlansSendsExpiresAndCredits(t *testing.T) {
 	start := time.Date(2026, 7, 1, 10, 0, 30, 0, fernLoc)
-	f := newFixture(t, testConfig(t, ""), nil, start)
+	f := newFixture(t, testConfig(t), nil, start)
 	f.hour(t, record(start.Truncate(time.Hour).Add(-time.Hour), 0.5, 0)) // valid ET, 30.5 mm everywhere
 
 	// 30.5 >= trigger 20: refill to 0: 30.5 / 0.9 / 6 x 60 = 338.9 -> 339
@@ -174,7 +174,7 @@ func TestTickPlansSendsExpiresAndCredits(t *testing.T) {
 
 func TestHoldsCancelPlannedCommands(t *testing.T) {
 	start := time.Date(2026, 7, 1, 10, 0, 30, 0, fernLoc)
-	f := newFixture(t, testConfig(t, ""), nil, start)
+	f := newFixture(t, testConfig(t), nil, start)
 	f.hour(t, record(start.Truncate(time.Hour).Add(-time.Hour), 0.5, 0))
 	_, _, err := f.svc.tick(start)
 	require.NoError(t, err)
@@ -219,7 +219,7 @@ func TestHoldsCancelPlannedCommands(t *testing.T) {
 
 func TestStaleETAlert(t *testing.T) {
 	start := time.Date(2026, 7, 1, 10, 0, 0, 0, fernLoc)
-	f := newFixture(t, testConfig(t, ""), nil, start)
+	f := newFixture(t, testConfig(t), nil, start)
 	// Never had valid ET: stale from the start, no commands.
 	_, sends, err := f.svc.tick(start)
 	require.NoError(t, err)
