@@ -49,7 +49,9 @@ func dial(t *testing.T, url, id string) *mqtt.Client {
 	return c
 }
 
-func uniq(prefix string) string { return fmt.Sprintf("%s-%d-%d", prefix, os.Getpid(), time.Now().UnixNano()%1e9) }
+func uniq(prefix string) string {
+	return fmt.Sprintf("%s-%d-%d", prefix, os.Getpid(), time.Now().UnixNano()%1e9)
+}
 
 // TestValveRoundTripMosquitto runs the scheduler against a simulated valve
 // controller through the real broker: a duplicate report (credited once), a
