@@ -6,6 +6,7 @@
 package hourcsv
 
 import (
+	"bufio"
 	"encoding/csv"
 	"errors"
 	"fmt"
@@ -130,7 +131,11 @@ func NewReader(r io.Reader, opt Options) (*Reader, error) {
 	if err != nil {
 		return nil, fmt.Errorf("read weather csv: %w", err)
 	}
-	cr := csv.NewReader(r)
+	br := bufio.NewReaderSize(r, 64<<10)
+	if bom, _ := br.Peek(3); string(bom) == "\ufeff" {
+		_, _ = br.Discard(3) // a UTF-8 byte order mark, as spreadsheets write
+	}
+	cr := csv.NewReader(br)
 	cr.Comment = '#'
 	cr.ReuseRecord = true
 	cr.FieldsPerRecord = -1 // counted here, to give a better message
@@ -139,7 +144,11 @@ func NewReader(r io.Reader, opt Options) (*Reader, error) {
 		return nil, fmt.Errorf("read weather csv: %w: empty input, expected a header line naming the columns", ErrHeader)
 	}
 	if err != nil {
-		return nil, fmt.Errorf("read weather csv: header: %w", err)
+		var pe *csv.ParseError
+		if errors.As(err, &pe) {
+			return nil, fmt.Errorf("read weather csv: %w: line %d: %w", ErrHeader, pe.Line, pe.Err)
+		}
+		return nil, fmt.Errorf("read weather csv: %w", err)
 	}
 	line, _ := cr.FieldPos(0)
 	rd := &Reader{csv: cr, opt: opt, zone: zone, windFactor: windFactor, nfields: len(head), headerLine: line,
@@ -154,7 +163,7 @@ func (rd *Reader) mapHeader(head []string, line int) error {
 	seen := make(map[string]int, len(head))
 	var humCols []string
 	for i, raw := range head {
-		name := strings.ToLower(strings.TrimSpace(strings.TrimPrefix(raw, "\ufeff")))
+		name := strings.ToLower(strings.TrimSpace(raw))
 		if name == "" {
 			return fmt.Errorf("%w: line %d: column %d has an empty name", ErrHeader, line, i+1)
 		}
@@ -240,7 +249,8 @@ func (rd *Reader) Read() (Row, error) {
 			return Row{}, &RowError{Line: line, Column: ColTime, Value: cell,
 				Err: fmt.Errorf("not after the previous hour %s (line %d): hours must be in increasing order without repeats", AppendLocal(nil, rd.prev), rd.prevLine)}
 		}
-		row.Gap = start.Sub(rd.prev) - time.Hour
+		// Sub saturates beyond about 292 years; keep the gap whole hours.
+		row.Gap = (start.Sub(rd.prev) - time.Hour).Truncate(time.Hour)
 	}
 	h.Start = start
 

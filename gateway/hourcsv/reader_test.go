@@ -70,6 +70,16 @@ func TestReadColumnsInAnyOrder(t *testing.T) {
 	assert.Zero(t, rows[1].Gap)
 }
 
+func TestReadSpreadsheetExport(t *testing.T) {
+	// Byte order mark, quoted cells, CRLF line ends, as spreadsheets write.
+	src := "\ufeff\"time\",\"Air_Temp_C\",\"rh_pct\",\"wind_ms\",\"solar_wm2\"\r\n" +
+		"\"2026-07-14T12:00\",\"31.5\",\"40\",\"2.5\",\"900\"\r\n"
+	rows, bad := readAll(t, src, Options{})
+	require.Empty(t, bad)
+	require.Len(t, rows, 1)
+	assert.Equal(t, 31.5, rows[0].Hour.AirTemp)
+}
+
 func TestReadHumidityForms(t *testing.T) {
 	// FAO-56 Annex 2 Table 2.3 (from memory): e°(20 degC) = 2.338 kPa, so a
 	// dew point of 20 degC gives ea = 2.338 kPa (FAO-56 eq. 14).
@@ -207,6 +217,7 @@ func TestHeaderErrors(t *testing.T) {
 			"read weather csv: bad header: line 1: columns dewpoint_c and rh_pct all give humidity: give exactly one of rh_pct, dewpoint_c or ea_kpa"},
 		{"duplicate", "time,air_temp_c,rh_pct,wind_ms,solar_wm2,Time\n",
 			`read weather csv: bad header: line 1: column "time" appears twice (columns 1 and 6)`},
+		{"bad quote", "time,\"air_temp_c\"x,rh_pct\n", `read weather csv: bad header: line 1: extraneous or missing " in quoted-field`},
 		{"empty name", "time,air_temp_c,,rh_pct,wind_ms,solar_wm2\n", "read weather csv: bad header: line 1: column 3 has an empty name"},
 	} {
 		t.Run(tc.name, func(t *testing.T) {
