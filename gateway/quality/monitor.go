@@ -104,6 +104,12 @@ type Monitor struct {
 	notify   chan struct{}
 	stations map[stationID]*stationInfo
 
+	// winMu guards the windows of closed hours (hour-level checks).
+	winMu   sync.Mutex
+	windows map[stationID][]HourObs // as committed
+	txOf    *bbolt.Tx               // the write transaction txWin belongs to (not its ID: a rolled-back ID is reused)
+	txWin   map[stationID][]HourObs // changed in transaction txID, not yet committed
+
 	mu      sync.Mutex
 	state   map[Key]Alert // committed state: active alerts and recently cleared ones
 	pending []Event       // reading-level events not yet persisted
@@ -139,6 +145,8 @@ func New(o Options) (*Monitor, error) {
 		stations: map[stationID]*stationInfo{},
 		state:    map[Key]Alert{},
 		acc:      map[accKey]map[hourly.Quantity]*QStats{},
+		windows:  map[stationID][]HourObs{},
+		txWin:    map[stationID][]HourObs{},
 	}
 	var err error
 	if m.metrics, err = newMetrics(o.Registerer); err != nil {
@@ -438,13 +446,23 @@ func (m *Monitor) HandleHour(tx *bbolt.Tx, rec hourly.Record) error {
 	if err := putObs(hb, obs); err != nil {
 		return fmt.Errorf("alerts: handle hour: %w", err)
 	}
-	if err := pruneObs(hb, obs.Start.Add(-keepHours)); err != nil {
+	cutoff := obs.Start.Add(-keepHours)
+	if err := pruneObs(hb, cutoff); err != nil {
 		return fmt.Errorf("alerts: handle hour: %w", err)
 	}
-	w, err := readWindow(hb)
+	m.winMu.Lock()
+	defer m.winMu.Unlock()
+	w, err := m.windowLocked(tx, id)
 	if err != nil {
 		return fmt.Errorf("alerts: handle hour: %w", err)
 	}
+	w = withObs(w, obs, cutoff)
+	m.txWin[id] = w
+	tx.OnCommit(func() {
+		m.winMu.Lock()
+		m.windows[id] = w
+		m.winMu.Unlock()
+	})
 	findings := HourChecks(rec.Site, rec.Station, m.alerts, info.choices, w)
 	if info.choices.Neighbours {
 		windows := map[string][]HourObs{rec.Station: w}
@@ -452,11 +470,7 @@ func (m *Monitor) HandleHour(tx *bbolt.Tx, rec hourly.Record) error {
 			if oid.site != rec.Site || oid.station == rec.Station || !other.choices.Neighbours {
 				continue
 			}
-			ob := tx.Bucket(bucketHours).Bucket([]byte(oid.site + "/" + oid.station))
-			if ob == nil {
-				continue
-			}
-			if windows[oid.station], err = readWindow(ob); err != nil {
+			if windows[oid.station], err = m.windowLocked(tx, oid); err != nil {
 				return fmt.Errorf("alerts: handle hour: %w", err)
 			}
 		}
@@ -556,6 +570,42 @@ func pruneObs(b *bbolt.Bucket, before time.Time) error {
 		}
 	}
 	return nil
+}
+
+// windowLocked returns the window of closed hours of a station as seen by
+// tx: changed earlier in tx, else as last committed, else read from the
+// state file (after a restart). Write transactions are serialised, so
+// changes made by any other transaction were either committed (and are in
+// m.windows) or rolled back. The caller holds m.winMu.
+func (m *Monitor) windowLocked(tx *bbolt.Tx, id stationID) ([]HourObs, error) {
+	if m.txOf != tx {
+		m.txOf, m.txWin = tx, map[stationID][]HourObs{}
+	}
+	if w, ok := m.txWin[id]; ok {
+		return w, nil
+	}
+	if w, ok := m.windows[id]; ok {
+		return w, nil
+	}
+	b := tx.Bucket(bucketHours).Bucket([]byte(id.site + "/" + id.station))
+	if b == nil {
+		return nil, nil
+	}
+	return readWindow(b)
+}
+
+// withObs returns a copy of w with o inserted (or replacing the hour it
+// revises) and the hours before cutoff removed, in time order.
+func withObs(w []HourObs, o HourObs, cutoff time.Time) []HourObs {
+	i, found := slices.BinarySearchFunc(w, o.Start, func(x HourObs, t time.Time) int { return x.Start.Compare(t) })
+	out := make([]HourObs, 0, len(w)+1)
+	out = append(out, w[:i]...)
+	out = append(out, o)
+	if found {
+		i++
+	}
+	out = append(out, w[i:]...)
+	return slices.DeleteFunc(out, func(x HourObs) bool { return x.Start.Before(cutoff) })
 }
 
 func readWindow(b *bbolt.Bucket) ([]HourObs, error) {

@@ -2,6 +2,7 @@ package quality
 
 import (
 	"encoding/json"
+	"errors"
 	"path/filepath"
 	"testing"
 	"time"
@@ -46,7 +47,7 @@ type fixture struct {
 	evs []Event
 }
 
-func newFixture(t *testing.T, cfg *config.Config, path string, now time.Time) *fixture {
+func newFixture(t testing.TB, cfg *config.Config, path string, now time.Time) *fixture {
 	t.Helper()
 	db, err := state.Open(path)
 	require.NoError(t, err)
@@ -295,4 +296,27 @@ func TestMonitorExternalRaiseAndClear(t *testing.T) {
 	bad := key
 	bad.Sensor = "a/b"
 	assert.Error(t, f.mon.Raise(nil, Alert{Key: bad}))
+}
+
+func TestMonitorRolledBackHourIsForgotten(t *testing.T) {
+	f := newFixture(t, testConfig(config.RespondKeep), filepath.Join(t.TempDir(), "rb.db"), synthStart)
+	hours := weather{}.hours(3)
+	f.closeHours(t, hours[:1])
+	err := f.db.Update(func(tx *bbolt.Tx) error {
+		require.NoError(t, f.mon.HandleHour(tx, record(hours[1])))
+		return errors.New("another handler failed")
+	})
+	require.Error(t, err)
+	f.closeHours(t, hours[2:])
+	id := stationID{"brackenfold", "orchard"}
+	w := f.mon.windows[id]
+	require.Len(t, w, 2)
+	assert.Equal(t, hours[0].Start, w[0].Start)
+	assert.Equal(t, hours[2].Start, w[1].Start)
+	require.NoError(t, f.db.View(func(tx *bbolt.Tx) error {
+		stored, err := readWindow(tx.Bucket(bucketHours).Bucket([]byte("brackenfold/orchard")))
+		require.NoError(t, err)
+		assert.Len(t, stored, 2)
+		return nil
+	}))
 }
