@@ -146,6 +146,13 @@ func New(cfg *config.Config, deps Deps) (*Gateway, error) {
 	if writer != nil {
 		comp.Services = append(comp.Services, writer)
 	}
+
+	// Zones: the balance steps inside each closing hour's transaction; the
+	// scheduler sends valve commands. Skipped when the caller (the demo)
+	// passed its own zones service in Deps.Components.
+	if err := wireZones(cfg, deps, outbox, &comp); err != nil {
+		return nil, fmt.Errorf("new gateway: %w", err)
+	}
 	// ---- end of components wiring ----
 
 	g.comp = comp

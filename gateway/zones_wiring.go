@@ -1,0 +1,35 @@
+package gateway
+
+import (
+	"etpulse/gateway/config"
+	"etpulse/gateway/store"
+	"etpulse/gateway/zones"
+)
+
+// wireZones adds the zone balance and command scheduler when the
+// configuration has zones and the caller did not supply its own.
+func wireZones(cfg *config.Config, deps Deps, outbox store.Enqueuer, comp *Components) error {
+	n := 0
+	for i := range cfg.Sites {
+		n += len(cfg.Sites[i].Zones)
+	}
+	if n == 0 {
+		return nil
+	}
+	for _, h := range comp.Handlers {
+		if _, ok := h.(*zones.Service); ok {
+			return nil
+		}
+	}
+	svc, err := zones.New(zones.Options{
+		Config: cfg, DB: deps.DB, MQTT: deps.MQTT, Store: outbox,
+		Logger: deps.Logger.With("component", "zones"), Registerer: deps.Registerer,
+		Clock: deps.Clock, After: deps.After,
+	})
+	if err != nil {
+		return err
+	}
+	comp.Handlers = append(comp.Handlers, svc)
+	comp.Services = append(comp.Services, svc)
+	return nil
+}
