@@ -1,0 +1,475 @@
+package demo
+
+import (
+	"context"
+	"fmt"
+	"io"
+	"log/slog"
+	"os"
+	"path/filepath"
+	"sort"
+	"strings"
+	"sync"
+	"time"
+
+	mochi "github.com/mochi-mqtt/server/v2"
+	"github.com/mochi-mqtt/server/v2/listeners"
+	"github.com/mochi-mqtt/server/v2/packets"
+	"github.com/prometheus/client_golang/prometheus"
+
+	"etpulse/gateway"
+	"etpulse/gateway/mqtt"
+	"etpulse/gateway/state"
+	"etpulse/hourly"
+)
+
+// RunOptions configure a demo run.
+type RunOptions struct {
+	Days int    // simulated days; default 1
+	Seed uint64 // weather and injected faults; the same seed prints the same table
+	// Speed is simulated seconds per wall-clock second; 0 runs as fast as
+	// the pipeline goes.
+	Speed  float64
+	Out    io.Writer    // the table
+	Logger *slog.Logger // gateway logs; nil discards
+
+	// Hooks for other parts of the product to join the demo.
+	Faults     map[string]Fault     // sensor faults, keyed "<station>/<sensor>"
+	Components gateway.Components   // extra handlers, observers, gate, services
+	Setup      func(env *Env) error // called once the broker, state and gateway exist, before the first reading
+}
+
+// Env is what a demo Setup hook can use: the embedded broker's URL, the
+// simulated clock, the state file, the gateway and the table.
+type Env struct {
+	BrokerURL string
+	Clock     *Clock
+	StatePath string
+	Gateway   *gateway.Gateway
+	Table     *Table
+	Sim       *Sim
+}
+
+// Summary describes a finished demo run.
+type Summary struct {
+	Messages, Duplicates, Late, Bad int // published, by kind
+	Records, Revisions              int // hourly records printed
+	Rejected                        map[string]float64
+	Wall                            time.Duration
+}
+
+// Run starts an embedded broker on loopback, the gateway with its state in a
+// temporary directory, and the simulated farm; it prints closed hours as they
+// come and returns after opt.Days simulated days.
+func Run(ctx context.Context, opt RunOptions) (sum Summary, err error) {
+	began := time.Now()
+	if opt.Days <= 0 {
+		opt.Days = 1
+	}
+	if opt.Out == nil {
+		opt.Out = io.Discard
+	}
+	if opt.Logger == nil {
+		opt.Logger = slog.New(slog.DiscardHandler)
+	}
+	dir, err := os.MkdirTemp("", "etpulse-demo-")
+	if err != nil {
+		return sum, fmt.Errorf("demo: %w", err)
+	}
+	defer os.RemoveAll(dir)
+
+	broker := mochi.New(&mochi.Options{InlineClient: true, Logger: slog.New(slog.DiscardHandler)})
+	if err := broker.AddHook(new(allowAll), nil); err != nil {
+		return sum, fmt.Errorf("demo: broker: %w", err)
+	}
+	tcp := listeners.NewTCP(listeners.Config{ID: "demo", Address: "127.0.0.1:0"})
+	if err := broker.AddListener(tcp); err != nil {
+		return sum, fmt.Errorf("demo: broker: %w", err)
+	}
+	if err := broker.Serve(); err != nil {
+		return sum, fmt.Errorf("demo: broker: %w", err)
+	}
+	defer broker.Close()
+	url := "tcp://" + tcp.Address()
+
+	sim := New(Options{Seed: opt.Seed, Faults: opt.Faults})
+	statePath := filepath.Join(dir, "state.db")
+	cfg, err := sim.Config(ConfigOptions{BrokerURL: url, ClientID: "etpulse-demo", StatePath: statePath})
+	if err != nil {
+		return sum, err
+	}
+	db, err := state.Open(statePath)
+	if err != nil {
+		return sum, fmt.Errorf("demo: %w", err)
+	}
+	defer func() {
+		if cerr := db.Close(); cerr != nil && err == nil {
+			err = fmt.Errorf("demo: close state: %w", cerr)
+		}
+	}()
+
+	runCtx, cancel := context.WithCancel(ctx)
+	defer cancel()
+	client, err := mqtt.Dial(runCtx, mqtt.Options{URL: url, ClientID: "etpulse-demo", Workers: 1, MaxInflight: 1024, Logger: opt.Logger})
+	if err != nil {
+		return sum, fmt.Errorf("demo: %w", err)
+	}
+	defer client.Close(time.Second)
+
+	clock := NewClock(sim.Start())
+	table := NewTable(opt.Out)
+	reg := prometheus.NewRegistry()
+	g, err := gateway.New(cfg, gateway.Deps{
+		Logger: opt.Logger, Registerer: reg, Gatherer: reg, DB: db, MQTT: client,
+		Clock: clock.Now, After: clock.After, Components: opt.Components,
+		OnRecord: table.Record,
+	})
+	if err != nil {
+		return sum, fmt.Errorf("demo: %w", err)
+	}
+	env := &Env{BrokerURL: url, Clock: clock, StatePath: statePath, Gateway: g, Table: table, Sim: sim}
+	if opt.Setup != nil {
+		if err := opt.Setup(env); err != nil {
+			return sum, fmt.Errorf("demo: setup: %w", err)
+		}
+	}
+	runDone := make(chan error, 1)
+	go func() { runDone <- g.Run(runCtx) }()
+	select {
+	case <-g.Ready():
+	case err := <-runDone:
+		return sum, fmt.Errorf("demo: gateway: %w", err)
+	}
+
+	end := sim.Start().Add(time.Duration(opt.Days) * 24 * time.Hour)
+	msgs := sim.Generate(sim.Start(), end.Add(10*time.Minute))
+	table.Header(sim, opt)
+
+	step := time.Minute
+	published, i := 0, 0
+	publishUntil := func(at time.Time) error {
+		for ; i < len(msgs) && !msgs[i].At.After(at); i++ {
+			m := msgs[i]
+			if err := broker.Publish(m.Topic, m.Payload, false, 1); err != nil {
+				return fmt.Errorf("demo: publish: %w", err)
+			}
+			published++
+			switch m.Kind {
+			case Duplicate:
+				sum.Duplicates++
+			case Late:
+				sum.Late++
+			case Bad:
+				sum.Bad++
+			}
+		}
+		return nil
+	}
+	wallStart := time.Now()
+	last := end.Add(10 * time.Minute)
+	for at := sim.Start(); !at.After(last); at = at.Add(step) {
+		if err := publishUntil(at); err != nil {
+			return sum, err
+		}
+		if err := barrier(ctx, g, uint64(published), runDone); err != nil {
+			return sum, err
+		}
+		table.Flush()
+		clock.Set(at.Add(step))
+		if opt.Speed > 0 {
+			simElapsed := at.Sub(sim.Start())
+			if d := time.Duration(float64(simElapsed)/opt.Speed) - time.Since(wallStart); d > 0 {
+				select {
+				case <-time.After(d):
+				case <-ctx.Done():
+					return sum, ctx.Err()
+				}
+			}
+		}
+	}
+	// Late messages held back past the last simulated minute.
+	if err := publishUntil(msgs[len(msgs)-1].At); err != nil {
+		return sum, err
+	}
+	if err := barrier(ctx, g, uint64(published), runDone); err != nil {
+		return sum, err
+	}
+	table.Flush()
+	cancel()
+	if err := <-runDone; err != nil {
+		return sum, fmt.Errorf("demo: gateway: %w", err)
+	}
+	table.Flush()
+	sum.Messages = published
+	sum.Records, sum.Revisions = table.Counts()
+	sum.Rejected = rejectedByReason(reg)
+	sum.Wall = time.Since(began)
+	table.Footer(sum)
+	return sum, nil
+}
+
+// allowAll lets every client on the loopback-only demo broker connect,
+// publish and subscribe.
+type allowAll struct{ mochi.HookBase }
+
+func (h *allowAll) ID() string { return "allow-all" }
+
+func (h *allowAll) Provides(b byte) bool {
+	return b == mochi.OnConnectAuthenticate || b == mochi.OnACLCheck
+}
+
+func (h *allowAll) OnConnectAuthenticate(cl *mochi.Client, pk packets.Packet) bool { return true }
+
+func (h *allowAll) OnACLCheck(cl *mochi.Client, topic string, write bool) bool { return true }
+
+// barrier waits until the gateway has handled n messages and published every
+// record it committed, so the table and the clock move in step with the data.
+func barrier(ctx context.Context, g *gateway.Gateway, n uint64, runDone <-chan error) error {
+	for g.Handled() < n || g.Published() < g.Emitted() {
+		select {
+		case <-ctx.Done():
+			return ctx.Err()
+		case err := <-runDone:
+			return fmt.Errorf("demo: gateway stopped: %w", err)
+		case <-time.After(200 * time.Microsecond):
+		}
+	}
+	return nil
+}
+
+func rejectedByReason(g prometheus.Gatherer) map[string]float64 {
+	out := map[string]float64{}
+	mfs, err := g.Gather()
+	if err != nil {
+		return out
+	}
+	for _, mf := range mfs {
+		if mf.GetName() != "etpulse_messages_rejected_total" {
+			continue
+		}
+		for _, m := range mf.GetMetric() {
+			for _, l := range m.GetLabel() {
+				if l.GetName() == "reason" {
+					out[l.GetValue()] += m.GetCounter().GetValue()
+				}
+			}
+		}
+	}
+	return out
+}
+
+// Clock is the demo's simulated clock: the gateway reads it and sleeps on it.
+type Clock struct {
+	mu      sync.Mutex
+	now     time.Time
+	waiters []waiter
+}
+
+type waiter struct {
+	at time.Time
+	ch chan time.Time
+}
+
+// NewClock returns a clock stopped at start.
+func NewClock(start time.Time) *Clock { return &Clock{now: start} }
+
+// Now returns the simulated time.
+func (c *Clock) Now() time.Time {
+	c.mu.Lock()
+	defer c.mu.Unlock()
+	return c.now
+}
+
+// After fires once the simulated time has moved d past now.
+func (c *Clock) After(d time.Duration) <-chan time.Time {
+	c.mu.Lock()
+	defer c.mu.Unlock()
+	ch := make(chan time.Time, 1)
+	at := c.now.Add(d)
+	if !at.After(c.now) {
+		ch <- c.now
+		return ch
+	}
+	c.waiters = append(c.waiters, waiter{at, ch})
+	return ch
+}
+
+// Set moves the clock to t (never backwards) and fires due waiters.
+func (c *Clock) Set(t time.Time) {
+	c.mu.Lock()
+	defer c.mu.Unlock()
+	if t.After(c.now) {
+		c.now = t
+	}
+	kept := c.waiters[:0]
+	for _, w := range c.waiters {
+		if !w.at.After(c.now) {
+			w.ch <- c.now
+			continue
+		}
+		kept = append(kept, w)
+	}
+	c.waiters = kept
+}
+
+// Table prints closed hours as a readable table. Records are buffered and
+// printed in hour and station order at each Flush, so a seed always prints
+// the same table. Other parts of the demo add their own lines with Event.
+type Table struct {
+	mu        sync.Mutex
+	w         io.Writer
+	recs      []hourly.Record
+	events    []string
+	records   int
+	revisions int
+	dayET     map[string]map[string]float64 // station -> local date -> ET of latest revisions
+	hourET    map[string]float64            // station/hour -> ET counted in dayET
+	refs      map[string]hourly.Reference
+}
+
+// NewTable returns a table writing to w.
+func NewTable(w io.Writer) *Table {
+	return &Table{w: w, dayET: map[string]map[string]float64{}, hourET: map[string]float64{}, refs: map[string]hourly.Reference{}}
+}
+
+// Record queues a closed hour (gateway.Deps.OnRecord).
+func (t *Table) Record(rec hourly.Record) {
+	t.mu.Lock()
+	defer t.mu.Unlock()
+	t.recs = append(t.recs, rec)
+}
+
+// Event queues a free-form line (e.g. a valve command or an alert) printed
+// after the hours of the same flush.
+func (t *Table) Event(at time.Time, format string, args ...any) {
+	t.mu.Lock()
+	defer t.mu.Unlock()
+	t.events = append(t.events, fmt.Sprintf("  >> %s  %s", localTime(at), fmt.Sprintf(format, args...)))
+}
+
+const tableFormat = "%-11s %-16s %6s %5s %6s %6s %6s %6s %6s  %s\n"
+
+// Header prints the title and column names.
+func (t *Table) Header(sim *Sim, opt RunOptions) {
+	t.mu.Lock()
+	defer t.mu.Unlock()
+	fmt.Fprintf(t.w, "Tallowwood Flats (invented farm), %d simulated day(s) from %s local standard time (UTC+10), seed %d\n",
+		opt.Days, localTime(sim.Start()), opt.Seed)
+	fmt.Fprintln(t.w, "stations: orchard (ETrs, tall), paddock (ETos, short), glasshouse (FAO-56 hourly ETo); Rs, Rn, G in MJ/m2 per hour")
+	fmt.Fprintln(t.w)
+	fmt.Fprintf(t.w, tableFormat, "station", "hour", "T °C", "RH %", "u2 m/s", "Rs", "Rn", "G", "ET mm", "flags")
+}
+
+// Flush prints the queued records and events.
+func (t *Table) Flush() {
+	t.mu.Lock()
+	defer t.mu.Unlock()
+	order := map[string]int{Orchard: 0, Paddock: 1, Glasshouse: 2}
+	sort.SliceStable(t.recs, func(i, j int) bool {
+		a, b := t.recs[i], t.recs[j]
+		if !a.Start.Equal(b.Start) {
+			return a.Start.Before(b.Start)
+		}
+		if a.Station != b.Station {
+			return order[a.Station] < order[b.Station]
+		}
+		return a.Revision < b.Revision
+	})
+	for _, rec := range t.recs {
+		t.print(rec)
+	}
+	t.recs = t.recs[:0]
+	for _, e := range t.events {
+		fmt.Fprintln(t.w, e)
+	}
+	t.events = t.events[:0]
+}
+
+func (t *Table) print(rec hourly.Record) {
+	t.records++
+	flags := append([]string(nil), rec.Flags...)
+	if rec.Revision > 0 {
+		t.revisions++
+		flags = append([]string{fmt.Sprintf("revision %d (late reading)", rec.Revision)}, flags...)
+	}
+	f := func(v float64, prec int) string { return fmt.Sprintf("%.*f", prec, v) }
+	temp, rh, u2, rs, rn, g, et := "-", "-", "-", "-", "-", "-", "-"
+	if s, ok := rec.Stats[hourly.AirTemp]; ok && s.Count > 0 {
+		temp = f(rec.Inputs.AirTemp, 1)
+		if es := hourly.SatVapourPressure(rec.Inputs.AirTemp); es > 0 && rec.Inputs.Ea > 0 {
+			rh = f(min(100, 100*rec.Inputs.Ea/es), 0)
+		}
+	}
+	if s, ok := rec.Stats[hourly.Wind]; ok && s.Count > 0 {
+		u2 = f(rec.Inputs.Wind2, 1)
+	}
+	if s, ok := rec.Stats[hourly.Solar]; (ok && s.Count > 0) || rec.Fill != "" {
+		rs = f(rec.Inputs.Solar, 2)
+	}
+	if r := rec.Result; r != nil {
+		rn, g, et = f(r.Rn, 2), f(r.G, 2), f(r.ET, 2)
+		t.refs[rec.Station] = r.Reference
+		day := rec.LocalStart[:10]
+		if t.dayET[rec.Station] == nil {
+			t.dayET[rec.Station] = map[string]float64{}
+		}
+		key := rec.Station + "/" + rec.LocalStart
+		t.dayET[rec.Station][day] += r.ET - t.hourET[key]
+		t.hourET[key] = r.ET
+	}
+	local := strings.Replace(rec.LocalStart, "T", " ", 1)
+	fmt.Fprintf(t.w, tableFormat, rec.Station, local, temp, rh, u2, rs, rn, g, et, strings.Join(flags, " "))
+}
+
+// Counts returns the records printed and how many of them were revisions.
+func (t *Table) Counts() (records, revisions int) {
+	t.mu.Lock()
+	defer t.mu.Unlock()
+	return t.records, t.revisions
+}
+
+// DayTotals returns, per station and local date, the sum of hourly ET over
+// the latest revision of every complete hour.
+func (t *Table) DayTotals() map[string]map[string]float64 {
+	t.mu.Lock()
+	defer t.mu.Unlock()
+	out := map[string]map[string]float64{}
+	for st, days := range t.dayET {
+		out[st] = map[string]float64{}
+		for d, v := range days {
+			out[st][d] = v
+		}
+	}
+	return out
+}
+
+// Footer prints the daily totals and what was injected and rejected.
+func (t *Table) Footer(sum Summary) {
+	totals := t.DayTotals()
+	t.mu.Lock()
+	defer t.mu.Unlock()
+	fmt.Fprintln(t.w)
+	names := map[hourly.Reference]string{hourly.Short: "ETos", hourly.Tall: "ETrs", hourly.FAO56: "ETo"}
+	for _, st := range []string{Orchard, Paddock, Glasshouse} {
+		days := make([]string, 0, len(totals[st]))
+		for d := range totals[st] {
+			days = append(days, d)
+		}
+		sort.Strings(days)
+		for _, d := range days {
+			fmt.Fprintf(t.w, "daily total  %-11s %s  %s %.2f mm (sum of complete hours)\n", st, d, names[t.refs[st]], totals[st][d])
+		}
+	}
+	reasons := make([]string, 0, len(sum.Rejected))
+	for r, n := range sum.Rejected {
+		reasons = append(reasons, fmt.Sprintf("%s %.0f", r, n))
+	}
+	sort.Strings(reasons)
+	fmt.Fprintf(t.w, "messages %d (duplicates %d, late %d, malformed %d); rejected: %s; hourly records %d (revisions %d); wall time %s\n",
+		sum.Messages, sum.Duplicates, sum.Late, sum.Bad, strings.Join(reasons, ", "), sum.Records, sum.Revisions, sum.Wall.Round(10*time.Millisecond))
+}
+
+// localTime formats t in the farm's standard time.
+func localTime(t time.Time) string {
+	return t.Add(time.Duration(farmOffset * float64(time.Hour))).UTC().Format("2006-01-02 15:04")
+}
