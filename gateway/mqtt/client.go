@@ -228,9 +228,15 @@ func (c *Client) onConnect(pc paho.Client) {
 	} else {
 		c.log.Info("connected")
 	}
-	// Subscribe again on every connect: a persistent session keeps the
+	// Subscribe again on every reconnect: a persistent session keeps the
 	// subscriptions, but a broker that lost its state (restart without
-	// persistence) does not.
+	// persistence) does not. On the first connect Subscribe does it.
+	if n == 1 {
+		if f := c.opts.OnConnectionChange; f != nil {
+			f(true)
+		}
+		return
+	}
 	c.mu.Lock()
 	subs := make([]subscription, 0, len(c.order))
 	for _, f := range c.order {
