@@ -37,9 +37,13 @@ func setupAlerts(cfg *config.Config, deps Deps, outbox *store.Outbox, comp *Comp
 	if cfg.HTTP.Disabled {
 		return mon, nil
 	}
-	gatherer := prometheus.DefaultGatherer
-	if g, ok := deps.Registerer.(prometheus.Gatherer); ok {
-		gatherer = g
+	gatherer := deps.Gatherer
+	if gatherer == nil {
+		if g, ok := deps.Registerer.(prometheus.Gatherer); ok {
+			gatherer = g
+		} else {
+			gatherer = prometheus.DefaultGatherer
+		}
 	}
 	checks := []httpapi.Check{httpapi.StateWritable(deps.DB, deps.Clock)}
 	if c, ok := deps.MQTT.(interface{ Connected() bool }); ok {
@@ -54,3 +58,7 @@ func setupAlerts(cfg *config.Config, deps Deps, outbox *store.Outbox, comp *Comp
 	}))
 	return mon, nil
 }
+
+// Alerts returns the gateway's drift and fault monitor, e.g. to follow its
+// events (Monitor.Notify) or to raise alerts from another part (Monitor.Raise).
+func (g *Gateway) Alerts() *quality.Monitor { return g.alerts }

@@ -19,6 +19,7 @@ import (
 	"etpulse/gateway/ingest"
 	"etpulse/gateway/mqtt"
 	"etpulse/gateway/pipeline"
+	"etpulse/gateway/quality"
 	"etpulse/gateway/store"
 	"etpulse/hourly"
 )
@@ -95,6 +96,7 @@ type Gateway struct {
 	kick      chan struct{} // wakes the record publisher
 	pubMu     sync.Mutex    // one publishPending at a time: a record goes out once
 	ready     chan struct{}
+	alerts    *quality.Monitor
 }
 
 // New composes the gateway for cfg. It does not start anything.
@@ -151,6 +153,12 @@ func New(cfg *config.Config, deps Deps) (*Gateway, error) {
 	// scheduler sends valve commands. Skipped when the caller (the demo)
 	// passed its own zones service in Deps.Components.
 	if err := wireZones(cfg, deps, outbox, &comp); err != nil {
+		return nil, fmt.Errorf("new gateway: %w", err)
+	}
+
+	// Alerts: drift and fault checks on samples and closed hours, the quality
+	// gate, and the metrics and health server (gateway/alerts.go).
+	if g.alerts, err = setupAlerts(cfg, deps, outbox, &comp); err != nil {
 		return nil, fmt.Errorf("new gateway: %w", err)
 	}
 	// ---- end of components wiring ----

@@ -99,7 +99,8 @@ type Monitor struct {
 	log      *slog.Logger
 	clock    func() time.Time
 	after    func(time.Duration) <-chan time.Time
-	onEvent  func(Event)
+	lmu      sync.Mutex
+	onEvent  []func(Event)
 	metrics  *metrics
 	notify   chan struct{}
 	stations map[stationID]*stationInfo
@@ -140,13 +141,16 @@ func New(o Options) (*Monitor, error) {
 	}
 	m := &Monitor{
 		cfg: o.Config, alerts: &o.Config.Alerts, db: o.DB, outbox: o.Outbox, pub: o.Publisher,
-		log: o.Logger, clock: o.Clock, after: o.After, onEvent: o.OnEvent,
+		log: o.Logger, clock: o.Clock, after: o.After,
 		notify:   make(chan struct{}, 1),
 		stations: map[stationID]*stationInfo{},
 		state:    map[Key]Alert{},
 		acc:      map[accKey]map[hourly.Quantity]*QStats{},
 		windows:  map[stationID][]HourObs{},
 		txWin:    map[stationID][]HourObs{},
+	}
+	if o.OnEvent != nil {
+		m.onEvent = append(m.onEvent, o.OnEvent)
 	}
 	var err error
 	if m.metrics, err = newMetrics(o.Registerer); err != nil {
@@ -201,6 +205,20 @@ func New(o Options) (*Monitor, error) {
 	}
 	m.recomputeNext()
 	return m, nil
+}
+
+// Notify adds fn to the functions called with every committed alert event
+// (raised, updated, cleared). fn must not block.
+func (m *Monitor) Notify(fn func(Event)) {
+	m.lmu.Lock()
+	defer m.lmu.Unlock()
+	m.onEvent = append(m.onEvent, fn)
+}
+
+func (m *Monitor) listeners() []func(Event) {
+	m.lmu.Lock()
+	defer m.lmu.Unlock()
+	return slices.Clone(m.onEvent)
 }
 
 // Config returns the alert settings in use.
@@ -418,8 +436,8 @@ func (m *Monitor) committed(evs []Event, states []Alert, fromTx bool) {
 			m.metrics.active.WithLabelValues(kind).Dec()
 			m.log.Info("alert cleared", "alert", ev.Alert.Key.String(), "evidence", ev.Alert.Message)
 		}
-		if m.onEvent != nil {
-			m.onEvent(ev)
+		for _, fn := range m.listeners() {
+			fn(ev)
 		}
 	}
 	if len(evs) > 0 {
