@@ -44,7 +44,7 @@ const (
 type refConstants struct {
 	cnDay, cdDay     float64 // ASCE-EWRI 2005 Table 1
 	cnNight, cdNight float64
-	gDay, gNight     float64 // G/Rn ratios, ASCE-EWRI 2005 eq. 65/66, FAO-56 eq. 45/46
+	gDay, gNight     float64 // G/Rn ratios, FAO-56 eq. 45/46; ASCE-EWRI 2005 eq. 65/66 (numbers from memory)
 	sigmaHour        float64 // Stefan-Boltzmann constant per hour
 }
 
@@ -201,7 +201,7 @@ func Compute(st Station, ref Reference, h Hour, carry Carry) (Result, Carry, err
 	r.Ea = ea
 	r.VPD = r.Es - ea
 
-	sun := SunForPeriod(st, h.Start, length)
+	sun := sunForPeriod(st, h.Start, length)
 	r.SunElevation = sun.Elevation
 	r.Ra = sun.Ra
 	if st.ClearSky == ClearSkyFull {
@@ -221,6 +221,7 @@ func Compute(st Station, ref Reference, h Hour, carry Carry) (Result, Carry, err
 		r.RsRso = (r.Fcd + 0.35) / 1.35
 		r.FcdSource = FcdCarried
 	default:
+		carry = Carry{} // a corrupt carried value is dropped, not passed on
 		r.RsRso = st.NightRsRso
 		if r.RsRso == 0 {
 			r.RsRso = DefaultNightRsRso
@@ -248,7 +249,7 @@ func Compute(st Station, ref Reference, h Hour, carry Carry) (Result, Carry, err
 		r.G = h.SoilHeat
 		r.SoilHeatMeasured = true
 	} else {
-		r.G = gRatio * r.Rn // ASCE-EWRI 2005 eq. 65/66, FAO-56 eq. 45/46
+		r.G = gRatio * r.Rn // FAO-56 eq. 45/46; ASCE-EWRI 2005 eq. 65/66 (from memory)
 	}
 
 	// ASCE-EWRI 2005 eq. 1 (FAO-56 eq. 53 with Cn 37, Cd 0.34); Cn is per

@@ -163,9 +163,10 @@ func TestCarryRule(t *testing.T) {
 	assert.InDelta(t, 1.35*0.5-0.35, hres.Fcd, 1e-12)
 
 	// A corrupt carried value is not used.
-	bres, _, err := Compute(ex19, Short, night, Carry{Fcd: math.NaN(), Valid: true})
+	bres, bcarry, err := Compute(ex19, Short, night, Carry{Fcd: math.NaN(), Valid: true})
 	require.NoError(t, err)
 	assert.Equal(t, FcdDefault, bres.FcdSource)
+	assert.Equal(t, Carry{}, bcarry, "a corrupt carry is dropped")
 }
 
 // TestReferenceConstants checks ASCE-EWRI 2005 Table 1 hourly Cn/Cd and the
@@ -300,4 +301,14 @@ func TestPolarAndDateLine(t *testing.T) {
 	res, _, err := Compute(kiribati, Short, Hour{Start: time.Date(2025, 3, 1, 22, 0, 0, 0, time.UTC), AirTemp: 28, Ea: 3, Wind2: 4, Solar: 2.5}, Carry{})
 	require.NoError(t, err)
 	assert.Greater(t, res.Ra, 0.0, "local standard time 12:00 of 2 March")
+}
+
+// TestDayOfYear checks the calendar arithmetic against the standard library.
+func TestDayOfYear(t *testing.T) {
+	for d := int64(-800000); d < 800000; d += 97 {
+		assert.Equal(t, time.Unix(d*86400, 0).UTC().YearDay(), dayOfYear(d), "day %d", d)
+	}
+	for _, d := range []int64{-1, 0, 58, 59, 60, 365, 10956, 11016, 11017, 11322} {
+		assert.Equal(t, time.Unix(d*86400, 0).UTC().YearDay(), dayOfYear(d), "day %d", d)
+	}
 }

@@ -208,7 +208,7 @@ func Daily(st Station, ref Reference, d DayWeather) (DailyResult, error) {
 }
 
 // NetLongwaveDaily returns the daily net outgoing long-wave radiation in
-// MJ m-2 d-1 (FAO-56 eq. 39, ASCE-EWRI 2005 eq. 17): Rnl = σ (Tmax,K^4 +
+// MJ m-2 d-1 (FAO-56 eq. 39; ASCE-EWRI 2005 has the same form): Rnl = σ (Tmax,K^4 +
 // Tmin,K^4)/2 (0.34 - 0.14 √ea) fcd, with sigma the daily constant
 // (SigmaDayFAO or SigmaDayASCE), temperatures in °C and ea in kPa.
 func NetLongwaveDaily(sigma, tmax, tmin, ea, fcd float64) float64 {

@@ -10,7 +10,7 @@ const (
 	// SolarConstant is Gsc in MJ m-2 min-1 (FAO-56 eq. 21/28).
 	SolarConstant = 0.0820
 	// Albedo of the grass/alfalfa reference surface (FAO-56 eq. 38,
-	// ASCE-EWRI 2005 eq. 43).
+	// ASCE-EWRI 2005).
 	Albedo = 0.23
 	// SigmaHourASCE is the Stefan-Boltzmann constant per hour used by
 	// ASCE-EWRI 2005 eq. 44, MJ K-4 m-2 h-1.
@@ -47,7 +47,7 @@ func SolarDeclination(doy int) float64 {
 }
 
 // SeasonalCorrection returns Sc, the seasonal correction for solar time in
-// hours on day of year doy (FAO-56 eq. 32/33, ASCE-EWRI 2005 eq. 57/58).
+// hours on day of year doy (FAO-56 eq. 32/33).
 func SeasonalCorrection(doy int) float64 {
 	b := 2 * math.Pi * float64(doy-81) / 364                             // FAO-56 eq. 33
 	return 0.1645*math.Sin(2*b) - 0.1255*math.Cos(b) - 0.025*math.Sin(b) // FAO-56 eq. 32
@@ -57,14 +57,7 @@ func SeasonalCorrection(doy int) float64 {
 // decl (rad) (FAO-56 eq. 25). Polar night gives 0 and polar day π, where the
 // equation itself is undefined.
 func SunsetHourAngle(lat, decl float64) float64 {
-	x := -math.Tan(lat) * math.Tan(decl)
-	switch {
-	case x >= 1:
-		return 0
-	case x <= -1:
-		return math.Pi
-	}
-	return math.Acos(x) // FAO-56 eq. 25
+	return sunsetFrom(-math.Tan(lat) * math.Tan(decl)) // FAO-56 eq. 25
 }
 
 // DailyRa returns the daily extraterrestrial radiation in MJ m-2 d-1 at
@@ -109,6 +102,17 @@ type SolarPeriod struct {
 // Lm = -Longitude degrees west (FAO-56 eq. 31). The caller validates the
 // station; SunForPeriod does not.
 func SunForPeriod(st Station, start time.Time, length time.Duration) SolarPeriod {
+	sp := sunForPeriod(st, start, length)
+	if sp.OmegaS < 0 {
+		lat := st.Latitude * math.Pi / 180
+		sp.OmegaS = sunsetFrom(-math.Tan(lat) * math.Tan(sp.Declination)) // FAO-56 eq. 25
+	}
+	return sp
+}
+
+// sunForPeriod is SunForPeriod leaving OmegaS at -1 unless the period needs
+// clipping at sunrise or sunset, which saves an arccos for most hours.
+func sunForPeriod(st Station, start time.Time, length time.Duration) SolarPeriod {
 	if length <= 0 {
 		length = time.Hour
 	}
@@ -126,21 +130,20 @@ func SunForPeriod(st Station, start time.Time, length time.Duration) SolarPeriod
 		day--
 	}
 	sp.MidHour = (float64(rem) + float64(mid.Nanosecond())/1e9) / 3600
-	sp.DayOfYear = time.Unix(day*86400, 0).UTC().YearDay()
+	sp.DayOfYear = dayOfYear(day)
 
-	j := sp.DayOfYear
-	sp.Dr = InverseRelativeDistance(j)
-	sp.Declination = SolarDeclination(j)
-	sp.Sc = SeasonalCorrection(j)
+	dc := &dayTable[sp.DayOfYear]
+	sp.Dr, sp.Declination, sp.Sc = dc.dr, dc.decl, dc.sc
 
 	lat := st.Latitude * math.Pi / 180 // FAO-56 eq. 22
 	lzMinusLm := st.Longitude - 15*st.UTCOffset
 	w := math.Pi / 12 * ((sp.MidHour + 0.06667*lzMinusLm + sp.Sc) - 12) // FAO-56 eq. 31
-	for w < -math.Pi {
-		w += 2 * math.Pi
-	}
-	for w >= math.Pi {
-		w -= 2 * math.Pi
+	if w < -math.Pi || w >= math.Pi {
+		w = math.Mod(w+math.Pi, 2*math.Pi)
+		if w < 0 {
+			w += 2 * math.Pi
+		}
+		w -= math.Pi
 	}
 	sp.Omega = w
 	half := math.Pi * sp.Hours / 24
@@ -148,26 +151,111 @@ func SunForPeriod(st Station, start time.Time, length time.Duration) SolarPeriod
 	w2 := w + half // FAO-56 eq. 30
 
 	sinLat, cosLat := math.Sincos(lat)
-	sinDec, cosDec := math.Sincos(sp.Declination)
-	ws := SunsetHourAngle(lat, sp.Declination)
-	sp.OmegaS = ws
-	if ws < math.Pi {
-		// ASCE-EWRI 2005 eq. 56: keep the integration between sunrise and sunset.
-		w1 = math.Min(math.Max(w1, -ws), ws)
-		w2 = math.Min(math.Max(w2, -ws), ws)
+	sinDec, cosDec := dc.sinDecl, dc.cosDecl
+	x := -(sinLat / cosLat) * (sinDec / cosDec) // cos ωs, FAO-56 eq. 25
+	sp.OmegaS = -1
+
+	// sin and cos of ω, ω1, ω2 from one Sincos by the angle-sum identities.
+	sinW, cosW := math.Sincos(w)
+	sinH, cosH := sinHourHalf, cosHourHalf
+	if sp.Hours != 1 {
+		sinH, cosH = math.Sincos(half)
+	}
+	sin1 := sinW*cosH - cosW*sinH
+	sin2 := sinW*cosH + cosW*sinH
+	cos1 := cosW*cosH + sinW*sinH
+	cos2 := cosW*cosH - sinW*sinH
+	// For |ω| <= π, |ω| > ωs exactly when cos ω < cos ωs; the ends may lie
+	// beyond ±π, which is always past sunset unless the sun never sets.
+	beyond := func(wi, ci float64) bool { return math.Abs(wi) > math.Pi || ci < x }
+	if x > -1 && (beyond(w1, cos1) || beyond(w2, cos2)) {
+		ws := sunsetFrom(x)
+		sp.OmegaS = ws
+		// ASCE-EWRI 2005 limits of ω1/ω2 (eq. 56, number from memory): keep
+		// the integration between sunrise and sunset.
+		sinWs := math.Sin(ws)
+		if w1 < -ws {
+			w1, sin1 = -ws, -sinWs
+		} else if w1 > ws {
+			w1, sin1 = ws, sinWs
+		}
+		if w2 > ws {
+			w2, sin2 = ws, sinWs
+		} else if w2 < -ws {
+			w2, sin2 = -ws, -sinWs
+		}
 		if w1 > w2 {
-			w1 = w2
+			w1, sin1 = w2, sin2
 		}
 	}
 	sp.Omega1, sp.Omega2 = w1, w2
 
-	sp.SinBeta = sinLat*sinDec + cosLat*cosDec*math.Cos(w)
+	sp.SinBeta = sinLat*sinDec + cosLat*cosDec*cosW
 	sp.Elevation = math.Asin(math.Max(-1, math.Min(1, sp.SinBeta))) // ASCE-EWRI 2005 eq. 62
 
-	ra := 12 * 60 / math.Pi * SolarConstant * sp.Dr *
-		((w2-w1)*sinLat*sinDec + cosLat*cosDec*(math.Sin(w2)-math.Sin(w1))) // FAO-56 eq. 28
-	sp.Ra = math.Max(ra, 0)
+	if w2 > w1 {
+		ra := 12 * 60 / math.Pi * SolarConstant * sp.Dr *
+			((w2-w1)*sinLat*sinDec + cosLat*cosDec*(sin2-sin1)) // FAO-56 eq. 28
+		sp.Ra = math.Max(ra, 0)
+	}
 	return sp
+}
+
+// sin and cos of half an hour's solar time angle, π/24.
+var sinHourHalf, cosHourHalf = math.Sincos(math.Pi / 24)
+
+// dayConstants holds the day-of-year terms of the hourly geometry.
+type dayConstants struct {
+	dr, decl, sinDecl, cosDecl, sc float64
+}
+
+// dayTable holds dayConstants for J = 1..366 (index 0 unused), computed once
+// from the published equations so that Compute spends no time on them.
+var dayTable = func() (t [367]dayConstants) {
+	for j := 1; j <= 366; j++ {
+		d := SolarDeclination(j)
+		s, c := math.Sincos(d)
+		t[j] = dayConstants{dr: InverseRelativeDistance(j), decl: d, sinDecl: s, cosDecl: c, sc: SeasonalCorrection(j)}
+	}
+	return t
+}()
+
+// sunsetFrom returns ωs = arccos(x) with x = -tan φ tan δ (FAO-56 eq. 25),
+// 0 for polar night (x >= 1) and π for polar day (x <= -1).
+func sunsetFrom(x float64) float64 {
+	switch {
+	case x >= 1:
+		return 0
+	case x <= -1:
+		return math.Pi
+	case x != x: // NaN: latitude exactly ±90 at an equinox; the sun grazes the horizon
+		return math.Pi / 2
+	}
+	return math.Acos(x)
+}
+
+// dayOfYear returns the day of year (1-366) of the day that is days days
+// after 1970-01-01 (civil calendar arithmetic, proleptic Gregorian).
+func dayOfYear(days int64) int {
+	z := days + 719468
+	era := z / 146097
+	if z < 0 && z%146097 != 0 {
+		era--
+	}
+	doe := z - era*146097                                  // [0, 146096]
+	yoe := (doe - doe/1460 + doe/36524 - doe/146096) / 365 // [0, 399]
+	doyMar := doe - (365*yoe + yoe/4 - yoe/100)            // day of the year starting 1 March, [0, 365]
+	y := yoe + era*400
+	if doyMar >= 306 { // January or February: belongs to the next civil year
+		y++
+		return int(doyMar-306) + 1
+	}
+	leap := y%4 == 0 && (y%100 != 0 || y%400 == 0)
+	d := int(doyMar) + 31 + 28 + 1 // 1 March is day 60 in a common year
+	if leap {
+		d++
+	}
+	return d
 }
 
 // RsoSimple returns clear-sky radiation from Ra and the station elevation z
