@@ -20,6 +20,7 @@ import (
 	"etpulse/gateway"
 	"etpulse/gateway/mqtt"
 	"etpulse/gateway/state"
+	"etpulse/gateway/store"
 	"etpulse/hourly"
 )
 
@@ -54,6 +55,7 @@ type Env struct {
 type Summary struct {
 	Messages, Duplicates, Late, Bad int // published, by kind
 	Records, Revisions              int // hourly records printed
+	History                         int // hourly records in the local history (store)
 	Rejected                        map[string]float64
 	Wall                            time.Duration
 }
@@ -203,6 +205,9 @@ func Run(ctx context.Context, opt RunOptions) (sum Summary, err error) {
 	sum.Messages = published
 	sum.Records, sum.Revisions = table.Counts()
 	sum.Rejected = rejectedByReason(reg)
+	if h, herr := store.OpenHistory(db); herr == nil {
+		sum.History, _ = h.Count(store.Filter{Measurements: []string{store.MeasurementHour}})
+	}
 	sum.Wall = time.Since(began)
 	table.Footer(sum)
 	return sum, nil
@@ -467,6 +472,7 @@ func (t *Table) Footer(sum Summary) {
 	sort.Strings(reasons)
 	fmt.Fprintf(t.w, "messages %d (duplicates %d, late %d, malformed %d); rejected: %s; hourly records %d (revisions %d); wall time %s\n",
 		sum.Messages, sum.Duplicates, sum.Late, sum.Bad, strings.Join(reasons, ", "), sum.Records, sum.Revisions, sum.Wall.Round(10*time.Millisecond))
+	fmt.Fprintf(t.w, "history: %d hourly records in the local history (etpulse export prints them)\n", sum.History)
 }
 
 // localTime formats t in the farm's standard time.
