@@ -416,6 +416,8 @@ func (s *Sim) ConfigYAML(o ConfigOptions) string {
 	}
 	var b strings.Builder
 	fmt.Fprintf(&b, "# Tallowwood Flats, the invented farm of the demo.\nbroker:\n  url: %q\n  client_id: %q\n", o.BrokerURL, o.ClientID)
+	// Metrics and health on any free loopback port: demos and tests may run side by side.
+	fmt.Fprintf(&b, "http:\n  listen: \"127.0.0.1:0\"\n")
 	fmt.Fprintf(&b, "state:\n  path: %q\nsites:\n  - id: %s\n    stations:\n", o.StatePath, Site)
 	timing := fmt.Sprintf("        close_grace: %s\n        late_window: %s\n        silence_close: %s\n        max_future: %s\n",
 		d(o.CloseGrace, 5*time.Minute), d(o.LateWindow, 6*time.Hour), d(o.SilenceClose, 20*time.Minute), d(o.MaxFuture, 5*time.Minute))
