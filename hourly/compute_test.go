@@ -312,3 +312,80 @@ func TestDayOfYear(t *testing.T) {
 		assert.Equal(t, time.Unix(d*86400, 0).UTC().YearDay(), dayOfYear(d), "day %d", d)
 	}
 }
+
+// TestRsoFull checks the ASCE-EWRI 2005 Appendix D clear-sky form (constants
+// from memory) against a hand derivation and its expected behaviour.
+func TestRsoFull(t *testing.T) {
+	// Hand derivation for the Example 19 daytime hour: P = 101.2 kPa,
+	// ea = 3.445 kPa, sin β = 0.7222, Ra = 3.543 MJ m-2 h-1:
+	// W = 0.14 x 3.445 x 101.2 + 2.1 = 50.9 mm (eq. D.3);
+	// KB = 0.98 exp(-0.00146 x 101.2 / 0.7222 - 0.075 (50.9 / 0.7222)^0.4)
+	//    = 0.98 exp(-0.2046 - 0.4115) = 0.529 (eq. D.2);
+	// KD = 0.35 - 0.36 x 0.529 = 0.160 (eq. D.4); Rso = 0.689 x 3.543 = 2.44.
+	assert.InDelta(t, 2.44, RsoFull(3.543, 101.2, 3.445, 0.7222, 1), 0.005)
+
+	st := ex19
+	st.ClearSky = ClearSkyFull
+	res, _, err := Compute(st, Short, ex19Day(), Carry{})
+	require.NoError(t, err)
+	assert.InDelta(t, 2.44, res.Rso, 0.005)
+	assert.Equal(t, 1.0, res.RsRso, "Rs 2.450 above the humid-air Rso is limited to 1")
+
+	// Drier, cleaner, higher sun -> more clear-sky radiation.
+	base := RsoFull(3, 95, 1.5, 0.8, 1)
+	assert.Greater(t, RsoFull(3, 95, 0.5, 0.8, 1), base, "drier air")
+	assert.Less(t, RsoFull(3, 95, 1.5, 0.8, 0.5), base, "turbid air")
+	assert.Less(t, RsoFull(3, 95, 1.5, 0.4, 1), base, "lower sun")
+	assert.Greater(t, RsoFull(3, 80, 1.5, 0.8, 1), base, "less air mass at altitude")
+	assert.InDelta(t, 0.75, base/3, 0.1, "close to the simple form's 0.75 Ra")
+	assert.Zero(t, RsoFull(0, 95, 1.5, 0.8, 1))
+	assert.Greater(t, RsoFull(0.2, 101, 2, -0.1, 1), 0.0, "sun below the horizon at mid-period but Ra > 0 stays finite")
+
+	// Daily form with sin φ24 (eq. D.5): within 10 % of the simple form for
+	// FAO-56 Example 18's day (common practice, no source).
+	d := DayWeather{Date: time.Date(2001, 7, 6, 0, 0, 0, 0, time.UTC), TMax: 21.5, TMin: 12.3, Humidity: HumidityRHMaxMin, RHMax: 84, RHMin: 63, Wind2: 2.078, Solar: 22.07}
+	simple, err := Daily(Station{Latitude: 50.8, Elevation: 100}, FAO56, d)
+	require.NoError(t, err)
+	full, err := Daily(Station{Latitude: 50.8, Elevation: 100, ClearSky: ClearSkyFull}, FAO56, d)
+	require.NoError(t, err)
+	assert.InEpsilon(t, simple.Rso, full.Rso, 0.10)
+}
+
+func TestDailyRejectsBadInput(t *testing.T) {
+	st := Station{Latitude: 50.8, Elevation: 100}
+	good := DayWeather{Date: time.Date(2001, 7, 6, 0, 0, 0, 0, time.UTC), TMax: 21.5, TMin: 12.3, Humidity: HumidityEa, Ea: 1.4, Wind2: 2, Solar: 22}
+	cases := []struct {
+		edit func(*DayWeather)
+		msg  string
+	}{
+		{func(d *DayWeather) { d.TMax = math.NaN() }, "maximum air temperature: NaN"},
+		{func(d *DayWeather) { d.TMin = 30 }, "minimum air temperature 30 degC above maximum 21.5 degC"},
+		{func(d *DayWeather) { d.Wind2 = -2 }, "wind speed at 2 m: -2 m/s"},
+		{func(d *DayWeather) { d.Solar = 60 }, "solar radiation: 60 MJ/m2/d"},
+		{func(d *DayWeather) { d.Humidity = "" }, `humidity source ""`},
+		{func(d *DayWeather) { d.Humidity, d.RHMax, d.RHMin = HumidityRHMaxMin, 130, 50 }, "maximum relative humidity: 130 %"},
+		{func(d *DayWeather) { d.Humidity, d.RHMean = HumidityRHMean, math.Inf(1) }, "mean relative humidity: +Inf"},
+		{func(d *DayWeather) { d.Humidity, d.DewPoint = HumidityDewPoint, 300 }, "dew point: 300 degC"},
+		{func(d *DayWeather) { d.Ea = 5 }, "actual vapour pressure: 5 kPa exceeds saturation"},
+		{func(d *DayWeather) { d.SoilHeat = math.NaN() }, "soil heat flux: NaN"},
+	}
+	for _, c := range cases {
+		d := good
+		c.edit(&d)
+		_, err := Daily(st, Short, d)
+		require.Error(t, err, c.msg)
+		assert.ErrorIs(t, err, ErrInput)
+		assert.Contains(t, err.Error(), c.msg)
+	}
+	_, err := Daily(st, "grass", good)
+	assert.ErrorIs(t, err, ErrConfig)
+
+	// Tall and short daily constants (ASCE-EWRI 2005 Table 1, from memory).
+	s, err := Daily(st, Short, good)
+	require.NoError(t, err)
+	tall, err := Daily(st, Tall, good)
+	require.NoError(t, err)
+	assert.Equal(t, [2]float64{900, 0.34}, [2]float64{s.Cn, s.Cd})
+	assert.Equal(t, [2]float64{1600, 0.38}, [2]float64{tall.Cn, tall.Cd})
+	assert.Greater(t, tall.ET, s.ET)
+}
