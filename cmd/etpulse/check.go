@@ -2,12 +2,69 @@ package main
 
 import (
 	"context"
+	"errors"
+	"flag"
 	"fmt"
 	"io"
+
+	"etpulse/gateway/config"
+	"etpulse/gateway/ingest"
+	"etpulse/gateway/mqtt"
 )
 
-// TEMPORARY: replaced by the command's implementation.
-func runCheck(ctx context.Context, args []string, stdin io.Reader, stdout, stderr io.Writer) int {
-	fmt.Fprintln(stderr, "etpulse: not implemented yet")
-	return exitError
+// runCheck validates a configuration file. It prints a summary and exits 0
+// when the file is valid, or prints every problem and exits 2. Things that
+// can only be checked on this machine (the broker password's source, TLS
+// files) are reported as warnings and do not change the exit code, so the
+// command also works as a systemd ExecStartPre on a machine without them.
+func runCheck(_ context.Context, args []string, _ io.Reader, stdout, stderr io.Writer) int {
+	fs := flag.NewFlagSet("check", flag.ContinueOnError)
+	fs.SetOutput(stderr)
+	path := fs.String("config", "", "configuration `file` (YAML) to validate")
+	quiet := fs.Bool("quiet", false, "print nothing when the configuration is valid")
+	fs.Usage = func() {
+		fmt.Fprintln(stderr, "usage: etpulse check --config FILE [--quiet]")
+		fmt.Fprintln(stderr)
+		fmt.Fprintln(stderr, "Validates the configuration and prints a summary; exits 2 listing every problem.")
+		fs.PrintDefaults()
+	}
+	if err := fs.Parse(args); err != nil {
+		if errors.Is(err, flag.ErrHelp) {
+			return exitOK
+		}
+		return exitUsage
+	}
+	if *path == "" || fs.NArg() > 0 {
+		fs.Usage()
+		return exitUsage
+	}
+
+	cfg, err := config.Load(*path)
+	if err != nil {
+		var ve *config.ValidationError
+		if errors.As(err, &ve) {
+			fmt.Fprintf(stderr, "%s: %d problem(s):\n", *path, len(ve.Problems))
+			for _, p := range ve.Problems {
+				fmt.Fprintf(stderr, "  %s\n", p)
+			}
+		} else {
+			fmt.Fprintf(stderr, "%s: %v\n", *path, err)
+		}
+		return exitUsage
+	}
+	if _, err := ingest.NewRouter(cfg); err != nil {
+		fmt.Fprintf(stderr, "%s: %v\n", *path, err)
+		return exitUsage
+	}
+	if !*quiet {
+		fmt.Fprintf(stdout, "%s: configuration is valid\n\n", *path)
+		if err := cfg.Summary(stdout); err != nil {
+			fmt.Fprintf(stderr, "etpulse check: %v\n", err)
+			return exitError
+		}
+	}
+	if _, err := mqtt.OptionsFromConfig(cfg.Broker); err != nil {
+		fmt.Fprintf(stderr, "warning: %v (needed by 'etpulse run' on this machine)\n", err)
+	}
+	return exitOK
 }

@@ -1,0 +1,195 @@
+package config
+
+import (
+	"fmt"
+	"io"
+	"math"
+	"strings"
+	"text/tabwriter"
+
+	"etpulse/hourly"
+)
+
+// Summary writes a human-readable overview of the configuration: the
+// broker, each site with its stations (coordinates, reference, timing) and
+// their sensors (topic, format, quantity, unit), and the zone and water
+// source counts. Secrets are shown by source only.
+func (c *Config) Summary(w io.Writer) error {
+	ew := &errWriter{w: w}
+	b := c.Broker
+	ew.printf("broker    %s\n", b.URL)
+	ew.printf("          client id %s, user %s, password %s, tls %s\n",
+		b.ClientID, orNone(b.Username), b.Password, tlsSummary(b))
+	ew.printf("          keepalive %s, connect timeout %s, max in-flight %d, max payload %d bytes\n",
+		fmtDur(b.KeepAlive.D()), fmtDur(b.ConnectTimeout.D()), b.MaxInflight, b.MaxPayloadBytes)
+	ew.printf("state     %s\n", c.State.Path)
+
+	stations, sensors := 0, 0
+	for _, s := range c.Sites {
+		stations += len(s.Stations)
+		for _, st := range s.Stations {
+			sensors += len(st.Sensors)
+		}
+	}
+	ew.printf("sites     %d, stations %d, sensor topics %d\n", len(c.Sites), stations, sensors)
+	for _, s := range c.Sites {
+		ew.printf("\nsite %s: %d station(s), %d zone(s), %d water source(s)\n", s.ID, len(s.Stations), len(s.Zones), len(s.Sources))
+		for i := range s.Stations {
+			st := &s.Stations[i]
+			ew.printf("  station %s  %s %s  %g m  UTC%s  reference %s  clear sky %s\n",
+				st.ID, latitude(st.Latitude), longitude(st.Longitude), st.Elevation, offset(st.UTCOffset),
+				referenceName(st.Reference), st.ClearSky)
+			ew.printf("    wind sensor at %g m, min coverage %g%%, close grace %s, late window %s, silence close %s, max future %s\n",
+				st.WindHeight, st.MinCoverage*100, fmtDur(st.CloseGrace.D()), fmtDur(st.LateWindow.D()),
+				fmtDur(st.SilenceClose.D()), fmtDur(st.MaxFuture.D()))
+			tw := tabwriter.NewWriter(ew, 2, 4, 2, ' ', 0)
+			fmt.Fprintln(tw, "    sensor\ttopic\tformat\tkey\tquantity\tunit\tnotes")
+			for _, sn := range st.Sensors {
+				chs := sn.Channels()
+				for i, k := range SortedKeys(chs) {
+					ch := chs[k]
+					key := k
+					switch {
+					case sn.Format == FormatJSON:
+						key = sn.ValueKey
+					case key == "":
+						key = "-"
+					}
+					id, topic, format := sn.ID, sn.Topic, string(sn.Format)
+					if i > 0 { // further channels of the same payload
+						id, topic, format = "", "", ""
+					}
+					fmt.Fprintf(tw, "    %s\t%s\t%s\t%s\t%s\t%s\t%s\n", id, topic, format, key, ch.Quantity, unitName(ch), notes(sn, ch, i == 0))
+				}
+			}
+			if err := tw.Flush(); err != nil {
+				return fmt.Errorf("config summary: %w", err)
+			}
+		}
+	}
+	if ew.err != nil {
+		return fmt.Errorf("config summary: %w", ew.err)
+	}
+	return nil
+}
+
+func notes(sn Sensor, ch Channel, first bool) string {
+	var n []string
+	if ch.Quantity == hourly.Rain {
+		switch ch.RainMode {
+		case RainTips:
+			n = append(n, fmt.Sprintf("tips x %g mm", ch.MMPerTip))
+		case RainCounter:
+			if ch.MMPerTip > 0 {
+				n = append(n, fmt.Sprintf("counter of tips x %g mm", ch.MMPerTip))
+			} else {
+				n = append(n, "counter")
+			}
+			if ch.RolloverAt > 0 {
+				n = append(n, fmt.Sprintf("wraps at %g", ch.RolloverAt))
+			}
+		default:
+			n = append(n, "increment")
+		}
+	}
+	if !first {
+		return strings.Join(n, "; ")
+	}
+	if sn.TimeKey != "" {
+		n = append(n, "time key "+sn.TimeKey)
+	}
+	if len(sn.Ignore) > 0 {
+		n = append(n, "ignores "+strings.Join(sn.Ignore, ","))
+	}
+	return strings.Join(n, "; ")
+}
+
+func unitName(ch Channel) string {
+	if ch.Unit == "" && ch.Quantity == hourly.Rain && ch.MMPerTip > 0 {
+		return "tips"
+	}
+	return ch.Unit
+}
+
+func referenceName(r hourly.Reference) string {
+	switch r {
+	case hourly.Short:
+		return "short (ETos)"
+	case hourly.Tall:
+		return "tall (ETrs)"
+	case hourly.FAO56:
+		return "fao56 (ETo)"
+	}
+	return string(r)
+}
+
+func tlsSummary(b Broker) string {
+	if !b.TLSScheme() {
+		return "off"
+	}
+	var parts []string
+	if b.TLS.CAFile != "" {
+		parts = append(parts, "ca "+b.TLS.CAFile)
+	} else {
+		parts = append(parts, "system roots")
+	}
+	if b.TLS.CertFile != "" {
+		parts = append(parts, "client cert "+b.TLS.CertFile)
+	}
+	if b.TLS.InsecureSkipVerify {
+		parts = append(parts, "NOT VERIFYING the server certificate")
+	}
+	return "on (" + strings.Join(parts, ", ") + ")"
+}
+
+func orNone(s string) string {
+	if s == "" {
+		return "(none)"
+	}
+	return s
+}
+
+func latitude(v float64) string {
+	if v < 0 {
+		return fmt.Sprintf("%.4f S", -v)
+	}
+	return fmt.Sprintf("%.4f N", v)
+}
+
+func longitude(v float64) string {
+	if v < 0 {
+		return fmt.Sprintf("%.4f W", -v)
+	}
+	return fmt.Sprintf("%.4f E", v)
+}
+
+func offset(h float64) string {
+	sign := "+"
+	if h < 0 {
+		sign = "-"
+	}
+	a := math.Abs(h)
+	hh := int(a)
+	mm := int(math.Round((a - float64(hh)) * 60))
+	if mm == 0 {
+		return fmt.Sprintf("%s%d", sign, hh)
+	}
+	return fmt.Sprintf("%s%d:%02d", sign, hh, mm)
+}
+
+// errWriter remembers the first write error.
+type errWriter struct {
+	w   io.Writer
+	err error
+}
+
+func (e *errWriter) Write(p []byte) (int, error) {
+	if e.err != nil {
+		return 0, e.err
+	}
+	n, err := e.w.Write(p)
+	e.err = err
+	return n, err
+}
+
+func (e *errWriter) printf(format string, args ...any) { fmt.Fprintf(e, format, args...) }
