@@ -135,10 +135,23 @@ func (s *Server) Addr() string {
 	}
 }
 
-// Run serves until ctx is cancelled, then shuts down gracefully.
+// Run serves until ctx is cancelled, then shuts down gracefully. When the
+// address cannot be bound (e.g. the previous process still holds it), Run
+// logs the error and tries again with a growing pause (up to a minute)
+// rather than stopping the gateway: the operational endpoints must never
+// take the irrigation schedule down with them.
 func (s *Server) Run(ctx context.Context) error {
-	if err := s.Listen(); err != nil {
-		return err
+	for pause := time.Second; ; pause = min(2*pause, time.Minute) {
+		err := s.Listen()
+		if err == nil {
+			break
+		}
+		s.log.Error("metrics and health endpoints unavailable; retrying", "err", err, "in", pause)
+		select {
+		case <-ctx.Done():
+			return nil
+		case <-time.After(pause):
+		}
 	}
 	s.log.Info("metrics and health listening", "addr", s.ln.Addr().String())
 	errc := make(chan error, 1)

@@ -5,10 +5,12 @@ import (
 	"context"
 	"errors"
 	"io"
+	"log/slog"
 	"net/http"
 	"os/exec"
 	"path/filepath"
 	"strings"
+	"sync"
 	"sync/atomic"
 	"testing"
 	"time"
@@ -164,4 +166,53 @@ func TestMetricsScrapeIsClean(t *testing.T) {
 		t.Fatalf("promtool check metrics: %s", out)
 	}
 	require.NoError(t, err)
+}
+
+func TestRunRetriesABusyAddress(t *testing.T) {
+	busy := New(Options{Addr: "127.0.0.1:0", Gatherer: prometheus.NewRegistry()})
+	require.NoError(t, busy.Listen())
+	addr := busy.Addr()
+
+	var logs syncBuffer
+	s := New(Options{Addr: addr, Gatherer: prometheus.NewRegistry(), Logger: slog.New(slog.NewTextHandler(&logs, nil))})
+	ctx, cancel := context.WithCancel(context.Background())
+	done := make(chan error, 1)
+	go func() { done <- s.Run(ctx) }()
+	require.Eventually(t, func() bool { return strings.Contains(logs.String(), "unavailable; retrying") }, 20*time.Second, 10*time.Millisecond)
+	assert.Empty(t, s.Addr())
+	require.NoError(t, busy.ln.Close()) // the old holder goes away
+	require.Eventually(t, func() bool { return s.Addr() == addr }, 20*time.Second, 50*time.Millisecond)
+	code, _ := get(t, "http://"+addr+"/healthz")
+	assert.Equal(t, http.StatusOK, code)
+	cancel()
+	require.NoError(t, <-done)
+
+	// Cancelled while still waiting for the address: returns without error.
+	blocker := New(Options{Addr: "127.0.0.1:0"})
+	require.NoError(t, blocker.Listen())
+	defer blocker.ln.Close()
+	s2 := New(Options{Addr: blocker.Addr()})
+	ctx2, cancel2 := context.WithCancel(context.Background())
+	go func() { done <- s2.Run(ctx2) }()
+	cancel2()
+	require.NoError(t, <-done)
+	assert.Empty(t, s2.Addr())
+}
+
+// syncBuffer is a bytes.Buffer safe for the logger's goroutine and the test's.
+type syncBuffer struct {
+	mu sync.Mutex
+	b  bytes.Buffer
+}
+
+func (b *syncBuffer) Write(p []byte) (int, error) {
+	b.mu.Lock()
+	defer b.mu.Unlock()
+	return b.b.Write(p)
+}
+
+func (b *syncBuffer) String() string {
+	b.mu.Lock()
+	defer b.mu.Unlock()
+	return b.b.String()
 }
