@@ -44,5 +44,5 @@ func TestZonesExample(t *testing.T) {
 	assert.Equal(t, controllers.Sprinkler, cz.System.Kind)
 	assert.True(t, paddock.AcceptsReference("short"))
 	assert.False(t, paddock.AcceptsReference("tall"))
-	assert.Equal(t, controllers.Source{ID: "river-pump", MaxValves: 2, MaxFlow: 3600}, site.Sources[0].Controller())
+	assert.Equal(t, controllers.Source{ID: "river-pump", MaxValves: 2, MaxFlow: 4000}, site.Sources[0].Controller())
 }

@@ -646,88 +646,98 @@ func (s *Service) onReport(ref *zoneRef) func(mqtt.Message) {
 			m.Ack()
 			return
 		}
-		var events []Event
-		var level controllers.State
-		credited := false
-		err = s.o.DB.Update(func(tx *bbolt.Tx) error {
-			b, err := openBuckets(tx)
-			if err != nil {
-				return err
-			}
-			var c controllers.Command
-			ok, err := getJSON(b.ledger, key(ref.site, r.ID), &c)
-			if err != nil {
-				return err
-			}
-			if !ok || c.Zone != ref.id {
-				s.m.badReports.Inc()
-				s.log.Warn("valve report for an unknown command", "site", ref.site, "zone", ref.id, "id", r.ID, "state", r.State)
-				return nil
-			}
-			out, err := c.Apply(r, now)
-			if err != nil {
-				s.m.badReports.Inc()
-				s.log.Warn("valve report refused", "site", ref.site, "zone", ref.id, "id", r.ID, "err", err)
-				return nil
-			}
-			if err := s.enqueue(tx, reportPoint(ref.site, ref.id, r, out, now)); err != nil {
-				return err
-			}
-			cc := c
-			events = append(events, Event{Time: now, Site: ref.site, Zone: ref.id, Kind: EventReport, Command: &cc, Text: string(r.State)})
-			switch {
-			case out.Duplicate:
-				s.m.command(ref.site, ref.id, "duplicate")
-			case r.State == controllers.ReportFailed:
-				s.m.command(ref.site, ref.id, "failed")
-				s.log.Warn("valve run failed", "site", ref.site, "zone", ref.id, "id", r.ID, "reason", r.Reason, "minutes_run", r.MinutesRun)
-				if err := s.enqueue(tx, alertPoint(ref.site, ref.id, "valve-failed", true, now, c.ID+": "+r.Reason)); err != nil {
-					return err
-				}
-			case r.State == controllers.ReportFinished:
-				s.m.command(ref.site, ref.id, "reported")
-			}
-			if out.Changed {
-				if err := putJSON(b.ledger, key(ref.site, c.ID), c); err != nil {
-					return err
-				}
-			}
-			if !out.Credit {
-				return nil
-			}
-			zr, err := s.loadZone(b, ref)
-			if err != nil {
-				return err
-			}
-			step, err := ref.z.Credit(&zr.State, c.ID, out.CreditMM, now)
-			if err != nil {
-				return err
-			}
-			if err := putJSON(b.state, key(ref.site, ref.id), zr); err != nil {
-				return err
-			}
-			if err := s.enqueue(tx, stepPoint(ref.site, step)); err != nil {
-				return err
-			}
-			level, credited = zr.State, true
-			events = append(events, Event{Time: now, Site: ref.site, Zone: ref.id, Kind: EventCredited, Command: &cc, Step: &step})
-			return nil
-		})
-		if err != nil {
+		if err := s.applyReport(ref, r, now); err != nil {
 			// Not acknowledged: the broker redelivers it.
 			s.log.Error("valve report not stored", "site", ref.site, "zone", ref.id, "id", r.ID, "err", err)
 			return
 		}
 		m.Ack()
-		if credited {
-			s.m.setLevels(ref, &level, now)
-			s.log.Info("irrigation credited", "site", ref.site, "zone", ref.id, "id", r.ID, "depletion_mm", level.Depletion)
-		}
-		for _, e := range events {
-			s.emit(e)
-		}
 		s.poke()
 	}
+}
+
+// applyReport applies one decoded report at now in one transaction. Reports
+// that cannot apply (unknown id, contradiction) are logged and counted, not
+// returned as errors; only storage errors are.
+func (s *Service) applyReport(ref *zoneRef, r controllers.Report, now time.Time) error {
+	var events []Event
+	var level controllers.State
+	credited := false
+	err := s.o.DB.Update(func(tx *bbolt.Tx) error {
+		b, err := openBuckets(tx)
+		if err != nil {
+			return err
+		}
+		var c controllers.Command
+		ok, err := getJSON(b.ledger, key(ref.site, r.ID), &c)
+		if err != nil {
+			return err
+		}
+		if !ok || c.Zone != ref.id {
+			s.m.badReports.Inc()
+			s.log.Warn("valve report for an unknown command", "site", ref.site, "zone", ref.id, "id", r.ID, "state", r.State)
+			return nil
+		}
+		out, err := c.Apply(r, now)
+		if err != nil {
+			s.m.badReports.Inc()
+			s.log.Warn("valve report refused", "site", ref.site, "zone", ref.id, "id", r.ID, "err", err)
+			return nil
+		}
+		if err := s.enqueue(tx, reportPoint(ref.site, ref.id, r, out, now)); err != nil {
+			return err
+		}
+		cc := c
+		events = append(events, Event{Time: now, Site: ref.site, Zone: ref.id, Kind: EventReport, Command: &cc, Text: string(r.State)})
+		switch {
+		case out.Duplicate:
+			s.m.command(ref.site, ref.id, "duplicate")
+		case r.State == controllers.ReportFailed:
+			s.m.command(ref.site, ref.id, "failed")
+			s.log.Warn("valve run failed", "site", ref.site, "zone", ref.id, "id", r.ID, "reason", r.Reason, "minutes_run", r.MinutesRun)
+			if err := s.enqueue(tx, alertPoint(ref.site, ref.id, "valve-failed", true, now, c.ID+": "+r.Reason)); err != nil {
+				return err
+			}
+		case r.State == controllers.ReportFinished:
+			s.m.command(ref.site, ref.id, "reported")
+		}
+		if out.Changed {
+			if err := putJSON(b.ledger, key(ref.site, c.ID), c); err != nil {
+				return err
+			}
+		}
+		if !out.Credit {
+			return nil
+		}
+		zr, err := s.loadZone(b, ref)
+		if err != nil {
+			return err
+		}
+		step, err := ref.z.Credit(&zr.State, c.ID, out.CreditMM, now)
+		if err != nil {
+			return err
+		}
+		if err := putJSON(b.state, key(ref.site, ref.id), zr); err != nil {
+			return err
+		}
+		if err := s.enqueue(tx, stepPoint(ref.site, step)); err != nil {
+			return err
+		}
+		level, credited = zr.State, true
+		events = append(events, Event{Time: now, Site: ref.site, Zone: ref.id, Kind: EventCredited, Command: &cc, Step: &step})
+		return nil
+	})
+	if err != nil {
+		return fmt.Errorf("apply report %s: %w", r.ID, err)
+	}
+	if credited {
+		s.m.setLevels(ref, &level, now)
+		s.log.Info("irrigation credited", "site", ref.site, "zone", ref.id, "id", r.ID, "depletion_mm", level.Depletion)
+	}
+	for _, e := range events {
+		s.emit(e)
+	}
+	return nil
 }
 
 // onHold applies hold requests of a site and answers them.

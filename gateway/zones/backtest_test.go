@@ -1,0 +1,83 @@
+package zones
+
+import (
+	"bytes"
+	"math"
+	"path/filepath"
+	"testing"
+	"time"
+
+	"github.com/stretchr/testify/assert"
+	"github.com/stretchr/testify/require"
+	"go.etcd.io/bbolt"
+
+	"etpulse/gateway/config"
+	"etpulse/gateway/state"
+	"etpulse/hourly"
+)
+
+// syntheticHours is an invented fortnight at the example farm: a clear-sky
+// shaped reference ET (daily total about 6 mm), with a 25 mm storm on day 6.
+func syntheticHours(start time.Time, days int) []hourly.Record {
+	var out []hourly.Record
+	for h := 0; h < days*24; h++ {
+		t := start.Add(time.Duration(h) * time.Hour)
+		hour := t.Hour()
+		et := 0.0
+		if hour >= 6 && hour < 18 {
+			et = 6 * math.Pi / 24 * math.Sin(math.Pi*(float64(hour-6)+0.5)/12) // integrates to ~6 mm/day
+		}
+		rain := 0.0
+		if h/24 == 5 && hour >= 14 && hour < 19 {
+			rain = 5
+		}
+		r := record(t, et, rain)
+		r.Site = "brackenby"
+		out = append(out, r)
+	}
+	return out
+}
+
+func TestBacktestSeason(t *testing.T) {
+	cfg, err := config.Load(filepath.Join("..", "..", "testdata", "zones", "brackenby.yaml"))
+	require.NoError(t, err)
+	db, err := state.Open(filepath.Join(t.TempDir(), "bt.db"))
+	require.NoError(t, err)
+	defer db.Close()
+	bt, err := NewBacktest(cfg, db, nil)
+	require.NoError(t, err)
+
+	loc := time.FixedZone("UTC-8", -8*3600)
+	for _, rec := range syntheticHours(time.Date(2026, 7, 1, 0, 0, 0, 0, loc), 14) {
+		require.NoError(t, db.Update(func(tx *bbolt.Tx) error { return bt.HandleHour(tx, rec) }))
+		require.NoError(t, bt.Advance(rec.End))
+	}
+	rows := bt.Rows()
+	totals := bt.Totals()
+	require.Len(t, totals, 2)
+	var buf bytes.Buffer
+	require.NoError(t, WriteDays(&buf, rows))
+	require.NoError(t, WriteTotals(&buf, totals))
+	t.Log("\n" + buf.String())
+
+	for _, tot := range totals {
+		// Water is conserved over the season (FAO-56 eq. 85 summed).
+		lhs := tot.ETc - tot.EffRain - tot.CreditedMM
+		rhs := tot.EndDepletion - tot.StartDepletion - tot.Drainage
+		assert.InDelta(t, lhs, rhs, 1e-6, tot.Zone)
+		assert.Greater(t, tot.Runs, 0, "%s was watered", tot.Zone)
+		assert.Greater(t, tot.CreditedMM, 0.0, tot.Zone)
+		assert.GreaterOrEqual(t, tot.Days, 14)
+	}
+	caps := map[string]int{"pear-block-2": 540, "east-paddock": 420}
+	for _, r := range rows {
+		assert.LessOrEqual(t, r.PlannedMinutes, caps[r.Zone], "%s %s", r.Zone, r.Day)
+	}
+	// The storm day: 25 mm measured; effective 0.8 (5 - 0.5) x 5 = 18 mm.
+	for _, r := range rows {
+		if r.Day == "2026-07-06" {
+			assert.InDelta(t, 25, r.Rain, 1e-9)
+			assert.InDelta(t, 18, r.EffRain, 1e-9)
+		}
+	}
+}
