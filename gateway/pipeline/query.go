@@ -2,6 +2,7 @@ package pipeline
 
 import (
 	"encoding/json"
+	"errors"
 	"fmt"
 	"sort"
 	"time"
@@ -157,24 +158,55 @@ func (p *Pipeline) NextDeadline() time.Time {
 	return next
 }
 
-// Flush closes every hour up to the one holding the latest reading of each
-// station, as if the stations' clocks had moved on by an hour plus the grace
-// period. Replay calls it at the end of its input.
+// Flush closes every open hour up to and including the one holding each
+// station's latest reading, as if its clock had moved on by an hour plus the
+// grace, and re-emits revised hours. Replay calls it at the end of its input;
+// nothing is closed by the wall clock.
 func (p *Pipeline) Flush() ([]hourly.Record, error) {
 	p.mu.Lock()
-	var latest time.Time
+	defer p.mu.Unlock()
+	var out []hourly.Record
+	var errs []error
 	for _, st := range p.order {
-		if st.hasCursor && st.watermark.After(latest) {
-			latest = st.watermark
+		if !st.hasCursor {
+			continue
+		}
+		wm := st.hourStart(st.watermark).Add(time.Hour + st.cfg.CloseGrace.D())
+		recs, err := p.closeDue(st, wm, time.Time{})
+		out = append(out, recs...)
+		if err == nil && st.dirty {
+			recs, err = p.revise(st)
+			out = append(out, recs...)
+			st.dirty = err != nil
+		}
+		if err != nil {
+			errs = append(errs, fmt.Errorf("station %s/%s: %w", st.site, st.id, err))
 		}
 	}
+	return out, errors.Join(errs...)
+}
+
+// Revise re-emits the closed hours that received late readings, without
+// closing anything by the wall clock or pruning. Replay calls it after each
+// batch; the live gateway gets the same through Tick.
+func (p *Pipeline) Revise() ([]hourly.Record, error) {
+	p.mu.Lock()
+	defer p.mu.Unlock()
+	var out []hourly.Record
+	var errs []error
 	for _, st := range p.order {
-		if st.hasCursor && st.watermark.After(st.cursor) {
-			st.watermark = st.hourStart(st.watermark).Add(time.Hour + st.cfg.CloseGrace.D())
+		if !st.dirty {
+			continue
 		}
+		recs, err := p.revise(st)
+		out = append(out, recs...)
+		if err != nil {
+			errs = append(errs, fmt.Errorf("station %s/%s: %w", st.site, st.id, err))
+			continue
+		}
+		st.dirty = false
 	}
-	p.mu.Unlock()
-	return p.Tick(latest)
+	return out, errors.Join(errs...)
 }
 
 // Stations lists the configured stations as site/station pairs.

@@ -1,0 +1,361 @@
+// Package replay runs recorded readings through the live pipeline offline:
+// the same hour bins, closing rules and computation as the gateway, with a
+// temporary state file and no broker.
+//
+// Input is CSV with a header row naming the columns time, station, quantity,
+// value and unit (any order, extra columns ignored):
+//
+//	time                  RFC 3339 timestamp of the reading
+//	station               station id, or site/station when ids repeat across sites
+//	quantity              air_temp, rel_humidity, dew_point, vapour_pressure,
+//	                      wind, solar, rain, net_rad or soil_heat
+//	value                 decimal number
+//	unit                  a unit accepted for the quantity (hourly.UnitsFor),
+//	                      e.g. degC, degF, %, kPa, m/s, km/h, W/m2, mm, in
+//
+// Rain values are increments (fallen since the previous row of the station).
+// Rows of one quantity and station deduplicate on time. Output is one CSV row
+// per hourly record (Columns), revisions as extra rows.
+package replay
+
+import (
+	"context"
+	"encoding/csv"
+	"errors"
+	"fmt"
+	"io"
+	"log/slog"
+	"os"
+	"path/filepath"
+	"strconv"
+	"strings"
+	"time"
+
+	"etpulse/gateway/config"
+	"etpulse/gateway/ingest"
+	"etpulse/gateway/pipeline"
+	"etpulse/gateway/state"
+	"etpulse/hourly"
+)
+
+// Options configure a replay.
+type Options struct {
+	Logger *slog.Logger
+	// StatePath is the state file to use; empty means a temporary one that is
+	// removed afterwards.
+	StatePath string
+	// Handlers see every record inside its closing transaction, as in the
+	// live gateway (e.g. the zone balance).
+	Handlers []pipeline.HourHandler
+	// OnRecord is called with each record after it is written.
+	OnRecord func(hourly.Record)
+	// Progress, when set, is called with the input bytes consumed so far.
+	Progress func(n int64)
+	// MaxRowErrors stops the replay after this many bad rows; 0 means 1000.
+	MaxRowErrors int
+	// RowErrors receives one line per bad row (line number and problem); nil discards.
+	RowErrors io.Writer
+}
+
+// Summary counts what a replay did.
+type Summary struct {
+	Rows, Accepted, Duplicates, BadRows int
+	Rejected                            map[ingest.Reason]int
+	Records, Revisions, Complete        int
+}
+
+// Columns is the header of the records CSV.
+var Columns = []string{
+	"site", "station", "reference", "start_utc", "end_utc", "local_start", "revision", "complete",
+	"air_temp_c", "ea_kpa", "wind2_m_s", "solar_mj_m2", "rain_mm",
+	"ra_mj_m2", "rso_mj_m2", "rn_mj_m2", "g_mj_m2", "fcd", "fcd_source", "et_mm", "flags", "fill",
+}
+
+const batchRows = 2000
+
+// Run replays the readings CSV in through the pipeline for cfg and writes
+// the records CSV to out.
+func Run(ctx context.Context, cfg *config.Config, in io.Reader, out io.Writer, o Options) (sum Summary, err error) {
+	if o.Logger == nil {
+		o.Logger = slog.New(slog.DiscardHandler)
+	}
+	if o.MaxRowErrors <= 0 {
+		o.MaxRowErrors = 1000
+	}
+	if o.RowErrors == nil {
+		o.RowErrors = io.Discard
+	}
+	sum.Rejected = map[ingest.Reason]int{}
+	path := o.StatePath
+	if path == "" {
+		dir, err := os.MkdirTemp("", "etpulse-replay-")
+		if err != nil {
+			return sum, fmt.Errorf("replay: %w", err)
+		}
+		defer os.RemoveAll(dir)
+		path = filepath.Join(dir, "state.db")
+	}
+	db, err := state.Open(path)
+	if err != nil {
+		return sum, fmt.Errorf("replay: %w", err)
+	}
+	defer func() {
+		if cerr := db.Close(); cerr != nil && err == nil {
+			err = fmt.Errorf("replay: close state: %w", cerr)
+		}
+	}()
+	p, err := pipeline.New(cfg, pipeline.Options{DB: db, Logger: o.Logger, Handlers: o.Handlers})
+	if err != nil {
+		return sum, fmt.Errorf("replay: %w", err)
+	}
+
+	cr := &countingReader{r: in}
+	r := csv.NewReader(cr)
+	r.FieldsPerRecord = -1
+	r.ReuseRecord = true
+	w := csv.NewWriter(out)
+	if err := w.Write(Columns); err != nil {
+		return sum, fmt.Errorf("replay: write: %w", err)
+	}
+	rows, err := newRowReader(r, cfg)
+	if err != nil {
+		return sum, fmt.Errorf("replay: %w", err)
+	}
+	emit := func(recs []hourly.Record) error {
+		for _, rec := range recs {
+			if err := w.Write(recordRow(rec)); err != nil {
+				return fmt.Errorf("replay: write: %w", err)
+			}
+			sum.Records++
+			if rec.Revision > 0 {
+				sum.Revisions++
+			} else if rec.Complete {
+				sum.Complete++
+			}
+			if o.OnRecord != nil {
+				o.OnRecord(rec)
+			}
+		}
+		w.Flush()
+		return w.Error()
+	}
+	// Batches hold consecutive rows of one station, so the clock (the
+	// station's latest reading time) suits files sorted by time or by station.
+	clock := map[string]time.Time{}
+	var batch []ingest.Reading
+	batchKey := ""
+	flush := func() error {
+		if len(batch) == 0 {
+			return nil
+		}
+		res, err := p.Ingest(clock[batchKey], batch)
+		batch = batch[:0]
+		if err != nil {
+			return fmt.Errorf("replay: %w", err)
+		}
+		sum.Accepted += res.Accepted
+		sum.Duplicates += res.Duplicates
+		for _, rj := range res.Rejected {
+			sum.Rejected[rj.Reason]++
+			fmt.Fprintf(o.RowErrors, "rejected %s reading: %v\n", rj.Reason, rj.Err)
+		}
+		if err := emit(res.Records); err != nil {
+			return err
+		}
+		revs, err := p.Revise()
+		if err != nil {
+			return fmt.Errorf("replay: %w", err)
+		}
+		if err := emit(revs); err != nil {
+			return err
+		}
+		if o.Progress != nil {
+			o.Progress(cr.n)
+		}
+		return nil
+	}
+	for {
+		if err := ctx.Err(); err != nil {
+			return sum, err
+		}
+		rd, line, err := rows.next()
+		if errors.Is(err, io.EOF) {
+			break
+		}
+		var rowErr *rowError
+		if errors.As(err, &rowErr) {
+			sum.Rows++
+			sum.BadRows++
+			fmt.Fprintf(o.RowErrors, "line %d: %v\n", line, rowErr.err)
+			if sum.BadRows >= o.MaxRowErrors {
+				return sum, fmt.Errorf("replay: stopped after %d bad rows (last at line %d: %v)", sum.BadRows, line, rowErr.err)
+			}
+			continue
+		}
+		if err != nil {
+			return sum, fmt.Errorf("replay: line %d: %w", line, err)
+		}
+		sum.Rows++
+		key := rd.Site + "/" + rd.Station
+		if key != batchKey || len(batch) >= batchRows {
+			if err := flush(); err != nil {
+				return sum, err
+			}
+			batchKey = key
+		}
+		if rd.Sample.Time.After(clock[key]) {
+			clock[key] = rd.Sample.Time
+		}
+		batch = append(batch, rd)
+	}
+	if err := flush(); err != nil {
+		return sum, err
+	}
+	recs, err := p.Flush()
+	if err != nil {
+		return sum, fmt.Errorf("replay: %w", err)
+	}
+	if err := emit(recs); err != nil {
+		return sum, err
+	}
+	if o.Progress != nil {
+		o.Progress(cr.n)
+	}
+	return sum, nil
+}
+
+type countingReader struct {
+	r io.Reader
+	n int64
+}
+
+func (c *countingReader) Read(b []byte) (int, error) {
+	n, err := c.r.Read(b)
+	c.n += int64(n)
+	return n, err
+}
+
+// rowError is a bad input row; the replay counts it and goes on.
+type rowError struct{ err error }
+
+func (e *rowError) Error() string { return e.err.Error() }
+
+type stationRef struct{ site, station string }
+
+// rowReader turns CSV rows into readings.
+type rowReader struct {
+	r        *csv.Reader
+	col      map[string]int
+	stations map[string]stationRef // "station" (when unique) and "site/station"
+}
+
+func newRowReader(r *csv.Reader, cfg *config.Config) (*rowReader, error) {
+	head, err := r.Read()
+	if err != nil {
+		if errors.Is(err, io.EOF) {
+			return nil, errors.New("readings csv: empty input, want a header row")
+		}
+		return nil, fmt.Errorf("readings csv: header: %w", err)
+	}
+	rr := &rowReader{r: r, col: map[string]int{}, stations: map[string]stationRef{}}
+	for i, h := range head {
+		rr.col[strings.ToLower(strings.TrimSpace(strings.TrimPrefix(h, "\ufeff")))] = i
+	}
+	for _, c := range []string{"time", "station", "quantity", "value", "unit"} {
+		if _, ok := rr.col[c]; !ok {
+			return nil, fmt.Errorf("readings csv: header %q lacks column %q (want time, station, quantity, value, unit)", strings.Join(head, ","), c)
+		}
+	}
+	count := map[string]int{}
+	for _, site := range cfg.Sites {
+		for _, st := range site.Stations {
+			count[st.ID]++
+			rr.stations[site.ID+"/"+st.ID] = stationRef{site.ID, st.ID}
+		}
+	}
+	for _, site := range cfg.Sites {
+		for _, st := range site.Stations {
+			if count[st.ID] == 1 {
+				rr.stations[st.ID] = stationRef{site.ID, st.ID}
+			}
+		}
+	}
+	return rr, nil
+}
+
+// next returns the next reading, a *rowError for a bad row, or io.EOF.
+func (rr *rowReader) next() (ingest.Reading, int, error) {
+	rec, err := rr.r.Read()
+	if err != nil {
+		var pe *csv.ParseError
+		if errors.As(err, &pe) {
+			return ingest.Reading{}, pe.StartLine, &rowError{err}
+		}
+		return ingest.Reading{}, 0, err
+	}
+	line, _ := rr.r.FieldPos(0)
+	get := func(c string) string {
+		i := rr.col[c]
+		if i >= len(rec) {
+			return ""
+		}
+		return strings.TrimSpace(rec[i])
+	}
+	bad := func(format string, args ...any) (ingest.Reading, int, error) {
+		return ingest.Reading{}, line, &rowError{fmt.Errorf(format, args...)}
+	}
+	at, err := time.Parse(time.RFC3339Nano, get("time"))
+	if err != nil {
+		return bad("time: %q is not an RFC 3339 time", get("time"))
+	}
+	ref, ok := rr.stations[get("station")]
+	if !ok {
+		return bad("station: %q is not in the configuration (use site/station when ids repeat)", get("station"))
+	}
+	q := hourly.Quantity(get("quantity"))
+	rng, known := ingest.PhysicalRanges[q]
+	if !known {
+		return bad("quantity: %q is not one of %v", q, hourly.Quantities)
+	}
+	raw, err := strconv.ParseFloat(get("value"), 64)
+	if err != nil {
+		return bad("value: %q is not a number", get("value"))
+	}
+	v, err := hourly.ToCanonical(q, get("unit"), raw)
+	if err != nil {
+		return bad("%s: unit %q is not one of %v, or value %q is not finite", q, get("unit"), hourly.UnitsFor(q), get("value"))
+	}
+	if v < rng.Min || v > rng.Max {
+		return bad("%s: %g %s outside %g..%g %s", q, raw, get("unit"), rng.Min, rng.Max, hourly.CanonicalUnit(q))
+	}
+	return ingest.Reading{Site: ref.site, Station: ref.station, Sample: hourly.Sample{
+		Sensor: "csv." + string(q), Quantity: q, Time: at.UTC(), Value: v,
+	}}, line, nil
+}
+
+func recordRow(rec hourly.Record) []string {
+	f := func(v float64) string { return strconv.FormatFloat(v, 'f', 4, 64) }
+	row := []string{
+		rec.Site, rec.Station, string(rec.Reference),
+		rec.Start.UTC().Format(time.RFC3339), rec.End.UTC().Format(time.RFC3339), rec.LocalStart,
+		strconv.Itoa(rec.Revision), strconv.FormatBool(rec.Complete),
+	}
+	has := func(q hourly.Quantity) bool { s, ok := rec.Stats[q]; return ok && s.Count > 0 }
+	opt := func(ok bool, v float64) string {
+		if !ok {
+			return ""
+		}
+		return f(v)
+	}
+	hum := has(hourly.RelHumidity) || has(hourly.DewPoint) || has(hourly.VapourPressure)
+	row = append(row,
+		opt(has(hourly.AirTemp), rec.Inputs.AirTemp), opt(hum, rec.Inputs.Ea),
+		opt(has(hourly.Wind), rec.Inputs.Wind2), opt(has(hourly.Solar) || rec.Fill != "", rec.Inputs.Solar),
+		f(rec.Rain))
+	if r := rec.Result; r != nil {
+		row = append(row, f(r.Ra), f(r.Rso), f(r.Rn), f(r.G), f(r.Fcd), string(r.FcdSource), f(r.ET))
+	} else {
+		row = append(row, "", "", "", "", "", "", "")
+	}
+	return append(row, strings.Join(rec.Flags, " "), rec.Fill)
+}
