@@ -158,3 +158,38 @@ func TestLocalOnlyKeepsHistoryOnly(t *testing.T) {
 	require.NoError(t, err)
 	assert.Equal(t, 1, n)
 }
+
+// gauge reads one unlabelled gauge from a registry.
+func gauge(t *testing.T, reg *prometheus.Registry, name string) float64 {
+	t.Helper()
+	mfs, err := reg.Gather()
+	require.NoError(t, err)
+	for _, mf := range mfs {
+		if mf.GetName() == name {
+			return mf.GetMetric()[0].GetGauge().GetValue()
+		}
+	}
+	t.Fatalf("no metric %s", name)
+	return 0
+}
+
+func TestStatsAndGauges(t *testing.T) {
+	db := openTestDB(t)
+	reg := prometheus.NewRegistry()
+	now := t0
+	o := openTestOutbox(t, db, OutboxOptions{Cap: 10, Registerer: reg, Clock: func() time.Time { return now }})
+	assert.Zero(t, gauge(t, reg, "etpulse_outbox_oldest_age_seconds"))
+	enqueue(t, db, o, zonePt("z1", 0, 1))
+	now = now.Add(90 * time.Second)
+	enqueue(t, db, o, zonePt("z1", 1, 1), zonePt("z1", 2, 1))
+	now = now.Add(30 * time.Second)
+	depth, oldest := o.Stats()
+	assert.Equal(t, 3, depth)
+	assert.Equal(t, 120*time.Second, oldest)
+	assert.Equal(t, 3.0, gauge(t, reg, "etpulse_outbox_depth"))
+	assert.Equal(t, 120.0, gauge(t, reg, "etpulse_outbox_oldest_age_seconds"))
+	assert.Equal(t, 10.0, gauge(t, reg, "etpulse_outbox_cap"))
+	assert.Zero(t, gauge(t, reg, "etpulse_outbox_near_cap"))
+	enqueue(t, db, o, zonePt("z1", 3, 1), zonePt("z1", 4, 1), zonePt("z1", 5, 1), zonePt("z1", 6, 1), zonePt("z1", 7, 1))
+	assert.Equal(t, 1.0, gauge(t, reg, "etpulse_outbox_near_cap"), "8 of 10 is the near-cap mark")
+}
