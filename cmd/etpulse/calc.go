@@ -10,6 +10,8 @@ import (
 	"os"
 	"strings"
 
+	"golang.org/x/term"
+
 	"etpulse/gateway/hourcsv"
 	"etpulse/hourly"
 )
@@ -178,7 +180,11 @@ func runCalc(ctx context.Context, args []string, stdin io.Reader, stdout, stderr
 	}
 
 	input := stdin
-	if *in != "" && *in != "-" {
+	if *in == "" || *in == "-" {
+		if f, ok := stdin.(*os.File); ok && term.IsTerminal(int(f.Fd())) {
+			fmt.Fprintln(stderr, "etpulse calc: reading the weather CSV from the terminal; end with Ctrl-D, or give --in FILE")
+		}
+	} else {
 		f, err := os.Open(*in)
 		if err != nil {
 			fmt.Fprintf(stderr, "etpulse calc: %v\n", err)
