@@ -4,6 +4,7 @@ import (
 	"cmp"
 	"fmt"
 	"math"
+	"math/bits"
 	"slices"
 	"time"
 )
@@ -106,63 +107,77 @@ func AggregateHour(start time.Time, samples []Sample, opt AggregateOptions) (Agg
 	if err != nil {
 		return a, fmt.Errorf("aggregate hour: %w (%w)", err, ErrConfig)
 	}
-	end := start.Add(time.Hour)
 	a.Hour = Hour{Start: start, Length: time.Hour}
 
-	buf := make([]Sample, 0, len(samples))
-	for _, s := range samples {
-		lo, hi, known := sampleRange(s.Quantity)
+	// Pointer-free records sort without write barriers; src keeps the
+	// sensor id reachable and makes the order total (first input wins among
+	// duplicates).
+	buf := make([]binned, 0, len(samples))
+	for i, s := range samples {
+		qi, known := quantityIndex(s.Quantity)
+		lo, hi, _ := sampleRange(s.Quantity)
+		off := s.Time.Sub(start)
 		switch {
 		case !known:
 			a.Rejected = append(a.Rejected, fmt.Errorf("sample %s from %q at %s: unknown quantity: %w", s.Quantity, s.Sensor, s.Time.Format(time.RFC3339), ErrInput))
 			continue
-		case s.Time.Before(start) || !s.Time.Before(end):
+		case s.Time.Before(start) || off >= time.Hour:
 			a.Rejected = append(a.Rejected, fmt.Errorf("sample %s from %q: time %s outside hour %s: %w", s.Quantity, s.Sensor, s.Time.Format(time.RFC3339), start.Format(time.RFC3339), ErrInput))
 			continue
 		case !finite(s.Value) || s.Value < lo || s.Value > hi:
 			a.Rejected = append(a.Rejected, fmt.Errorf("sample %s from %q at %s: %v %s outside %g..%g: %w", s.Quantity, s.Sensor, s.Time.Format(time.RFC3339), s.Value, CanonicalUnit(s.Quantity), lo, hi, ErrInput))
 			continue
 		}
+		v := s.Value
 		if s.Quantity == RelHumidity {
-			s.Value = math.Min(math.Max(s.Value, 0), 100)
+			v = math.Min(math.Max(v, 0), 100)
 		}
-		buf = append(buf, s)
+		buf = append(buf, binned{q: qi, src: int32(i), off: off, v: v})
 	}
-	slices.SortStableFunc(buf, func(x, y Sample) int {
-		if c := cmp.Compare(x.Quantity, y.Quantity); c != 0 {
+	slices.SortFunc(buf, func(x, y binned) int {
+		if x.q != y.q {
+			return cmp.Compare(x.q, y.q)
+		}
+		if c := cmp.Compare(samples[x.src].Sensor, samples[y.src].Sensor); c != 0 {
 			return c
 		}
-		if c := cmp.Compare(x.Sensor, y.Sensor); c != 0 {
-			return c
+		if x.off != y.off {
+			return cmp.Compare(x.off, y.off)
 		}
-		return x.Time.Compare(y.Time)
+		return cmp.Compare(x.src, y.src)
 	})
 	n := 0
-	for i, s := range buf {
+	for i, b := range buf {
 		if i > 0 {
 			p := buf[n-1]
-			if p.Quantity == s.Quantity && p.Sensor == s.Sensor && p.Time.Equal(s.Time) {
+			if p.q == b.q && p.off == b.off && samples[p.src].Sensor == samples[b.src].Sensor {
 				a.Duplicates++
 				continue
 			}
 		}
-		buf[n] = s
+		buf[n] = b
 		n++
 	}
 	buf = buf[:n]
 
-	groups := make(map[Quantity][]Sample, 8)
+	var groups [len(quantityOrder)][]binned
 	for i := 0; i < len(buf); {
 		j := i + 1
-		for j < len(buf) && buf[j].Quantity == buf[i].Quantity {
+		for j < len(buf) && buf[j].q == buf[i].q {
 			j++
 		}
-		groups[buf[i].Quantity] = buf[i:j]
+		groups[buf[i].q] = buf[i:j]
 		i = j
 	}
-	a.Stats = make(map[Quantity]Stats, len(groups))
-	for q, g := range groups {
-		a.Stats[q] = summarise(start, g)
+	group := func(q Quantity) []binned {
+		qi, _ := quantityIndex(q)
+		return groups[qi]
+	}
+	a.Stats = make(map[Quantity]Stats, 8)
+	for qi, g := range groups {
+		if len(g) > 0 {
+			a.Stats[quantityOrder[qi]] = summarise(g)
+		}
 	}
 	covered := func(q Quantity) bool {
 		st, ok := a.Stats[q]
@@ -182,13 +197,13 @@ func AggregateHour(start time.Time, samples []Sample, opt AggregateOptions) (Agg
 	case covered(DewPoint):
 		a.Humidity = DewPoint
 		var sum float64
-		for _, s := range groups[DewPoint] {
-			sum += SatVapourPressure(s.Value) // FAO-56 eq. 14
+		for _, b := range group(DewPoint) {
+			sum += SatVapourPressure(b.v) // FAO-56 eq. 14
 		}
-		a.Hour.Ea = sum / float64(len(groups[DewPoint]))
-	case covered(RelHumidity) && len(groups[AirTemp]) > 0:
+		a.Hour.Ea = sum / float64(len(group(DewPoint)))
+	case covered(RelHumidity) && len(group(AirTemp)) > 0:
 		a.Humidity = RelHumidity
-		a.Hour.Ea = eaFromRH(groups[RelHumidity], groups[AirTemp])
+		a.Hour.Ea = eaFromRH(group(RelHumidity), group(AirTemp))
 	default:
 		missing := RelHumidity
 		for _, q := range []Quantity{VapourPressure, DewPoint} {
@@ -208,16 +223,16 @@ func AggregateHour(start time.Time, samples []Sample, opt AggregateOptions) (Agg
 
 	if covered(Solar) {
 		var sum float64
-		for _, s := range groups[Solar] {
-			sum += math.Max(s.Value, 0)
+		for _, b := range group(Solar) {
+			sum += math.Max(b.v, 0)
 		}
-		a.Hour.Solar = sum / float64(len(groups[Solar])) * WattsToMJPerHour
+		a.Hour.Solar = sum / float64(len(group(Solar))) * WattsToMJPerHour
 	} else {
 		a.Missing = append(a.Missing, Solar)
 	}
 
-	for _, s := range groups[Rain] {
-		a.Rain += s.Value
+	for _, b := range group(Rain) {
+		a.Rain += b.v
 	}
 	if st, ok := a.Stats[NetRad]; ok {
 		a.Hour.NetRad = st.Mean * WattsToMJPerHour
@@ -230,42 +245,56 @@ func AggregateHour(start time.Time, samples []Sample, opt AggregateOptions) (Agg
 	return a, nil
 }
 
-// summarise computes the Stats of one quantity's samples within the hour
-// starting at start.
-func summarise(start time.Time, g []Sample) Stats {
+// binned is one accepted sample inside the hour.
+type binned struct {
+	q   uint8         // index into quantityOrder
+	src int32         // index of the sample in the caller's slice
+	off time.Duration // time since the start of the hour
+	v   float64       // value, canonical unit
+}
+
+// quantityOrder fixes the index of each Quantity in binned.q.
+var quantityOrder = [...]Quantity{AirTemp, RelHumidity, DewPoint, VapourPressure, Wind, Solar, Rain, NetRad, SoilHeat}
+
+func quantityIndex(q Quantity) (uint8, bool) {
+	for i, x := range quantityOrder {
+		if x == q {
+			return uint8(i), true
+		}
+	}
+	return 0, false
+}
+
+// summarise computes the Stats of one quantity's samples.
+func summarise(g []binned) Stats {
 	st := Stats{Count: len(g), Min: math.Inf(1), Max: math.Inf(-1)}
 	var slots uint32
 	var sum float64
-	for _, s := range g {
-		sum += s.Value
-		st.Min = math.Min(st.Min, s.Value)
-		st.Max = math.Max(st.Max, s.Value)
-		slot := int(s.Time.Sub(start) / (time.Hour / CoverageSlots))
+	for _, b := range g {
+		sum += b.v
+		st.Min = math.Min(st.Min, b.v)
+		st.Max = math.Max(st.Max, b.v)
+		slot := int(b.off / (time.Hour / CoverageSlots))
 		slots |= 1 << uint(min(max(slot, 0), CoverageSlots-1))
 	}
 	st.Mean = sum / float64(len(g))
-	filled := 0
-	for ; slots != 0; slots &= slots - 1 {
-		filled++
-	}
-	st.Coverage = float64(filled) / CoverageSlots
+	st.Coverage = float64(bits.OnesCount32(slots)) / CoverageSlots
 	return st
 }
 
 // eaFromRH pairs each RH sample with the nearest-in-time air temperature
 // sample and returns the mean of the per-sample ea (FAO-56 eq. 54).
-func eaFromRH(rh, temps []Sample) float64 {
-	ts := make([]Sample, len(temps))
-	copy(ts, temps)
-	slices.SortStableFunc(ts, func(x, y Sample) int { return x.Time.Compare(y.Time) })
+func eaFromRH(rh, temps []binned) float64 {
+	ts := slices.Clone(temps)
+	slices.SortStableFunc(ts, func(x, y binned) int { return cmp.Compare(x.off, y.off) })
 	var sum float64
-	for _, s := range rh {
-		i, _ := slices.BinarySearchFunc(ts, s.Time, func(e Sample, t time.Time) int { return e.Time.Compare(t) })
+	for _, b := range rh {
+		i, _ := slices.BinarySearchFunc(ts, b.off, func(e binned, off time.Duration) int { return cmp.Compare(e.off, off) })
 		best := min(i, len(ts)-1)
-		if i > 0 && (i == len(ts) || s.Time.Sub(ts[i-1].Time) <= ts[i].Time.Sub(s.Time)) {
+		if i > 0 && (i == len(ts) || b.off-ts[i-1].off <= ts[i].off-b.off) {
 			best = i - 1
 		}
-		sum += SatVapourPressure(ts[best].Value) * s.Value / 100 // FAO-56 eq. 54
+		sum += SatVapourPressure(ts[best].v) * b.v / 100 // FAO-56 eq. 54
 	}
 	return sum / float64(len(rh))
 }

@@ -129,8 +129,9 @@ func checkFlux(name string, mj, hours float64) error {
 // replaces the estimate. The cloudiness function fcd is computed from Rs/Rso
 // when the sun at mid-period is above 0.3 rad and returned in the new carry;
 // otherwise the carried value is used, or, when carry is not Valid, the fcd
-// of the station's NightRsRso (FcdDefault). The caller resets carry to the
-// zero value after a gap in the data if it does not want it bridged.
+// of the station's NightRsRso (FcdDefault); a Valid carry whose Fcd lies
+// outside 0.05..1 is treated as absent and dropped. The caller resets carry
+// to the zero value after a gap in the data if it does not want it bridged.
 //
 // Result.ET keeps the value of the equation, which can be slightly negative
 // at night (dew); see Result.WaterUse.
