@@ -252,6 +252,9 @@ func senmlUnit(q hourly.Quantity, u string) (string, bool) {
 // labels change the meaning of the record and must be understood
 // (RFC 8428 section 4.4), so a record carrying one is rejected.
 func mustUnderstand(raw json.RawMessage) string {
+	if !bytes.Contains(raw, []byte(`_"`)) && !bytes.Contains(raw, []byte(`\u`)) {
+		return "" // no label can end in '_', escaped or not (cheap pre-check)
+	}
 	var labels map[string]json.RawMessage
 	if json.Unmarshal(raw, &labels) != nil {
 		return ""
@@ -360,8 +363,10 @@ func jsonNumber(raw json.RawMessage) (v float64, present bool, err error) {
 	case 't', 'f':
 		return 0, false, fmt.Errorf("want a number, got %s", truncate(string(raw), 8))
 	}
-	if err := json.Unmarshal(raw, &v); err != nil {
-		return 0, false, fmt.Errorf("want a number, got %s", truncate(string(raw), 64))
+	// raw is a JSON token already validated by the decoder: a number here.
+	v, err = parseDecimal(string(raw))
+	if err != nil {
+		return 0, false, fmt.Errorf("want a finite number, got %s", truncate(string(raw), 64))
 	}
 	return v, true, nil
 }

@@ -384,3 +384,10 @@ func BenchmarkRouteSenML(b *testing.B) {
 }
 
 func split(res result) ([]Reading, []Rejection) { return res.rds, res.rjs }
+
+func TestSenMLMustUnderstandEscaped(t *testing.T) {
+	r := newTestRouter(t)
+	// "x\u005f" is the label "x_" with its underscore escaped.
+	rejected(t, route(t, r, "bh/east/senml", `[{"n": "east:temp", "v": 1, "x\u005f": 2}]`), ReasonUnparseable,
+		`senml record 0: unsupported must-understand label "x_"`)
+}
