@@ -123,9 +123,8 @@ func TestCalcPlausible(t *testing.T) {
 		assert.Equal(t, "24", d["hours"])
 		assert.Greater(t, sum, 4.0, d["date"])
 		assert.Less(t, sum, 9.0, d["date"])
-		// Sum of hourly ETos vs daily ETos: within 10 % (ASCE-EWRI 2005
-		// reports agreement of this order for the standardized equations,
-		// from memory; the tolerance itself is common practice, no source).
+		// Sum of the hours vs the daily equation from the day's aggregates:
+		// within 10 % (common practice, no source).
 		assert.InEpsilon(t, daily, sum, 0.10, d["date"])
 	}
 	assert.Equal(t, "9.50", days[2]["rain_mm"], "rain is summed per day")

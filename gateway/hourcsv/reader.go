@@ -96,7 +96,6 @@ const (
 // concurrent use.
 type Reader struct {
 	csv        *csv.Reader
-	opt        Options
 	zone       *time.Location
 	nfields    int
 	idxTime    int
@@ -112,7 +111,6 @@ type Reader struct {
 	prev       time.Time
 	havePrev   bool
 	prevLine   int
-	headerLine int
 }
 
 // NewReader reads the header line and returns a Reader positioned at the
@@ -151,7 +149,7 @@ func NewReader(r io.Reader, opt Options) (*Reader, error) {
 		return nil, fmt.Errorf("read weather csv: %w", err)
 	}
 	line, _ := cr.FieldPos(0)
-	rd := &Reader{csv: cr, opt: opt, zone: zone, windFactor: windFactor, nfields: len(head), headerLine: line,
+	rd := &Reader{csv: cr, zone: zone, windFactor: windFactor, nfields: len(head),
 		idxTime: -1, idxTemp: -1, idxHum: -1, idxWind: -1, idxSolar: -1, idxNetRad: -1, idxSoil: -1, idxRain: -1}
 	if err := rd.mapHeader(head, line); err != nil {
 		return nil, fmt.Errorf("read weather csv: %w", err)
@@ -179,7 +177,14 @@ func (rd *Reader) mapHeader(head []string, line int) error {
 		case ColRH, ColDewPoint, ColEa:
 			humCols = append(humCols, name)
 			rd.idxHum = i
-			rd.hum = map[string]humidityKind{ColRH: humRH, ColDewPoint: humDewPoint, ColEa: humEa}[name]
+			switch name {
+			case ColRH:
+				rd.hum = humRH
+			case ColDewPoint:
+				rd.hum = humDewPoint
+			default:
+				rd.hum = humEa
+			}
 		case ColWind:
 			rd.idxWind = i
 		case ColSolar:
