@@ -38,7 +38,8 @@ func runDemo(ctx context.Context, args []string, stdin io.Reader, stdout, stderr
 		fmt.Fprintf(stderr, "etpulse demo: %v\n", err)
 		return exitUsage
 	}
-	if _, err := demo.Run(ctx, demo.RunOptions{Days: *days, Seed: *seed, Speed: *speed, Out: stdout, Logger: log}); err != nil {
+	if _, err := demo.Run(ctx, demo.RunOptions{Days: *days, Seed: *seed, Speed: *speed, Out: stdout, Logger: log,
+		Faults: demo.DriftFaults(demo.DefaultStart), Setup: demo.ShowAlerts}); err != nil {
 		if ctx.Err() != nil {
 			return exitOK
 		}
