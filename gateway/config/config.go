@@ -211,13 +211,23 @@ type Secret struct {
 // credential) is remembered only as a fact, not its value, so that
 // validation can explain the fix without echoing the secret.
 func (s *Secret) UnmarshalYAML(unmarshal func(any) error) error {
-	var inline string
-	if err := unmarshal(&inline); err == nil {
-		*s = Secret{inline: inline != ""}
+	var probe any
+	if err := unmarshal(&probe); err != nil {
+		return err
+	}
+	switch probe.(type) {
+	case nil:
+		*s = Secret{}
+		return nil
+	case map[string]any:
+		type secretSource Secret // without this method, decoded strictly
+		return unmarshal((*secretSource)(s))
+	case []any:
+		return errors.New("a secret must be {env: NAME} or {file: PATH}, got a list")
+	default:
+		*s = Secret{inline: true}
 		return nil
 	}
-	type plain Secret
-	return unmarshal((*plain)(s))
 }
 
 // IsSet reports whether a source is configured.
