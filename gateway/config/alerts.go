@@ -31,7 +31,8 @@ type Alerts struct {
 	// defaults.
 	Quantities map[hourly.Quantity]QuantityChecks `yaml:"quantities"`
 	// RHTolerance is how far above 100 % a relative humidity reading may go
-	// before it is a fault, in %. Default 3.
+	// before it is a fault, in %. Default 2. (Ingest rejects readings above
+	// 103 % outright; this check catches the band below that.)
 	RHTolerance *float64 `yaml:"rh_tolerance_pct"`
 	// DewTolerance is how far a dew point may exceed the air temperature
 	// measured at the same time, in °C. Default 1.
@@ -183,7 +184,7 @@ const (
 	DefaultAlertTopicPrefix  = "etpulse"
 	DefaultAlertUpdateEvery  = 15 * time.Minute
 	DefaultAlertClearAfter   = 30 * time.Minute
-	DefaultRHTolerance       = 3.0  // %, matches the usual ±2-3 % accuracy of capacitive RH sensors (from memory)
+	DefaultRHTolerance       = 2.0  // %, the usual ±2 % accuracy of capacitive RH sensors (from memory)
 	DefaultDewTolerance      = 1.0  // °C
 	DefaultNightSolarLimit   = 10.0 // W m-2; thermopile night offsets are a few W m-2, mostly negative (from memory)
 	DefaultNightSolarHours   = 3
@@ -214,7 +215,12 @@ func DefaultNeighbourTolerance() map[hourly.Quantity]float64 {
 }
 
 // DefaultLimits returns the default reading-level limits of q (common
-// practice, no source, except where a source is named).
+// practice, no source, except where a source is named). The spike limits
+// are of the size of the step tests for successive one-minute values in
+// WMO guidance on quality control of automatic weather station data (air
+// temperature about 3 °C, relative humidity about 10 %, wind about 20 m/s:
+// from memory); relative humidity is set looser, at 15 %, because cheap
+// sensors lag and then jump when wetted.
 func DefaultLimits(q hourly.Quantity) Limits {
 	l := Limits{Silence: 15 * time.Minute, Response: RespondKeep}
 	switch q {

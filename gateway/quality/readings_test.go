@@ -76,11 +76,11 @@ func TestSpikeCheck(t *testing.T) {
 
 func TestRHAboveSaturation(t *testing.T) {
 	c := NewReadingChecks("brackenfold", "orchard", testAlerts())
-	fs := observe(c, KindRHHigh, sample("h1", hourly.RelHumidity, 0, 101.5), sample("h1", hourly.RelHumidity, 1, 104.2))
+	fs := observe(c, KindRHHigh, sample("h1", hourly.RelHumidity, 0, 101.5), sample("h1", hourly.RelHumidity, 1, 102.6))
 	require.Len(t, fs, 2)
-	assert.Equal(t, StatusGood, fs[0].Status, "within the 3 % tolerance")
+	assert.Equal(t, StatusGood, fs[0].Status, "within the 2 % tolerance")
 	assert.Equal(t, StatusBad, fs[1].Status)
-	assert.Equal(t, "relative humidity 104.2 %, more than 3 % above saturation", fs[1].Message)
+	assert.Equal(t, "relative humidity 102.6 %, more than 2 % above saturation", fs[1].Message)
 }
 
 func TestDewPointAboveAir(t *testing.T) {
