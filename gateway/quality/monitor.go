@@ -907,11 +907,12 @@ func MarshalAlert(a Alert) ([]byte, error) {
 }
 
 // AlertPoint returns the store point of an alert event: measurement
-// sensor_alert, tags site, station, sensor, kind, quantity, severity, event;
-// fields active (bool), value, limit, message; time = the event time.
+// sensor_alert; tags site, station, sensor, quantity, kind; fields active
+// (bool: false once cleared), critical (bool), value, limit; notes (local
+// history only) event, severity, message; time = the event time.
 func AlertPoint(ev Event) store.Point {
 	a := ev.Alert
-	fields := map[string]any{"active": a.Active(), "message": a.Message}
+	fields := map[string]any{"active": a.Active(), "critical": a.Severity == SeverityCritical}
 	if v := finite(a.Value); v != nil {
 		fields["value"] = *v
 	}
@@ -920,8 +921,7 @@ func AlertPoint(ev Event) store.Point {
 	}
 	p := store.AlertPoint(a.Site, a.Station, a.Sensor, string(a.Kind), a.Updated, fields)
 	p.Tags["quantity"] = string(a.Quantity)
-	p.Tags["severity"] = string(a.Severity)
-	p.Tags["event"] = string(ev.Type)
+	p.Notes = map[string]string{"event": string(ev.Type), "severity": string(a.Severity), "message": a.Message}
 	return p
 }
 

@@ -146,8 +146,12 @@ func TestMonitorSoiledPyranometerLifecycle(t *testing.T) {
 	pts := f.alertPoints(t)
 	require.Len(t, pts, 1)
 	assert.Equal(t, store.ClassAlert, pts[0].Class)
-	assert.Equal(t, map[string]string{"site": "brackenfold", "station": "orchard", "sensor": "hourly", "kind": "solar-low", "quantity": "solar", "severity": "critical", "event": "raised"}, pts[0].Tags)
+	assert.Equal(t, map[string]string{"site": "brackenfold", "station": "orchard", "sensor": "hourly", "kind": "solar-low", "quantity": "solar"}, pts[0].Tags)
 	assert.Equal(t, true, pts[0].Fields["active"])
+	assert.Equal(t, true, pts[0].Fields["critical"])
+	assert.InDelta(t, 0.735, pts[0].Fields["value"], 0.01)
+	assert.Equal(t, "raised", pts[0].Notes["event"])
+	assert.Contains(t, pts[0].Notes["message"], "max daily Rs/Rso")
 
 	// The gate flags the next hour and excludes solar (configured response).
 	next := soiled[len(soiled)-1].Start.Add(time.Hour)
@@ -184,7 +188,7 @@ func TestMonitorSoiledPyranometerLifecycle(t *testing.T) {
 	assert.Equal(t, "", f2.pendingPublish(t)[solarLowTopic], "an empty retained message clears the topic")
 	pts = f2.alertPoints(t)
 	require.Len(t, pts, 2)
-	assert.Equal(t, "cleared", pts[1].Tags["event"])
+	assert.Equal(t, "cleared", pts[1].Notes["event"])
 	assert.Equal(t, false, pts[1].Fields["active"])
 
 	// The hours while the alert was active stay gated (revisions recompute
