@@ -39,7 +39,7 @@ type Options struct {
 	// Workers is the number of goroutines running handlers. Default 4.
 	Workers int
 
-	Logger     *slog.Logger          // nil: discard
+	Logger     *slog.Logger          // nil: discard; the caller adds its own attributes (e.g. component)
 	Registerer prometheus.Registerer // nil: metrics are not registered
 	// OnConnectionChange, when set, is called with true on every (re)connect
 	// and false on every connection loss. It must not block.
@@ -137,7 +137,7 @@ func Dial(ctx context.Context, o Options) (*Client, error) {
 	}
 	c := &Client{
 		opts:  o,
-		log:   lg.With("component", "mqtt", "broker", redactURL(o.URL), "client_id", o.ClientID),
+		log:   lg.With("broker", redactURL(o.URL), "client_id", o.ClientID),
 		m:     m,
 		subs:  map[string]subscription{},
 		queue: make(chan job, o.MaxInflight),
