@@ -88,8 +88,8 @@ Output columns (--daily):
   without rain values), rs_mj, rn_mj (sums), tmin_c, tmax_c (of the hourly
   means), ea_kpa, wind_ms (means)
 
-Exit status: 0 success (also when --skip-bad skipped rows), 1 bad data or
-unreadable input, 2 bad command line.
+Exit status: 0 success (also when --skip-bad skipped some rows), 1 bad data
+(or every row skipped) or unreadable input, 2 bad command line.
 
 Example (the bundled demo orchard, invented data; wind measured at 3 m):
   etpulse calc --in testdata/calc/halcyon-terrace.csv \
@@ -208,6 +208,10 @@ func runCalc(ctx context.Context, args []string, stdin io.Reader, stdout, stderr
 	}
 	if sum.Skipped > 0 || sum.Gaps > 0 {
 		fmt.Fprintf(stderr, "etpulse calc: %d hours computed, %d bad rows skipped, %d gaps\n", sum.Hours, sum.Skipped, sum.Gaps)
+	}
+	if sum.Hours == 0 && sum.Skipped > 0 {
+		fmt.Fprintln(stderr, "etpulse calc: no row could be computed")
+		return exitError
 	}
 	return exitOK
 }

@@ -341,6 +341,14 @@ etpulse calc: line 7: 3 hours missing before 2026-07-14T16:00: night cloudiness 
 etpulse calc: 3 hours computed, 3 bad rows skipped, 2 gaps
 `, errOut)
 
+	code, out, errOut = calc(t, "time,air_temp_c,rh_pct,wind_ms,solar_wm2\n2026-07-14T10:00,x,50,2,850\n", args...)
+	assert.Equal(t, exitError, code, "nothing computed")
+	assert.Len(t, table(t, out), 0)
+	assert.Equal(t, `etpulse calc: skipped line 2: column air_temp_c: value "x": not a number
+etpulse calc: 0 hours computed, 1 bad rows skipped, 0 gaps
+etpulse calc: no row could be computed
+`, errOut)
+
 	code, _, errOut = calc(t, in, args[:len(args)-1]...)
 	assert.Equal(t, exitError, code)
 	assert.Equal(t, "etpulse calc: line 3: column air_temp_c: value \"abc\": not a number\n", errOut)
