@@ -50,6 +50,7 @@ type RowError struct {
 	Err    error
 }
 
+// Error words the problem as "line N: column C: value "V": cause".
 func (e *RowError) Error() string {
 	if e.Column == "" {
 		return fmt.Sprintf("line %d: %v", e.Line, e.Err)
@@ -57,6 +58,7 @@ func (e *RowError) Error() string {
 	return fmt.Sprintf("line %d: column %s: value %q: %v", e.Line, e.Column, e.Value, e.Err)
 }
 
+// Unwrap returns the cause, e.g. an error wrapping hourly.ErrInput.
 func (e *RowError) Unwrap() error { return e.Err }
 
 // Options describe the station the file comes from.
