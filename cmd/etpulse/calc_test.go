@@ -419,6 +419,12 @@ func TestReadmeCalcExample(t *testing.T) {
 	readme, err := os.ReadFile("../../README.md")
 	require.NoError(t, err)
 	text := string(readme)
+	start := strings.Index(text, "## Compute ET from a weather file")
+	require.GreaterOrEqual(t, start, 0, "README has the calc section")
+	text = text[start:]
+	if end := strings.Index(text[3:], "\n## "); end >= 0 {
+		text = text[:end+3]
+	}
 	i := strings.Index(text, "go run ./cmd/etpulse calc ")
 	require.GreaterOrEqual(t, i, 0, "README shows a calc command")
 	cmdLine := strings.SplitN(strings.ReplaceAll(text[i:], "\\\n", " "), "\n", 2)[0]
