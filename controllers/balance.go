@@ -135,21 +135,28 @@ type HourInput struct {
 	HasTemp    bool
 }
 
-// InputFromRecord converts a station-hour record.
+// InputFromRecord converts a station-hour record. Wind and temperature for
+// the weather holds come from the sample statistics, so an incomplete hour
+// still has them when its sensors reported; the wind is the record's 2 m
+// wind when the hour is complete, else the mean at the sensor's height
+// (usually above 2 m, so the wind hold errs on the safe side).
 func InputFromRecord(rec hourly.Record) HourInput {
 	in := HourInput{
 		Start:    rec.Start,
 		End:      rec.End,
 		Revision: rec.Revision,
 		Rain:     rec.Rain,
-		Wind2:    rec.Inputs.Wind2,
-		AirTemp:  rec.Inputs.AirTemp,
-		HasWind:  rec.Stats[hourly.Wind].Count > 0,
-		HasTemp:  rec.Stats[hourly.AirTemp].Count > 0,
+	}
+	if st := rec.Stats[hourly.AirTemp]; st.Count > 0 {
+		in.AirTemp, in.HasTemp = st.Mean, true
+	}
+	if st := rec.Stats[hourly.Wind]; st.Count > 0 {
+		in.Wind2, in.HasWind = st.Mean, true
 	}
 	if rec.Complete && rec.Result != nil {
 		in.Valid = true
 		in.ET = rec.Result.ET
+		in.Wind2 = rec.Inputs.Wind2
 	}
 	return in
 }

@@ -5,6 +5,8 @@ import (
 
 	"github.com/stretchr/testify/assert"
 	"github.com/stretchr/testify/require"
+
+	"etpulse/hourly"
 )
 
 // The steps below follow FAO-56 eq. 85 (Dr,i = Dr,i-1 - (P-RO)i - Ii + ETc,i + DPi)
@@ -182,4 +184,24 @@ func TestCoverFactor(t *testing.T) {
 	require.NoError(t, err)
 	assert.InDelta(t, 0.7, s.ET, 1e-12)
 	assert.InDelta(t, 0.84, s.ETc, 1e-12) // 1.2 x 0.7
+}
+
+func TestInputFromRecord(t *testing.T) {
+	s, e := hourAt(0)
+	rec := hourly.Record{Start: s, End: e, Revision: 2, Rain: 1.2,
+		Stats:  map[hourly.Quantity]hourly.Stats{hourly.AirTemp: {Count: 12, Mean: 3.5}, hourly.Wind: {Count: 12, Mean: 4.1}},
+		Inputs: hourly.Hour{AirTemp: 3.5, Wind2: 3.2}}
+	// Incomplete: no ET; temperature and sensor-height wind from the statistics.
+	in := InputFromRecord(rec)
+	assert.False(t, in.Valid)
+	assert.Equal(t, HourInput{Start: s, End: e, Revision: 2, Rain: 1.2, AirTemp: 3.5, HasTemp: true, Wind2: 4.1, HasWind: true}, in)
+	// Complete: ET and the 2 m wind.
+	rec.Complete, rec.Result = true, &hourly.Result{ET: 0.42}
+	in = InputFromRecord(rec)
+	assert.True(t, in.Valid)
+	assert.Equal(t, 0.42, in.ET)
+	assert.Equal(t, 3.2, in.Wind2)
+	// No temperature samples: unknown, not 0 °C.
+	delete(rec.Stats, hourly.AirTemp)
+	assert.False(t, InputFromRecord(rec).HasTemp)
 }

@@ -2,6 +2,7 @@ package gateway
 
 import (
 	"etpulse/gateway/config"
+	"etpulse/gateway/pipeline"
 	"etpulse/gateway/store"
 	"etpulse/gateway/zones"
 )
@@ -33,3 +34,9 @@ func wireZones(cfg *config.Config, deps Deps, outbox store.Enqueuer, comp *Compo
 	comp.Services = append(comp.Services, svc)
 	return nil
 }
+
+var (
+	_ pipeline.HourHandler = (*zones.Service)(nil)
+	_ pipeline.HourHandler = (*zones.Backtest)(nil)
+	_ Service              = (*zones.Service)(nil)
+)

@@ -13,6 +13,7 @@ import (
 
 	"etpulse/gateway/config"
 	"etpulse/gateway/replay"
+	"etpulse/gateway/zones"
 )
 
 // runReplay is `etpulse replay --config FILE --in readings.csv`: recorded
@@ -23,8 +24,10 @@ func runReplay(ctx context.Context, args []string, stdin io.Reader, stdout, stde
 	cfgPath := fs.String("config", "", "configuration file (YAML)")
 	inPath := fs.String("in", "", "readings CSV (time,station,quantity,value,unit); - for stdin")
 	statePath := fs.String("state", "", "state file to keep (default: a temporary file, removed afterwards)")
+	zonesPath := fs.String("zones", "", "write the zone backtest (per zone and day: ETc, rain, runs, credited, drainage, depletion) to FILE")
+	summary := fs.Bool("summary", false, "print the season totals per zone to stderr")
 	fs.Usage = func() {
-		fmt.Fprintln(stderr, "usage: etpulse replay --config FILE --in readings.csv [--state FILE] > records.csv")
+		fmt.Fprintln(stderr, "usage: etpulse replay --config FILE --in readings.csv [--state FILE] [--zones FILE] [--summary] > records.csv")
 		fs.PrintDefaults()
 	}
 	if err := fs.Parse(args); err != nil {
@@ -56,6 +59,15 @@ func runReplay(ctx context.Context, args []string, stdin io.Reader, stdout, stde
 		in = f
 	}
 	opts := replay.Options{StatePath: *statePath, RowErrors: stderr}
+	bt, closeBT, err := zones.OpenBacktest(cfg)
+	if err != nil {
+		fmt.Fprintf(stderr, "etpulse replay: %v\n", err)
+		return exitError
+	}
+	defer closeBT()
+	if bt != nil {
+		opts.Handlers = append(opts.Handlers, bt)
+	}
 	if f, ok := stderr.(*os.File); ok && term.IsTerminal(int(f.Fd())) {
 		bar := progressbar.DefaultBytes(size, "replaying")
 		opts.Progress = func(n int64) { _ = bar.Set64(n) }
@@ -68,5 +80,11 @@ func runReplay(ctx context.Context, args []string, stdin io.Reader, stdout, stde
 	}
 	fmt.Fprintf(stderr, "etpulse replay: %d rows (%d bad, %d duplicate), %d readings stored, %d hourly records (%d complete first records, %d revisions)\n",
 		sum.Rows, sum.BadRows, sum.Duplicates, sum.Accepted, sum.Records, sum.Complete, sum.Revisions)
+	if bt != nil {
+		if err := bt.Report(*zonesPath, *summary, stderr); err != nil {
+			fmt.Fprintf(stderr, "etpulse replay: %v\n", err)
+			return exitError
+		}
+	}
 	return exitOK
 }

@@ -1,8 +1,11 @@
 package zones
 
 import (
+	"bufio"
 	"fmt"
 	"io"
+	"os"
+	"path/filepath"
 	"sort"
 	"sync"
 	"text/tabwriter"
@@ -12,6 +15,7 @@ import (
 
 	"etpulse/controllers"
 	"etpulse/gateway/config"
+	"etpulse/gateway/state"
 	"etpulse/gateway/store"
 	"etpulse/hourly"
 )
@@ -80,9 +84,9 @@ type ZoneTotals struct {
 	MissingHours                  int
 }
 
-// NewBacktest builds the zones of cfg on db (a scratch state file). pts,
-// when set, receives the step, command and report points like the live
-// gateway's outbox.
+// NewBacktest builds the zones of cfg on db, a scratch state file of its
+// own (not the pipeline's). pts, when set, receives the step, command and
+// report points like the live gateway's outbox.
 func NewBacktest(cfg *config.Config, db *bbolt.DB, pts store.Enqueuer) (*Backtest, error) {
 	b := &Backtest{clock: &backtestClock{}, days: map[string]*DayRow{}, totals: map[string]*ZoneTotals{}}
 	svc, err := New(Options{Config: cfg, DB: db, Store: pts, Clock: b.clock.Now, OnEvent: b.event})
@@ -100,10 +104,16 @@ func NewBacktest(cfg *config.Config, db *bbolt.DB, pts store.Enqueuer) (*Backtes
 	return b, nil
 }
 
-// HandleHour steps the zones inside the caller's transaction (an
-// HourHandler for the replay's pipeline). Call Advance after the commit.
-func (b *Backtest) HandleHour(tx *bbolt.Tx, rec hourly.Record) error {
-	return b.svc.HandleHour(tx, rec)
+// HandleHour is an HourHandler for the replay's pipeline: it steps the
+// zones in the backtest's own state file (the pipeline's transaction tx is
+// not used) and runs the scheduler up to the end of the hour. With several
+// stations driving zones the readings should be sorted by time: the
+// scheduler's clock only moves forward.
+func (b *Backtest) HandleHour(_ *bbolt.Tx, rec hourly.Record) error {
+	if err := b.svc.o.DB.Update(func(tx *bbolt.Tx) error { return b.svc.HandleHour(tx, rec) }); err != nil {
+		return fmt.Errorf("backtest: %w", err)
+	}
+	return b.Advance(rec.End)
 }
 
 // Advance runs the scheduler up to t: plans, sends and the simulated valve
@@ -295,4 +305,78 @@ func WriteTotals(w io.Writer, totals []ZoneTotals) error {
 			t.StartDepletion, t.EndDepletion, t.StressHours, t.FallbackHours, t.MissingHours)
 	}
 	return tw.Flush()
+}
+
+// OpenBacktest prepares a backtest of cfg's zones in a temporary state file;
+// it returns nil when cfg has no zones. Call the returned function to remove
+// the file.
+func OpenBacktest(cfg *config.Config) (*Backtest, func(), error) {
+	n := 0
+	for i := range cfg.Sites {
+		n += len(cfg.Sites[i].Zones)
+	}
+	if n == 0 {
+		return nil, func() {}, nil
+	}
+	dir, err := os.MkdirTemp("", "etpulse-zones-")
+	if err != nil {
+		return nil, nil, fmt.Errorf("open backtest: %w", err)
+	}
+	db, err := state.Open(filepath.Join(dir, "zones.db"))
+	if err != nil {
+		_ = os.RemoveAll(dir)
+		return nil, nil, fmt.Errorf("open backtest: %w", err)
+	}
+	cleanup := func() {
+		_ = db.Close()
+		_ = os.RemoveAll(dir)
+	}
+	bt, err := NewBacktest(cfg, db, nil)
+	if err != nil {
+		cleanup()
+		return nil, nil, err
+	}
+	return bt, cleanup, nil
+}
+
+// Report writes the day table to path (atomically: temp file, fsync,
+// rename) when path is set, and the season totals to w when summary is set.
+func (b *Backtest) Report(path string, summary bool, w io.Writer) error {
+	if path != "" {
+		if err := writeFileAtomic(path, func(f io.Writer) error { return WriteDays(f, b.Rows()) }); err != nil {
+			return fmt.Errorf("zone backtest: %w", err)
+		}
+	}
+	if summary {
+		if err := WriteTotals(w, b.Totals()); err != nil {
+			return fmt.Errorf("zone backtest: %w", err)
+		}
+	}
+	return nil
+}
+
+func writeFileAtomic(path string, write func(io.Writer) error) error {
+	f, err := os.CreateTemp(filepath.Dir(path), "."+filepath.Base(path)+".tmp-")
+	if err != nil {
+		return err
+	}
+	tmp := f.Name()
+	defer os.Remove(tmp)
+	bw := bufio.NewWriter(f)
+	if err := write(bw); err != nil {
+		_ = f.Close()
+		return err
+	}
+	if err := bw.Flush(); err != nil {
+		_ = f.Close()
+		return err
+	}
+	if err := f.Sync(); err != nil {
+		_ = f.Close()
+		return err
+	}
+	if err := f.Close(); err != nil {
+		return err
+	}
+	return os.Rename(tmp, path)
 }

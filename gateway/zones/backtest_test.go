@@ -3,13 +3,14 @@ package zones
 import (
 	"bytes"
 	"math"
+	"os"
 	"path/filepath"
+	"strings"
 	"testing"
 	"time"
 
 	"github.com/stretchr/testify/assert"
 	"github.com/stretchr/testify/require"
-	"go.etcd.io/bbolt"
 
 	"etpulse/gateway/config"
 	"etpulse/gateway/state"
@@ -49,8 +50,7 @@ func TestBacktestSeason(t *testing.T) {
 
 	loc := time.FixedZone("UTC-8", -8*3600)
 	for _, rec := range syntheticHours(time.Date(2026, 7, 1, 0, 0, 0, 0, loc), 14) {
-		require.NoError(t, db.Update(func(tx *bbolt.Tx) error { return bt.HandleHour(tx, rec) }))
-		require.NoError(t, bt.Advance(rec.End))
+		require.NoError(t, bt.HandleHour(nil, rec))
 	}
 	rows := bt.Rows()
 	totals := bt.Totals()
@@ -80,4 +80,37 @@ func TestBacktestSeason(t *testing.T) {
 			assert.InDelta(t, 18, r.EffRain, 1e-9)
 		}
 	}
+}
+
+func TestBacktestReportFiles(t *testing.T) {
+	cfg, err := config.Load(filepath.Join("..", "..", "testdata", "zones", "brackenby.yaml"))
+	require.NoError(t, err)
+	bt, closeBT, err := OpenBacktest(cfg)
+	require.NoError(t, err)
+	defer closeBT()
+	loc := time.FixedZone("UTC-8", -8*3600)
+	for _, rec := range syntheticHours(time.Date(2026, 7, 1, 0, 0, 0, 0, loc), 3) {
+		require.NoError(t, bt.HandleHour(nil, rec))
+	}
+	path := filepath.Join(t.TempDir(), "days.txt")
+	var sum bytes.Buffer
+	require.NoError(t, bt.Report(path, true, &sum))
+	b, err := os.ReadFile(path)
+	require.NoError(t, err)
+	lines := strings.Split(strings.TrimSpace(string(b)), "\n")
+	assert.Len(t, lines, 1+2*3, "header and one row per zone and day")
+	assert.Contains(t, lines[0], "credited_mm")
+	assert.Contains(t, sum.String(), "pear-block-2")
+	assert.Contains(t, sum.String(), "end_dep_mm")
+
+	none, closeNone, err := OpenBacktest(testConfigNoZones(t))
+	require.NoError(t, err)
+	defer closeNone()
+	assert.Nil(t, none)
+}
+
+func testConfigNoZones(t *testing.T) *config.Config {
+	c, err := config.Load(filepath.Join("..", "..", "testdata", "config", "minimal.yaml"))
+	require.NoError(t, err)
+	return c
 }

@@ -73,7 +73,7 @@ func record(start time.Time, et, rain float64) hourly.Record {
 		Site: "fernhill", Station: "mast", Reference: hourly.Short,
 		Start: start.UTC(), End: start.Add(time.Hour).UTC(), Complete: true,
 		Inputs: hourly.Hour{AirTemp: 20, Wind2: 2},
-		Stats:  map[hourly.Quantity]hourly.Stats{hourly.AirTemp: {Count: 60}, hourly.Wind: {Count: 60}},
+		Stats:  map[hourly.Quantity]hourly.Stats{hourly.AirTemp: {Count: 60, Mean: 20}, hourly.Wind: {Count: 60, Mean: 2.5}},
 		Rain:   rain,
 		Result: &hourly.Result{Reference: hourly.Short, ET: et},
 	}
