@@ -8,6 +8,7 @@ import (
 	"errors"
 	"fmt"
 	"log/slog"
+	"slices"
 	"sync"
 	"sync/atomic"
 	"time"
@@ -202,6 +203,19 @@ func (g *Gateway) Run(ctx context.Context) error {
 	intakeCtx, stopIntake := context.WithCancel(ctx)
 	defer stopIntake()
 
+	// Subscribe first: a resumed persistent session delivers its queue at
+	// once, and messages for topics not yet subscribed wait unhandled.
+	for _, f := range g.router.Filters() {
+		if err := g.deps.MQTT.Subscribe(f, 1, func(m mqtt.Message) {
+			select {
+			case g.queue <- m:
+			case <-intakeCtx.Done(): // not acknowledged: redelivered next run
+			}
+		}); err != nil {
+			return fmt.Errorf("run gateway: subscribe %s: %w", f, err)
+		}
+	}
+
 	fatal := make(chan error, len(g.comp.Services)+1)
 	var svcWG sync.WaitGroup
 	for _, s := range g.comp.Services {
@@ -214,18 +228,6 @@ func (g *Gateway) Run(ctx context.Context) error {
 		}()
 	}
 
-	for _, f := range g.router.Filters() {
-		if err := g.deps.MQTT.Subscribe(f, 1, func(m mqtt.Message) {
-			select {
-			case g.queue <- m:
-			case <-intakeCtx.Done(): // not acknowledged: redelivered next run
-			}
-		}); err != nil {
-			stopServices()
-			svcWG.Wait()
-			return fmt.Errorf("run gateway: subscribe %s: %w", f, err)
-		}
-	}
 	g.log.Info("gateway running", "topics", len(g.router.Filters()), "stations", len(g.pipe.Stations()))
 	close(g.ready)
 
@@ -286,6 +288,9 @@ const maxBatch = 512
 // intake drains the queue in batches: route, store in one transaction, ack,
 // close due hours, publish. It also wakes at the next silence deadline.
 func (g *Gateway) intake(ctx context.Context) error {
+	if err := g.startup(ctx); err != nil {
+		return err
+	}
 	batch := make([]mqtt.Message, 0, maxBatch)
 	for {
 		batch = batch[:0]
@@ -309,14 +314,47 @@ func (g *Gateway) intake(ctx context.Context) error {
 			}
 		case <-wake:
 		}
-		if err := g.step(ctx, batch); err != nil {
+		if err := g.step(ctx, batch, false); err != nil {
 			return err
 		}
 	}
 }
 
+// startup takes the messages the broker delivers as the session resumes (the
+// queue of a persistent session arrives before every topic is subscribed, so
+// topics subscribed first overtake the others) until the queue has been quiet
+// for startupQuiet, and stores them in reading-time order.
+func (g *Gateway) startup(ctx context.Context) error {
+	var batch []mqtt.Message
+	limit := time.After(startupMax)
+gather:
+	for len(batch) < 4*maxBatch {
+		select {
+		case m := <-g.queue:
+			batch = append(batch, m)
+		case <-time.After(startupQuiet):
+			break gather
+		case <-limit:
+			break gather
+		case <-ctx.Done():
+			return nil
+		}
+	}
+	if len(batch) == 0 {
+		return nil
+	}
+	g.log.Info("resumed session", "messages", len(batch))
+	return g.step(ctx, batch, true)
+}
+
+// Start-up gathering bounds, in real time.
+const (
+	startupQuiet = 100 * time.Millisecond
+	startupMax   = 2 * time.Second
+)
+
 // step handles one batch (possibly empty: a timer wake-up).
-func (g *Gateway) step(ctx context.Context, batch []mqtt.Message) error {
+func (g *Gateway) step(ctx context.Context, batch []mqtt.Message, byTime bool) error {
 	now := g.deps.Clock()
 	var readings []ingest.Reading
 	for _, m := range batch {
@@ -332,6 +370,9 @@ func (g *Gateway) step(ctx context.Context, batch []mqtt.Message) error {
 			g.pipe.Reject(now, r.Station, r)
 		}
 		readings = append(readings, rds...)
+	}
+	if byTime {
+		slices.SortStableFunc(readings, func(a, b ingest.Reading) int { return a.Sample.Time.Compare(b.Sample.Time) })
 	}
 	emitted := 0
 	if len(readings) > 0 {

@@ -8,6 +8,7 @@ import (
 	"io"
 	"log/slog"
 	"strings"
+	"sync"
 	"time"
 
 	"github.com/prometheus/client_golang/prometheus"
@@ -80,6 +81,18 @@ func daemon(ctx context.Context, cfg *config.Config, log *slog.Logger) (err erro
 	}
 	mo.Logger = log.With("component", "mqtt")
 	mo.Registerer = reg
+	// The gateway's handler only queues the message; one worker keeps the
+	// broker's order, which decides what counts as a late reading.
+	mo.Workers = 1
+	// The gateway is composed before the connection exists, so that Run
+	// subscribes right after the session resumes.
+	broker := &lateBroker{}
+	g, err := gateway.New(cfg, gateway.Deps{
+		Logger: log, Registerer: reg, Gatherer: reg, DB: db, MQTT: broker,
+	})
+	if err != nil {
+		return err
+	}
 	log.Info("connecting to broker", "url", cfg.Broker.URL, "client_id", cfg.Broker.ClientID)
 	client, err := mqtt.Dial(ctx, mo)
 	if err != nil {
@@ -90,14 +103,55 @@ func daemon(ctx context.Context, cfg *config.Config, log *slog.Logger) (err erro
 		return err
 	}
 	defer client.Close(2 * time.Second)
-
-	g, err := gateway.New(cfg, gateway.Deps{
-		Logger: log, Registerer: reg, Gatherer: reg, DB: db, MQTT: client,
-	})
-	if err != nil {
-		return err
-	}
+	broker.set(client)
 	return g.Run(ctx)
+}
+
+// lateBroker forwards to the MQTT client once it is connected.
+type lateBroker struct {
+	mu sync.Mutex
+	c  *mqtt.Client
+}
+
+var _ gateway.Broker = (*lateBroker)(nil)
+
+func (b *lateBroker) set(c *mqtt.Client) {
+	b.mu.Lock()
+	defer b.mu.Unlock()
+	b.c = c
+}
+
+func (b *lateBroker) client() (*mqtt.Client, error) {
+	b.mu.Lock()
+	defer b.mu.Unlock()
+	if b.c == nil {
+		return nil, errors.New("broker not connected yet")
+	}
+	return b.c, nil
+}
+
+// Publish forwards to the client.
+func (b *lateBroker) Publish(ctx context.Context, topic string, qos byte, retained bool, payload []byte) error {
+	c, err := b.client()
+	if err != nil {
+		return fmt.Errorf("publish %s: %w", topic, err)
+	}
+	return c.Publish(ctx, topic, qos, retained, payload)
+}
+
+// Subscribe forwards to the client.
+func (b *lateBroker) Subscribe(filter string, qos byte, handle func(mqtt.Message)) error {
+	c, err := b.client()
+	if err != nil {
+		return fmt.Errorf("subscribe %s: %w", filter, err)
+	}
+	return c.Subscribe(filter, qos, handle)
+}
+
+// Connected reports whether the client is connected (health checks).
+func (b *lateBroker) Connected() bool {
+	c, err := b.client()
+	return err == nil && c.Connected()
 }
 
 func newLogger(w io.Writer, format, level string) (*slog.Logger, error) {
