@@ -19,6 +19,7 @@ import (
 
 	"etpulse/gateway"
 	"etpulse/gateway/mqtt"
+	"etpulse/gateway/pipeline"
 	"etpulse/gateway/state"
 	"etpulse/gateway/store"
 	"etpulse/hourly"
@@ -121,9 +122,19 @@ func Run(ctx context.Context, opt RunOptions) (sum Summary, err error) {
 	clock := NewClock(sim.Start())
 	table := NewTable(opt.Out)
 	reg := prometheus.NewRegistry()
+	comps := opt.Components
+	zd, err := startZones(cfg, db, client, clock, table, opt.Logger)
+	if err != nil {
+		return sum, err
+	}
+	if zd != nil {
+		comps.Handlers = append(append([]pipeline.HourHandler(nil), comps.Handlers...), zd.svc)
+		comps.Services = append(append([]gateway.Service(nil), comps.Services...), zd.svc)
+		defer zd.close()
+	}
 	g, err := gateway.New(cfg, gateway.Deps{
 		Logger: opt.Logger, Registerer: reg, Gatherer: reg, DB: db, MQTT: client,
-		Clock: clock.Now, After: clock.After, Components: opt.Components,
+		Clock: clock.Now, After: clock.After, Components: comps,
 		OnRecord: table.Record,
 	})
 	if err != nil {
@@ -141,6 +152,11 @@ func Run(ctx context.Context, opt RunOptions) (sum Summary, err error) {
 	case <-g.Ready():
 	case err := <-runDone:
 		return sum, fmt.Errorf("demo: gateway: %w", err)
+	}
+	if zd != nil {
+		if err := zd.serveValves(runCtx, url, cfg, clock); err != nil {
+			return sum, err
+		}
 	}
 
 	end := sim.Start().Add(time.Duration(opt.Days) * 24 * time.Hour)

@@ -447,6 +447,7 @@ func (s *Sim) ConfigYAML(o ConfigOptions) string {
 				"              \"gh-a:sol\": {quantity: solar, unit: W/m2}\n")
 		}
 	}
+	b.WriteString(zonesYAML(s.o.Stations))
 	return b.String()
 }
 

@@ -33,6 +33,10 @@ type ValveSimulator struct {
 	Logger *slog.Logger
 	// Behave chooses the behaviour per command; nil: every run is normal.
 	Behave func(CommandMessage) Behaviour
+	// Clock and After, when both set, pace the reports: started at the
+	// planned start, finished when the minutes have run. Unset: at once.
+	Clock func() time.Time
+	After func(time.Duration) <-chan time.Time
 
 	mu       sync.Mutex
 	received map[string]int           // command id -> times received
@@ -135,6 +139,8 @@ func (v *ValveSimulator) handle(m mqtt.Message, reportTopic string) {
 		final := ReportMessage{ID: c.ID, State: "finished"}
 		if b.Fail {
 			minutes = b.FailAfter
+		}
+		if b.Fail {
 			final = ReportMessage{ID: c.ID, State: "failed", Reason: b.Reason}
 		}
 		final.MinutesRun = &minutes
@@ -142,10 +148,29 @@ func (v *ValveSimulator) handle(m mqtt.Message, reportTopic string) {
 			vol := minutes * b.VolumeLPerMin
 			final.VolumeL = &vol
 		}
-		v.mu.Lock()
-		v.last[c.ID] = final
-		v.mu.Unlock()
-		for _, r := range []ReportMessage{{ID: c.ID, State: "accepted"}, {ID: c.ID, State: "started"}, final} {
+		wait := func(until time.Time) {
+			if v.Clock != nil && v.After != nil {
+				if d := until.Sub(v.Clock()); d > 0 {
+					<-v.After(d)
+				}
+			}
+		}
+		start := c.Start
+		if v.Clock != nil && v.Clock().After(start) {
+			start = v.Clock()
+		}
+		for i, r := range []ReportMessage{{ID: c.ID, State: "accepted"}, {ID: c.ID, State: "started"}, final} {
+			switch i {
+			case 1:
+				wait(start)
+			case 2:
+				wait(start.Add(time.Duration(minutes * float64(time.Minute))))
+			}
+			if i == 2 {
+				v.mu.Lock()
+				v.last[c.ID] = final
+				v.mu.Unlock()
+			}
 			if err := v.publish(ctx, reportTopic, r); err != nil {
 				v.Logger.Warn("valve simulator: report not published", "id", c.ID, "err", err)
 				return

@@ -490,13 +490,16 @@ func (s *Service) tick(now time.Time) (time.Time, []outgoing, error) {
 				if stale != zr.StaleAlert {
 					zr.StaleAlert = stale
 					text := fmt.Sprintf("no valid ET for more than %d h", ref.z.FailSafe.MaxMissingHours)
+					if zr.State.LastValid.IsZero() {
+						text = "no valid ET yet"
+					}
 					if ref.z.FailSafe.Fallback {
 						text += "; using fallback ET"
 					} else {
 						text += "; zone holds"
 					}
 					if !stale {
-						text = "valid ET again"
+						text = "valid ET; zone active"
 					}
 					s.log.Log(context.Background(), map[bool]slog.Level{true: slog.LevelWarn, false: slog.LevelInfo}[stale], "zone ET alert", "site", site.id, "zone", ref.id, "raised", stale, "text", text)
 					if err := s.enqueue(tx, alertPoint(site.id, ref.id, "zone-et-stale", stale, now, text)); err != nil {
