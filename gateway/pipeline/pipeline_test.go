@@ -598,3 +598,62 @@ func TestPruneAfterLateWindow(t *testing.T) {
 	require.NoError(t, err)
 	assert.True(t, ok, "hour states are kept for 25 h")
 }
+
+// Which readings count as late must not depend on how they were batched:
+// one batch or one reading per call give the same first emissions and the
+// same latest revisions.
+func TestBatchingDoesNotChangeRecords(t *testing.T) {
+	from := h10
+	rds := benchReadings(from, from.Add(4*time.Hour+10*time.Minute), 5*time.Minute)
+	// Hold a few readings back by 70 minutes: their hours close before they arrive.
+	var ordered, held []ingest.Reading
+	for i, r := range rds {
+		if i%37 == 5 {
+			held = append(held, r)
+			continue
+		}
+		ordered = append(ordered, r)
+		for len(held) > 0 && !r.Sample.Time.Before(held[0].Sample.Time.Add(70*time.Minute)) {
+			ordered, held = append(ordered, held[0]), held[1:]
+		}
+	}
+	ordered = append(ordered, held...)
+	require.Len(t, ordered, len(rds))
+
+	run := func(size int) (first, final map[time.Time]hourly.Record) {
+		db := openDB(t, filepath.Join(t.TempDir(), "s.db"))
+		p, _ := newTestPipeline(t, db, Options{})
+		var out []hourly.Record
+		for i := 0; i < len(ordered); i += size {
+			part := ordered[i:min(i+size, len(ordered))]
+			res, err := p.Ingest(latest(part), part)
+			require.NoError(t, err)
+			revs, err := p.Revise()
+			require.NoError(t, err)
+			out = append(append(out, res.Records...), revs...)
+		}
+		first, final = map[time.Time]hourly.Record{}, map[time.Time]hourly.Record{}
+		for _, r := range out {
+			if r.Revision == 0 {
+				first[r.Start] = r
+			}
+			if f, ok := final[r.Start]; !ok || r.Revision > f.Revision {
+				final[r.Start] = r
+			}
+		}
+		return first, final
+	}
+	firstA, finalA := run(len(ordered))
+	firstB, finalB := run(1)
+	require.Len(t, firstA, 4)
+	assert.Equal(t, firstA, firstB)
+	revised := 0
+	for h, a := range finalA {
+		assert.Equal(t, a.Result, finalB[h].Result, h)
+		assert.Equal(t, a.Stats, finalB[h].Stats, h)
+		if a.Revision > 0 {
+			revised++
+		}
+	}
+	assert.Positive(t, revised, "held-back readings revise their hours")
+}
