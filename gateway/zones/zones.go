@@ -34,6 +34,8 @@ type Broker interface {
 	mqtt.Subscriber
 }
 
+var _ Broker = (*mqtt.Client)(nil)
+
 // DefaultTopicPrefix is the first level of the hold topics.
 const DefaultTopicPrefix = "etpulse"
 
