@@ -103,7 +103,7 @@ func (c *fakeClock) Set(t time.Time) {
 	c.now = t
 }
 
-func newFixture(t *testing.T, cfg *config.Config, broker Broker, start time.Time) *fixture {
+func newFixture(t testing.TB, cfg *config.Config, broker Broker, start time.Time) *fixture {
 	t.Helper()
 	db, err := state.Open(filepath.Join(t.TempDir(), "state.db"))
 	require.NoError(t, err)
