@@ -150,7 +150,7 @@ func TestLiveDayAgainstMosquitto(t *testing.T) {
 	sub, err := mqtt.Dial(ctx, mqtt.Options{URL: url, ClientID: root + "-results", CleanSession: true})
 	require.NoError(t, err)
 	t.Cleanup(func() { sub.Close(time.Second) })
-	require.NoError(t, sub.Subscribe(prefix+"/#", 1, func(m mqtt.Message) {
+	require.NoError(t, sub.Subscribe(prefix+"/+/+/hour", 1, func(m mqtt.Message) {
 		rec, err := pipeline.UnmarshalRecord(m.Payload)
 		assert.NoError(t, err)
 		assert.Equal(t, pipeline.ResultsTopic(prefix, rec.Site, rec.Station), m.Topic)

@@ -103,7 +103,7 @@ func (d *daemon) kill(t *testing.T) {
 	<-d.done
 }
 
-// resultLog collects hourly records from a results topic prefix.
+// resultLog collects hourly records published under a topic prefix.
 type resultLog struct {
 	mu   sync.Mutex
 	recs map[string]hourly.Record // station/start/revision
@@ -116,7 +116,7 @@ func subscribeResults(t *testing.T, url, clientID, prefix string) *resultLog {
 	c, err := mqtt.Dial(context.Background(), mqtt.Options{URL: url, ClientID: clientID, CleanSession: true})
 	require.NoError(t, err)
 	t.Cleanup(func() { c.Close(time.Second) })
-	require.NoError(t, c.Subscribe(prefix+"/#", 1, func(m mqtt.Message) {
+	require.NoError(t, c.Subscribe(prefix+"/+/+/hour", 1, func(m mqtt.Message) {
 		rec, err := pipeline.UnmarshalRecord(m.Payload)
 		if assert.NoError(t, err) {
 			rl.mu.Lock()
@@ -198,7 +198,7 @@ func TestRestartAfterKillGivesSameRecords(t *testing.T) {
 			BrokerURL: url, ClientID: root + "-gw", StatePath: filepath.Join(dir, name+".db"),
 			LateWindow: 12 * time.Hour, SilenceClose: 24 * time.Hour,
 		})), 0o600))
-		results := subscribeResults(t, url, root+"-results", pipeline.DefaultTopicPrefix+"/"+demo.Site)
+		results := subscribeResults(t, url, root+"-results", pipeline.DefaultTopicPrefix)
 		msgs := sim.Generate(start, start.Add(6*time.Hour+10*time.Minute))
 
 		d := startDaemon(t, bin, cfgPath)
