@@ -3,10 +3,8 @@ package main
 import (
 	"bytes"
 	"context"
-	"fmt"
 	"os"
 	"path/filepath"
-	"strconv"
 	"strings"
 	"testing"
 	"time"
@@ -15,7 +13,6 @@ import (
 	"github.com/stretchr/testify/require"
 
 	"etpulse/gateway/demo"
-	"etpulse/hourly"
 )
 
 func TestReplayCommand(t *testing.T) {
@@ -26,17 +23,7 @@ func TestReplayCommand(t *testing.T) {
 		BrokerURL: "tcp://127.0.0.1:1883", ClientID: "replay-cmd", StatePath: filepath.Join(dir, "unused.db"),
 	})), 0o600))
 	var b strings.Builder
-	b.WriteString("time,station,quantity,value,unit\n")
-	for _, m := range sim.Generate(sim.Start(), sim.Start().Add(3*time.Hour)) {
-		if m.Kind != demo.Normal {
-			continue
-		}
-		for _, tr := range m.Samples {
-			s := tr.Sample
-			fmt.Fprintf(&b, "%s,%s,%s,%s,%s\n", s.Time.Format(time.RFC3339), tr.Station, s.Quantity,
-				strconv.FormatFloat(s.Value, 'g', -1, 64), hourly.CanonicalUnit(s.Quantity))
-		}
-	}
+	require.NoError(t, demo.WriteReadingsCSV(&b, sim.Generate(sim.Start(), sim.Start().Add(3*time.Hour))))
 	inPath := filepath.Join(dir, "readings.csv")
 	require.NoError(t, os.WriteFile(inPath, []byte(b.String()), 0o600))
 

@@ -8,8 +8,10 @@
 package demo
 
 import (
+	"bufio"
 	"encoding/json"
 	"fmt"
+	"io"
 	"math"
 	"math/rand/v2"
 	"slices"
@@ -458,4 +460,26 @@ func (s *Sim) Config(o ConfigOptions) (*config.Config, error) {
 		return nil, fmt.Errorf("demo config: %w", err)
 	}
 	return cfg, nil
+}
+
+// WriteReadingsCSV writes the samples of the normal messages as a readings
+// CSV for `etpulse replay` (time, station, quantity, value, unit; canonical
+// units, values exactly as the gateway decodes them).
+func WriteReadingsCSV(w io.Writer, msgs []Message) error {
+	bw := bufio.NewWriter(w)
+	bw.WriteString("time,station,quantity,value,unit\n")
+	for _, m := range msgs {
+		if m.Kind != Normal {
+			continue
+		}
+		for _, tr := range m.Samples {
+			s := tr.Sample
+			fmt.Fprintf(bw, "%s,%s,%s,%s,%s\n", s.Time.UTC().Format(time.RFC3339Nano), tr.Station, s.Quantity,
+				strconv.FormatFloat(s.Value, 'g', -1, 64), hourly.CanonicalUnit(s.Quantity))
+		}
+	}
+	if err := bw.Flush(); err != nil {
+		return fmt.Errorf("write readings csv: %w", err)
+	}
+	return nil
 }

@@ -109,23 +109,11 @@ func (p *Pipeline) closeHour(st *station, hour time.Time, silent bool) (hourly.R
 		if silent {
 			rec.Flags = append(rec.Flags, FlagSilenceClose)
 		}
-		for _, h := range p.handlers {
-			if err := h.HandleHour(tx, rec); err != nil {
-				return fmt.Errorf("hour handler: %w", err)
-			}
-		}
-		j := toJSON(rec)
-		hs := hourState{Revision: 0, CarryIn: carryToJSON(carryIn), TMin: tmin, TMax: tmax, ClosedAt: hour.Add(time.Hour), Record: &j}
-		if err := putJSON(sb.hours, hourKey(hour), hs); err != nil {
+		hs := hourState{CarryIn: carryToJSON(carryIn)}
+		if err := p.commitHour(tx, sb, st, rec, hs, tmin, tmax, true); err != nil {
 			return err
 		}
-		if err := putJSON(sb.meta, keyCarry, carryToJSON(rec.Carry)); err != nil {
-			return err
-		}
-		if err := putTime(sb.meta, keyCursor, hour.Add(time.Hour)); err != nil {
-			return err
-		}
-		return putPending(tx, st, rec)
+		return putTime(sb.meta, keyCursor, hour.Add(time.Hour))
 	})
 	if err != nil {
 		return hourly.Record{}, fmt.Errorf("close hour %s: %w", hour.Format(time.RFC3339), err)
@@ -179,23 +167,9 @@ func (p *Pipeline) revise(st *station) ([]hourly.Record, error) {
 			if hs.Record != nil && slices.Contains(hs.Record.Flags, FlagSilenceClose) {
 				rec.Flags = append(rec.Flags, FlagSilenceClose)
 			}
-			for _, h := range p.handlers {
-				if err := h.HandleHour(tx, rec); err != nil {
-					return fmt.Errorf("hour handler: %w", err)
-				}
-			}
-			j := toJSON(rec)
-			hs.Revision, hs.Dirty, hs.TMin, hs.TMax, hs.Record = rec.Revision, false, tmin, tmax, &j
-			if err := putJSON(sb.hours, hourKey(hour), hs); err != nil {
-				return err
-			}
-			if hour.Add(time.Hour).Equal(st.cursor) {
-				// The latest closed hour: later hours have not used its carry yet.
-				if err := putJSON(sb.meta, keyCarry, carryToJSON(rec.Carry)); err != nil {
-					return err
-				}
-			}
-			return putPending(tx, st, rec)
+			// Only the latest closed hour passes its carry on: later hours
+			// have used the old one already.
+			return p.commitHour(tx, sb, st, rec, hs, tmin, tmax, hour.Add(time.Hour).Equal(st.cursor))
 		})
 		if err != nil {
 			return out, fmt.Errorf("revise hour %s: %w", hour.Format(time.RFC3339), err)
@@ -205,6 +179,28 @@ func (p *Pipeline) revise(st *station) ([]hourly.Record, error) {
 		out = append(out, rec)
 	}
 	return out, nil
+}
+
+// commitHour hands the record to every HourHandler inside tx, then stores
+// the hour's state, the station's carry (when passCarry) and the pending
+// record. hs carries the hour's carry-in; its other fields are replaced.
+func (p *Pipeline) commitHour(tx *bbolt.Tx, sb stationBuckets, st *station, rec hourly.Record, hs hourState, tmin, tmax *float64, passCarry bool) error {
+	for _, h := range p.handlers {
+		if err := h.HandleHour(tx, rec); err != nil {
+			return fmt.Errorf("hour handler: %w", err)
+		}
+	}
+	j := toJSON(rec)
+	hs.Revision, hs.Dirty, hs.TMin, hs.TMax, hs.Record = rec.Revision, false, tmin, tmax, &j
+	if err := putJSON(sb.hours, hourKey(rec.Start), hs); err != nil {
+		return err
+	}
+	if passCarry {
+		if err := putJSON(sb.meta, keyCarry, carryToJSON(rec.Carry)); err != nil {
+			return err
+		}
+	}
+	return putPending(tx, st, rec)
 }
 
 func (p *Pipeline) observeRecord(st *station, rec hourly.Record) {

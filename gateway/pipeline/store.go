@@ -47,7 +47,6 @@ type hourState struct {
 	Dirty    bool        `json:"dirty"`    // a late reading arrived; recompute on the next tick
 	TMin     *float64    `json:"t_min,omitempty"`
 	TMax     *float64    `json:"t_max,omitempty"`
-	ClosedAt time.Time   `json:"closed_at"`
 	Record   *recordJSON `json:"record,omitempty"`
 }
 

@@ -4,7 +4,6 @@ import (
 	"bytes"
 	"context"
 	"encoding/csv"
-	"fmt"
 	"strconv"
 	"strings"
 	"testing"
@@ -17,22 +16,18 @@ import (
 	"etpulse/hourly"
 )
 
-// readingsCSV writes the simulator's on-time samples as a readings CSV, with
-// the stations' rows interleaved by time.
+// readingsCSV writes the simulator's on-time samples as a readings CSV and
+// returns them by station.
 func readingsCSV(t *testing.T, msgs []demo.Message) (string, map[string][]hourly.Sample) {
 	t.Helper()
 	var b strings.Builder
-	b.WriteString("time,station,quantity,value,unit\n")
+	require.NoError(t, demo.WriteReadingsCSV(&b, msgs))
 	bySt := map[string][]hourly.Sample{}
 	for _, m := range msgs {
-		if m.Kind != demo.Normal {
-			continue
-		}
-		for _, tr := range m.Samples {
-			s := tr.Sample
-			fmt.Fprintf(&b, "%s,%s,%s,%s,%s\n", s.Time.Format(time.RFC3339), tr.Station, s.Quantity,
-				strconv.FormatFloat(s.Value, 'g', -1, 64), hourly.CanonicalUnit(s.Quantity))
-			bySt[tr.Station] = append(bySt[tr.Station], s)
+		if m.Kind == demo.Normal {
+			for _, tr := range m.Samples {
+				bySt[tr.Station] = append(bySt[tr.Station], tr.Sample)
+			}
 		}
 	}
 	return b.String(), bySt
