@@ -285,11 +285,12 @@ func (c *Client) dispatch(_ paho.Client, pm paho.Message) {
 	if handle == nil {
 		// With a persistent session the broker may deliver queued messages
 		// before this process has called Subscribe. Hold them (unacknowledged)
-		// for the Subscribe that will claim them.
-		if len(c.pending) < c.opts.MaxInflight {
-			c.pending = append(c.pending, msg)
-		} else {
-			c.log.Warn("message with no handler dropped unacknowledged", "topic", msg.Topic)
+		// for the Subscribe that will claim them. Dropping one would lose it
+		// until the next reconnect; holding is bounded by the broker's own
+		// window of unacknowledged QoS 1 messages, which stops it sending.
+		c.pending = append(c.pending, msg)
+		if len(c.pending) == c.opts.MaxInflight {
+			c.log.Warn("many messages held for a subscription not made yet", "held", len(c.pending))
 		}
 		c.mu.Unlock()
 		return
