@@ -22,6 +22,7 @@ import (
 	"etpulse/gateway/pipeline"
 	"etpulse/gateway/quality"
 	"etpulse/gateway/store"
+	"etpulse/gateway/zones"
 	"etpulse/hourly"
 )
 
@@ -75,6 +76,9 @@ type Deps struct {
 	TopicPrefix string
 	// OnRecord, when set, is called with each record after it is published.
 	OnRecord func(hourly.Record)
+	// OnZoneEvent, when set, is called with each zone event (command sent,
+	// report credited, hold, alert) of the configured zones.
+	OnZoneEvent func(zones.Event)
 	// QueueSize bounds received messages not yet stored; 0 means 1024.
 	QueueSize int
 	// FlushTimeout bounds the Flushers at shutdown; 0 means 10s.

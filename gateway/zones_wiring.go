@@ -25,7 +25,7 @@ func wireZones(cfg *config.Config, deps Deps, outbox store.Enqueuer, comp *Compo
 	svc, err := zones.New(zones.Options{
 		Config: cfg, DB: deps.DB, MQTT: deps.MQTT, Store: outbox,
 		Logger: deps.Logger.With("component", "zones"), Registerer: deps.Registerer,
-		Clock: deps.Clock, After: deps.After,
+		Clock: deps.Clock, After: deps.After, OnEvent: deps.OnZoneEvent,
 	})
 	if err != nil {
 		return err

@@ -16,12 +16,13 @@ import (
 	"github.com/mochi-mqtt/server/v2/listeners"
 	"github.com/mochi-mqtt/server/v2/packets"
 	"github.com/prometheus/client_golang/prometheus"
+	"go.etcd.io/bbolt"
 
 	"etpulse/gateway"
 	"etpulse/gateway/mqtt"
-	"etpulse/gateway/pipeline"
 	"etpulse/gateway/state"
 	"etpulse/gateway/store"
+	"etpulse/gateway/zones"
 	"etpulse/hourly"
 )
 
@@ -57,6 +58,7 @@ type Summary struct {
 	Messages, Duplicates, Late, Bad int // published, by kind
 	Records, Revisions              int // hourly records printed
 	History                         int // hourly records in the local history (store)
+	ZoneSteps                       int // zone balance steps in the local history
 	Rejected                        map[string]float64
 	Wall                            time.Duration
 }
@@ -123,19 +125,10 @@ func Run(ctx context.Context, opt RunOptions) (sum Summary, err error) {
 	table := NewTable(opt.Out)
 	reg := prometheus.NewRegistry()
 	comps := opt.Components
-	zd, err := startZones(cfg, db, client, clock, table, opt.Logger)
-	if err != nil {
-		return sum, err
-	}
-	if zd != nil {
-		comps.Handlers = append(append([]pipeline.HourHandler(nil), comps.Handlers...), zd.svc)
-		comps.Services = append(append([]gateway.Service(nil), comps.Services...), zd.svc)
-		defer zd.close()
-	}
 	g, err := gateway.New(cfg, gateway.Deps{
 		Logger: opt.Logger, Registerer: reg, Gatherer: reg, DB: db, MQTT: client,
 		Clock: clock.Now, After: clock.After, Components: comps,
-		OnRecord: table.Record,
+		OnRecord: table.Record, OnZoneEvent: func(e zones.Event) { zoneEvent(table, e) },
 	})
 	if err != nil {
 		return sum, fmt.Errorf("demo: %w", err)
@@ -153,10 +146,12 @@ func Run(ctx context.Context, opt RunOptions) (sum Summary, err error) {
 	case err := <-runDone:
 		return sum, fmt.Errorf("demo: gateway: %w", err)
 	}
-	if zd != nil {
-		if err := zd.serveValves(runCtx, url, cfg, clock); err != nil {
+	if hasZones(cfg) {
+		valves, err := serveValves(runCtx, url, cfg, clock)
+		if err != nil {
 			return sum, err
 		}
+		defer valves.Close(time.Second)
 	}
 
 	end := sim.Start().Add(time.Duration(opt.Days) * 24 * time.Hour)
@@ -221,12 +216,26 @@ func Run(ctx context.Context, opt RunOptions) (sum Summary, err error) {
 	sum.Messages = published
 	sum.Records, sum.Revisions = table.Counts()
 	sum.Rejected = rejectedByReason(reg)
-	if h, herr := store.OpenHistory(db); herr == nil {
-		sum.History, _ = h.Count(store.Filter{Measurements: []string{store.MeasurementHour}})
+	if err := countHistory(db, &sum); err != nil {
+		return sum, fmt.Errorf("demo: %w", err)
 	}
 	sum.Wall = time.Since(began)
 	table.Footer(sum)
 	return sum, nil
+}
+
+// countHistory counts the hourly records and zone steps the run left in the
+// local history.
+func countHistory(db *bbolt.DB, sum *Summary) error {
+	h, err := store.OpenHistory(db)
+	if err != nil {
+		return err
+	}
+	if sum.History, err = h.Count(store.Filter{Measurements: []string{store.MeasurementHour}}); err != nil {
+		return err
+	}
+	sum.ZoneSteps, err = h.Count(store.Filter{Measurements: []string{store.MeasurementZone}})
+	return err
 }
 
 // allowAll lets every client on the loopback-only demo broker connect,
@@ -488,7 +497,7 @@ func (t *Table) Footer(sum Summary) {
 	sort.Strings(reasons)
 	fmt.Fprintf(t.w, "messages %d (duplicates %d, late %d, malformed %d); rejected: %s; hourly records %d (revisions %d); wall time %s\n",
 		sum.Messages, sum.Duplicates, sum.Late, sum.Bad, strings.Join(reasons, ", "), sum.Records, sum.Revisions, sum.Wall.Round(10*time.Millisecond))
-	fmt.Fprintf(t.w, "history: %d hourly records in the local history (etpulse export prints them)\n", sum.History)
+	fmt.Fprintf(t.w, "history: %d hourly records and %d zone steps in the local history (etpulse export prints them)\n", sum.History, sum.ZoneSteps)
 }
 
 // localTime formats t in the farm's standard time.

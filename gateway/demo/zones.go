@@ -3,10 +3,7 @@ package demo
 import (
 	"context"
 	"fmt"
-	"log/slog"
 	"time"
-
-	"go.etcd.io/bbolt"
 
 	"etpulse/controllers"
 	"etpulse/gateway/config"
@@ -69,54 +66,35 @@ func zonesYAML(stations []string) string {
 `
 }
 
-// zoneDemo is the zone scheduler of the demo and the simulated valve
-// controllers that answer it on the embedded broker.
-type zoneDemo struct {
-	svc    *zones.Service
-	valves *zones.ValveSimulator
-	client *mqtt.Client
-}
-
-// startZones builds the zone service when cfg has zones (nil otherwise). It
-// prints commands, credits and holds as table events.
-func startZones(cfg *config.Config, db *bbolt.DB, client *mqtt.Client, clock *Clock, table *Table, logger *slog.Logger) (*zoneDemo, error) {
-	n := 0
+func hasZones(cfg *config.Config) bool {
 	for _, s := range cfg.Sites {
-		n += len(s.Zones)
+		if len(s.Zones) > 0 {
+			return true
+		}
 	}
-	if n == 0 {
-		return nil, nil
-	}
-	svc, err := zones.New(zones.Options{Config: cfg, DB: db, MQTT: client, Logger: logger, Clock: clock.Now, After: clock.After,
-		OnEvent: func(e zones.Event) { zoneEvent(table, e) }})
-	if err != nil {
-		return nil, fmt.Errorf("demo zones: %w", err)
-	}
-	return &zoneDemo{svc: svc}, nil
+	return false
 }
 
 // serveValves connects the simulated valve controllers: every run reports
-// accepted, started at its start and finished when its minutes have run.
-func (z *zoneDemo) serveValves(ctx context.Context, url string, cfg *config.Config, clock *Clock) error {
+// accepted, started at its start and finished when its minutes have run. The
+// caller closes the returned client.
+func serveValves(ctx context.Context, url string, cfg *config.Config, clock *Clock) (*mqtt.Client, error) {
 	c, err := mqtt.Dial(ctx, mqtt.Options{URL: url, ClientID: "etpulse-demo-valves", Workers: 1})
 	if err != nil {
-		return fmt.Errorf("demo valves: %w", err)
+		return nil, fmt.Errorf("demo valves: %w", err)
 	}
-	z.client = c
-	z.valves = &zones.ValveSimulator{MQTT: c, Clock: clock.Now, After: clock.After}
+	valves := &zones.ValveSimulator{MQTT: c, Clock: clock.Now, After: clock.After}
 	topics := map[string]string{}
 	for _, s := range cfg.Sites {
 		for i := range s.Zones {
 			topics[s.Zones[i].CommandTopicIn(s.ID)] = s.Zones[i].ReportTopicIn(s.ID)
 		}
 	}
-	return z.valves.Serve(topics)
-}
-
-func (z *zoneDemo) close() {
-	if z != nil && z.client != nil {
-		z.client.Close(time.Second)
+	if err := valves.Serve(topics); err != nil {
+		c.Close(time.Second)
+		return nil, err
 	}
+	return c, nil
 }
 
 func zoneEvent(t *Table, e zones.Event) {
