@@ -71,8 +71,10 @@ type Deps struct {
 
 	Components
 
-	// TopicPrefix is the first level of published topics; "" means
-	// pipeline.DefaultTopicPrefix.
+	// TopicPrefix overrides the configuration's topic_prefix (tests that
+	// share a broker); "" keeps it. It applies to every topic of the
+	// gateway's own: hourly records, zone commands, reports and holds, and
+	// the alerts when alerts.topic_prefix follows topic_prefix.
 	TopicPrefix string
 	// OnRecord, when set, is called with each record after it is published.
 	OnRecord func(hourly.Record)
@@ -118,9 +120,7 @@ func New(cfg *config.Config, deps Deps) (*Gateway, error) {
 	if deps.After == nil {
 		deps.After = time.After
 	}
-	if deps.TopicPrefix == "" {
-		deps.TopicPrefix = pipeline.DefaultTopicPrefix
-	}
+	cfg, deps.TopicPrefix = withTopicPrefix(cfg, deps.TopicPrefix)
 	if deps.QueueSize <= 0 {
 		deps.QueueSize = 1024
 	}
@@ -177,6 +177,25 @@ func New(cfg *config.Config, deps Deps) (*Gateway, error) {
 		return nil, fmt.Errorf("new gateway: %w", err)
 	}
 	return g, nil
+}
+
+// withTopicPrefix resolves the topic prefix: override when set, else the
+// configuration's. When it differs from the configuration's, it returns a
+// shallow copy carrying it, so every part reads the same prefix.
+func withTopicPrefix(cfg *config.Config, override string) (*config.Config, string) {
+	prefix := cfg.Prefix()
+	if override == "" || override == prefix {
+		if cfg.Alerts.TopicPrefix != "" && cfg.TopicPrefix != "" {
+			return cfg, prefix
+		}
+		override = prefix
+	}
+	c := *cfg
+	if c.Alerts.TopicPrefix == "" || c.Alerts.TopicPrefix == cfg.TopicPrefix {
+		c.Alerts.TopicPrefix = override
+	}
+	c.TopicPrefix = override
+	return &c, override
 }
 
 // Pipeline returns the gateway's hour pipeline (e.g. for LastSeen).

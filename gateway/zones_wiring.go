@@ -26,6 +26,7 @@ func wireZones(cfg *config.Config, deps Deps, outbox store.Enqueuer, comp *Compo
 		Config: cfg, DB: deps.DB, MQTT: deps.MQTT, Store: outbox,
 		Logger: deps.Logger.With("component", "zones"), Registerer: deps.Registerer,
 		Clock: deps.Clock, After: deps.After, OnEvent: deps.OnZoneEvent,
+		TopicPrefix: deps.TopicPrefix,
 	})
 	if err != nil {
 		return err

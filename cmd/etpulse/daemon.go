@@ -93,7 +93,7 @@ func daemon(ctx context.Context, cfg *config.Config, log *slog.Logger) (err erro
 	if err != nil {
 		return err
 	}
-	log.Info("connecting to broker", "url", cfg.Broker.URL, "client_id", cfg.Broker.ClientID)
+	log.Info("connecting to broker", "url", cfg.Broker.URL, "client_id", cfg.Broker.ClientID, "topic_prefix", cfg.Prefix())
 	client, err := mqtt.Dial(ctx, mo)
 	if err != nil {
 		if ctx.Err() != nil {

@@ -13,8 +13,9 @@ type Broker struct {
 	URL string `yaml:"url"`
 	// ClientID is the stable MQTT client identifier. The broker keeps the
 	// persistent session under it, so it must not change between restarts and
-	// must differ between gateway processes. Default "etpulse-" followed by
-	// the site ids joined with "-".
+	// must differ between gateway processes. Default: the topic prefix (with
+	// characters other than letters, digits, '-' and '_' turned into '-';
+	// "etpulse" by default), "-" and the site ids joined with "-".
 	ClientID string `yaml:"client_id"`
 	// Username for the broker; empty for anonymous access.
 	Username string `yaml:"username"`
@@ -82,7 +83,7 @@ func (b *Broker) setDefaults(c *Config) {
 				ids = append(ids, s.ID)
 			}
 		}
-		b.ClientID = "etpulse"
+		b.ClientID = clientIDBase(c.TopicPrefix)
 		if len(ids) > 0 {
 			b.ClientID += "-" + strings.Join(ids, "-")
 		}

@@ -18,6 +18,14 @@ import (
 
 // Config is the whole gateway configuration.
 type Config struct {
+	// TopicPrefix is the first level (or levels, "farm/etpulse") of every
+	// topic the gateway publishes or owns: <prefix>/<site>/<station>/hour,
+	// <prefix>/<site>/zones/<zone>/command and report, <prefix>/<site>/hold,
+	// and the alerts (unless alerts.topic_prefix differs). Default "etpulse".
+	// Gateways sharing a broker keep their sites apart by site id, or by
+	// prefix when site ids repeat.
+	TopicPrefix string `yaml:"topic_prefix"`
+
 	Broker Broker `yaml:"broker"`
 	State  State  `yaml:"state"`
 	Sites  []Site `yaml:"sites"`
@@ -72,6 +80,12 @@ func (c *Config) setDefaults() {
 	if c.State.Path == "" {
 		c.State.Path = "etpulse.db"
 	}
+	if c.TopicPrefix == "" {
+		c.TopicPrefix = DefaultTopicPrefix
+	}
+	if c.Alerts.TopicPrefix == "" {
+		c.Alerts.TopicPrefix = c.TopicPrefix // alert topics follow topic_prefix unless set
+	}
 	c.Broker.setDefaults(c)
 	for i := range c.Sites {
 		s := &c.Sites[i]
@@ -94,6 +108,9 @@ func (c *Config) setDefaults() {
 // listing every problem, or nil.
 func (c *Config) Validate() error {
 	var p Problems
+	if msg := topicPrefixProblem(c.TopicPrefix); msg != "" {
+		p.Addf("topic_prefix", "%s, got %q", msg, c.TopicPrefix)
+	}
 	c.Broker.validate("broker", &p)
 	if len(c.Sites) == 0 {
 		p.Add("sites", "at least one site is required")
@@ -111,8 +128,16 @@ func (c *Config) Validate() error {
 		s.validate(path, &p)
 	}
 	validateTopics(c, &p)
+	validateOwnTopics(c, &p)
 	c.Store.validate("store", &p)
-	c.Alerts.validate("alerts", &p, c)
+	alerts := c.Alerts
+	if alerts.TopicPrefix == c.TopicPrefix {
+		// Inherited from topic_prefix and checked above as such; a prefix of
+		// several levels is fine there, while alerts.topic_prefix set on its
+		// own is one level.
+		alerts.TopicPrefix = DefaultAlertTopicPrefix
+	}
+	alerts.validate("alerts", &p, c)
 	c.HTTP.validate("http", &p)
 	return p.Err()
 }

@@ -27,7 +27,7 @@ type Zone struct {
 	Commands ZoneCommands `yaml:"commands"`
 
 	// CommandTopic and ReportTopic default to
-	// etpulse/<site>/zones/<zone>/command and .../report.
+	// <topic_prefix>/<site>/zones/<zone>/command and .../report.
 	CommandTopic string `yaml:"command_topic"`
 	ReportTopic  string `yaml:"report_topic"`
 }
@@ -200,20 +200,22 @@ func (z *Zone) setDefaults() {
 	}
 }
 
-// CommandTopicIn returns the zone's command topic within site.
-func (z *Zone) CommandTopicIn(site string) string {
+// CommandTopicIn returns the zone's command topic within site: command_topic,
+// or <prefix>/<site>/zones/<zone>/command.
+func (z *Zone) CommandTopicIn(prefix, site string) string {
 	if z.CommandTopic != "" {
 		return z.CommandTopic
 	}
-	return "etpulse/" + site + "/zones/" + z.ID + "/command"
+	return prefix + "/" + site + "/zones/" + z.ID + "/command"
 }
 
-// ReportTopicIn returns the zone's report topic within site.
-func (z *Zone) ReportTopicIn(site string) string {
+// ReportTopicIn returns the zone's report topic within site: report_topic,
+// or <prefix>/<site>/zones/<zone>/report.
+func (z *Zone) ReportTopicIn(prefix, site string) string {
 	if z.ReportTopic != "" {
 		return z.ReportTopic
 	}
-	return "etpulse/" + site + "/zones/" + z.ID + "/report"
+	return prefix + "/" + site + "/zones/" + z.ID + "/report"
 }
 
 // RateMMH returns the application rate: given, or derived from the layout.

@@ -21,8 +21,8 @@ func TestZonesExample(t *testing.T) {
 	rate, err := pear.RateMMH()
 	require.NoError(t, err)
 	assert.InDelta(t, 1.226667, rate, 1e-6) // 6 x 2.3 / 11.25
-	assert.Equal(t, "etpulse/brackenby/zones/pear-block-2/command", pear.CommandTopicIn(site.ID))
-	assert.Equal(t, "etpulse/brackenby/zones/pear-block-2/report", pear.ReportTopicIn(site.ID))
+	assert.Equal(t, "etpulse/brackenby/zones/pear-block-2/command", pear.CommandTopicIn(c.Prefix(), site.ID))
+	assert.Equal(t, "etpulse/brackenby/zones/pear-block-2/report", pear.ReportTopicIn(c.Prefix(), site.ID))
 	cz, err := pear.Controller(site.StationByID(pear.Station))
 	require.NoError(t, err)
 	assert.Equal(t, -8*3600, func() int { _, off := time.Date(2026, 7, 1, 0, 0, 0, 0, cz.Loc).Zone(); return off }())

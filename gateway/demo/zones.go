@@ -87,7 +87,7 @@ func serveValves(ctx context.Context, url string, cfg *config.Config, clock *Clo
 	topics := map[string]string{}
 	for _, s := range cfg.Sites {
 		for i := range s.Zones {
-			topics[s.Zones[i].CommandTopicIn(s.ID)] = s.Zones[i].ReportTopicIn(s.ID)
+			topics[s.Zones[i].CommandTopicIn(cfg.Prefix(), s.ID)] = s.Zones[i].ReportTopicIn(cfg.Prefix(), s.ID)
 		}
 	}
 	if err := valves.Serve(topics); err != nil {

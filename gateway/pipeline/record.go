@@ -7,6 +7,7 @@ import (
 	"strconv"
 	"time"
 
+	"etpulse/gateway/config"
 	"etpulse/hourly"
 )
 
@@ -235,5 +236,6 @@ func ResultsTopic(prefix, site, station string) string {
 	return prefix + "/" + site + "/" + station + "/hour"
 }
 
-// DefaultTopicPrefix is the first level of every topic the gateway publishes.
-const DefaultTopicPrefix = "etpulse"
+// DefaultTopicPrefix is the first level of every topic the gateway publishes
+// when the configuration names none (topic_prefix).
+const DefaultTopicPrefix = config.DefaultTopicPrefix

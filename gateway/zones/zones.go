@@ -36,8 +36,9 @@ type Broker interface {
 
 var _ Broker = (*mqtt.Client)(nil)
 
-// DefaultTopicPrefix is the first level of the hold topics.
-const DefaultTopicPrefix = "etpulse"
+// DefaultTopicPrefix is the first level of the hold and default zone topics
+// when neither Options nor the configuration name one.
+const DefaultTopicPrefix = config.DefaultTopicPrefix
 
 // Options configure a Service.
 type Options struct {
@@ -50,8 +51,9 @@ type Options struct {
 	Registerer prometheus.Registerer
 	Clock      func() time.Time                     // nil: time.Now
 	After      func(time.Duration) <-chan time.Time // nil: time.After
-	// TopicPrefix is the first level of <prefix>/<site>/hold and
-	// <prefix>/<site>/hold/reply; "" means DefaultTopicPrefix.
+	// TopicPrefix is the first level of <prefix>/<site>/hold,
+	// <prefix>/<site>/hold/reply and the default zone command and report
+	// topics; "" means the configuration's topic_prefix.
 	TopicPrefix string
 	// OnEvent, when set, sees every step, command and credit (demo output).
 	// It is called after the change is committed and must not block.
@@ -134,7 +136,7 @@ func New(o Options) (*Service, error) {
 		o.After = time.After
 	}
 	if o.TopicPrefix == "" {
-		o.TopicPrefix = DefaultTopicPrefix
+		o.TopicPrefix = o.Config.Prefix()
 	}
 	if o.LedgerRetention <= 0 {
 		o.LedgerRetention = 30 * 24 * time.Hour
@@ -157,7 +159,7 @@ func New(o Options) (*Service, error) {
 				return nil, fmt.Errorf("new zones: %w", err)
 			}
 			ref := &zoneRef{site: site.ID, id: zc.ID, cfg: zc, z: cz,
-				cmdTopic: zc.CommandTopicIn(site.ID), reportTopic: zc.ReportTopicIn(site.ID),
+				cmdTopic: zc.CommandTopicIn(o.TopicPrefix, site.ID), reportTopic: zc.ReportTopicIn(o.TopicPrefix, site.ID),
 				initial: zc.Soil.InitialDepletionMM, acceptsRef: map[hourly.Reference]bool{}}
 			for _, r := range []hourly.Reference{hourly.Short, hourly.Tall, hourly.FAO56} {
 				ref.acceptsRef[r] = zc.AcceptsReference(string(r))

@@ -1,0 +1,139 @@
+package config
+
+import (
+	"fmt"
+	"strings"
+)
+
+// DefaultTopicPrefix is the default of topic_prefix: the first level of every
+// topic the gateway itself publishes or owns (hourly records, alerts, zone
+// commands and reports, holds).
+const DefaultTopicPrefix = "etpulse"
+
+// maxTopicPrefixLen bounds topic_prefix; the longest topic built on it must
+// stay well inside MQTT's 65535 bytes.
+const maxTopicPrefixLen = 1024
+
+// Station ids that cannot be used: the topic <prefix>/<site>/<id>/... of such
+// a station would lie inside a subtree the gateway publishes to or listens on.
+var reservedStationIDs = map[string]string{
+	"alerts": "alert topics",
+	"zones":  "zone command and report topics",
+	"hold":   "hold topics",
+}
+
+// Prefix returns the topic prefix: topic_prefix, or DefaultTopicPrefix for a
+// configuration built in code that left it empty.
+func (c *Config) Prefix() string {
+	if c.TopicPrefix == "" {
+		return DefaultTopicPrefix
+	}
+	return c.TopicPrefix
+}
+
+// topicPrefixProblem explains why s is not a usable topic prefix, or returns "".
+func topicPrefixProblem(s string) string {
+	switch {
+	case s == "":
+		return "required"
+	case len(s) > maxTopicPrefixLen:
+		return fmt.Sprintf("must be at most %d bytes", maxTopicPrefixLen)
+	case strings.ContainsAny(s, "+#"):
+		return "must not contain the wildcards '+' or '#'"
+	case strings.ContainsRune(s, 0):
+		return "must not contain a NUL character"
+	case strings.HasPrefix(s, "$"):
+		return "must not start with '$' (reserved for the broker)"
+	case strings.HasPrefix(s, "/") || strings.HasSuffix(s, "/"):
+		return "must not start or end with '/'"
+	case strings.Contains(s, "//"):
+		return "must not have empty topic levels ('//')"
+	}
+	return ""
+}
+
+// clientIDBase turns a topic prefix into the start of a default MQTT client
+// id: every character outside a-z, A-Z, 0-9, '-' and '_' becomes '-'. The
+// default prefix gives "etpulse", so the default client id of a gateway that
+// keeps it does not change (the broker keeps the persistent session under it).
+func clientIDBase(prefix string) string {
+	if prefix == "" {
+		prefix = DefaultTopicPrefix
+	}
+	return strings.Map(func(r rune) rune {
+		if r >= 'a' && r <= 'z' || r >= 'A' && r <= 'Z' || r >= '0' && r <= '9' || r == '-' || r == '_' {
+			return r
+		}
+		return '-'
+	}, prefix)
+}
+
+// validateOwnTopics checks that the topics the gateway publishes or
+// subscribes for itself (hourly records, holds, zone commands and reports,
+// alerts) neither collide with each other nor with a sensor topic, so that
+// several gateway processes, each owning its sites, can share one broker.
+func validateOwnTopics(c *Config, p *Problems) {
+	prefix := c.Prefix()
+	alertPrefix := c.Alerts.TopicPrefix
+	if alertPrefix == "" {
+		alertPrefix = prefix
+	}
+	owner := map[string]string{} // topic -> what the gateway uses it for
+	for i := range c.Sites {
+		s := &c.Sites[i]
+		if !validID(s.ID) {
+			continue // reported by the site checks
+		}
+		for j := range s.Stations {
+			st := &s.Stations[j]
+			if what, ok := reservedStationIDs[st.ID]; ok {
+				p.Addf(fmt.Sprintf("sites[%d].stations[%d].id", i, j),
+					"%q is reserved: %s/%s/%s/... holds the gateway's %s", st.ID, prefix, s.ID, st.ID, what)
+				continue
+			}
+			owner[prefix+"/"+s.ID+"/"+st.ID+"/hour"] = fmt.Sprintf("the hourly records of sites[%d].stations[%d]", i, j)
+		}
+		if len(s.Zones) > 0 {
+			owner[prefix+"/"+s.ID+"/hold"] = fmt.Sprintf("the hold requests of sites[%d]", i)
+			owner[prefix+"/"+s.ID+"/hold/reply"] = fmt.Sprintf("the hold replies of sites[%d]", i)
+		}
+	}
+	for i := range c.Sites {
+		s := &c.Sites[i]
+		for j := range s.Zones {
+			z := &s.Zones[j]
+			zp := fmt.Sprintf("sites[%d].zones[%d]", i, j)
+			for _, t := range []struct{ field, topic string }{
+				{"command_topic", z.CommandTopicIn(prefix, s.ID)},
+				{"report_topic", z.ReportTopicIn(prefix, s.ID)},
+			} {
+				if topicProblem(t.topic) != "" {
+					continue // reported by the zone checks
+				}
+				if first, ok := owner[t.topic]; ok {
+					p.Addf(zp+"."+t.field, "topic %q is already used for %s", t.topic, first)
+					continue
+				}
+				owner[t.topic] = zp + "." + t.field
+			}
+		}
+	}
+	for i := range c.Sites {
+		s := &c.Sites[i]
+		for j := range s.Stations {
+			for k, sn := range s.Stations[j].Sensors {
+				path := fmt.Sprintf("sites[%d].stations[%d].sensors[%d].topic", i, j, k)
+				if first, ok := owner[sn.Topic]; ok {
+					p.Addf(path, "topic %q is the gateway's own topic for %s", sn.Topic, first)
+					continue
+				}
+				for _, site := range c.Sites {
+					if root := alertPrefix + "/" + site.ID + "/alerts/"; site.ID != "" && strings.HasPrefix(sn.Topic, root) {
+						p.Addf(path, "topic %q lies under %s, where the gateway publishes its alerts", sn.Topic, root)
+						break
+					}
+				}
+			}
+		}
+	}
+}
