@@ -199,8 +199,14 @@ func New(o Options) (*Monitor, error) {
 		return nil, fmt.Errorf("new alert monitor: %w", err)
 	}
 	for _, a := range m.state {
-		if a.Active() {
-			m.metrics.active.WithLabelValues(string(a.Kind)).Inc()
+		if !a.Active() {
+			continue
+		}
+		m.metrics.active.WithLabelValues(string(a.Kind)).Inc()
+		// A sensor silent before the restart stays silent since its last
+		// reading (the alert's value), instead of clearing and raising again.
+		if info := m.stations[stationID{a.Site, a.Station}]; info != nil && a.Kind == KindSilence && a.Value > 0 {
+			info.readings.LastSeen(a.Sensor, a.Quantity, time.Unix(int64(a.Value), 0))
 		}
 	}
 	m.recomputeNext()

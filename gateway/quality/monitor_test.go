@@ -324,3 +324,21 @@ func TestMonitorRolledBackHourIsForgotten(t *testing.T) {
 		return nil
 	}))
 }
+
+func TestMonitorSilenceSurvivesRestart(t *testing.T) {
+	path := filepath.Join(t.TempDir(), "silence.db")
+	f := newFixture(t, testConfig(config.RespondKeep), path, t0)
+	f.mon.CheckSilence(t0.Add(20 * time.Minute))
+	require.NoError(t, f.mon.Sync())
+	require.Len(t, f.mon.Active(), 4, "no sensor ever reported")
+	require.NoError(t, f.db.Close())
+
+	// Restarted an hour later: the sensors are still silent since t0, so
+	// nothing clears and nothing is raised again.
+	f2 := newFixture(t, testConfig(config.RespondKeep), path, t0.Add(time.Hour))
+	f2.mon.CheckSilence(t0.Add(time.Hour + time.Minute))
+	require.NoError(t, f2.mon.Sync())
+	assert.Len(t, f2.mon.Active(), 4)
+	assert.Empty(t, f2.evs)
+	assert.Equal(t, 0.0, testutil.ToFloat64(f2.mon.metrics.raised.WithLabelValues("silence")))
+}

@@ -65,6 +65,13 @@ func (c *ReadingChecks) Expect(sensor string, q hourly.Quantity, since time.Time
 	}
 }
 
+// LastSeen sets when a sensor quantity last reported (e.g. restored from an
+// active silence alert after a restart), so its silence is measured from
+// then rather than from the restart.
+func (c *ReadingChecks) LastSeen(sensor string, q hourly.Quantity, at time.Time) {
+	c.seen[sensorID{sensor, q}] = at
+}
+
 // Observe checks one accepted sample that arrived at now and returns a
 // finding for each check that applies to it.
 func (c *ReadingChecks) Observe(s hourly.Sample, now time.Time) []Finding {
