@@ -69,5 +69,5 @@ func TestSecretFromEnvAndFile(t *testing.T) {
 
 	_, err = Parse([]byte("broker: {username: u, password: {env: X, vault: y}}\nsites: []"))
 	require.Error(t, err)
-	assert.Contains(t, err.Error(), "field vault not found", "secrets decode strictly too")
+	assert.Contains(t, err.Error(), "broker.password.vault: unknown key", "secrets decode strictly too")
 }

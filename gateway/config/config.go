@@ -67,7 +67,7 @@ func Parse(b []byte) (*Config, error) {
 		if errors.Is(err, io.EOF) {
 			return nil, fmt.Errorf("parse config: empty document")
 		}
-		return nil, fmt.Errorf("parse config: %w", err)
+		return nil, decodeError(b, err)
 	}
 	c.setDefaults()
 	if err := c.Validate(); err != nil {
@@ -235,24 +235,37 @@ type Secret struct {
 // UnmarshalYAML accepts a mapping with env or file. A plain string (an inline
 // credential) is remembered only as a fact, not its value, so that
 // validation can explain the fix without echoing the secret.
-func (s *Secret) UnmarshalYAML(unmarshal func(any) error) error {
-	var probe any
-	if err := unmarshal(&probe); err != nil {
-		return err
-	}
-	switch probe.(type) {
-	case nil:
-		*s = Secret{}
+func (s *Secret) UnmarshalYAML(n *yaml.Node) error {
+	switch n.Kind {
+	case yaml.ScalarNode:
+		if n.ShortTag() == "!!null" {
+			*s = Secret{}
+		} else {
+			*s = Secret{inline: true}
+		}
 		return nil
-	case map[string]any:
-		type secretSource Secret // without this method, decoded strictly
-		return unmarshal((*secretSource)(s))
-	case []any:
-		return errors.New("a secret must be {env: NAME} or {file: PATH}, got a list")
-	default:
-		*s = Secret{inline: true}
+	case yaml.MappingNode:
+		var out Secret
+		for i := 0; i+1 < len(n.Content); i += 2 {
+			k, v := n.Content[i], n.Content[i+1]
+			var dst *string
+			switch k.Value {
+			case "env":
+				dst = &out.Env
+			case "file":
+				dst = &out.File
+			default:
+				return valueError(k, "unknown key: a secret is {env: NAME} or {file: PATH}")
+			}
+			if v.Kind != yaml.ScalarNode {
+				return valueError(v, "must be text, got %s", kindName(v))
+			}
+			*dst = v.Value
+		}
+		*s = out
 		return nil
 	}
+	return valueError(n, "a secret must be {env: NAME} or {file: PATH}, got %s", kindName(n))
 }
 
 // IsSet reports whether a source is configured.

@@ -1,7 +1,6 @@
 package config
 
 import (
-	"fmt"
 	"time"
 
 	"go.yaml.in/yaml/v3"
@@ -11,15 +10,15 @@ import (
 // ("90s", "15m", "2h").
 type Duration time.Duration
 
-// UnmarshalYAML decodes a duration string.
+// UnmarshalYAML decodes a duration string. A bad value is reported with its
+// position, which Parse turns into the field's path.
 func (d *Duration) UnmarshalYAML(n *yaml.Node) error {
-	var s string
-	if err := n.Decode(&s); err != nil {
-		return fmt.Errorf("line %d: duration must be a string like \"15m\": %w", n.Line, err)
+	if n.Kind != yaml.ScalarNode {
+		return valueError(n, "must be a duration like \"15m\", got %s", kindName(n))
 	}
-	v, err := time.ParseDuration(s)
+	v, err := time.ParseDuration(n.Value)
 	if err != nil {
-		return fmt.Errorf("line %d: %w", n.Line, err)
+		return valueError(n, "invalid duration %q: write a number with a unit (ns, us, ms, s, m, h), e.g. \"90s\", \"15m\" or \"2h30m\"", n.Value)
 	}
 	*d = Duration(v)
 	return nil
