@@ -17,8 +17,9 @@ import (
 type Alerts struct {
 	// Disabled turns every check off.
 	Disabled bool `yaml:"disabled"`
-	// TopicPrefix is the first level of the alert topics
-	// <prefix>/<site>/alerts/<station>/<sensor>/<kind>. Default "etpulse".
+	// TopicPrefix is the prefix of the alert topics
+	// <prefix>/<site>/alerts/<station>/<sensor>/<quantity>/<kind>. Default:
+	// the configuration's topic_prefix; set here, it is one topic level.
 	TopicPrefix string `yaml:"topic_prefix"`
 	// UpdateEvery limits how often an active alert whose evidence changes is
 	// re-published. Default 15m.
