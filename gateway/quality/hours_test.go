@@ -3,6 +3,7 @@ package quality
 import (
 	"math"
 	"testing"
+	"time"
 
 	"github.com/stretchr/testify/assert"
 	"github.com/stretchr/testify/require"
@@ -237,4 +238,36 @@ func TestDayRatioOfClearDayNearEnvelope(t *testing.T) {
 	assert.InDelta(t, 0.98, days[0].ratio, 1e-9)
 	assert.True(t, days[0].clearShape)
 	assert.False(t, math.IsInf(days[0].spread, 0))
+}
+
+// TestDayEnvelopeMatchesDailyRso checks that the clear-sky energy the
+// envelope check sums from the hours equals the daily clear-sky radiation of
+// the daily method. FAO-56 Example 8 (20° S, 3 September): Ra = 32.2
+// MJ m-2 d-1 (from memory); FAO-56 eq. 37 at sea level: Rso = 0.75 Ra =
+// 24.15 MJ m-2 d-1. The hourly sum may differ from the daily integral by the
+// sun's motion within each hour; 1.5 % is allowed (common practice, no source).
+func TestDayEnvelopeMatchesDailyRso(t *testing.T) {
+	st := hourly.Station{Latitude: -20, Longitude: 0, Elevation: 0, UTCOffset: 0}
+	var rso, ra float64
+	for i := range 24 {
+		start := time.Date(2026, 9, 3, i, 0, 0, 0, time.UTC)
+		sp := hourly.SunForPeriod(st, start, time.Hour)
+		ra += sp.Ra
+		rso += hourly.RsoSimple(sp.Ra, st.Elevation)
+	}
+	assert.InEpsilon(t, 32.2, ra, 0.015, "FAO-56 Example 8")
+	assert.InEpsilon(t, 24.15, rso, 0.015, "FAO-56 eq. 37 with Example 8")
+
+	// A sensor reading exactly Rso every hour gives a day ratio of 1.
+	var obs []HourObs
+	for i := range 24 {
+		start := time.Date(2026, 9, 3, i, 0, 0, 0, time.UTC)
+		sp := hourly.SunForPeriod(st, start, time.Hour)
+		r := hourly.RsoSimple(sp.Ra, 0)
+		obs = append(obs, HourObs{Start: start, Local: start, HasSun: true, SunElevation: sp.Elevation, Ra: sp.Ra, Rso: r,
+			Q: map[hourly.Quantity]QStats{hourly.Solar: {N: 60, Mean: r / 0.0036, Min: r / 0.0036, Max: r / 0.0036}}})
+	}
+	days := dayRatios(obs, 0.08)
+	require.Len(t, days, 1)
+	assert.InDelta(t, 1.0, days[0].ratio, 1e-9)
 }
