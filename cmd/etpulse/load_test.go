@@ -1,0 +1,57 @@
+package main
+
+import (
+	"bytes"
+	"context"
+	"encoding/json"
+	"testing"
+
+	"github.com/stretchr/testify/assert"
+	"github.com/stretchr/testify/require"
+)
+
+// TestLoadJSON runs `etpulse load` small on the embedded broker and reads
+// its JSON summary. No timing is checked, only that everything is accounted
+// for.
+func TestLoadJSON(t *testing.T) {
+	var out, errOut bytes.Buffer
+	code := run(context.Background(), []string{"load", "--stations", "3", "--messages", "3000", "--interval", "1m",
+		"--bad", "2", "--json", "--every", "0"}, nil, &out, &errOut)
+	require.Equal(t, exitOK, code, "stderr: %s", errOut.String())
+	var sum struct {
+		Consistent  bool               `json:"consistent"`
+		Published   int64              `json:"messages_published"`
+		Acked       int64              `json:"messages_acked"`
+		Rejected    map[string]float64 `json:"rejected"`
+		HoursClosed int                `json:"hours_closed"`
+		Records     int                `json:"records_published"`
+		MsgPerS     float64            `json:"msg_per_s"`
+		AckP99      float64            `json:"ack_latency_p99_ms"`
+		PeakHeap    uint64             `json:"peak_heap_bytes"`
+	}
+	require.NoError(t, json.Unmarshal(out.Bytes(), &sum), out.String())
+	assert.True(t, sum.Consistent)
+	// (3000 - 2) / 6 messages a tick = 499 ticks of one simulated minute:
+	// 8 hours closed at each of the 3 stations.
+	assert.Equal(t, int64(499*6+2), sum.Published)
+	assert.Equal(t, sum.Published, sum.Acked)
+	assert.Equal(t, map[string]float64{"unparseable": 2}, sum.Rejected)
+	assert.Equal(t, 24, sum.HoursClosed)
+	assert.Equal(t, 24, sum.Records)
+	assert.Positive(t, sum.MsgPerS)
+	assert.Positive(t, sum.AckP99)
+	assert.Positive(t, sum.PeakHeap)
+}
+
+func TestLoadRefusesRemoteBroker(t *testing.T) {
+	var out, errOut bytes.Buffer
+	code := run(context.Background(), []string{"load", "--broker", "tcp://10.20.30.40:1883"}, nil, &out, &errOut)
+	assert.Equal(t, exitUsage, code)
+	assert.Contains(t, errOut.String(), `broker host "10.20.30.40" is not a loopback address`)
+	assert.Empty(t, out.String())
+
+	errOut.Reset()
+	code = run(context.Background(), []string{"load", "--duration", "20m"}, nil, &out, &errOut)
+	assert.Equal(t, exitUsage, code)
+	assert.Contains(t, errOut.String(), "duration must be at most 10m0s, got 20m0s")
+}

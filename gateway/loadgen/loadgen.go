@@ -1,0 +1,318 @@
+// Package loadgen measures the live gateway under load: it runs the real
+// gateway (pipeline, state file, outbox, alerts) in process against an MQTT
+// broker on this machine, publishes simulated readings of many stations as
+// fast as the gateway takes them (or at a fixed rate) on a simulated clock
+// so that hours close during the run, and reports throughput, latency from
+// publication to the gateway's durable acknowledgement, hours closed and
+// memory.
+//
+// Load goes only to this machine: the broker is started in process on
+// 127.0.0.1, or given by the caller and refused unless its host is a
+// loopback address.
+package loadgen
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"io"
+	"log/slog"
+	"math/rand/v2"
+	"os"
+	"path/filepath"
+	"strings"
+	"time"
+
+	"github.com/prometheus/client_golang/prometheus"
+
+	"etpulse/gateway"
+	"etpulse/gateway/config"
+	"etpulse/gateway/demo"
+	"etpulse/gateway/mqtt"
+	"etpulse/gateway/state"
+)
+
+// Options configure a load run. Zero values take the defaults below.
+type Options struct {
+	// BrokerURL is a broker on this machine (tcp://127.0.0.1:PORT); empty
+	// starts an embedded broker on a free loopback port.
+	BrokerURL string
+	Stations  int           // simulated stations; default 20
+	Messages  int           // messages to publish at most; default 200000
+	Duration  time.Duration // publishing time at most; default 60s, at most MaxDuration
+	// Rate is the total publication rate in messages per second; 0 publishes
+	// as fast as the gateway takes them (within Window).
+	Rate float64
+	// Interval is the simulated time between two readings of one sensor;
+	// default 10s, 1s to 5m.
+	Interval time.Duration
+	// Publishers is the number of publishing connections; the stations are
+	// shared among them. Default 4, at most Stations.
+	Publishers int
+	// Window bounds the messages published but not yet acknowledged by the
+	// gateway; default 2000, at most 4096.
+	Window int
+	// Bad is the number of malformed messages injected on purpose, spread
+	// over the run; the gateway must reject exactly these. Default 0.
+	Bad int
+	// Dir holds the run's state file (a temporary directory is made in it
+	// and removed); empty means the system's temporary directory.
+	Dir string
+	// Progress receives a line every Every while publishing; nil for none.
+	Progress io.Writer
+	Every    time.Duration // default 5s
+	Logger   *slog.Logger  // gateway logs; nil discards
+}
+
+// Defaults and limits of Options.
+const (
+	DefaultStations   = 20
+	DefaultMessages   = 200000
+	DefaultDuration   = 60 * time.Second
+	MaxDuration       = 10 * time.Minute
+	DefaultInterval   = 10 * time.Second
+	DefaultPublishers = 4
+	DefaultWindow     = 2000
+	DefaultEvery      = 5 * time.Second
+	maxWindow         = 4096 // under the embedded broker's 8192 in-flight messages per client
+	maxStations       = 1000
+	maxMessages       = 50_000_000
+	drainTimeout      = 60 * time.Second // after publishing, for the gateway to catch up
+	// lagSim is how far (simulated time) publishers may run ahead of the
+	// slowest station the gateway has taken: under the 15-minute silence
+	// alert and the silence close.
+	lagSim = 10 * time.Minute
+)
+
+// Validate fills in the defaults and checks the options; Run calls it.
+func (o *Options) Validate() error {
+	def := func(v *int, d int) {
+		if *v == 0 {
+			*v = d
+		}
+	}
+	def(&o.Stations, DefaultStations)
+	def(&o.Messages, DefaultMessages)
+	def(&o.Publishers, DefaultPublishers)
+	def(&o.Window, DefaultWindow)
+	if o.Duration == 0 {
+		o.Duration = DefaultDuration
+	}
+	if o.Interval == 0 {
+		o.Interval = DefaultInterval
+	}
+	if o.Every == 0 {
+		o.Every = DefaultEvery
+	}
+	if o.Logger == nil {
+		o.Logger = slog.New(slog.DiscardHandler)
+	}
+	switch {
+	case o.Stations < 1 || o.Stations > maxStations:
+		return fmt.Errorf("stations must be 1-%d, got %d", maxStations, o.Stations)
+	case o.Messages < 1 || o.Messages > maxMessages:
+		return fmt.Errorf("messages must be 1-%d, got %d", maxMessages, o.Messages)
+	case o.Duration < 0 || o.Duration > MaxDuration:
+		return fmt.Errorf("duration must be at most %s, got %s", MaxDuration, o.Duration)
+	case o.Rate < 0:
+		return fmt.Errorf("rate must be >= 0 msg/s, got %g", o.Rate)
+	case o.Interval < time.Second || o.Interval > 5*time.Minute || o.Interval%time.Second != 0:
+		return fmt.Errorf("interval must be whole seconds from 1s to 5m, got %s", o.Interval)
+	case o.Publishers < 1:
+		return fmt.Errorf("publishers must be >= 1, got %d", o.Publishers)
+	case o.Window < 1 || o.Window > maxWindow:
+		return fmt.Errorf("window must be 1-%d messages, got %d", maxWindow, o.Window)
+	case o.Bad < 0 || o.Bad >= o.Messages:
+		return fmt.Errorf("bad must be 0 to messages-1, got %d", o.Bad)
+	case o.Every < 0:
+		return fmt.Errorf("progress interval must be >= 0, got %s", o.Every)
+	}
+	o.Publishers = min(o.Publishers, o.Stations)
+	if o.BrokerURL != "" {
+		if err := CheckLoopback(o.BrokerURL); err != nil {
+			return err
+		}
+	}
+	return nil
+}
+
+// Run performs one load run and returns its summary. It returns an error
+// when the run could not be made (bad options, broker unreachable, gateway
+// failure); an inconsistent result is a Summary whose Check fails.
+func Run(ctx context.Context, o Options) (sum Summary, err error) {
+	if err := o.Validate(); err != nil {
+		return sum, fmt.Errorf("load: %w", err)
+	}
+	runID := fmt.Sprintf("%08x", rand.Uint32())
+	dir, err := os.MkdirTemp(o.Dir, "etpulse-load-")
+	if err != nil {
+		return sum, fmt.Errorf("load: %w", err)
+	}
+	defer os.RemoveAll(dir)
+
+	url := o.BrokerURL
+	sum.Broker = url
+	if url == "" {
+		b, err := startEmbedded()
+		if err != nil {
+			return sum, fmt.Errorf("load: %w", err)
+		}
+		defer b.Close()
+		url, sum.Broker = b.url, "embedded"
+	}
+
+	f := newFarm(o.Stations, "corrigan-load-"+runID, o.Interval)
+	statePath := filepath.Join(dir, "state.db")
+	clientID := "etpulse-load-" + runID
+	cfg, err := config.Parse([]byte(f.configYAML(url, clientID, statePath)))
+	if err != nil {
+		return sum, fmt.Errorf("load: farm config: %w", err)
+	}
+	db, err := state.Open(statePath)
+	if err != nil {
+		return sum, fmt.Errorf("load: %w", err)
+	}
+	defer func() {
+		if cerr := db.Close(); cerr != nil && err == nil {
+			err = fmt.Errorf("load: close state: %w", cerr)
+		}
+	}()
+
+	reg := prometheus.NewRegistry()
+	mo, err := mqtt.OptionsFromConfig(cfg.Broker)
+	if err != nil {
+		return sum, fmt.Errorf("load: %w", err)
+	}
+	// As the daemon: one handler worker keeps the broker's order. A clean
+	// session leaves nothing behind on the broker after the run.
+	mo.Workers, mo.CleanSession, mo.Registerer = 1, true, reg
+	mo.Logger = o.Logger.With("component", "mqtt")
+	runCtx, cancel := context.WithCancel(ctx)
+	defer cancel()
+	client, err := mqtt.Dial(runCtx, mo)
+	if err != nil {
+		return sum, fmt.Errorf("load: gateway connection: %w", err)
+	}
+	defer client.Close(time.Second)
+
+	lag := max(1, int(lagSim/o.Interval))
+	tr := newTracker(f, o.Publishers, lag, o.Window)
+	clock := demo.NewClock(SimStart)
+	g, err := gateway.New(cfg, gateway.Deps{
+		Logger: o.Logger, Registerer: reg, Gatherer: reg, DB: db, MQTT: &tap{inner: client, t: tr},
+		Clock: clock.Now, After: clock.After, OnRecord: tr.record,
+	})
+	if err != nil {
+		return sum, fmt.Errorf("load: %w", err)
+	}
+	var runErr error
+	runDone := make(chan struct{})
+	go func() {
+		defer close(runDone)
+		runErr = g.Run(runCtx)
+	}()
+	select {
+	case <-g.Ready():
+	case <-runDone:
+		return sum, fmt.Errorf("load: gateway stopped: %w", runErr)
+	case <-ctx.Done():
+		cancel()
+		<-runDone
+		return sum, fmt.Errorf("load: %w", ctx.Err())
+	}
+
+	pubs, err := dialPublishers(runCtx, url, runID, o.Publishers, f)
+	if err != nil {
+		return sum, fmt.Errorf("load: %w", err)
+	}
+	defer func() {
+		for _, p := range pubs {
+			p.close()
+		}
+	}()
+
+	pl, err := newPlan(f, o)
+	if err != nil {
+		return sum, fmt.Errorf("load: %w", err)
+	}
+	mem := startMemory()
+	defer mem.stop()
+	pubCtx, stopPub := context.WithTimeout(runCtx, o.Duration)
+	defer stopPub()
+	go func() { <-pubCtx.Done(); tr.stop() }()
+
+	prog := startProgress(o.Progress, o.Every, tr, g, mem)
+	began := tr.since()
+	errs := make(chan error, len(pubs))
+	for _, p := range pubs {
+		go func() { errs <- p.run(pubCtx, pl, tr, clock) }()
+	}
+	var pubErr error
+	for range pubs {
+		if err := <-errs; err != nil && pubErr == nil {
+			pubErr = err
+			stopPub()
+		}
+	}
+	switch {
+	case ctx.Err() != nil:
+		sum.StoppedBy = "signal"
+	case pubCtx.Err() != nil:
+		sum.StoppedBy = "duration"
+	default:
+		sum.StoppedBy = "messages"
+	}
+	stopPub()
+	publishing := tr.since() - began
+	prog.stop()
+
+	// Let the gateway catch up: every published message acknowledged and
+	// every committed record published.
+	var total int64
+	for _, p := range pubs {
+		total += p.sent.Load()
+	}
+	drainErr := drain(ctx, g, uint64(total), runDone)
+	sum.collect(o, f, tr, g, reg, pubs, began, publishing)
+	if err := sum.Check(); err != nil {
+		sum.Problems = strings.Split(err.Error(), "\n")
+	}
+	sum.Consistent = len(sum.Problems) == 0
+	cancel()
+	<-runDone
+	if runErr != nil {
+		return sum, fmt.Errorf("load: gateway stopped: %w", runErr)
+	}
+	mem.stop()
+	sum.memory(mem)
+	if pubErr != nil {
+		return sum, fmt.Errorf("load: %w", pubErr)
+	}
+	if drainErr != nil {
+		return sum, fmt.Errorf("load: %w", drainErr)
+	}
+	return sum, nil
+}
+
+// drain waits until the gateway has handled n messages and published every
+// record it committed.
+func drain(ctx context.Context, g *gateway.Gateway, n uint64, runDone <-chan struct{}) error {
+	limit := time.After(drainTimeout)
+	for g.Handled() < n || g.Published() < g.Emitted() {
+		select {
+		case <-ctx.Done():
+			return nil // interrupted: report what was done
+		case <-runDone:
+			return errors.New("gateway stopped while draining")
+		case <-limit:
+			return fmt.Errorf("gateway handled %d of %d messages and published %d of %d records within %s",
+				g.Handled(), n, g.Published(), g.Emitted(), drainTimeout)
+		case <-time.After(time.Millisecond):
+		}
+	}
+	return nil
+}
+
+// ErrNotLoopback is returned for a broker whose host is not a loopback
+// address.
+var ErrNotLoopback = errors.New("not a loopback address")

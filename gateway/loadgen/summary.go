@@ -1,0 +1,361 @@
+package loadgen
+
+import (
+	"bufio"
+	"bytes"
+	"errors"
+	"fmt"
+	"io"
+	"os"
+	"runtime"
+	"runtime/metrics"
+	"sort"
+	"strconv"
+	"strings"
+	"sync"
+	"sync/atomic"
+	"time"
+
+	"github.com/prometheus/client_golang/prometheus"
+
+	"etpulse/gateway"
+)
+
+// Summary is the result of a load run. Durations are in milliseconds and
+// sizes in bytes in the JSON form.
+type Summary struct {
+	Broker     string  `json:"broker"` // "embedded" or the broker URL
+	Stations   int     `json:"stations"`
+	Publishers int     `json:"publishers"`
+	IntervalS  float64 `json:"interval_s"` // simulated seconds between readings of a sensor
+	StoppedBy  string  `json:"stopped_by"` // messages, duration or signal
+
+	Published   int64              `json:"messages_published"` // acknowledged by the broker
+	InjectedBad int64              `json:"messages_injected_bad"`
+	Acked       int64              `json:"messages_acked"`   // acknowledged by the gateway after storing them
+	Handled     int64              `json:"messages_handled"` // taken by the gateway (stored or rejected)
+	Unmatched   int64              `json:"acks_unmatched"`   // acknowledgements of no known publication (redeliveries)
+	Rejected    map[string]float64 `json:"rejected"`         // by reason
+	Duplicates  float64            `json:"readings_duplicate"`
+
+	PublishSeconds float64 `json:"publish_seconds"` // from the first publication to the last
+	AckSeconds     float64 `json:"ack_seconds"`     // from the first publication to the last acknowledgement
+	MsgPerSecond   float64 `json:"msg_per_s"`       // acknowledged messages / AckSeconds
+
+	AckP50Ms    float64 `json:"ack_latency_p50_ms"` // publication to durable acknowledgement
+	AckP99Ms    float64 `json:"ack_latency_p99_ms"`
+	AckMaxMs    float64 `json:"ack_latency_max_ms"`
+	RecordP50Ms float64 `json:"record_latency_p50_ms"` // closing reading published to hour record published
+	RecordP99Ms float64 `json:"record_latency_p99_ms"`
+
+	SimHours        float64        `json:"simulated_hours"` // simulated time covered by the readings
+	HoursClosed     int            `json:"hours_closed"`    // first emissions, all stations
+	HoursExpected   int            `json:"hours_expected"`  // hours the published readings close
+	HoursPerStation map[string]int `json:"-"`
+	Revisions       int            `json:"revisions"`
+	Incomplete      int            `json:"records_incomplete"`
+	SilenceClosed   int            `json:"records_closed_by_silence"`
+	Records         uint64         `json:"records_published"` // by the gateway, first emissions and revisions
+	RecordsEmitted  uint64         `json:"records_committed"`
+	AlertsRaised    float64        `json:"alerts_raised"`
+	OutboxDepth     float64        `json:"outbox_depth"` // points not yet accepted by a store, at the end
+
+	PeakHeapBytes uint64 `json:"peak_heap_bytes"` // live heap objects, sampled every 100 ms
+	PeakRSSBytes  uint64 `json:"peak_rss_bytes"`  // VmHWM of the whole process; 0 where unavailable
+	GCCycles      uint32 `json:"gc_cycles"`
+
+	Consistent bool     `json:"consistent"`         // Check passed
+	Problems   []string `json:"problems,omitempty"` // what Check found
+}
+
+// collect fills the summary once publishing has stopped and the gateway has
+// caught up.
+func (s *Summary) collect(o Options, f *farm, tr *tracker, g *gateway.Gateway, reg prometheus.Gatherer, pubs []*publisher, began, publishing time.Duration) {
+	s.Stations, s.Publishers, s.IntervalS = o.Stations, o.Publishers, o.Interval.Seconds()
+	lastTick := map[int]int{}
+	for _, p := range pubs {
+		s.Published += p.sent.Load()
+		s.InjectedBad += p.bad.Load()
+	}
+	tr.mu.Lock()
+	for i, ps := range tr.pubs {
+		lastTick[i] = ps.lastTick
+	}
+	s.Acked, s.Unmatched = tr.acked, tr.unmatched
+	if tr.acked > 0 {
+		s.AckSeconds = (tr.lastAck - began).Seconds()
+	}
+	s.AckP50Ms, s.AckP99Ms = ms(tr.ackLat.quantile(0.50)), ms(tr.ackLat.quantile(0.99))
+	s.AckMaxMs = ms(tr.ackLat.max)
+	s.RecordP50Ms, s.RecordP99Ms = ms(tr.recLat.quantile(0.50)), ms(tr.recLat.quantile(0.99))
+	s.HoursPerStation = map[string]int{}
+	for i, st := range f.stations {
+		s.HoursClosed += tr.hours[i]
+		s.HoursPerStation[st.id] = tr.hours[i]
+		last := lastTick[st.idx%len(pubs)]
+		s.HoursExpected += f.hoursClosed(st, last)
+		if last >= 0 {
+			s.SimHours = max(s.SimHours, f.readingTime(st, last).Sub(SimStart).Hours())
+		}
+	}
+	s.Revisions, s.Incomplete, s.SilenceClosed = tr.revisions, tr.incomplete, tr.silenced
+	tr.mu.Unlock()
+
+	s.PublishSeconds = publishing.Seconds()
+	if s.AckSeconds > 0 {
+		s.MsgPerSecond = float64(s.Acked) / s.AckSeconds
+	}
+	s.Handled = int64(g.Handled())
+	s.Records, s.RecordsEmitted = g.Published(), g.Emitted()
+	s.Rejected = map[string]float64{}
+	sumMetric(reg, "etpulse_messages_rejected_total", func(labels map[string]string, v float64) {
+		s.Rejected[labels["reason"]] += v
+	})
+	sumMetric(reg, "etpulse_readings_duplicate_total", func(_ map[string]string, v float64) { s.Duplicates += v })
+	sumMetric(reg, "etpulse_alerts_raised_total", func(_ map[string]string, v float64) { s.AlertsRaised += v })
+	sumMetric(reg, "etpulse_outbox_depth", func(_ map[string]string, v float64) { s.OutboxDepth += v })
+}
+
+func ms(d time.Duration) float64 { return float64(d.Microseconds()) / 1000 }
+
+// sumMetric calls fn with the labels and value of every sample of the
+// counter or gauge named name.
+func sumMetric(g prometheus.Gatherer, name string, fn func(labels map[string]string, v float64)) {
+	mfs, err := g.Gather()
+	if err != nil {
+		return
+	}
+	for _, mf := range mfs {
+		if mf.GetName() != name {
+			continue
+		}
+		for _, m := range mf.GetMetric() {
+			labels := map[string]string{}
+			for _, l := range m.GetLabel() {
+				labels[l.GetName()] = l.GetValue()
+			}
+			switch {
+			case m.Counter != nil:
+				fn(labels, m.GetCounter().GetValue())
+			case m.Gauge != nil:
+				fn(labels, m.GetGauge().GetValue())
+			}
+		}
+	}
+}
+
+func (s *Summary) memory(m *memory) {
+	s.PeakHeapBytes = m.peak.Load()
+	s.PeakRSSBytes = peakRSS()
+	var ms runtime.MemStats
+	runtime.ReadMemStats(&ms)
+	s.PeakHeapBytes = max(s.PeakHeapBytes, ms.HeapAlloc)
+	s.GCCycles = ms.NumGC
+}
+
+// Check reports every inconsistency of the run: a published message the
+// gateway did not acknowledge, rejections other than the injected ones,
+// hours not closed or closed twice, records not published.
+func (s *Summary) Check() error {
+	var errs []error
+	bad := func(format string, args ...any) { errs = append(errs, fmt.Errorf(format, args...)) }
+	if s.Acked != s.Published {
+		bad("gateway acknowledged %d of %d published messages", s.Acked, s.Published)
+	}
+	if s.Handled != s.Published {
+		bad("gateway handled %d of %d published messages", s.Handled, s.Published)
+	}
+	if s.Unmatched != 0 {
+		bad("%d acknowledgements matched no publication (redelivered messages)", s.Unmatched)
+	}
+	var rejected float64
+	for _, v := range s.Rejected {
+		rejected += v
+	}
+	if rejected != float64(s.InjectedBad) {
+		bad("gateway rejected %.0f messages (%s), %d were injected malformed", rejected, s.rejectedText(), s.InjectedBad)
+	}
+	if s.Duplicates != 0 {
+		bad("%.0f readings counted as duplicates", s.Duplicates)
+	}
+	if s.HoursClosed != s.HoursExpected {
+		bad("hours closed %d, expected %d (the published readings close that many)", s.HoursClosed, s.HoursExpected)
+	}
+	if s.Revisions != 0 || s.SilenceClosed != 0 || s.Incomplete != 0 {
+		bad("revisions %d, hours closed by silence %d, incomplete hours %d: want none", s.Revisions, s.SilenceClosed, s.Incomplete)
+	}
+	if s.Records != s.RecordsEmitted || s.Records != uint64(s.HoursClosed+s.Revisions) {
+		bad("records published %d, committed %d, hours closed %d", s.Records, s.RecordsEmitted, s.HoursClosed)
+	}
+	return errors.Join(errs...)
+}
+
+func (s *Summary) rejectedText() string {
+	if len(s.Rejected) == 0 {
+		return "none"
+	}
+	keys := make([]string, 0, len(s.Rejected))
+	for k := range s.Rejected {
+		keys = append(keys, k)
+	}
+	sort.Strings(keys)
+	parts := make([]string, len(keys))
+	for i, k := range keys {
+		parts[i] = fmt.Sprintf("%s %.0f", k, s.Rejected[k])
+	}
+	return strings.Join(parts, ", ")
+}
+
+// WriteText writes the summary as plain text.
+func (s *Summary) WriteText(w io.Writer) error {
+	var b bytes.Buffer
+	p := func(format string, args ...any) { fmt.Fprintf(&b, format+"\n", args...) }
+	p("broker            %s", s.Broker)
+	p("stations          %d (%d publishing connections, a reading every %gs simulated), stopped by %s", s.Stations, s.Publishers, s.IntervalS, s.StoppedBy)
+	p("published         %d messages in %.2fs (%d malformed on purpose)", s.Published, s.PublishSeconds, s.InjectedBad)
+	p("acknowledged      %d durable, %d handled, %d unmatched; rejected: %s", s.Acked, s.Handled, s.Unmatched, s.rejectedText())
+	p("throughput        %.0f msg/s sustained (acknowledged / %.2fs from first publication to last acknowledgement)", s.MsgPerSecond, s.AckSeconds)
+	p("ack latency       p50 %.2f ms, p99 %.2f ms, max %.2f ms (publication to durable acknowledgement)", s.AckP50Ms, s.AckP99Ms, s.AckMaxMs)
+	p("record latency    p50 %.2f ms, p99 %.2f ms (closing reading published to hour record published)", s.RecordP50Ms, s.RecordP99Ms)
+	p("hours             %d closed (expected %d) over %.1f simulated hours; revisions %d, incomplete %d, closed by silence %d",
+		s.HoursClosed, s.HoursExpected, s.SimHours, s.Revisions, s.Incomplete, s.SilenceClosed)
+	p("records           %d published (%d committed); alerts raised %.0f; outbox depth at the end %.0f", s.Records, s.RecordsEmitted, s.AlertsRaised, s.OutboxDepth)
+	rss := "n/a"
+	if s.PeakRSSBytes > 0 {
+		rss = mib(s.PeakRSSBytes)
+	}
+	p("memory            peak heap %s, peak RSS %s (whole process: broker, publishers and gateway), %d GC cycles", mib(s.PeakHeapBytes), rss, s.GCCycles)
+	if err := s.Check(); err != nil {
+		p("consistency       FAILED:")
+		for _, line := range strings.Split(err.Error(), "\n") {
+			p("  - %s", line)
+		}
+	} else {
+		p("consistency       ok: every published message acknowledged, rejections = injected, records = hours closed")
+	}
+	_, err := w.Write(b.Bytes())
+	return err
+}
+
+func mib(n uint64) string { return fmt.Sprintf("%.1f MiB", float64(n)/(1<<20)) }
+
+// memory samples the live heap every 100 ms and keeps the peak.
+type memory struct {
+	peak atomic.Uint64
+	done chan struct{}
+	once sync.Once
+	wg   sync.WaitGroup
+}
+
+const heapMetric = "/memory/classes/heap/objects:bytes"
+
+func startMemory() *memory {
+	m := &memory{done: make(chan struct{})}
+	m.wg.Add(1)
+	go func() {
+		defer m.wg.Done()
+		sample := []metrics.Sample{{Name: heapMetric}}
+		t := time.NewTicker(100 * time.Millisecond)
+		defer t.Stop()
+		for {
+			metrics.Read(sample)
+			if sample[0].Value.Kind() == metrics.KindUint64 {
+				if v := sample[0].Value.Uint64(); v > m.peak.Load() {
+					m.peak.Store(v)
+				}
+			}
+			select {
+			case <-m.done:
+				return
+			case <-t.C:
+			}
+		}
+	}()
+	return m
+}
+
+func (m *memory) stop() {
+	m.once.Do(func() { close(m.done) })
+	m.wg.Wait()
+}
+
+// peakRSS returns the process's peak resident set size (VmHWM), or 0 where
+// /proc/self/status is unavailable.
+func peakRSS() uint64 { return procStatus("VmHWM:") }
+
+func currentRSS() uint64 { return procStatus("VmRSS:") }
+
+func procStatus(key string) uint64 {
+	f, err := os.Open("/proc/self/status")
+	if err != nil {
+		return 0
+	}
+	defer f.Close()
+	sc := bufio.NewScanner(f)
+	for sc.Scan() {
+		line := sc.Text()
+		if !strings.HasPrefix(line, key) {
+			continue
+		}
+		fields := strings.Fields(line[len(key):])
+		if len(fields) == 0 {
+			return 0
+		}
+		kb, err := strconv.ParseUint(fields[0], 10, 64)
+		if err != nil {
+			return 0
+		}
+		return kb << 10
+	}
+	return 0
+}
+
+// progress writes a line every interval while publishing.
+type progress struct {
+	done chan struct{}
+	wg   sync.WaitGroup
+}
+
+func startProgress(w io.Writer, every time.Duration, tr *tracker, g *gateway.Gateway, m *memory) *progress {
+	p := &progress{done: make(chan struct{})}
+	if w == nil || every <= 0 {
+		return p
+	}
+	p.wg.Add(1)
+	go func() {
+		defer p.wg.Done()
+		t := time.NewTicker(every)
+		defer t.Stop()
+		var lastAcked int64
+		last := tr.since()
+		for {
+			select {
+			case <-p.done:
+				return
+			case <-t.C:
+			}
+			tr.mu.Lock()
+			acked, outstanding := tr.acked, tr.outstanding
+			hours := 0
+			for _, h := range tr.hours {
+				hours += h
+			}
+			tr.mu.Unlock()
+			now := tr.since()
+			rate := float64(acked-lastAcked) / (now - last).Seconds()
+			lastAcked, last = acked, now
+			fmt.Fprintf(w, "%6.1fs  acknowledged %d (%.0f msg/s), waiting %d, hours closed %d, records published %d, peak heap %s, rss %s\n",
+				now.Seconds(), acked, rate, outstanding, hours, g.Published(), mib(m.peak.Load()), mib(currentRSS()))
+		}
+	}()
+	return p
+}
+
+func (p *progress) stop() {
+	select {
+	case <-p.done:
+	default:
+		close(p.done)
+	}
+	p.wg.Wait()
+}

@@ -1,0 +1,301 @@
+package loadgen
+
+import (
+	"context"
+	"math"
+	"sync"
+	"time"
+
+	"etpulse/gateway"
+	"etpulse/gateway/mqtt"
+	"etpulse/gateway/pipeline"
+	"etpulse/hourly"
+)
+
+// entry is one published message waiting for the gateway's acknowledgement.
+type entry struct {
+	at   time.Duration // publication, since the tracker's base
+	tick int
+	pub  int
+}
+
+// fifo holds the unacknowledged messages of one topic in publication order.
+// One topic is published by one connection and the gateway takes messages
+// in the order the broker delivers them, so acknowledgements of a topic come
+// in the same order.
+type fifo struct {
+	items []entry
+	head  int
+}
+
+func (q *fifo) push(e entry) { q.items = append(q.items, e) }
+
+func (q *fifo) pop() (entry, bool) {
+	if q.head == len(q.items) {
+		return entry{}, false
+	}
+	e := q.items[q.head]
+	q.head++
+	if q.head == len(q.items) {
+		q.items, q.head = q.items[:0], 0
+	} else if q.head > 4096 && q.head*2 > len(q.items) {
+		q.items = append(q.items[:0], q.items[q.head:]...)
+		q.head = 0
+	}
+	return e, true
+}
+
+// pubState is the progress of one publishing connection.
+type pubState struct {
+	lastTick    int // last tick fully handed to the connection; -1 before the first
+	ackedTick   int // tick of the latest message the gateway acknowledged; -1 before
+	outstanding int // published, not yet acknowledged by the gateway
+}
+
+// tracker pairs each gateway acknowledgement with its publication, keeps the
+// latency histograms, and holds publishers back so that they stay within a
+// window of the gateway (see waitTurn).
+type tracker struct {
+	base  time.Time
+	farm  *farm
+	lag   int // ticks a publisher may run ahead of the slowest acknowledged tick
+	limit int // messages published and not yet acknowledged, all connections
+
+	mu          sync.Mutex
+	cond        *sync.Cond
+	stopped     bool
+	topics      map[string]*fifo
+	pubs        []pubState
+	outstanding int
+	acked       int64
+	unmatched   int64 // acknowledgements with no publication on record (redeliveries)
+	lastAck     time.Duration
+	ackLat      histogram
+	recLat      histogram
+	closing     map[closeKey]time.Duration // first reading past an hour's end + grace, by publication time
+	hours       []int                      // first emissions, by station
+	revisions   int
+	incomplete  int
+	silenced    int
+}
+
+type closeKey struct {
+	station int
+	end     int64
+}
+
+func newTracker(f *farm, pubs, lag, limit int) *tracker {
+	t := &tracker{base: time.Now(), farm: f, lag: lag, limit: limit, topics: map[string]*fifo{},
+		pubs: make([]pubState, pubs), closing: map[closeKey]time.Duration{}, hours: make([]int, len(f.stations))}
+	t.cond = sync.NewCond(&t.mu)
+	for _, st := range f.stations {
+		for _, topic := range st.topics {
+			t.topics[topic] = &fifo{}
+		}
+	}
+	for i := range t.pubs {
+		t.pubs[i] = pubState{lastTick: -1, ackedTick: -1}
+	}
+	return t
+}
+
+func (t *tracker) since() time.Duration { return time.Since(t.base) }
+
+// stop wakes every waiting publisher for good.
+func (t *tracker) stop() {
+	t.mu.Lock()
+	t.stopped = true
+	t.mu.Unlock()
+	t.cond.Broadcast()
+}
+
+// progress is the latest tick the gateway has taken from every connection:
+// a connection with nothing outstanding has been taken up to its last tick,
+// otherwise up to the tick before its latest acknowledged one. t.mu held.
+func (t *tracker) progress() int {
+	p := math.MaxInt
+	for _, s := range t.pubs {
+		v := s.lastTick
+		if s.outstanding > 0 {
+			v = s.ackedTick - 1
+		}
+		p = min(p, v)
+	}
+	return p
+}
+
+// waitTurn blocks publisher pub before tick k until the gateway has taken
+// every connection's messages up to tick k-lag and fewer than limit-n
+// messages are outstanding. The lag keeps the gateway clock (set to the
+// newest tick published) within a few simulated minutes of every station's
+// readings, so no hour is closed by silence and no silence alert fires;
+// the limit bounds the broker's queue. It returns false once stopped.
+func (t *tracker) waitTurn(ctx context.Context, pub, k, n int) bool {
+	t.mu.Lock()
+	defer t.mu.Unlock()
+	for !t.stopped && ctx.Err() == nil {
+		if t.progress() >= k-t.lag && (t.outstanding == 0 || t.outstanding+n <= t.limit) {
+			return true
+		}
+		t.cond.Wait()
+	}
+	return false
+}
+
+// published records that messages are about to be handed to the broker for
+// publisher pub at tick k. Entries go in before the publication, so an
+// acknowledgement can never overtake its entry.
+func (t *tracker) published(pub, k int, msgs []outMsg) {
+	at := t.since()
+	t.mu.Lock()
+	defer t.mu.Unlock()
+	for _, m := range msgs {
+		t.topics[m.topic].push(entry{at: at, tick: k, pub: pub})
+	}
+	t.pubs[pub].outstanding += len(msgs)
+	t.outstanding += len(msgs)
+}
+
+// tickDone records that publisher pub has handed every message of tick k to
+// its connection.
+func (t *tracker) tickDone(pub, k int) {
+	t.mu.Lock()
+	t.pubs[pub].lastTick = k
+	t.mu.Unlock()
+	t.cond.Broadcast()
+}
+
+// closingAt records when the reading that closes the hour ending at end was
+// published for station st.
+func (t *tracker) closingAt(st int, end time.Time, at time.Duration) {
+	t.mu.Lock()
+	t.closing[closeKey{st, end.Unix()}] = at
+	t.mu.Unlock()
+}
+
+// ack is called when the gateway acknowledges a message of topic.
+func (t *tracker) ack(topic string) {
+	now := t.since()
+	t.mu.Lock()
+	q := t.topics[topic]
+	if q == nil {
+		t.unmatched++
+		t.mu.Unlock()
+		return
+	}
+	e, ok := q.pop()
+	if !ok {
+		t.unmatched++
+		t.mu.Unlock()
+		return
+	}
+	t.acked++
+	t.lastAck = now
+	t.ackLat.add(now - e.at)
+	ps := &t.pubs[e.pub]
+	ps.outstanding--
+	ps.ackedTick = max(ps.ackedTick, e.tick)
+	t.outstanding--
+	t.mu.Unlock()
+	t.cond.Broadcast()
+}
+
+// record is gateway.Deps.OnRecord: it counts hours and measures how long a
+// first emission took from the publication of the reading that closed it.
+func (t *tracker) record(rec hourly.Record) {
+	now := t.since()
+	t.mu.Lock()
+	defer t.mu.Unlock()
+	st, ok := t.farm.byID[rec.Station]
+	if !ok {
+		return
+	}
+	for _, f := range rec.Flags {
+		if f == pipeline.FlagSilenceClose {
+			t.silenced++
+		}
+	}
+	if !rec.Complete {
+		t.incomplete++
+	}
+	if rec.Revision > 0 {
+		t.revisions++
+		return
+	}
+	t.hours[st]++
+	key := closeKey{st, rec.End.Unix()}
+	if at, ok := t.closing[key]; ok {
+		t.recLat.add(now - at)
+		delete(t.closing, key)
+	}
+}
+
+// tap is the gateway's broker connection with every acknowledgement
+// reported to the tracker.
+type tap struct {
+	inner gateway.Broker
+	t     *tracker
+}
+
+var _ gateway.Broker = (*tap)(nil)
+
+// Publish forwards to the connection.
+func (b *tap) Publish(ctx context.Context, topic string, qos byte, retained bool, payload []byte) error {
+	return b.inner.Publish(ctx, topic, qos, retained, payload)
+}
+
+// Subscribe forwards to the connection, wrapping each message's Ack.
+func (b *tap) Subscribe(filter string, qos byte, handle func(mqtt.Message)) error {
+	return b.inner.Subscribe(filter, qos, func(m mqtt.Message) {
+		if ack := m.Ack; ack != nil {
+			topic := m.Topic
+			m.Ack = func() {
+				ack()
+				b.t.ack(topic)
+			}
+		}
+		handle(m)
+	})
+}
+
+// histogram keeps durations in logarithmic buckets 2 % wide from 1 µs, so a
+// quantile is read within about 2 % whatever the run length.
+type histogram struct {
+	counts []int64
+	n      int64
+	max    time.Duration
+}
+
+const histGrowth = 1.02
+
+func (h *histogram) add(d time.Duration) {
+	if d < time.Microsecond {
+		d = time.Microsecond
+	}
+	i := int(math.Log(float64(d)/float64(time.Microsecond)) / math.Log(histGrowth))
+	if i >= len(h.counts) {
+		h.counts = append(h.counts, make([]int64, i+1-len(h.counts))...)
+	}
+	h.counts[i]++
+	h.n++
+	h.max = max(h.max, d)
+}
+
+// quantile returns the upper edge of the bucket holding quantile q (0-1),
+// capped at the largest value seen; 0 when empty.
+func (h *histogram) quantile(q float64) time.Duration {
+	if h.n == 0 {
+		return 0
+	}
+	rank := int64(math.Ceil(q * float64(h.n)))
+	rank = max(rank, 1)
+	var seen int64
+	for i, c := range h.counts {
+		seen += c
+		if seen >= rank {
+			edge := time.Duration(float64(time.Microsecond) * math.Pow(histGrowth, float64(i+1)))
+			return min(edge, h.max)
+		}
+	}
+	return h.max
+}
