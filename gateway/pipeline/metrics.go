@@ -37,7 +37,7 @@ func newMetrics(reg prometheus.Registerer) (*metrics, error) {
 			Help: "Readings dropped because the same sensor and timestamp were already stored (QoS 1 redelivery).",
 		}, []string{"station"}),
 		closed: prometheus.NewCounterVec(prometheus.CounterOpts{
-			Name: "etpulse_hours_closed_total",
+			Name: "etpulse_records_closed_total",
 			Help: "Station hours closed (first emission), by completeness.",
 		}, []string{"station", "complete"}),
 		revisions: prometheus.NewCounterVec(prometheus.CounterOpts{
