@@ -1,9 +1,10 @@
 #!/usr/bin/env bash
 # Runs the whole test suite against real servers on loopback.
 #
-# Installs mosquitto and victoria-metrics from the distribution's packages when
-# they are missing, starts one private instance of each on free loopback ports
-# with temporary data directories, exports their addresses to the tests, runs
+# Installs mosquitto, victoria-metrics and promtool (package prometheus) from
+# the distribution's packages when they are missing, starts one private
+# instance of mosquitto and of victoria-metrics on free loopback ports with
+# temporary data directories, exports their addresses to the tests, runs
 # `go vet` and `go test`, and stops exactly the processes it started (by PID)
 # on exit. Extra arguments go to `go test` (e.g. -run TestName).
 set -euo pipefail
@@ -14,6 +15,8 @@ log() { printf 'test.sh: %s\n' "$*" >&2; }
 need_pkgs=()
 [ -x /usr/sbin/mosquitto ] || command -v mosquitto >/dev/null 2>&1 || need_pkgs+=(mosquitto mosquitto-clients)
 command -v victoria-metrics >/dev/null 2>&1 || need_pkgs+=(victoria-metrics)
+# promtool checks the metrics exposition (the server itself is not started).
+command -v promtool >/dev/null 2>&1 || need_pkgs+=(prometheus)
 if [ ${#need_pkgs[@]} -gt 0 ]; then
 	if [ "$(id -u)" != 0 ]; then
 		log "missing ${need_pkgs[*]}; install them (as root: apt-get install -y ${need_pkgs[*]})"
