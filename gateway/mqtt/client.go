@@ -3,9 +3,11 @@ package mqtt
 import (
 	"context"
 	"crypto/tls"
+	"crypto/x509"
 	"errors"
 	"fmt"
 	"log/slog"
+	"net"
 	"strings"
 	"sync"
 	"sync/atomic"
@@ -106,7 +108,8 @@ var (
 
 // Dial connects to the broker and returns once the first connection is up.
 // A refused connection (bad credentials, rejected client id, not authorised)
-// fails at once; network errors are retried with back-off until ctx ends.
+// and a broker certificate that does not verify fail at once; network
+// errors are retried with back-off until ctx ends.
 // After the first connection the client reconnects by itself.
 func Dial(ctx context.Context, o Options) (*Client, error) {
 	if o.URL == "" {
@@ -189,6 +192,10 @@ func Dial(ctx context.Context, o Options) (*Client, error) {
 			c.stopWorkers()
 			return nil, fmt.Errorf("mqtt dial %s: %w", redactURL(o.URL), err)
 		}
+		if untrusted(err) {
+			c.stopWorkers()
+			return nil, fmt.Errorf("mqtt dial %s: certificate check failed (check tls.ca_file, tls.cert_file and key_file, and that the broker's certificate names this host): %w", redactURL(o.URL), err)
+		}
 		c.log.Warn("connect failed, retrying", "err", err, "retry_in", backoff)
 		select {
 		case <-ctx.Done():
@@ -217,6 +224,29 @@ func refused(err error) bool {
 		errors.Is(err, packets.ErrorRefusedNotAuthorised) ||
 		errors.Is(err, packets.ErrorRefusedIDRejected) ||
 		errors.Is(err, packets.ErrorRefusedBadProtocolVersion)
+}
+
+// untrusted reports a failed certificate check on either side: the broker's
+// certificate does not verify (a wrong CA, a certificate for another host,
+// an expired one), or the broker rejected ours or its absence (a TLS alert
+// about the certificate). Retrying does not fix the configuration, so Dial
+// fails at once, like a refusal.
+func untrusted(err error) bool {
+	var (
+		verify   *tls.CertificateVerificationError
+		unknown  x509.UnknownAuthorityError
+		hostname x509.HostnameError
+		invalid  x509.CertificateInvalidError
+		remote   *net.OpError
+	)
+	// A TLS alert from the broker arrives as a "remote error" whose text names
+	// it ("tls: certificate required", "tls: bad certificate", "tls: unknown
+	// certificate authority", ...).
+	if errors.As(err, &remote) && remote.Op == "remote error" && remote.Err != nil &&
+		strings.Contains(remote.Err.Error(), "certificate") {
+		return true
+	}
+	return errors.As(err, &verify) || errors.As(err, &unknown) || errors.As(err, &hostname) || errors.As(err, &invalid)
 }
 
 func (c *Client) onConnect(pc paho.Client) {
