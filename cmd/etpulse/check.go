@@ -63,8 +63,31 @@ func runCheck(_ context.Context, args []string, _ io.Reader, stdout, stderr io.W
 			return exitError
 		}
 	}
-	if _, err := mqtt.OptionsFromConfig(cfg.Broker); err != nil {
+	for _, err := range machineLocalProblems(cfg) {
 		fmt.Fprintf(stderr, "warning: %v (needed by 'etpulse run' on this machine)\n", err)
 	}
 	return exitOK
+}
+
+// machineLocalProblems reads what only this machine has: the broker password
+// and TLS files, and the store token. Each is checked on its own, so a
+// missing password file does not hide a missing CA file.
+func machineLocalProblems(cfg *config.Config) []error {
+	var errs []error
+	if _, err := mqtt.OptionsFromConfig(cfg.Broker); err != nil {
+		errs = append(errs, err)
+		if _, perr := cfg.Broker.Password.Resolve(); perr != nil {
+			b := cfg.Broker
+			b.Password = config.Secret{}
+			if _, err := mqtt.OptionsFromConfig(b); err != nil {
+				errs = append(errs, err)
+			}
+		}
+	}
+	if cfg.Store.URL != "" && cfg.Store.Token.IsSet() {
+		if _, err := cfg.Store.Token.Resolve(); err != nil {
+			errs = append(errs, fmt.Errorf("store token: %w", err))
+		}
+	}
+	return errs
 }
