@@ -158,8 +158,8 @@ func (p *publisher) close() {
 
 // run publishes the plan's ticks for the publisher's stations until done or
 // ctx ends (a tick already started is finished). At each tick it waits for
-// its turn (tracker.waitTurn), moves the gateway clock to the tick, and
-// records the messages before handing them to the connection.
+// its turn (tracker.waitTurn) and moves the gateway clock to the tick; each
+// message is recorded with the tracker just before it goes to the connection.
 func (p *publisher) run(ctx context.Context, pl *plan, tr *tracker, clock *demo.Clock) error {
 	f := pl.farm
 	var window []paho.Token
@@ -215,7 +215,6 @@ func (p *publisher) run(ctx context.Context, pl *plan, tr *tracker, clock *demo.
 				tr.closingAt(st.idx, end, tr.since())
 			}
 		}
-		tr.published(p.idx, k, buf)
 		for _, m := range buf {
 			if perSec > 0 {
 				due := start.Add(time.Duration(float64(n) / perSec * float64(time.Second)))
@@ -224,6 +223,7 @@ func (p *publisher) run(ctx context.Context, pl *plan, tr *tracker, clock *demo.
 				}
 			}
 			n++
+			tr.publishing(p.idx, k, m.topic)
 			window = append(window, p.c.Publish(m.topic, 1, false, m.payload))
 			if m.bad {
 				p.bad.Add(1)

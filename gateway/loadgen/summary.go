@@ -51,7 +51,7 @@ type Summary struct {
 	SimHours        float64        `json:"simulated_hours"` // simulated time covered by the readings
 	HoursClosed     int            `json:"hours_closed"`    // first emissions, all stations
 	HoursExpected   int            `json:"hours_expected"`  // hours the published readings close
-	HoursPerStation map[string]int `json:"-"`
+	HoursPerStation map[string]int `json:"hours_per_station"`
 	Revisions       int            `json:"revisions"`
 	Incomplete      int            `json:"records_incomplete"`
 	SilenceClosed   int            `json:"records_closed_by_silence"`
@@ -60,9 +60,11 @@ type Summary struct {
 	AlertsRaised    float64        `json:"alerts_raised"`
 	OutboxDepth     float64        `json:"outbox_depth"` // points not yet accepted by a store, at the end
 
-	PeakHeapBytes uint64 `json:"peak_heap_bytes"` // live heap objects, sampled every 100 ms
-	PeakRSSBytes  uint64 `json:"peak_rss_bytes"`  // VmHWM of the whole process; 0 where unavailable
-	GCCycles      uint32 `json:"gc_cycles"`
+	CPUSeconds    float64 `json:"cpu_seconds"`     // process user+system CPU from the first publication to the end of draining; 0 where unavailable
+	CPUPerMsgUs   float64 `json:"cpu_us_per_msg"`  // CPUSeconds per acknowledged message, whole process
+	PeakHeapBytes uint64  `json:"peak_heap_bytes"` // live heap objects, sampled every 100 ms
+	PeakRSSBytes  uint64  `json:"peak_rss_bytes"`  // VmHWM of the whole process; 0 where unavailable
+	GCCycles      uint32  `json:"gc_cycles"`
 
 	Consistent bool     `json:"consistent"`         // Check passed
 	Problems   []string `json:"problems,omitempty"` // what Check found
@@ -216,13 +218,20 @@ func (s *Summary) WriteText(w io.Writer) error {
 	p("acknowledged      %d durable, %d handled, %d unmatched; rejected: %s", s.Acked, s.Handled, s.Unmatched, s.rejectedText())
 	p("throughput        %.0f msg/s sustained (acknowledged / %.2fs from first publication to last acknowledgement)", s.MsgPerSecond, s.AckSeconds)
 	p("ack latency       p50 %.2f ms, p99 %.2f ms, max %.2f ms (publication to durable acknowledgement)", s.AckP50Ms, s.AckP99Ms, s.AckMaxMs)
-	p("record latency    p50 %.2f ms, p99 %.2f ms (closing reading published to hour record published)", s.RecordP50Ms, s.RecordP99Ms)
+	if s.HoursClosed > 0 {
+		p("record latency    p50 %.2f ms, p99 %.2f ms (closing reading published to hour record published)", s.RecordP50Ms, s.RecordP99Ms)
+	} else {
+		p("record latency    n/a (no hour closed)")
+	}
 	p("hours             %d closed (expected %d) over %.1f simulated hours; revisions %d, incomplete %d, closed by silence %d",
 		s.HoursClosed, s.HoursExpected, s.SimHours, s.Revisions, s.Incomplete, s.SilenceClosed)
 	p("records           %d published (%d committed); alerts raised %.0f; outbox depth at the end %.0f", s.Records, s.RecordsEmitted, s.AlertsRaised, s.OutboxDepth)
 	rss := "n/a"
 	if s.PeakRSSBytes > 0 {
 		rss = mib(s.PeakRSSBytes)
+	}
+	if s.CPUSeconds > 0 {
+		p("cpu               %.2fs user+system, %.1f µs per message (whole process: broker, publishers and gateway)", s.CPUSeconds, s.CPUPerMsgUs)
 	}
 	p("memory            peak heap %s, peak RSS %s (whole process: broker, publishers and gateway), %d GC cycles", mib(s.PeakHeapBytes), rss, s.GCCycles)
 	if err := s.Check(); err != nil {

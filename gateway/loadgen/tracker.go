@@ -142,18 +142,16 @@ func (t *tracker) waitTurn(ctx context.Context, pub, k, n int) bool {
 	return false
 }
 
-// published records that messages are about to be handed to the broker for
-// publisher pub at tick k. Entries go in before the publication, so an
-// acknowledgement can never overtake its entry.
-func (t *tracker) published(pub, k int, msgs []outMsg) {
+// publishing records that a message of topic is about to be handed to the
+// broker by publisher pub at tick k. The entry goes in before the
+// publication, so the acknowledgement can never overtake it.
+func (t *tracker) publishing(pub, k int, topic string) {
 	at := t.since()
 	t.mu.Lock()
 	defer t.mu.Unlock()
-	for _, m := range msgs {
-		t.topics[m.topic].push(entry{at: at, tick: k, pub: pub})
-	}
-	t.pubs[pub].outstanding += len(msgs)
-	t.outstanding += len(msgs)
+	t.topics[topic].push(entry{at: at, tick: k, pub: pub})
+	t.pubs[pub].outstanding++
+	t.outstanding++
 }
 
 // tickDone records that publisher pub has handed every message of tick k to
