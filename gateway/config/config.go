@@ -69,6 +69,9 @@ func Parse(b []byte) (*Config, error) {
 		}
 		return nil, decodeError(b, err)
 	}
+	if err := fractionProblems(b); err != nil {
+		return nil, err
+	}
 	c.setDefaults()
 	if err := c.Validate(); err != nil {
 		return nil, err

@@ -2,6 +2,7 @@ package config
 
 import (
 	"fmt"
+	"math"
 	"reflect"
 	"regexp"
 	"strconv"
@@ -281,3 +282,72 @@ var configTypes = sync.OnceValue(func() map[string]reflect.Type {
 	walk(reflect.TypeOf(Config{}))
 	return types
 })
+
+// fractionProblems finds fractional numbers written for whole-number
+// settings, which the YAML decoder would silently truncate (max_minutes: 2.5
+// would become 2). It walks the document alongside the Config type.
+func fractionProblems(doc []byte) error {
+	var root yaml.Node
+	if yaml.Unmarshal(doc, &root) != nil || len(root.Content) == 0 {
+		return nil
+	}
+	var p Problems
+	walkWhole(root.Content[0], reflect.TypeOf(Config{}), "", &p)
+	return p.Err()
+}
+
+var unmarshalerType = reflect.TypeOf((*yaml.Unmarshaler)(nil)).Elem()
+
+func walkWhole(n *yaml.Node, t reflect.Type, path string, p *Problems) {
+	for t.Kind() == reflect.Pointer {
+		t = t.Elem()
+	}
+	if reflect.PointerTo(t).Implements(unmarshalerType) {
+		return // decodes itself (Duration, Secret) and reports its own errors
+	}
+	switch t.Kind() {
+	case reflect.Int, reflect.Int8, reflect.Int16, reflect.Int32, reflect.Int64,
+		reflect.Uint, reflect.Uint8, reflect.Uint16, reflect.Uint32, reflect.Uint64:
+		if n.Kind == yaml.ScalarNode && n.ShortTag() == "!!float" {
+			if v, err := strconv.ParseFloat(n.Value, 64); err != nil || v != math.Trunc(v) {
+				p.Addf(path, "must be a whole number, got %s (line %d)", n.Value, n.Line)
+			}
+		}
+	case reflect.Struct:
+		if n.Kind != yaml.MappingNode {
+			return
+		}
+		fields := map[string]reflect.Type{}
+		for i := range t.NumField() {
+			if key, _, _ := strings.Cut(t.Field(i).Tag.Get("yaml"), ","); key != "" && key != "-" && t.Field(i).IsExported() {
+				fields[key] = t.Field(i).Type
+			}
+		}
+		for i := 0; i+1 < len(n.Content); i += 2 {
+			if ft, ok := fields[n.Content[i].Value]; ok {
+				walkWhole(n.Content[i+1], ft, joinPath(path, n.Content[i].Value), p)
+			}
+		}
+	case reflect.Map:
+		if n.Kind != yaml.MappingNode {
+			return
+		}
+		for i := 0; i+1 < len(n.Content); i += 2 {
+			walkWhole(n.Content[i+1], t.Elem(), joinPath(path, n.Content[i].Value), p)
+		}
+	case reflect.Slice, reflect.Array:
+		if n.Kind != yaml.SequenceNode {
+			return
+		}
+		for i, c := range n.Content {
+			walkWhole(c, t.Elem(), fmt.Sprintf("%s[%d]", path, i), p)
+		}
+	}
+}
+
+func joinPath(path, key string) string {
+	if path == "" {
+		return key
+	}
+	return path + "." + key
+}

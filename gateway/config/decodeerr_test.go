@@ -80,3 +80,17 @@ func TestEditDistance(t *testing.T) {
 	assert.Equal(t, 3, editDistance("kitten", "sitting")) // the textbook example
 	assert.Equal(t, 4, editDistance("", "abcd"))
 }
+
+// The YAML decoder truncates 2.5 into an int field; the configuration refuses
+// it instead, for every whole-number setting, wherever it sits (12.0 is
+// whole and accepted).
+func TestFractionForWholeNumber(t *testing.T) {
+	doc := strings.Replace(decodeDoc, "elevation_m: twenty metres above the creek", "elevation_m: 20", 1)
+	doc = strings.Replace(doc, "late_window: 5 minutes", "late_window: 5m", 1)
+	doc = strings.Replace(doc, "    wind_height: 2\n", "", 1)
+	doc = strings.Replace(doc, "late_window: 6 h, sensors: []}", "late_window: 6h, sensors: []}", 1)
+	doc = strings.Replace(doc, "broker: {url: 'tcp://127.0.0.1:1883'}", "broker: {url: 'tcp://127.0.0.1:1883', max_inflight: 2.5}\nalerts: {night_solar: {hours: 3.5}, calm_wind: {daytime_hours: 12.0}}", 1)
+	_, err := Parse([]byte(doc))
+	require.Error(t, err)
+	assert.Equal(t, "invalid config:\n  broker.max_inflight: must be a whole number, got 2.5 (line 1)\n  alerts.night_solar.hours: must be a whole number, got 3.5 (line 2)", err.Error())
+}
