@@ -3,6 +3,7 @@ package controllers
 import (
 	"fmt"
 	"math"
+	"strings"
 	"time"
 )
 
@@ -11,7 +12,9 @@ type CommandState string
 
 // The command states. Planned -> Sent -> Accepted -> Started -> Finished or
 // Failed; Sent/Accepted/Started -> Expired when reports stop; Planned ->
-// Cancelled when a hold arrives before it is sent.
+// Cancelled when a hold arrives before it is sent; Sent/Accepted/Started ->
+// Stopped when the controller confirms it closed the valve early (after a
+// stop, see RequestStop, or on its own).
 const (
 	Planned   CommandState = "planned"
 	Sent      CommandState = "sent"
@@ -21,10 +24,11 @@ const (
 	Failed    CommandState = "failed"
 	Expired   CommandState = "expired"
 	Cancelled CommandState = "cancelled"
+	Stopped   CommandState = "stopped"
 )
 
 // Open reports whether the command may still run or report (not yet
-// finished, failed, expired or cancelled).
+// finished, failed, expired, cancelled or stopped).
 func (s CommandState) Open() bool {
 	return s == Planned || s == Sent || s == Accepted || s == Started
 }
@@ -93,6 +97,13 @@ type Command struct {
 	CreditMM   float64      `json:"credit_mm"`
 	Credited   bool         `json:"credited"`
 	Note       string       `json:"note,omitempty"`
+
+	// A stop asked for while the command was sent, accepted or started
+	// (RequestStop): when, why, and how often the stop was published.
+	StopAt       time.Time `json:"stop_at,omitzero"`
+	StopReason   string    `json:"stop_reason,omitempty"`
+	StopAttempts int       `json:"stop_attempts,omitempty"`
+	StopSentAt   time.Time `json:"stop_sent_at,omitzero"`
 }
 
 // CommandID derives a command's id from its zone, planned start and cycle, so
@@ -110,6 +121,7 @@ const (
 	ReportStarted  ReportState = "started"
 	ReportFinished ReportState = "finished"
 	ReportFailed   ReportState = "failed"
+	ReportStopped  ReportState = "stopped" // the valve was closed before its minutes had run
 )
 
 // Report is a valve controller's report about one command.
@@ -126,7 +138,7 @@ type Report struct {
 // Validate checks the report's fields.
 func (r Report) Validate() error {
 	switch r.State {
-	case ReportAccepted, ReportStarted, ReportFinished, ReportFailed:
+	case ReportAccepted, ReportStarted, ReportFinished, ReportFailed, ReportStopped:
 	default:
 		return fmt.Errorf("report %s: state: unknown %q: %w", r.ID, r.State, ErrInput)
 	}
@@ -156,7 +168,8 @@ type Outcome struct {
 // both forms: volume / area x efficiency with a flow-meter volume, else
 // minutes_run / 60 x rate x efficiency. A finished report without either is
 // taken to have run the commanded minutes; a failed one without either
-// credits nothing.
+// credits nothing. A stopped one without either is handled by Apply (it
+// needs the report's arrival time); CreditFor credits nothing for it.
 func (c *Command) CreditFor(r Report) float64 {
 	switch {
 	case r.HasVolume:
@@ -169,11 +182,23 @@ func (c *Command) CreditFor(r Report) float64 {
 	return 0
 }
 
+// stoppedMinutes estimates the minutes a command ran when a stopped report
+// at now names neither minutes nor volume: the time since the started report
+// arrived, at most the commanded minutes; nothing when no started report
+// came (the valve most likely never opened). Estimating from the arrival
+// times is common practice, no source; the note says it was used.
+func (c *Command) stoppedMinutes(now time.Time) float64 {
+	if c.StartedAt.IsZero() || !now.After(c.StartedAt) {
+		return 0
+	}
+	return math.Min(now.Sub(c.StartedAt).Minutes(), float64(c.Minutes))
+}
+
 // Apply applies a report received at now. Reports are idempotent: a
 // duplicate, or one older than the known state, changes nothing; water is
-// credited once, on the first finished or failed report, even when it comes
-// after the command expired (the water did run; the report is late, not
-// wrong). Reports for a cancelled command are refused.
+// credited once, on the first finished, failed or stopped report, even when
+// it comes after the command expired (the water did run; the report is
+// late, not wrong). Reports for a cancelled command are refused.
 func (c *Command) Apply(r Report, now time.Time) (Outcome, error) {
 	if err := r.Validate(); err != nil {
 		return Outcome{}, err
@@ -182,7 +207,7 @@ func (c *Command) Apply(r Report, now time.Time) (Outcome, error) {
 		return Outcome{}, fmt.Errorf("report %s: for command %s: %w", r.ID, c.ID, ErrInput)
 	}
 	switch c.State {
-	case Finished, Failed:
+	case Finished, Failed, Stopped:
 		return Outcome{Duplicate: true}, nil
 	case Cancelled:
 		return Outcome{}, fmt.Errorf("report %s: command was cancelled before it was sent: %w", r.ID, ErrInput)
@@ -204,9 +229,16 @@ func (c *Command) Apply(r Report, now time.Time) (Outcome, error) {
 		return Outcome{Changed: true}, nil
 	}
 	late := c.State == Expired
-	if r.State == ReportFinished {
+	estimated := 0.0
+	if r.State == ReportStopped && !r.HasMinutes && !r.HasVolume {
+		estimated = c.stoppedMinutes(now) // before StartedAt and the state change below
+	}
+	switch r.State {
+	case ReportFinished:
 		c.State = Finished
-	} else {
+	case ReportStopped:
+		c.State = Stopped
+	default:
 		c.State = Failed
 	}
 	c.EndedAt = now
@@ -219,6 +251,11 @@ func (c *Command) Apply(r Report, now time.Time) (Outcome, error) {
 		c.Note = r.Reason
 	}
 	mm := c.CreditFor(r)
+	if r.State == ReportStopped && !r.HasMinutes && !r.HasVolume {
+		c.MinutesRun = estimated
+		mm = NetMM(estimated, c.Rate, c.Efficiency)
+		c.Note = strings.TrimPrefix(c.Note+"; minutes estimated from the started and stopped report times", "; ")
+	}
 	c.CreditMM = mm
 	c.Credited = true
 	return Outcome{Changed: true, Credit: true, CreditMM: mm, Late: late}, nil
@@ -229,13 +266,56 @@ type Action int
 
 // The actions.
 const (
-	None   Action = iota
-	Send          // publish (first attempt or a retry) and MarkSent
-	Expire        // no (further) report can be expected: MarkExpired and alert
+	None     Action = iota
+	Send            // publish (first attempt or a retry) and MarkSent
+	Expire          // no (further) report can be expected: MarkExpired and alert
+	SendStop        // publish the stop (first attempt or a retry) and MarkStopSent
 )
 
-// Due returns what to do with the command at now under policy p.
+// Stopping reports whether a stop was asked for and no final report has
+// come yet.
+func (c *Command) Stopping() bool { return !c.StopAt.IsZero() && c.State.Open() }
+
+// RequestStop asks for the valve of a command that may be running (sent,
+// accepted or started) to be closed now; the scheduler then publishes stops
+// instead of the command (see Due). Planned commands are cancelled instead
+// (Cancel). It reports whether the command changed: asking again for a stop
+// already asked for changes nothing.
+func (c *Command) RequestStop(now time.Time, reason string) (bool, error) {
+	switch c.State {
+	case Sent, Accepted, Started:
+	default:
+		return false, fmt.Errorf("stop %s: state is %s, only sent, accepted or started commands can be stopped: %w", c.ID, c.State, ErrInput)
+	}
+	if !c.StopAt.IsZero() {
+		return false, nil
+	}
+	c.StopAt, c.StopReason = now, reason
+	return true, nil
+}
+
+// MarkStopSent records a (re-)send of the stop at now.
+func (c *Command) MarkStopSent(now time.Time) {
+	c.StopAttempts++
+	c.StopSentAt = now
+}
+
+// Due returns what to do with the command at now under policy p. A command
+// being stopped is never sent again: its stop is sent up to MaxAttempts
+// times, AckTimeout apart, and when no final report came AckTimeout after
+// the last one the command expires (the valve may still be open: alert).
 func (c *Command) Due(now time.Time, p CommandPolicy) Action {
+	if c.Stopping() {
+		switch {
+		case c.StopAttempts == 0:
+			return SendStop
+		case now.Before(c.StopSentAt.Add(p.AckTimeout)):
+			return None
+		case c.StopAttempts < p.MaxAttempts:
+			return SendStop
+		}
+		return Expire
+	}
 	switch c.State {
 	case Planned:
 		if !now.Before(c.Expiry) {
@@ -261,6 +341,12 @@ func (c *Command) Due(now time.Time, p CommandPolicy) Action {
 
 // NextWake returns when Due may next return an action (zero: never).
 func (c *Command) NextWake(p CommandPolicy) time.Time {
+	if c.Stopping() {
+		if c.StopAttempts == 0 {
+			return c.StopAt
+		}
+		return c.StopSentAt.Add(p.AckTimeout)
+	}
 	switch c.State {
 	case Planned:
 		return c.Start.Add(-p.SendLead)
@@ -315,13 +401,13 @@ func (c *Command) Cancel(now time.Time, note string) error {
 
 // chargedMinutes is what a command counts against its zone's daily cap:
 // everything that may have run counts in full (an expired command may have
-// run with its report lost), a failed one counts what it reported, a
-// cancelled one nothing.
+// run with its report lost), a failed or stopped one counts what it
+// reported (in full when it reported no minutes), a cancelled one nothing.
 func (c *Command) chargedMinutes() int {
 	switch c.State {
 	case Cancelled:
 		return 0
-	case Failed:
+	case Failed, Stopped:
 		if c.RunKnown {
 			return int(math.Ceil(c.MinutesRun - 1e-9))
 		}
