@@ -32,18 +32,14 @@ func (c *Config) Prefix() string {
 }
 
 // topicPrefixProblem explains why s is not a usable topic prefix, or returns "".
+// A prefix follows the rules of an exact topic, and its levels are not empty.
 func topicPrefixProblem(s string) string {
+	if msg := topicProblem(s); msg != "" {
+		return msg
+	}
 	switch {
-	case s == "":
-		return "required"
 	case len(s) > maxTopicPrefixLen:
 		return fmt.Sprintf("must be at most %d bytes", maxTopicPrefixLen)
-	case strings.ContainsAny(s, "+#"):
-		return "must not contain the wildcards '+' or '#'"
-	case strings.ContainsRune(s, 0):
-		return "must not contain a NUL character"
-	case strings.HasPrefix(s, "$"):
-		return "must not start with '$' (reserved for the broker)"
 	case strings.HasPrefix(s, "/") || strings.HasSuffix(s, "/"):
 		return "must not start or end with '/'"
 	case strings.Contains(s, "//"):

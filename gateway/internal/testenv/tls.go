@@ -54,21 +54,19 @@ func NewPKI(t testing.TB) *PKI {
 		BasicConstraintsValid: true,
 		KeyUsage:              x509.KeyUsageCertSign | x509.KeyUsageCRLSign,
 	}, p.CAFile, "")
-	newCert(t, ca, caKey, &x509.Certificate{
-		Subject:     pkix.Name{CommonName: "127.0.0.1"},
-		NotBefore:   now.Add(-time.Hour),
-		NotAfter:    now.Add(24 * time.Hour),
-		IPAddresses: []net.IP{net.ParseIP("127.0.0.1")},
-		KeyUsage:    x509.KeyUsageDigitalSignature,
-		ExtKeyUsage: []x509.ExtKeyUsage{x509.ExtKeyUsageServerAuth},
-	}, p.ServerCert, p.ServerKey)
-	newCert(t, ca, caKey, &x509.Certificate{
-		Subject:     pkix.Name{CommonName: "etpulse-test-client"},
-		NotBefore:   now.Add(-time.Hour),
-		NotAfter:    now.Add(24 * time.Hour),
-		KeyUsage:    x509.KeyUsageDigitalSignature,
-		ExtKeyUsage: []x509.ExtKeyUsage{x509.ExtKeyUsageClientAuth},
-	}, p.ClientCert, p.ClientKey)
+	leaf := func(cn string, usage x509.ExtKeyUsage) *x509.Certificate {
+		return &x509.Certificate{
+			Subject:     pkix.Name{CommonName: cn},
+			NotBefore:   now.Add(-time.Hour),
+			NotAfter:    now.Add(24 * time.Hour),
+			KeyUsage:    x509.KeyUsageDigitalSignature,
+			ExtKeyUsage: []x509.ExtKeyUsage{usage},
+		}
+	}
+	server := leaf("127.0.0.1", x509.ExtKeyUsageServerAuth)
+	server.IPAddresses = []net.IP{net.ParseIP("127.0.0.1")}
+	newCert(t, ca, caKey, server, p.ServerCert, p.ServerKey)
+	newCert(t, ca, caKey, leaf("etpulse-test-client", x509.ExtKeyUsageClientAuth), p.ClientCert, p.ClientKey)
 	newCert(t, nil, nil, &x509.Certificate{
 		Subject:               pkix.Name{CommonName: "unrelated test CA"},
 		NotBefore:             now.Add(-time.Hour),
