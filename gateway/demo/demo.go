@@ -12,9 +12,6 @@ import (
 	"sync"
 	"time"
 
-	mochi "github.com/mochi-mqtt/server/v2"
-	"github.com/mochi-mqtt/server/v2/listeners"
-	"github.com/mochi-mqtt/server/v2/packets"
 	"github.com/prometheus/client_golang/prometheus"
 	"go.etcd.io/bbolt"
 
@@ -83,19 +80,11 @@ func Run(ctx context.Context, opt RunOptions) (sum Summary, err error) {
 	}
 	defer os.RemoveAll(dir)
 
-	broker := mochi.New(&mochi.Options{InlineClient: true, Logger: slog.New(slog.DiscardHandler)})
-	if err := broker.AddHook(new(allowAll), nil); err != nil {
-		return sum, fmt.Errorf("demo: broker: %w", err)
-	}
-	tcp := listeners.NewTCP(listeners.Config{ID: "demo", Address: "127.0.0.1:0"})
-	if err := broker.AddListener(tcp); err != nil {
-		return sum, fmt.Errorf("demo: broker: %w", err)
-	}
-	if err := broker.Serve(); err != nil {
-		return sum, fmt.Errorf("demo: broker: %w", err)
+	broker, url, err := StartBroker(true)
+	if err != nil {
+		return sum, fmt.Errorf("demo: %w", err)
 	}
 	defer broker.Close()
-	url := "tcp://" + tcp.Address()
 
 	sim := New(Options{Seed: opt.Seed, Faults: opt.Faults})
 	statePath := filepath.Join(dir, "state.db")
@@ -237,20 +226,6 @@ func countHistory(db *bbolt.DB, sum *Summary) error {
 	sum.ZoneSteps, err = h.Count(store.Filter{Measurements: []string{store.MeasurementZone}})
 	return err
 }
-
-// allowAll lets every client on the loopback-only demo broker connect,
-// publish and subscribe.
-type allowAll struct{ mochi.HookBase }
-
-func (h *allowAll) ID() string { return "allow-all" }
-
-func (h *allowAll) Provides(b byte) bool {
-	return b == mochi.OnConnectAuthenticate || b == mochi.OnACLCheck
-}
-
-func (h *allowAll) OnConnectAuthenticate(cl *mochi.Client, pk packets.Packet) bool { return true }
-
-func (h *allowAll) OnACLCheck(cl *mochi.Client, topic string, write bool) bool { return true }
 
 // barrier waits until the gateway has handled n messages and published every
 // record it committed, so the table and the clock move in step with the data.

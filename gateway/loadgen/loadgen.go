@@ -154,12 +154,12 @@ func Run(ctx context.Context, o Options) (sum Summary, err error) {
 	url := o.BrokerURL
 	sum.Broker = url
 	if url == "" {
-		b, err := startEmbedded()
+		srv, u, err := demo.StartBroker(false)
 		if err != nil {
 			return sum, fmt.Errorf("load: %w", err)
 		}
-		defer b.Close()
-		url, sum.Broker = b.url, "embedded"
+		defer srv.Close()
+		url, sum.Broker = u, "embedded"
 	}
 
 	f := newFarm(o.Stations, "corrigan-load-"+runID, o.Interval)

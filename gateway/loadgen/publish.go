@@ -3,7 +3,6 @@ package loadgen
 import (
 	"context"
 	"fmt"
-	"log/slog"
 	"net"
 	"net/url"
 	"strings"
@@ -11,9 +10,6 @@ import (
 	"time"
 
 	paho "github.com/eclipse/paho.mqtt.golang"
-	mochi "github.com/mochi-mqtt/server/v2"
-	"github.com/mochi-mqtt/server/v2/listeners"
-	"github.com/mochi-mqtt/server/v2/packets"
 
 	"etpulse/gateway/demo"
 )
@@ -41,44 +37,6 @@ func CheckLoopback(rawURL string) error {
 	}
 	return fmt.Errorf("broker host %q is %w: load is sent only to this machine (use 127.0.0.1 or ::1)", host, ErrNotLoopback)
 }
-
-// embedded is an in-process broker on a free loopback port.
-type embedded struct {
-	srv *mochi.Server
-	url string
-}
-
-func startEmbedded() (*embedded, error) {
-	srv := mochi.New(&mochi.Options{Logger: slog.New(slog.DiscardHandler)})
-	if err := srv.AddHook(new(openHook), nil); err != nil {
-		return nil, fmt.Errorf("embedded broker: %w", err)
-	}
-	tcp := listeners.NewTCP(listeners.Config{ID: "load", Address: "127.0.0.1:0"})
-	if err := srv.AddListener(tcp); err != nil {
-		return nil, fmt.Errorf("embedded broker: %w", err)
-	}
-	if err := srv.Serve(); err != nil {
-		return nil, fmt.Errorf("embedded broker: %w", err)
-	}
-	return &embedded{srv: srv, url: "tcp://" + tcp.Address()}, nil
-}
-
-// openHook lets every client of the loopback-only embedded broker connect,
-// publish and subscribe.
-type openHook struct{ mochi.HookBase }
-
-func (h *openHook) ID() string { return "load-open" }
-
-func (h *openHook) Provides(b byte) bool {
-	return b == mochi.OnConnectAuthenticate || b == mochi.OnACLCheck
-}
-
-func (h *openHook) OnConnectAuthenticate(*mochi.Client, packets.Packet) bool { return true }
-
-func (h *openHook) OnACLCheck(*mochi.Client, string, bool) bool { return true }
-
-// Close stops the broker.
-func (b *embedded) Close() { _ = b.srv.Close() } // nothing to flush: no persistence
 
 // plan is what every publisher publishes: whole ticks of its stations, with
 // the malformed messages after the ticks listed in bad.
