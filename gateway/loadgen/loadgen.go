@@ -129,6 +129,9 @@ func (o *Options) Validate() error {
 		return fmt.Errorf("progress interval must be >= 0, got %s", o.Every)
 	}
 	o.Publishers = min(o.Publishers, o.Stations)
+	if _, err := newPlan(newFarm(o.Stations, "", o.Interval), *o); err != nil {
+		return err
+	}
 	if o.BrokerURL != "" {
 		if err := CheckLoopback(o.BrokerURL); err != nil {
 			return err
@@ -145,6 +148,11 @@ func Run(ctx context.Context, o Options) (sum Summary, err error) {
 		return sum, fmt.Errorf("load: %w", err)
 	}
 	runID := fmt.Sprintf("%08x", rand.Uint32())
+	f := newFarm(o.Stations, "corrigan-load-"+runID, o.Interval)
+	pl, err := newPlan(f, o)
+	if err != nil {
+		return sum, fmt.Errorf("load: %w", err)
+	}
 	dir, err := os.MkdirTemp(o.Dir, "etpulse-load-")
 	if err != nil {
 		return sum, fmt.Errorf("load: %w", err)
@@ -162,7 +170,6 @@ func Run(ctx context.Context, o Options) (sum Summary, err error) {
 		url, sum.Broker = u, "embedded"
 	}
 
-	f := newFarm(o.Stations, "corrigan-load-"+runID, o.Interval)
 	statePath := filepath.Join(dir, "state.db")
 	clientID := "etpulse-load-" + runID
 	cfg, err := config.Parse([]byte(f.configYAML(url, clientID, statePath)))
@@ -212,6 +219,10 @@ func Run(ctx context.Context, o Options) (sum Summary, err error) {
 		defer close(runDone)
 		runErr = g.Run(runCtx)
 	}()
+	defer func() { // before the connection and the state file close
+		cancel()
+		<-runDone
+	}()
 	select {
 	case <-g.Ready():
 	case <-runDone:
@@ -240,10 +251,6 @@ func Run(ctx context.Context, o Options) (sum Summary, err error) {
 	case <-ctx.Done():
 	}
 
-	pl, err := newPlan(f, o)
-	if err != nil {
-		return sum, fmt.Errorf("load: %w", err)
-	}
 	mem := startMemory()
 	defer mem.stop()
 	pubCtx, stopPub := context.WithTimeout(runCtx, o.Duration)
@@ -265,6 +272,8 @@ func Run(ctx context.Context, o Options) (sum Summary, err error) {
 		}
 	}
 	switch {
+	case pubErr != nil:
+		sum.StoppedBy = "error"
 	case ctx.Err() != nil:
 		sum.StoppedBy = "signal"
 	case pubCtx.Err() != nil:

@@ -28,7 +28,7 @@ type Summary struct {
 	Stations   int     `json:"stations"`
 	Publishers int     `json:"publishers"`
 	IntervalS  float64 `json:"interval_s"` // simulated seconds between readings of a sensor
-	StoppedBy  string  `json:"stopped_by"` // messages, duration or signal
+	StoppedBy  string  `json:"stopped_by"` // messages, duration, signal or error
 
 	Published   int64              `json:"messages_published"` // acknowledged by the broker
 	InjectedBad int64              `json:"messages_injected_bad"`
