@@ -41,6 +41,44 @@ const (
 	KindNeighbours    Kind = "station-departs" // station departs from the others' median
 )
 
+// The kinds the zone scheduler raises through Monitor.Raise (keys from
+// ZoneKey).
+const (
+	KindZoneETStale   Kind = "zone-et-stale"   // no valid ET for the zone for too long
+	KindValveNoReport Kind = "valve-no-report" // a command (or its stop) got no final report
+	KindValveFailed   Kind = "valve-failed"    // the valve controller reported a failed run
+)
+
+// ZoneStation is the Station of alerts about an irrigation zone rather than
+// a weather station; their Sensor is the zone id. The configuration refuses
+// "zones" as a station id, so a zone alert never gates a station's hours.
+const ZoneStation = "zones"
+
+// The Quantity of zone alerts: the zone's ET, or its valve.
+const (
+	ZoneET    hourly.Quantity = "et"
+	ZoneValve hourly.Quantity = "valve"
+)
+
+// ZoneKey returns the key of a zone alert of the given kind: Station
+// ZoneStation, Sensor the zone id, Quantity ZoneET for KindZoneETStale and
+// ZoneValve otherwise. Its topic is <prefix>/<site>/alerts/zones/<zone>/<et|valve>/<kind>.
+func ZoneKey(site, zone string, kind Kind) Key {
+	q := ZoneValve
+	if kind == KindZoneETStale {
+		q = ZoneET
+	}
+	return Key{Site: site, Station: ZoneStation, Sensor: zone, Quantity: q, Kind: kind}
+}
+
+// Zone returns the zone id of a zone alert's key, or "" for a station alert.
+func (k Key) Zone() string {
+	if k.Station == ZoneStation {
+		return k.Sensor
+	}
+	return ""
+}
+
 // HourSubject is the Sensor of alerts derived from a station's hourly
 // records rather than from one sensor's readings.
 const HourSubject = "hourly"

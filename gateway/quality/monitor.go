@@ -324,6 +324,9 @@ func (m *Monitor) recomputeNext() {
 
 func (m *Monitor) recomputeNextLocked() {
 	m.next = time.Time{}
+	if m.alerts.Disabled {
+		return // no silence check: Run must not wake for one
+	}
 	for _, info := range m.stations {
 		if n := info.readings.NextSilence(); !n.IsZero() && (m.next.IsZero() || n.Before(m.next)) {
 			m.next = n
@@ -680,8 +683,9 @@ func (m *Monitor) Gate(site, station string, hourStart time.Time) pipeline.Gate 
 }
 
 // Raise raises (or updates) an alert on behalf of another component, e.g.
-// the zone balance ("command-expired", "stale-et"). With a nil tx it runs its
-// own transaction. a.Since is the time of the event.
+// the zone scheduler (KindZoneETStale, KindValveNoReport, KindValveFailed
+// with a ZoneKey). With a nil tx it runs its own transaction. a.Since is the
+// time of the event.
 func (m *Monitor) Raise(tx *bbolt.Tx, a Alert) error {
 	if err := a.Key.Validate(); err != nil {
 		return fmt.Errorf("raise alert: %w", err)
@@ -880,6 +884,7 @@ type alertJSON struct {
 	Site     string    `json:"site"`
 	Station  string    `json:"station"`
 	Sensor   string    `json:"sensor"`
+	Zone     string    `json:"zone,omitempty"` // zone alerts (station "zones"): the zone id
 	Quantity string    `json:"quantity"`
 	Kind     string    `json:"kind"`
 	Severity string    `json:"severity"`
@@ -906,7 +911,7 @@ func MarshalAlert(a Alert) ([]byte, error) {
 		return []byte{}, nil
 	}
 	return json.Marshal(alertJSON{
-		Site: a.Site, Station: a.Station, Sensor: a.Sensor, Quantity: string(a.Quantity), Kind: string(a.Kind),
+		Site: a.Site, Station: a.Station, Sensor: a.Sensor, Zone: a.Zone(), Quantity: string(a.Quantity), Kind: string(a.Kind),
 		Severity: string(a.Severity), State: "active", Message: a.Message,
 		Value: finite(a.Value), Limit: finite(a.Limit), Since: a.Since.UTC(), Updated: a.Updated.UTC(),
 	})

@@ -5,6 +5,7 @@ import (
 	"encoding/json"
 	"fmt"
 	"log/slog"
+	"math"
 	"sync"
 	"time"
 
@@ -23,11 +24,16 @@ type Behaviour struct {
 	// Hold, when set, withholds every report until the returned channel is
 	// closed (tests use it to kill the gateway between command and report).
 	Hold func(CommandMessage) <-chan struct{}
+	// IgnoreStop: stops for this command are received but never acted on
+	// or answered (a controller with old firmware, or a lost link).
+	IgnoreStop bool
 }
 
 // ValveSimulator answers commands the way a valve controller does, for the
 // demo and the tests: accepted, started, then finished (or failed) at once,
 // and a repeated command id answered with its last report, never run twice.
+// It honours stops: a running valve is closed and reported stopped with the
+// minutes it ran; a run not yet started never starts (stopped, 0 minutes).
 type ValveSimulator struct {
 	MQTT   Broker
 	Logger *slog.Logger
@@ -40,6 +46,9 @@ type ValveSimulator struct {
 
 	mu       sync.Mutex
 	received map[string]int           // command id -> times received
+	stops    map[string]int           // command id -> stops received
+	running  map[string]chan struct{} // command id -> closed to stop the run
+	behave   map[string]Behaviour     // command id -> its behaviour
 	last     map[string]ReportMessage // command id -> final report
 	runs     []CommandMessage         // first receipt of each id
 }
@@ -50,6 +59,7 @@ func (v *ValveSimulator) Serve(topics map[string]string) error {
 	v.mu.Lock()
 	if v.received == nil {
 		v.received, v.last = map[string]int{}, map[string]ReportMessage{}
+		v.stops, v.running, v.behave = map[string]int{}, map[string]chan struct{}{}, map[string]Behaviour{}
 	}
 	v.mu.Unlock()
 	if v.Logger == nil {
@@ -72,6 +82,13 @@ func (v *ValveSimulator) Received(id string) int {
 	v.mu.Lock()
 	defer v.mu.Unlock()
 	return v.received[id]
+}
+
+// Stops returns how many stops for a command id were received.
+func (v *ValveSimulator) Stops(id string) int {
+	v.mu.Lock()
+	defer v.mu.Unlock()
+	return v.stops[id]
 }
 
 // Runs returns the commands run (first receipt of each id), in order.
@@ -103,21 +120,31 @@ func (v *ValveSimulator) publish(ctx context.Context, topic string, r ReportMess
 }
 
 func (v *ValveSimulator) handle(m mqtt.Message, reportTopic string) {
-	c, err := DecodeCommand(m.Payload)
+	msg, err := DecodeValveMessage(m.Payload)
 	if err != nil {
 		v.Logger.Warn("valve simulator: bad command", "err", err)
 		return
 	}
+	if msg.Stop != nil {
+		v.stop(*msg.Stop, reportTopic)
+		return
+	}
+	c := *msg.Run
 	var b Behaviour
 	if v.Behave != nil {
 		b = v.Behave(c)
 	}
+	stop := make(chan struct{})
 	v.mu.Lock()
 	v.received[c.ID]++
 	again := v.received[c.ID] > 1
 	last, done := v.last[c.ID]
 	if !again {
 		v.runs = append(v.runs, c)
+		v.behave[c.ID] = b
+		if !b.Lose {
+			v.running[c.ID] = stop
+		}
 	}
 	v.mu.Unlock()
 	if b.Lose {
@@ -131,53 +158,114 @@ func (v *ValveSimulator) handle(m mqtt.Message, reportTopic string) {
 		}
 		return
 	}
-	go func() {
-		if b.Hold != nil {
-			<-b.Hold(c)
-		}
-		minutes := float64(c.Minutes)
-		final := ReportMessage{ID: c.ID, State: "finished"}
-		if b.Fail {
-			minutes = b.FailAfter
-		}
-		if b.Fail {
-			final = ReportMessage{ID: c.ID, State: "failed", Reason: b.Reason}
-		}
-		final.MinutesRun = &minutes
-		if b.VolumeLPerMin > 0 {
-			vol := minutes * b.VolumeLPerMin
-			final.VolumeL = &vol
-		}
-		wait := func(until time.Time) {
-			if v.Clock != nil && v.After != nil {
-				if d := until.Sub(v.Clock()); d > 0 {
-					<-v.After(d)
+	go v.run(c, b, reportTopic, stop)
+}
+
+// stop handles a stop: the running valve closes (its run reports stopped),
+// a finished run is answered with its last report, an unknown id with
+// stopped after 0 minutes.
+func (v *ValveSimulator) stop(st StopMessage, reportTopic string) {
+	v.mu.Lock()
+	v.stops[st.ID]++
+	b := v.behave[st.ID]
+	ch, running := v.running[st.ID]
+	last, done := v.last[st.ID]
+	_, known := v.received[st.ID]
+	if running {
+		delete(v.running, st.ID)
+	}
+	if !known && !done {
+		zero := 0.0
+		last, done = ReportMessage{ID: st.ID, State: "stopped", MinutesRun: &zero}, true
+		v.last[st.ID] = last
+	}
+	v.mu.Unlock()
+	switch {
+	case b.IgnoreStop || b.Lose:
+	case running:
+		close(ch)
+	case done:
+		_ = v.publish(context.Background(), reportTopic, last)
+	}
+}
+
+// run reports one command's run: accepted, started at the planned start,
+// then finished (or failed) when the minutes have run, or stopped early.
+func (v *ValveSimulator) run(c CommandMessage, b Behaviour, reportTopic string, stop <-chan struct{}) {
+	ctx := context.Background()
+	if b.Hold != nil {
+		<-b.Hold(c)
+	}
+	minutes := float64(c.Minutes)
+	final := ReportMessage{ID: c.ID, State: "finished"}
+	if b.Fail {
+		minutes = b.FailAfter
+		final = ReportMessage{ID: c.ID, State: "failed", Reason: b.Reason}
+	}
+	paced := v.Clock != nil && v.After != nil
+	// wait waits until the given time on the simulator's clock; false when
+	// a stop came first.
+	wait := func(until time.Time) bool {
+		if paced {
+			if d := until.Sub(v.Clock()); d > 0 {
+				select {
+				case <-v.After(d):
+				case <-stop:
+					return false
 				}
 			}
 		}
-		start := c.Start
-		if v.Clock != nil && v.Clock().After(start) {
-			start = v.Clock()
+		select {
+		case <-stop:
+			return false
+		default:
+			return true
 		}
-		for i, r := range []ReportMessage{{ID: c.ID, State: "accepted"}, {ID: c.ID, State: "started"}, final} {
-			switch i {
-			case 1:
-				wait(start)
-			case 2:
-				wait(start.Add(time.Duration(minutes * float64(time.Minute))))
-			}
-			if i == 2 {
-				v.mu.Lock()
-				v.last[c.ID] = final
-				v.mu.Unlock()
-			}
-			if err := v.publish(ctx, reportTopic, r); err != nil {
-				v.Logger.Warn("valve simulator: report not published", "id", c.ID, "err", err)
-				return
-			}
+	}
+	start := c.Start
+	if paced && v.Clock().After(start) {
+		start = v.Clock()
+	}
+	report := func(r ReportMessage) bool {
+		if err := v.publish(ctx, reportTopic, r); err != nil {
+			v.Logger.Warn("valve simulator: report not published", "id", c.ID, "err", err)
+			return false
 		}
-		if b.Duplicate {
-			_ = v.publish(ctx, reportTopic, final)
+		return true
+	}
+	finish := func(r ReportMessage, ran float64) {
+		r.MinutesRun = &ran
+		if b.VolumeLPerMin > 0 {
+			vol := ran * b.VolumeLPerMin
+			r.VolumeL = &vol
 		}
-	}()
+		v.mu.Lock()
+		v.last[c.ID] = r
+		delete(v.running, c.ID)
+		v.mu.Unlock()
+		if report(r) && b.Duplicate {
+			_ = v.publish(ctx, reportTopic, r)
+		}
+	}
+	stopped := ReportMessage{ID: c.ID, State: "stopped"}
+	if !report(ReportMessage{ID: c.ID, State: "accepted"}) {
+		return
+	}
+	if !wait(start) {
+		finish(stopped, 0)
+		return
+	}
+	if !report(ReportMessage{ID: c.ID, State: "started"}) {
+		return
+	}
+	if !wait(start.Add(time.Duration(minutes * float64(time.Minute)))) {
+		ran := 0.0
+		if paced {
+			ran = min(max(v.Clock().Sub(start).Minutes(), 0), minutes)
+			ran = math.Round(ran*100) / 100
+		}
+		finish(stopped, ran)
+		return
+	}
+	finish(final, minutes)
 }

@@ -11,12 +11,16 @@ import (
 )
 
 // CommandMessage is the JSON a valve controller receives on its zone's
-// command topic (QoS 1, not retained). The controller must run the valve for
-// Minutes starting at Start (at once if Start has passed), never start after
-// Expiry, and treat ID as idempotent: a repeated ID (a retry, Attempt > 1)
-// must not run the valve again; answer it with the latest report instead.
+// command topic (QoS 1, not retained) to run a valve. The controller must run
+// the valve for Minutes starting at Start (at once if Start has passed),
+// never start after Expiry, and treat ID as idempotent: a repeated ID (a
+// retry, Attempt > 1) must not run the valve again; answer it with the latest
+// report instead. The same topic carries StopMessage; DecodeValveMessage
+// tells them apart by "action".
 type CommandMessage struct {
-	ID      string             `json:"id"`
+	ID string `json:"id"`
+	// Action is absent (as the gateway sends it) or "run".
+	Action  string             `json:"action,omitempty"`
 	Zone    string             `json:"zone"`
 	Valve   string             `json:"valve"`
 	Minutes int                `json:"minutes"`
@@ -28,9 +32,32 @@ type CommandMessage struct {
 	Reason  controllers.Reason `json:"reason"`
 }
 
+// StopMessage is the JSON that tells a valve controller, on the zone's
+// command topic (QoS 1, not retained), to close the valve of command ID now,
+// or never to open it when the run has not started. The controller answers
+// on the report topic: "stopped" (or "finished") with the minutes actually
+// run; "stopped" with minutes_run 0 for a run that never started or an ID it
+// does not know; its latest report for an ID already finished or failed. A
+// repeated stop (Attempt > 1) is answered the same way.
+type StopMessage struct {
+	ID      string `json:"id"`
+	Zone    string `json:"zone"`
+	Valve   string `json:"valve"`
+	Action  string `json:"action"` // always "stop"
+	Cause   string `json:"cause"`  // why, e.g. "manual hold", "rain delay 24 h"
+	Attempt int    `json:"attempt"`
+}
+
+// ValveMessage is one decoded message of a command topic: exactly one of Run
+// and Stop is set.
+type ValveMessage struct {
+	Run  *CommandMessage
+	Stop *StopMessage
+}
+
 // ReportMessage is the JSON a valve controller publishes on its zone's
-// report topic. State is accepted, started, finished or failed. MinutesRun
-// and VolumeL (a flow-meter reading, litres) are optional.
+// report topic. State is accepted, started, finished, failed or stopped.
+// MinutesRun and VolumeL (a flow-meter reading, litres) are optional.
 type ReportMessage struct {
 	ID         string   `json:"id"`
 	State      string   `json:"state"`
@@ -62,6 +89,10 @@ type HoldReply struct {
 // maxPayload bounds the messages this package decodes.
 const maxPayload = 4096
 
+func stopMessage(c *controllers.Command) StopMessage {
+	return StopMessage{ID: c.ID, Zone: c.Zone, Valve: c.Valve, Action: "stop", Cause: c.StopReason, Attempt: c.StopAttempts}
+}
+
 func commandMessage(c *controllers.Command) CommandMessage {
 	return CommandMessage{ID: c.ID, Zone: c.Zone, Valve: c.Valve, Minutes: c.Minutes,
 		Start: c.Start.UTC(), Expiry: c.Expiry.UTC(), Cycle: c.Cycle, Cycles: c.Cycles,
@@ -83,13 +114,52 @@ func decodeStrict(b []byte, v any) error {
 	return nil
 }
 
-// DecodeCommand parses a command message (for valve controllers and tests).
+// DecodeCommand parses a run command (for valve controllers and tests); a
+// stop message is refused (use DecodeValveMessage to take both).
 func DecodeCommand(b []byte) (CommandMessage, error) {
 	var c CommandMessage
 	if err := decodeStrict(b, &c); err != nil {
 		return CommandMessage{}, fmt.Errorf("decode command: %w", err)
 	}
+	if c.Action != "" && c.Action != "run" {
+		return CommandMessage{}, fmt.Errorf("decode command: action: must be absent or \"run\", got %q", c.Action)
+	}
+	if c.ID == "" {
+		return CommandMessage{}, fmt.Errorf("decode command: id: empty")
+	}
 	return c, nil
+}
+
+// DecodeValveMessage parses a message of a command topic: a run command
+// ("action" absent or "run") or a stop ("action": "stop").
+func DecodeValveMessage(b []byte) (ValveMessage, error) {
+	if len(b) > maxPayload {
+		return ValveMessage{}, fmt.Errorf("decode valve message: payload of %d bytes exceeds %d", len(b), maxPayload)
+	}
+	var probe struct {
+		Action string `json:"action"`
+	}
+	if err := json.Unmarshal(b, &probe); err != nil {
+		return ValveMessage{}, fmt.Errorf("decode valve message: %w", err)
+	}
+	switch probe.Action {
+	case "", "run":
+		c, err := DecodeCommand(b)
+		if err != nil {
+			return ValveMessage{}, err
+		}
+		return ValveMessage{Run: &c}, nil
+	case "stop":
+		var st StopMessage
+		if err := decodeStrict(b, &st); err != nil {
+			return ValveMessage{}, fmt.Errorf("decode stop: %w", err)
+		}
+		if st.ID == "" {
+			return ValveMessage{}, fmt.Errorf("decode stop: id: empty")
+		}
+		return ValveMessage{Stop: &st}, nil
+	}
+	return ValveMessage{}, fmt.Errorf("decode valve message: action: must be run or stop, got %q", probe.Action)
 }
 
 // DecodeReport parses and checks a valve report.

@@ -24,6 +24,7 @@ import (
 	"etpulse/controllers"
 	"etpulse/gateway/config"
 	"etpulse/gateway/mqtt"
+	"etpulse/gateway/quality"
 	"etpulse/gateway/store"
 	"etpulse/hourly"
 )
@@ -46,7 +47,11 @@ type Options struct {
 	DB     *bbolt.DB
 	MQTT   Broker         // nil: no commands are sent (replay); Run needs it
 	Store  store.Enqueuer // nil: no points
-	Logger *slog.Logger   // nil discards
+	// Alerts receives the zone alerts (stale ET, valve without report,
+	// failed valve) inside the zone's own transactions; nil: they are only
+	// written to the store as points (replay, backtest).
+	Alerts Alerter
+	Logger *slog.Logger // nil discards
 	// Registerer receives the zone metrics; nil: not registered.
 	Registerer prometheus.Registerer
 	Clock      func() time.Time                     // nil: time.Now
@@ -77,6 +82,7 @@ const (
 	EventSkip      EventKind = "skip"      // a zone got no command (reason changed)
 	EventHold      EventKind = "hold"      // a hold, release or rain delay was applied
 	EventAlert     EventKind = "alert"     // the zone's ET went stale or came back
+	EventStop      EventKind = "stop"      // a stop was published for a sent or running command (Attempt: StopAttempts)
 )
 
 // Event is one thing the service did, for display.
@@ -85,7 +91,7 @@ type Event struct {
 	Site    string
 	Zone    string
 	Kind    EventKind
-	Command *controllers.Command // planned, sent, cancelled, expired, report, credited
+	Command *controllers.Command // planned, sent, cancelled, expired, report, credited, stop
 	Step    *controllers.Step    // step, credited
 	Text    string
 }
@@ -321,19 +327,14 @@ func reportPoint(site, zone string, r controllers.Report, out controllers.Outcom
 	return p
 }
 
-func alertPoint(site, zone, kind string, raised bool, t time.Time, text string) store.Point {
-	p := store.AlertPoint(site, "", "", kind, t, map[string]any{"raised": raised})
-	p.Tags["zone"] = zone
-	p.Notes = map[string]string{"text": text}
-	return p
-}
-
-// outgoing is a command to publish once its transaction has committed.
+// outgoing is a command or a stop to publish once its transaction has
+// committed.
 type outgoing struct {
 	topic   string
 	payload []byte
 	cmd     controllers.Command
 	first   bool
+	stop    bool // payload is a StopMessage
 }
 
 // Run subscribes to the report and hold topics and runs the scheduler until
@@ -390,6 +391,15 @@ func (s *Service) publish(ctx context.Context, sends []outgoing) {
 		err := s.o.MQTT.Publish(pctx, o.topic, 1, false, o.payload)
 		cancel()
 		c := o.cmd
+		if o.stop {
+			if err != nil {
+				s.log.Warn("stop publish failed; it will be retried", "zone", c.Zone, "id", c.ID, "attempt", c.StopAttempts, "err", err)
+				continue
+			}
+			s.log.Warn("stop sent", "zone", c.Zone, "id", c.ID, "reason", c.StopReason, "attempt", c.StopAttempts)
+			s.emit(Event{Time: s.o.Clock(), Site: s.siteOf(c.Zone), Zone: c.Zone, Kind: EventStop, Command: &c, Text: c.StopReason})
+			continue
+		}
 		if err != nil {
 			s.log.Warn("command publish failed; it will be retried", "site", c.Source, "zone", c.Zone, "id", c.ID, "attempt", c.Attempts, "err", err)
 			continue
@@ -493,20 +503,18 @@ func (s *Service) tick(now time.Time) (time.Time, []outgoing, error) {
 				stale := ref.z.Stale(&zr.State, now)
 				if stale != zr.StaleAlert {
 					zr.StaleAlert = stale
-					text := fmt.Sprintf("no valid ET for more than %d h", ref.z.FailSafe.MaxMissingHours)
-					if zr.State.LastValid.IsZero() {
-						text = "no valid ET yet"
-					}
-					if ref.z.FailSafe.Fallback {
-						text += "; using fallback ET"
-					} else {
-						text += "; zone holds"
-					}
+					a := staleAlert(ref.z, &zr.State, now)
+					text := a.message
 					if !stale {
 						text = "valid ET; zone active"
 					}
 					s.log.Log(context.Background(), map[bool]slog.Level{true: slog.LevelWarn, false: slog.LevelInfo}[stale], "zone ET alert", "site", site.id, "zone", ref.id, "raised", stale, "text", text)
-					if err := s.enqueue(tx, alertPoint(site.id, ref.id, "zone-et-stale", stale, now, text)); err != nil {
+					if stale {
+						err = s.raise(tx, site.id, ref.id, a, now)
+					} else {
+						err = s.clear(tx, site.id, ref.id, quality.KindZoneETStale, now, text, true)
+					}
+					if err != nil {
 						return err
 					}
 					if err := putJSON(b.state, key(site.id, ref.id), zr); err != nil {
@@ -517,8 +525,12 @@ func (s *Service) tick(now time.Time) (time.Time, []outgoing, error) {
 				if !zr.State.LastValid.IsZero() && !stale {
 					soon(zr.State.LastValid.Add(time.Duration(ref.z.FailSafe.MaxMissingHours)*time.Hour + time.Second))
 				}
-				if _, in := controllers.SlotAt(ref.z.Windows, ref.z.Loc, now); !in {
+				if slot, in := controllers.SlotAt(ref.z.Windows, ref.z.Loc, now); !in {
 					soon(controllers.NextSlotStart(ref.z.Windows, ref.z.Loc, now))
+				} else {
+					// At its end the next window start becomes due (it may be
+					// minutes away, before any hour closes).
+					soon(slot.End)
 				}
 				if h, ok := holds.Zones[ref.id]; ok && !h.Forever {
 					soon(h.Until)
@@ -544,7 +556,36 @@ func (s *Service) tick(now time.Time) (time.Time, []outgoing, error) {
 					policy = ref.z.Policy
 				}
 				changed := false
+				if h, held := holds.For(c.Zone, now); held && c.State != controllers.Planned {
+					// A command sent before the hold (or re-sent in a race
+					// with it) is stopped, never re-sent.
+					ok, err := c.RequestStop(now, holdText(h))
+					if err != nil {
+						return err
+					}
+					changed = changed || ok
+				}
 				switch c.Due(now, policy) {
+				case controllers.SendStop:
+					c.MarkStopSent(now)
+					payload, err := json.Marshal(stopMessage(c))
+					if err != nil {
+						return fmt.Errorf("encode stop %s: %w", c.ID, err)
+					}
+					topic := ""
+					if ref != nil {
+						topic = ref.cmdTopic
+					}
+					outcome := "stop_sent"
+					if c.StopAttempts > 1 {
+						outcome = "stop_resent"
+					}
+					s.m.command(site.id, c.Zone, outcome)
+					if err := s.enqueue(tx, commandPoint(site.id, c, outcome, now)); err != nil {
+						return err
+					}
+					sends = append(sends, outgoing{topic: topic, payload: payload, cmd: *c, stop: true})
+					changed = true
 				case controllers.Send:
 					if c.Attempts > 0 && now.Before(resumeAt) {
 						break
@@ -590,16 +631,22 @@ func (s *Service) tick(now time.Time) (time.Time, []outgoing, error) {
 					changed = true
 				case controllers.Expire:
 					note := "no report before expiry"
-					if c.State == controllers.Planned {
+					switch {
+					case c.Stopping():
+						note = fmt.Sprintf("stop not confirmed after %d attempts (%s); the valve may still be open", c.StopAttempts, c.StopReason)
+					case c.State == controllers.Planned:
 						note = "not sent before expiry (gateway down)"
-					} else if c.State != controllers.Sent {
+					case c.State != controllers.Sent:
 						note = "no finished report (" + string(c.State) + ")"
 					}
+					alert := noReportAlert(c, note, policy)
 					c.MarkExpired(now, note)
 					s.m.command(site.id, c.Zone, "expired")
 					s.log.Warn("command expired, not credited", "site", site.id, "zone", c.Zone, "id", c.ID, "attempts", c.Attempts, "note", note)
-					if err := s.enqueue(tx, commandPoint(site.id, c, "expired", now),
-						alertPoint(site.id, c.Zone, "valve-no-report", true, now, c.ID+": "+note)); err != nil {
+					if err := s.enqueue(tx, commandPoint(site.id, c, "expired", now)); err != nil {
+						return err
+					}
+					if err := s.raise(tx, site.id, c.Zone, alert, now); err != nil {
 						return err
 					}
 					cc := *c
@@ -702,11 +749,28 @@ func (s *Service) applyReport(ref *zoneRef, r controllers.Report, now time.Time)
 		case r.State == controllers.ReportFailed:
 			s.m.command(ref.site, ref.id, "failed")
 			s.log.Warn("valve run failed", "site", ref.site, "zone", ref.id, "id", r.ID, "reason", r.Reason, "minutes_run", r.MinutesRun)
-			if err := s.enqueue(tx, alertPoint(ref.site, ref.id, "valve-failed", true, now, c.ID+": "+r.Reason)); err != nil {
+			if err := s.raise(tx, ref.site, ref.id, failedAlert(&c, r), now); err != nil {
 				return err
 			}
 		case r.State == controllers.ReportFinished:
 			s.m.command(ref.site, ref.id, "reported")
+		case r.State == controllers.ReportStopped:
+			s.m.command(ref.site, ref.id, "stopped")
+			s.log.Info("valve stopped", "site", ref.site, "zone", ref.id, "id", r.ID, "minutes_run", c.MinutesRun, "note", c.Note)
+		}
+		if out.Credit {
+			// A final report shows the controller answers again; a full
+			// run shows the valve works again.
+			if err := s.clear(tx, ref.site, ref.id, quality.KindValveNoReport, now,
+				fmt.Sprintf("command %s reported %s", c.ID, r.State), false); err != nil {
+				return err
+			}
+			if r.State == controllers.ReportFinished {
+				if err := s.clear(tx, ref.site, ref.id, quality.KindValveFailed, now,
+					fmt.Sprintf("command %s finished", c.ID), false); err != nil {
+					return err
+				}
+			}
 		}
 		if out.Changed {
 			if err := putJSON(b.ledger, key(ref.site, c.ID), c); err != nil {
@@ -766,9 +830,10 @@ func (s *Service) onHold(site *siteRef) func(mqtt.Message) {
 	}
 }
 
-// ApplyHold applies a hold request (as received on the hold topic) at now
-// and returns the reply. Planned commands of the held zones are cancelled in
-// the same transaction.
+// applyHold applies a hold request (as received on the hold topic) at now
+// and returns the reply. Planned commands of the held zones are cancelled,
+// and a stop is requested for their sent, accepted and started ones, in the
+// same transaction.
 func (s *Service) applyHold(site *siteRef, payload []byte, now time.Time) HoldReply {
 	req, err := DecodeHoldRequest(payload)
 	if err != nil {
@@ -819,7 +884,22 @@ func (s *Service) applyHold(site *siteRef, payload []byte, now time.Time) HoldRe
 		}
 		for i := range ledger {
 			c := &ledger[i]
-			if c.State != controllers.Planned || (req.Zone != "" && c.Zone != req.Zone) {
+			if !c.State.Open() || (req.Zone != "" && c.Zone != req.Zone) {
+				continue
+			}
+			if c.State != controllers.Planned {
+				// Sent, accepted or started: the valve may be open. Ask for
+				// a stop; the scheduler publishes it right after this commit.
+				ok, err := c.RequestStop(now, rec.Reason)
+				if err != nil {
+					return err
+				}
+				if ok {
+					if err := putJSON(b.ledger, key(site.id, c.ID), c); err != nil {
+						return err
+					}
+					s.log.Warn("stop requested for a sent command", "site", site.id, "zone", c.Zone, "id", c.ID, "state", c.State, "reason", rec.Reason)
+				}
 				continue
 			}
 			if err := c.Cancel(now, rec.Reason); err != nil {
@@ -902,4 +982,12 @@ func (s *Service) Ledger(site string) ([]controllers.Command, error) {
 		return nil, fmt.Errorf("zones ledger: %w", err)
 	}
 	return out, nil
+}
+
+// holdText is the reason a hold gives for stopping a command.
+func holdText(h controllers.Hold) string {
+	if h.Reason != "" {
+		return h.Reason
+	}
+	return "hold"
 }

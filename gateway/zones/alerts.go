@@ -1,0 +1,124 @@
+package zones
+
+import (
+	"fmt"
+	"math"
+	"time"
+
+	"go.etcd.io/bbolt"
+
+	"etpulse/controllers"
+	"etpulse/gateway/quality"
+	"etpulse/gateway/store"
+)
+
+// Alerter raises and clears alerts inside the caller's transaction, so an
+// alert commits (or rolls back) with the zone change that caused it. The
+// gateway's drift and fault monitor is one: through it, zone alerts get the
+// retained alert topics, the alert metrics and the raise/update/clear
+// lifecycle of every other alert.
+type Alerter interface {
+	Raise(tx *bbolt.Tx, a quality.Alert) error
+	Clear(tx *bbolt.Tx, key quality.Key, at time.Time, message string) error
+}
+
+var _ Alerter = (*quality.Monitor)(nil)
+
+// zoneAlert is one zone alert to raise.
+type zoneAlert struct {
+	kind     quality.Kind
+	severity quality.Severity
+	message  string
+	value    float64
+	limit    float64
+}
+
+// raise raises a zone alert at now inside tx: through the Alerter when one
+// is configured, else (replay, backtest) as a store point as before.
+func (s *Service) raise(tx *bbolt.Tx, site, zone string, a zoneAlert, now time.Time) error {
+	if s.o.Alerts == nil {
+		return s.enqueue(tx, alertPoint(site, zone, string(a.kind), true, now, a.message))
+	}
+	err := s.o.Alerts.Raise(tx, quality.Alert{
+		Key: quality.ZoneKey(site, zone, a.kind), Severity: a.severity, Message: a.message,
+		Value: finiteOr0(a.value), Limit: finiteOr0(a.limit), Since: now,
+	})
+	if err != nil {
+		return fmt.Errorf("raise %s alert of zone %s: %w", a.kind, zone, err)
+	}
+	return nil
+}
+
+// clear clears a zone alert at now inside tx. Without an Alerter only the
+// stale-ET alert, whose state the zone record keeps, writes a store point
+// (pointOnly); clearing an alert that is not active does nothing.
+func (s *Service) clear(tx *bbolt.Tx, site, zone string, kind quality.Kind, now time.Time, message string, pointOnly bool) error {
+	if s.o.Alerts == nil {
+		if !pointOnly {
+			return nil
+		}
+		return s.enqueue(tx, alertPoint(site, zone, string(kind), false, now, message))
+	}
+	if err := s.o.Alerts.Clear(tx, quality.ZoneKey(site, zone, kind), now, message); err != nil {
+		return fmt.Errorf("clear %s alert of zone %s: %w", kind, zone, err)
+	}
+	return nil
+}
+
+// staleAlert describes the stale-ET alert of a zone at now.
+func staleAlert(z *controllers.Zone, st *controllers.State, now time.Time) zoneAlert {
+	a := zoneAlert{kind: quality.KindZoneETStale, severity: quality.SeverityCritical,
+		limit: float64(z.FailSafe.MaxMissingHours)}
+	if st.LastValid.IsZero() {
+		a.message = "no valid ET yet"
+	} else {
+		a.value = math.Round(now.Sub(st.LastValid).Hours()*10) / 10
+		a.message = fmt.Sprintf("no valid ET for %.1f h (since %s), limit %d h",
+			a.value, st.LastValid.UTC().Format(time.RFC3339), z.FailSafe.MaxMissingHours)
+	}
+	if z.FailSafe.Fallback {
+		a.message += "; using fallback ET"
+		a.severity = quality.SeverityWarning
+	} else {
+		a.message += "; zone holds"
+	}
+	return a
+}
+
+// noReportAlert describes a command that expired without a final report.
+func noReportAlert(c *controllers.Command, note string, p controllers.CommandPolicy) zoneAlert {
+	a := zoneAlert{kind: quality.KindValveNoReport, severity: quality.SeverityCritical,
+		message: fmt.Sprintf("command %s (%d min from %s): %s", c.ID, c.Minutes, c.Start.UTC().Format(time.RFC3339), note),
+		value:   float64(c.Attempts), limit: float64(p.MaxAttempts)}
+	if c.StopAttempts > 0 {
+		a.value = float64(c.StopAttempts)
+	}
+	return a
+}
+
+// failedAlert describes a failed run report.
+func failedAlert(c *controllers.Command, r controllers.Report) zoneAlert {
+	why := r.Reason
+	if why == "" {
+		why = "no reason given"
+	}
+	return zoneAlert{kind: quality.KindValveFailed, severity: quality.SeverityCritical,
+		message: fmt.Sprintf("command %s failed after %.1f of %d min: %s", c.ID, c.MinutesRun, c.Minutes, why),
+		value:   c.MinutesRun, limit: float64(c.Minutes)}
+}
+
+func finiteOr0(v float64) float64 {
+	if math.IsNaN(v) || math.IsInf(v, 0) {
+		return 0
+	}
+	return v
+}
+
+// alertPoint is the store point of a zone alert when no Alerter is
+// configured: measurement sensor_alert with a zone tag and the text in notes.
+func alertPoint(site, zone, kind string, raised bool, t time.Time, text string) store.Point {
+	p := store.AlertPoint(site, "", "", kind, t, map[string]any{"raised": raised})
+	p.Tags["zone"] = zone
+	p.Notes = map[string]string{"text": text}
+	return p
+}

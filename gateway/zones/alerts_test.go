@@ -1,0 +1,236 @@
+package zones
+
+import (
+	"context"
+	"encoding/json"
+	"fmt"
+	"os"
+	"sync"
+	"testing"
+	"time"
+
+	"github.com/prometheus/client_golang/prometheus"
+	"github.com/stretchr/testify/assert"
+	"github.com/stretchr/testify/require"
+
+	"etpulse/controllers"
+	"etpulse/gateway/config"
+	"etpulse/gateway/internal/testenv"
+	"etpulse/gateway/mqtt"
+	"etpulse/gateway/quality"
+	"etpulse/gateway/store"
+)
+
+// alertZoneConfig is the invented Fernhill farm with one drip zone "row-c"
+// whose commands expire fast (ack timeout 1 min, 2 attempts, start
+// tolerance 5 min) and two watering windows, so that after an expired
+// command the next window opens a few minutes later. Alert topics and zone
+// topics use prefix. The sensor checks are off: zone alerts do not depend
+// on them.
+func alertZoneConfig(t *testing.T, prefix string) *config.Config {
+	t.Helper()
+	doc := `
+topic_prefix: ` + prefix + `
+broker: {url: 'tcp://127.0.0.1:1883'}
+alerts: {disabled: true}
+sites:
+- id: fernhill
+  stations:
+  - id: mast
+    latitude: 38.5
+    longitude: -121.7
+    elevation_m: 20
+    utc_offset_hours: -8
+    sensors:
+    - {id: t, topic: fernhill/mast/t, format: number, quantity: air_temp, unit: degC}
+    - {id: rh, topic: fernhill/mast/rh, format: number, quantity: rel_humidity, unit: '%'}
+    - {id: u, topic: fernhill/mast/u, format: number, quantity: wind, unit: m/s}
+    - {id: rs, topic: fernhill/mast/rs, format: number, quantity: solar, unit: W/m2}
+  sources:
+  - {id: well, max_valves: 3}
+  zones:
+  - id: row-c
+    station: mast
+    source: well
+    area_m2: 1000
+    crop: {kc: 1.0}
+    soil: {field_capacity: 0.25, wilting_point: 0.12, root_depth_m: 1.0, p: 0.5, trigger_mm: 20, initial_depletion_mm: 30}
+    system: {type: drip, rate_mm_h: 6, efficiency: 0.9, min_minutes: 5, max_minutes: 240, max_minutes_per_day: 600}
+    windows: ["10:00-10:09", "10:10-12:00"]
+    commands: {ack_timeout: 1m, max_attempts: 2, start_tolerance: 5m}
+`
+	c, err := config.Parse([]byte(doc))
+	require.NoError(t, err)
+	return c
+}
+
+// monitorFor builds the drift and fault monitor on the fixture's state file
+// and outbox, publishing through pub.
+func monitorFor(t *testing.T, f *fixture, cfg *config.Config, pub mqtt.Publisher, clock func() time.Time, after func(time.Duration) <-chan time.Time) *quality.Monitor {
+	t.Helper()
+	mon, err := quality.New(quality.Options{Config: cfg, DB: f.db, Outbox: f.out, Publisher: pub,
+		Registerer: f.reg, Clock: clock, After: after})
+	require.NoError(t, err)
+	f.svc.o.Alerts = mon
+	return mon
+}
+
+// metricValue returns the value of a gauge or counter with the given label
+// values in reg (0 when absent).
+func metricValue(t *testing.T, reg prometheus.Gatherer, name string, labels map[string]string) float64 {
+	t.Helper()
+	mfs, err := reg.Gather()
+	require.NoError(t, err)
+	for _, mf := range mfs {
+		if mf.GetName() != name {
+			continue
+		}
+	next:
+		for _, m := range mf.GetMetric() {
+			for _, lp := range m.GetLabel() {
+				if v, ok := labels[lp.GetName()]; ok && v != lp.GetValue() {
+					continue next
+				}
+			}
+			if g := m.GetGauge(); g != nil {
+				return g.GetValue()
+			}
+			return m.GetCounter().GetValue()
+		}
+	}
+	return 0
+}
+
+// retained collects the messages of one subscription.
+type retained struct {
+	mu   sync.Mutex
+	msgs map[string][]string
+}
+
+func watch(t *testing.T, url, filter string) *retained {
+	t.Helper()
+	r := &retained{msgs: map[string][]string{}}
+	c := dial(t, url, uniq("zones-alert-watch"))
+	require.NoError(t, c.Subscribe(filter, 1, func(m mqtt.Message) {
+		r.mu.Lock()
+		r.msgs[m.Topic] = append(r.msgs[m.Topic], string(m.Payload))
+		r.mu.Unlock()
+		m.Ack()
+	}))
+	return r
+}
+
+// nth waits for the n-th message on topic and returns it.
+func (r *retained) nth(t *testing.T, topic string, n int) string {
+	t.Helper()
+	var p string
+	require.Eventually(t, func() bool {
+		r.mu.Lock()
+		defer r.mu.Unlock()
+		if len(r.msgs[topic]) < n {
+			return false
+		}
+		p = r.msgs[topic][n-1]
+		return true
+	}, 40*time.Second, 20*time.Millisecond, "message %d on %s", n, topic)
+	return p
+}
+
+func (r *retained) count(topic string) int {
+	r.mu.Lock()
+	defer r.mu.Unlock()
+	return len(r.msgs[topic])
+}
+
+// TestValveNoReportAlertMosquitto: through the real broker, a valve that
+// never answers its command produces a retained valve-no-report alert on the
+// zone's alert topic, counted in the alert metrics and stored; the next
+// window's command is answered and credited, which clears the alert with an
+// empty retained message.
+func TestValveNoReportAlertMosquitto(t *testing.T) {
+	url := testenv.MQTT(t)
+	prefix := fmt.Sprintf("zatest-%d-%d", os.Getpid(), time.Now().UnixNano()%1e9)
+	clock := fastClock{base: time.Date(2026, 7, 1, 10, 0, 30, 0, fernLoc), real0: time.Now()}
+	cfg := alertZoneConfig(t, prefix)
+	gw := dial(t, url, uniq("zones-alert-gw"))
+	f := newFixture(t, cfg, gw, clock.Now())
+	f.svc.o.Clock, f.svc.o.After = clock.Now, clock.After
+	mon := monitorFor(t, f, cfg, gw, clock.Now, clock.After)
+	f.hour(t, record(time.Date(2026, 7, 1, 9, 0, 0, 0, fernLoc), 0.5, 0)) // 30.5 mm
+
+	var mu sync.Mutex
+	first := ""
+	sim := &ValveSimulator{MQTT: dial(t, url, uniq("zones-alert-valves")), Behave: func(c CommandMessage) Behaviour {
+		mu.Lock()
+		defer mu.Unlock()
+		if first == "" || first == c.ID {
+			first = c.ID
+			return Behaviour{Lose: true} // the radio link is down for the first command
+		}
+		return Behaviour{}
+	}}
+	ref := f.svc.zones["fernhill/row-c"]
+	require.Equal(t, prefix+"/fernhill/zones/row-c/command", ref.cmdTopic)
+	require.NoError(t, sim.Serve(map[string]string{ref.cmdTopic: ref.reportTopic}))
+	live := watch(t, url, prefix+"/#")
+
+	ctx, cancel := context.WithCancel(context.Background())
+	var wg sync.WaitGroup
+	wg.Add(2)
+	go func() { defer wg.Done(); assert.NoError(t, f.svc.Run(ctx)) }()
+	go func() { defer wg.Done(); assert.NoError(t, mon.Run(ctx)) }()
+	defer func() { cancel(); wg.Wait() }()
+
+	// The first command starts 10:02 and expires 10:07 (about 7 s real).
+	topic := prefix + "/fernhill/alerts/zones/row-c/valve/valve-no-report"
+	var a map[string]any
+	require.NoError(t, json.Unmarshal([]byte(live.nth(t, topic, 1)), &a))
+	assert.Equal(t, "fernhill", a["site"])
+	assert.Equal(t, "zones", a["station"])
+	assert.Equal(t, "row-c", a["sensor"])
+	assert.Equal(t, "row-c", a["zone"])
+	assert.Equal(t, "valve", a["quantity"])
+	assert.Equal(t, "valve-no-report", a["kind"])
+	assert.Equal(t, "critical", a["severity"])
+	assert.Equal(t, "active", a["state"])
+	assert.Contains(t, a["message"], first)
+	assert.Contains(t, a["message"], "no report before expiry")
+	assert.Equal(t, 2.0, a["value"], "attempts")
+	assert.Equal(t, 2.0, a["limit"], "max attempts")
+	kind := map[string]string{"kind": "valve-no-report"}
+	assert.Equal(t, 1.0, metricValue(t, f.reg, "etpulse_alerts_raised_total", kind))
+
+	// A dashboard connecting now sees it (retained).
+	late := watch(t, url, topic)
+	assert.Contains(t, late.nth(t, topic, 1), `"state":"active"`)
+
+	// The next window opens at 10:10; that command is answered and credited,
+	// which clears the alert: an empty retained message.
+	assert.Equal(t, "", live.nth(t, topic, 2))
+	assert.Equal(t, 0.0, metricValue(t, f.reg, "etpulse_alerts_active", kind))
+	assert.Equal(t, 1.0, metricValue(t, f.reg, "etpulse_alerts_cleared_total", kind))
+	assert.Equal(t, 1.0, metricValue(t, f.reg, "etpulse_alerts_raised_total", kind))
+	assert.Empty(t, mon.Active())
+
+	led, err := f.svc.Ledger("fernhill")
+	require.NoError(t, err)
+	require.GreaterOrEqual(t, len(led), 2)
+	assert.Equal(t, first, led[0].ID)
+	assert.Equal(t, controllers.Expired, led[0].State)
+	assert.Equal(t, controllers.Finished, led[1].State, "the next window's command")
+	assert.False(t, led[1].Start.Before(time.Date(2026, 7, 1, 10, 10, 0, 0, fernLoc)))
+
+	// The store has the raise and the clear as sensor_alert points of the
+	// zone (station "zones", sensor = zone id).
+	var events []string
+	require.NoError(t, f.out.History().Range(store.Filter{Measurements: []string{store.MeasurementAlert}}, func(p store.Point) error {
+		if p.Tags["kind"] == "valve-no-report" {
+			assert.Equal(t, "zones", p.Tags["station"])
+			assert.Equal(t, "row-c", p.Tags["sensor"])
+			events = append(events, p.Notes["event"])
+		}
+		return nil
+	}))
+	assert.Equal(t, []string{"raised", "cleared"}, events)
+	assert.Equal(t, 2, live.count(topic), "raised once, cleared once")
+}
