@@ -154,16 +154,17 @@ func New(cfg *config.Config, deps Deps) (*Gateway, error) {
 		comp.Services = append(comp.Services, writer)
 	}
 
-	// Zones: the balance steps inside each closing hour's transaction; the
-	// scheduler sends valve commands. Skipped when the caller (the demo)
-	// passed its own zones service in Deps.Components.
-	if err := wireZones(cfg, deps, outbox, &comp); err != nil {
-		return nil, fmt.Errorf("new gateway: %w", err)
-	}
-
 	// Alerts: drift and fault checks on samples and closed hours, the quality
 	// gate, and the metrics and health server (gateway/alerts.go).
 	if g.alerts, err = setupAlerts(cfg, deps, outbox, &comp); err != nil {
+		return nil, fmt.Errorf("new gateway: %w", err)
+	}
+
+	// Zones: the balance steps inside each closing hour's transaction; the
+	// scheduler sends valve commands and raises its alerts through the
+	// alert monitor. Skipped when the caller passed its own zones service in
+	// Deps.Components.
+	if err := wireZones(cfg, deps, outbox, g.alerts, &comp); err != nil {
 		return nil, fmt.Errorf("new gateway: %w", err)
 	}
 	// ---- end of components wiring ----

@@ -8,8 +8,9 @@ import (
 )
 
 // wireZones adds the zone balance and command scheduler when the
-// configuration has zones and the caller did not supply its own.
-func wireZones(cfg *config.Config, deps Deps, outbox store.Enqueuer, comp *Components) error {
+// configuration has zones and the caller did not supply its own. Its alerts
+// (stale ET, valve without report, failed valve) go through alerts.
+func wireZones(cfg *config.Config, deps Deps, outbox store.Enqueuer, alerts zones.Alerter, comp *Components) error {
 	n := 0
 	for i := range cfg.Sites {
 		n += len(cfg.Sites[i].Zones)
@@ -23,7 +24,7 @@ func wireZones(cfg *config.Config, deps Deps, outbox store.Enqueuer, comp *Compo
 		}
 	}
 	svc, err := zones.New(zones.Options{
-		Config: cfg, DB: deps.DB, MQTT: deps.MQTT, Store: outbox,
+		Config: cfg, DB: deps.DB, MQTT: deps.MQTT, Store: outbox, Alerts: alerts,
 		Logger: deps.Logger.With("component", "zones"), Registerer: deps.Registerer,
 		Clock: deps.Clock, After: deps.After, OnEvent: deps.OnZoneEvent,
 		TopicPrefix: deps.TopicPrefix,
