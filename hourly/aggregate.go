@@ -130,7 +130,7 @@ func AggregateHour(start time.Time, samples []Sample, opt AggregateOptions) (Agg
 		}
 		v := s.Value
 		if s.Quantity == RelHumidity {
-			v = math.Min(math.Max(v, 0), 100)
+			v = min(max(v, 0), 100)
 		}
 		buf = append(buf, binned{q: qi, src: int32(i), off: off, v: v})
 	}
@@ -224,7 +224,7 @@ func AggregateHour(start time.Time, samples []Sample, opt AggregateOptions) (Agg
 	if covered(Solar) {
 		var sum float64
 		for _, b := range group(Solar) {
-			sum += math.Max(b.v, 0)
+			sum += max(b.v, 0)
 		}
 		a.Hour.Solar = sum / float64(len(group(Solar))) * WattsToMJPerHour
 	} else {
@@ -272,8 +272,8 @@ func summarise(g []binned) Stats {
 	var sum float64
 	for _, b := range g {
 		sum += b.v
-		st.Min = math.Min(st.Min, b.v)
-		st.Max = math.Max(st.Max, b.v)
+		st.Min = min(st.Min, b.v)
+		st.Max = max(st.Max, b.v)
 		slot := int(b.off / (time.Hour / CoverageSlots))
 		slots |= 1 << uint(min(max(slot, 0), CoverageSlots-1))
 	}

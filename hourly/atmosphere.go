@@ -49,7 +49,7 @@ func VapourPressureFromRH(t, rh float64) (float64, error) {
 	if !finite(rh) || rh < -RHTolerance || rh > 100+RHTolerance {
 		return 0, fmt.Errorf("relative humidity: %v %% outside 0..100: %w", rh, ErrInput)
 	}
-	rh = math.Min(math.Max(rh, 0), 100)
+	rh = min(max(rh, 0), 100)
 	return SatVapourPressure(t) * rh / 100, nil // FAO-56 eq. 54
 }
 

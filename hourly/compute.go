@@ -38,6 +38,10 @@ const (
 	// MaxFlux bounds the magnitude of a measured net radiation or soil heat
 	// flux mean, W m-2 (common practice, no source).
 	MaxFlux = 1500.0
+	// MinPressure and MaxPressure bound a given station pressure, kPa
+	// (FAO-56 eq. 7 gives about 31 kPa at 9000 m and 107 kPa at -500 m).
+	MinPressure = 30.0
+	MaxPressure = 110.0
 )
 
 // constants of one reference surface for hourly periods.
@@ -87,7 +91,8 @@ func finite(v float64) bool { return !math.IsNaN(v) && !math.IsInf(v, 0) }
 
 // Validate checks a station description: finite latitude -90..90, longitude
 // -180..180, elevation -500..9000 m, UTC offset -14..14 h, a known clear-sky
-// form, turbidity 0..1 and night Rs/Rso 0 or 0.3..1. Errors wrap ErrConfig.
+// form, turbidity 0..1, night Rs/Rso 0 or 0.3..1 and a given pressure 0 or
+// 30..110 kPa. Errors wrap ErrConfig.
 func (st Station) Validate() error {
 	switch {
 	case !finite(st.Latitude) || st.Latitude < -90 || st.Latitude > 90:
@@ -104,8 +109,25 @@ func (st Station) Validate() error {
 		return fmt.Errorf("station turbidity: %v outside 0..1: %w", st.Turbidity, ErrConfig)
 	case !finite(st.NightRsRso) || (st.NightRsRso != 0 && (st.NightRsRso < 0.3 || st.NightRsRso > 1)):
 		return fmt.Errorf("station night Rs/Rso: %v outside 0.3..1: %w", st.NightRsRso, ErrConfig)
+	case !finite(st.Pressure) || (st.Pressure != 0 && (st.Pressure < MinPressure || st.Pressure > MaxPressure)):
+		return fmt.Errorf("station pressure: %v kPa outside %g..%g: %w", st.Pressure, MinPressure, MaxPressure, ErrConfig)
 	}
 	return nil
+}
+
+// Prepared returns the station with its per-station constants (Pressure)
+// filled in, for callers that compute many hours of one station.
+func (st Station) Prepared() Station {
+	st.Pressure = st.pressure()
+	return st
+}
+
+// pressure is the given station pressure, or FAO-56 eq. 7 from the elevation.
+func (st Station) pressure() float64 {
+	if st.Pressure != 0 {
+		return st.Pressure
+	}
+	return Pressure(st.Elevation)
 }
 
 // checkFlux validates a measured flux held as MJ m-2 over hours hours.
@@ -171,7 +193,7 @@ func Compute(st Station, ref Reference, h Hour, carry Carry) (Result, Carry, err
 	if w := MJToWatts(rs, hours); w < -SolarTolerance || w > MaxSolar {
 		return r, carry, fmt.Errorf("compute: solar radiation: mean %.4g W/m2 outside 0..%g: %w", w, MaxSolar, ErrInput)
 	}
-	rs = math.Max(rs, 0)
+	rs = max(rs, 0)
 	if h.HasNetRad {
 		if err := checkFlux("net radiation", h.NetRad, hours); err != nil {
 			return r, carry, fmt.Errorf("compute: %w", err)
@@ -184,7 +206,7 @@ func Compute(st Station, ref Reference, h Hour, carry Carry) (Result, Carry, err
 	}
 
 	r.Reference = ref
-	r.Pressure = Pressure(st.Elevation)         // FAO-56 eq. 7
+	r.Pressure = st.pressure()                  // FAO-56 eq. 7 unless given
 	r.Gamma = PsychrometricConstant(r.Pressure) // FAO-56 eq. 8
 	r.Es = SatVapourPressure(t)                 // FAO-56 eq. 11 at the hourly mean T
 	r.Delta = satSlopeFrom(t, r.Es)             // FAO-56 eq. 13
@@ -265,5 +287,5 @@ func Compute(st Station, ref Reference, h Hour, carry Carry) (Result, Carry, err
 // WaterUse returns ET limited below at zero, the value a water balance
 // should debit (dew does not refill the root zone).
 func (r Result) WaterUse() float64 {
-	return math.Max(r.ET, 0)
+	return max(r.ET, 0)
 }

@@ -134,7 +134,7 @@ func Daily(st Station, ref Reference, d DayWeather) (DailyResult, error) {
 	r.Cn, r.Cd = cn, cd
 	r.DayOfYear = d.Date.YearDay()
 	r.TMean = (d.TMax + d.TMin) / 2 // FAO-56 eq. 9
-	r.Pressure = Pressure(st.Elevation)
+	r.Pressure = st.pressure()      // FAO-56 eq. 7 unless given
 	r.Gamma = PsychrometricConstant(r.Pressure)
 	r.Delta = SatSlope(r.TMean)                  // FAO-56 eq. 13 at Tmean
 	r.Es = MeanSatVapourPressure(d.TMax, d.TMin) // FAO-56 eq. 12
@@ -143,7 +143,7 @@ func Daily(st Station, ref Reference, d DayWeather) (DailyResult, error) {
 		if !finite(v) || v < -RHTolerance || v > 100+RHTolerance {
 			return 0, fmt.Errorf("daily: %s: %v %% outside 0..100: %w", name, v, ErrInput)
 		}
-		return math.Min(math.Max(v, 0), 100), nil
+		return min(max(v, 0), 100), nil
 	}
 	switch d.Humidity {
 	case HumidityEa:

@@ -69,7 +69,7 @@ func DailyRa(latDeg float64, doy int) float64 {
 	ws := SunsetHourAngle(lat, decl)
 	ra := 24 * 60 / math.Pi * SolarConstant * InverseRelativeDistance(doy) *
 		(ws*math.Sin(lat)*math.Sin(decl) + math.Cos(lat)*math.Cos(decl)*math.Sin(ws)) // FAO-56 eq. 21
-	return math.Max(ra, 0)
+	return max(ra, 0)
 }
 
 // DaylightHours returns the maximum possible sunshine duration N in hours at
@@ -191,12 +191,12 @@ func sunForPeriod(st Station, start time.Time, length time.Duration) SolarPeriod
 	sp.Omega1, sp.Omega2 = w1, w2
 
 	sp.SinBeta = sinLat*sinDec + cosLat*cosDec*cosW
-	sp.Elevation = math.Asin(math.Max(-1, math.Min(1, sp.SinBeta))) // ASCE-EWRI 2005 eq. 62
+	sp.Elevation = math.Asin(max(-1, min(1, sp.SinBeta))) // ASCE-EWRI 2005 eq. 62
 
 	if w2 > w1 {
 		ra := 12 * 60 / math.Pi * SolarConstant * sp.Dr *
 			((w2-w1)*sinLat*sinDec + cosLat*cosDec*(sin2-sin1)) // FAO-56 eq. 28
-		sp.Ra = math.Max(ra, 0)
+		sp.Ra = max(ra, 0)
 	}
 	return sp
 }
@@ -285,7 +285,7 @@ func RsoFull(ra, p, ea, sinBeta, kt float64) float64 {
 	if kt <= 0 {
 		kt = 1
 	}
-	sb := math.Max(sinBeta, minSinBeta)
+	sb := max(sinBeta, minSinBeta)
 	w := 0.14*ea*p + 2.1                                                // ASCE-EWRI 2005 eq. D.3
 	kb := 0.98 * math.Exp(-0.00146*p/(kt*sb)-0.075*math.Pow(w/sb, 0.4)) // ASCE-EWRI 2005 eq. D.2
 	var kd float64
@@ -313,7 +313,7 @@ func NetShortwave(rs float64) float64 {
 // ClampRsRso limits relative shortwave radiation to 0.3..1.0 (ASCE-EWRI
 // 2005, limits of eq. 45).
 func ClampRsRso(r float64) float64 {
-	return math.Min(math.Max(r, 0.3), 1.0)
+	return min(max(r, 0.3), 1.0)
 }
 
 // CloudFactor returns the cloudiness function fcd = 1.35 Rs/Rso - 0.35 with

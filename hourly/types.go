@@ -54,6 +54,10 @@ type Station struct {
 	// NightRsRso is the Rs/Rso assumed for the night cloudiness function when
 	// no carried value exists (FcdDefault); zero means DefaultNightRsRso (0.8).
 	NightRsRso float64
+	// Pressure is the station's mean air pressure in kPa; zero means FAO-56
+	// eq. 7 from Elevation. Prepared fills it once, so the per-hour
+	// computation does not repeat a per-station constant.
+	Pressure float64
 }
 
 // Hour is one period (normally one clock hour) of aggregated weather, the

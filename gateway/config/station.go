@@ -38,7 +38,8 @@ const (
 	DefaultMaxFuture    = 5 * time.Minute
 )
 
-// HourlyStation returns the station's fixed description for hourly.Compute.
+// HourlyStation returns the station's fixed description for hourly.Compute,
+// with its per-station constants prepared.
 func (s *Station) HourlyStation() hourly.Station {
 	return hourly.Station{
 		Latitude:  s.Latitude,
@@ -46,7 +47,7 @@ func (s *Station) HourlyStation() hourly.Station {
 		Elevation: s.Elevation,
 		UTCOffset: s.UTCOffset,
 		ClearSky:  s.ClearSky,
-	}
+	}.Prepared()
 }
 
 // Format is the payload format of a sensor topic.

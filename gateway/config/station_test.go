@@ -24,7 +24,7 @@ func TestStationDefaults(t *testing.T) {
 	assert.Equal(t, 6*time.Hour, st.LateWindow.D())
 	assert.Equal(t, 15*time.Minute, st.SilenceClose.D())
 	assert.Equal(t, 5*time.Minute, st.MaxFuture.D())
-	assert.Equal(t, hourly.Station{Latitude: 38.5, Longitude: -121.7, Elevation: 20, UTCOffset: -8, ClearSky: hourly.ClearSkySimple}, st.HourlyStation())
+	assert.Equal(t, hourly.Station{Latitude: 38.5, Longitude: -121.7, Elevation: 20, UTCOffset: -8, ClearSky: hourly.ClearSkySimple}.Prepared(), st.HourlyStation())
 }
 
 func TestFarmExample(t *testing.T) {

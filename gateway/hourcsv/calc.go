@@ -44,6 +44,7 @@ func Calc(ctx context.Context, in io.Reader, out io.Writer, opt CalcOptions) (Su
 	if err := opt.Station.Validate(); err != nil {
 		return sum, fmt.Errorf("calc: %w", err)
 	}
+	opt.Station = opt.Station.Prepared() // the pressure once, not per row
 	if _, err := hourly.ParseReference(string(opt.Reference)); err != nil {
 		return sum, fmt.Errorf("calc: %w", err)
 	}

@@ -135,10 +135,7 @@ func newStation(site string, sc config.Station) *station {
 	}
 	st := &station{
 		site: site, id: sc.ID, key: []byte(site + "/" + sc.ID), cfg: sc,
-		hs: hourly.Station{
-			Latitude: sc.Latitude, Longitude: sc.Longitude, Elevation: sc.Elevation,
-			UTCOffset: sc.UTCOffset, ClearSky: sc.ClearSky,
-		},
+		hs:     sc.HourlyStation(),
 		offset: off,
 		zone:   time.FixedZone(name, int(off/time.Second)),
 	}
