@@ -28,7 +28,7 @@ func newMetrics(reg prometheus.Registerer) (*metrics, error) {
 		}, []string{"site", "zone"}),
 		commands: prometheus.NewCounterVec(prometheus.CounterOpts{
 			Name: "etpulse_commands_total",
-			Help: "Valve commands by outcome: sent, resent, reported (finished), failed, expired, cancelled, duplicate (report).",
+			Help: "Valve commands by outcome: sent, resent, reported (finished), failed, expired, cancelled, duplicate (report), stop_sent, stop_resent, stopped (report).",
 		}, []string{"site", "zone", "outcome"}),
 		badReports: prometheus.NewCounter(prometheus.CounterOpts{
 			Name: "etpulse_valve_reports_refused_total",
