@@ -12,6 +12,7 @@ import (
 	"github.com/prometheus/client_golang/prometheus"
 	"github.com/stretchr/testify/assert"
 	"github.com/stretchr/testify/require"
+	"go.etcd.io/bbolt"
 
 	"etpulse/controllers"
 	"etpulse/gateway/config"
@@ -233,4 +234,33 @@ func TestValveNoReportAlertMosquitto(t *testing.T) {
 	}))
 	assert.Equal(t, []string{"raised", "cleared"}, events)
 	assert.Equal(t, 2, live.count(topic), "raised once, cleared once")
+}
+
+// BenchmarkTickHeldWithAlerts measures one scheduling pass of three zones
+// under a site hold, each with a sent command being stopped: stops sent and
+// re-sent as due, then the commands expire with valve-no-report alerts
+// through the monitor, then the zones stay held (one committed bbolt
+// transaction per pass).
+func BenchmarkTickHeldWithAlerts(b *testing.B) {
+	start := time.Date(2026, 7, 1, 10, 0, 30, 0, fernLoc)
+	cfg := testConfig(b)
+	f := newFixture(b, cfg, nil, start)
+	mon, err := quality.New(quality.Options{Config: cfg, DB: f.db, Outbox: f.out, Clock: f.clock.Now})
+	require.NoError(b, err)
+	f.svc.o.Alerts = mon
+	rec := record(time.Date(2026, 7, 1, 9, 0, 0, 0, fernLoc), 0.5, 0)
+	require.NoError(b, f.db.Update(func(tx *bbolt.Tx) error { return f.svc.HandleHour(tx, rec) }))
+	_, _, err = f.svc.tick(start)
+	require.NoError(b, err)
+	_, sends, err := f.svc.tick(start.Add(30 * time.Second))
+	require.NoError(b, err)
+	require.Len(b, sends, 3)
+	require.True(b, f.svc.applyHold(f.svc.sites[0], []byte(`{"id":"b","action":"hold"}`), start.Add(40*time.Second)).OK)
+	now := start.Add(40 * time.Second)
+	for b.Loop() {
+		now = now.Add(10 * time.Second)
+		if _, _, err := f.svc.tick(now); err != nil {
+			b.Fatal(err)
+		}
+	}
 }
