@@ -22,46 +22,22 @@ import (
 	"etpulse/gateway/store"
 )
 
-// alertZoneConfig is the invented Fernhill farm with one drip zone "row-c"
-// whose commands expire fast (ack timeout 1 min, 2 attempts, start
+// alertZoneConfig is the invented Fernhill farm (testConfig) with one zone
+// "row-c" whose commands expire fast (ack timeout 1 min, 2 attempts, start
 // tolerance 5 min) and two watering windows, so that after an expired
 // command the next window opens a few minutes later. Alert topics and zone
 // topics use prefix. The sensor checks are off: zone alerts do not depend
 // on them.
 func alertZoneConfig(t *testing.T, prefix string) *config.Config {
 	t.Helper()
-	doc := `
-topic_prefix: ` + prefix + `
-broker: {url: 'tcp://127.0.0.1:1883'}
-alerts: {disabled: true}
-sites:
-- id: fernhill
-  stations:
-  - id: mast
-    latitude: 38.5
-    longitude: -121.7
-    elevation_m: 20
-    utc_offset_hours: -8
-    sensors:
-    - {id: t, topic: fernhill/mast/t, format: number, quantity: air_temp, unit: degC}
-    - {id: rh, topic: fernhill/mast/rh, format: number, quantity: rel_humidity, unit: '%'}
-    - {id: u, topic: fernhill/mast/u, format: number, quantity: wind, unit: m/s}
-    - {id: rs, topic: fernhill/mast/rs, format: number, quantity: solar, unit: W/m2}
-  sources:
-  - {id: well, max_valves: 3}
-  zones:
-  - id: row-c
-    station: mast
-    source: well
-    area_m2: 1000
-    crop: {kc: 1.0}
-    soil: {field_capacity: 0.25, wilting_point: 0.12, root_depth_m: 1.0, p: 0.5, trigger_mm: 20, initial_depletion_mm: 30}
-    system: {type: drip, rate_mm_h: 6, efficiency: 0.9, min_minutes: 5, max_minutes: 240, max_minutes_per_day: 600}
-    windows: ["10:00-10:09", "10:10-12:00"]
-    commands: {ack_timeout: 1m, max_attempts: 2, start_tolerance: 5m}
-`
-	c, err := config.Parse([]byte(doc))
-	require.NoError(t, err)
+	c := testConfig(t, "row-c")
+	c.TopicPrefix, c.Alerts.TopicPrefix, c.Alerts.Disabled = prefix, prefix, true
+	z := &c.Sites[0].Zones[0]
+	z.Windows = []string{"10:00-10:09", "10:10-12:00"}
+	z.System.MaxMinutesPerDay = 600
+	z.Commands.AckTimeout = config.Duration(time.Minute)
+	z.Commands.MaxAttempts = 2
+	z.Commands.StartTolerance = config.Duration(5 * time.Minute)
 	return c
 }
 

@@ -568,23 +568,16 @@ func (s *Service) tick(now time.Time) (time.Time, []outgoing, error) {
 				switch c.Due(now, policy) {
 				case controllers.SendStop:
 					c.MarkStopSent(now)
-					payload, err := json.Marshal(stopMessage(c))
-					if err != nil {
-						return fmt.Errorf("encode stop %s: %w", c.ID, err)
-					}
-					topic := ""
-					if ref != nil {
-						topic = ref.cmdTopic
-					}
 					outcome := "stop_sent"
 					if c.StopAttempts > 1 {
 						outcome = "stop_resent"
 					}
-					s.m.command(site.id, c.Zone, outcome)
-					if err := s.enqueue(tx, commandPoint(site.id, c, outcome, now)); err != nil {
+					o, err := s.queue(tx, site.id, ref, c, stopMessage(c), outcome, now)
+					if err != nil {
 						return err
 					}
-					sends = append(sends, outgoing{topic: topic, payload: payload, cmd: *c, stop: true})
+					o.stop = true
+					sends = append(sends, o)
 					changed = true
 				case controllers.Send:
 					if c.Attempts > 0 && now.Before(resumeAt) {
@@ -611,23 +604,16 @@ func (s *Service) tick(now time.Time) (time.Time, []outgoing, error) {
 					}
 					first := c.Attempts == 0
 					c.MarkSent(now)
-					payload, err := json.Marshal(commandMessage(c))
-					if err != nil {
-						return fmt.Errorf("encode command %s: %w", c.ID, err)
-					}
-					topic := ""
-					if ref != nil {
-						topic = ref.cmdTopic
-					}
 					outcome := "sent"
 					if !first {
 						outcome = "resent"
 					}
-					s.m.command(site.id, c.Zone, outcome)
-					if err := s.enqueue(tx, commandPoint(site.id, c, outcome, now)); err != nil {
+					o, err := s.queue(tx, site.id, ref, c, commandMessage(c), outcome, now)
+					if err != nil {
 						return err
 					}
-					sends = append(sends, outgoing{topic: topic, payload: payload, cmd: *c, first: first})
+					o.first = first
+					sends = append(sends, o)
 					changed = true
 				case controllers.Expire:
 					note := "no report before expiry"
@@ -684,6 +670,25 @@ func (s *Service) tick(now time.Time) (time.Time, []outgoing, error) {
 		next = now.Add(time.Second)
 	}
 	return next, sends, nil
+}
+
+// queue records one publish of c (its command or its stop, msg) in tx:
+// counted under outcome, stored as a valve_command point, and returned as
+// the message to publish once tx has committed.
+func (s *Service) queue(tx *bbolt.Tx, site string, ref *zoneRef, c *controllers.Command, msg any, outcome string, now time.Time) (outgoing, error) {
+	payload, err := json.Marshal(msg)
+	if err != nil {
+		return outgoing{}, fmt.Errorf("encode %s %s: %w", outcome, c.ID, err)
+	}
+	o := outgoing{payload: payload, cmd: *c}
+	if ref != nil {
+		o.topic = ref.cmdTopic
+	}
+	s.m.command(site, c.Zone, outcome)
+	if err := s.enqueue(tx, commandPoint(site, c, outcome, now)); err != nil {
+		return outgoing{}, err
+	}
+	return o, nil
 }
 
 // onReport handles a valve report: in one transaction the ledger entry
