@@ -262,10 +262,17 @@ func (m *Monitor) ObserveSample(site, station string, s hourly.Sample, now time.
 	for _, f := range info.readings.Observe(s, now) {
 		m.stepLocked(f)
 	}
-	if !m.next.IsZero() && !now.Before(m.next) {
-		m.silenceLocked(now)
+	// m.next is kept as a lower bound of the earliest silence deadline: a
+	// reading only moves its own sensor's deadline later, so the minimum is
+	// recomputed (over every sensor) only when it falls due, not per sample.
+	// A sensor seen for the first time may bring the bound forward.
+	if d := info.readings.SilenceDeadline(s.Quantity, now); !d.IsZero() && (m.next.IsZero() || d.Before(m.next)) {
+		m.next = d
+		m.wake()
 	}
-	m.recomputeNextLocked()
+	if !m.next.IsZero() && !now.Before(m.next) {
+		m.checkSilenceLocked(now)
+	}
 	if len(m.pending) > n {
 		m.wake()
 	}
@@ -349,14 +356,21 @@ func (m *Monitor) CheckSilence(now time.Time) {
 	m.mu.Lock()
 	defer m.mu.Unlock()
 	n := len(m.pending)
-	m.silenceLocked(now)
-	// A silent sensor stays due: look again one silence limit later.
-	m.recomputeNextLocked()
-	if !m.next.After(now) {
-		m.next = now.Add(time.Minute)
-	}
+	m.checkSilenceLocked(now)
 	if len(m.pending) > n {
 		m.wake()
+	}
+}
+
+// checkSilenceLocked runs the silence check at now and recomputes the next
+// deadline exactly.
+func (m *Monitor) checkSilenceLocked(now time.Time) {
+	m.silenceLocked(now)
+	m.recomputeNextLocked()
+	// A silent sensor stays due: look again a minute later rather than on
+	// every reading.
+	if !m.next.IsZero() && !m.next.After(now) {
+		m.next = now.Add(time.Minute)
 	}
 }
 

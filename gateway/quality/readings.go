@@ -193,6 +193,16 @@ func (c *ReadingChecks) Silence(now time.Time) []Finding {
 	return out
 }
 
+// SilenceDeadline returns when a quantity that reported at now falls
+// silent, or the zero time when its silence check is off.
+func (c *ReadingChecks) SilenceDeadline(q hourly.Quantity, now time.Time) time.Time {
+	lim := c.cfg.Limits(q).Silence
+	if lim <= 0 {
+		return time.Time{}
+	}
+	return now.Add(lim)
+}
+
 // NextSilence returns the earliest time at which a sensor quantity becomes
 // silent, or the zero time when none can.
 func (c *ReadingChecks) NextSilence() time.Time {
