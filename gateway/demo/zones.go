@@ -113,6 +113,8 @@ func zoneEvent(t *Table, e zones.Event) {
 		t.Event(e.Time, "valve command %s expired: %s (not credited)", c.ID, e.Text)
 	case zones.EventCancelled:
 		t.Event(e.Time, "valve command %s cancelled: %s", c.ID, e.Text)
+	case zones.EventStop:
+		t.Event(e.Time, "valve stop for %s sent (attempt %d): %s", c.ID, c.StopAttempts, e.Text)
 	case zones.EventReport:
 		if c.State == controllers.Failed {
 			t.Event(e.Time, "valve command %s failed: %s", c.ID, c.Note)
