@@ -402,11 +402,16 @@ func (c *Command) Cancel(now time.Time, note string) error {
 // chargedMinutes is what a command counts against its zone's daily cap:
 // everything that may have run counts in full (an expired command may have
 // run with its report lost), a failed or stopped one counts what it
-// reported (in full when it reported no minutes), a cancelled one nothing.
+// reported (in full when it reported no minutes), a cancelled one, or one
+// that expired without ever being sent, nothing.
 func (c *Command) chargedMinutes() int {
 	switch c.State {
 	case Cancelled:
 		return 0
+	case Expired:
+		if c.Attempts == 0 {
+			return 0
+		}
 	case Failed, Stopped:
 		if c.RunKnown {
 			return int(math.Ceil(c.MinutesRun - 1e-9))
