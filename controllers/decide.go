@@ -145,7 +145,8 @@ type candidate struct {
 // Sequencing: zones are served most depleted relative to their TAW first
 // (ties by zone id). Each cycle starts at the earliest minute at which its
 // source stays within its valve and flow limits for the whole cycle, counting
-// open commands already in the ledger. A cycle that does not fit in the
+// open commands already in the ledger and, until their latest possible end
+// (expiry plus minutes), sent commands that expired without a report. A cycle that does not fit in the
 // window, or in the day's cap, with at least MinMinutes is left for a later
 // decision. After a command expired without any report, or failed, the zone
 // is not watered again in the same window occurrence (alerted skip).
@@ -158,6 +159,20 @@ func Decide(now time.Time, zones []ZoneInput, sources []Source, ledger []Command
 		c := &ledger[i]
 		if (c.State == Expired && !c.Credited && c.Attempts > 0) || c.State == Failed {
 			troubled = append(troubled, c)
+		}
+		if c.State == Expired && !c.Credited && c.Attempts > 0 {
+			// It may have run with its reports lost (the valve may even
+			// still be open): it holds its source until its latest
+			// possible end, a start at expiry (or when it was reported
+			// started) plus its minutes.
+			start := c.Expiry
+			if c.StartedAt.After(start) {
+				start = c.StartedAt
+			}
+			if end := start.Add(time.Duration(c.Minutes) * time.Minute); end.After(now) {
+				bySource[c.Source] = append(bySource[c.Source], interval{c.Start, end, c.Flow})
+			}
+			continue
 		}
 		if !c.State.Open() {
 			continue

@@ -27,3 +27,28 @@ func TestDecideNeverSentExpiredNotCharged(t *testing.T) {
 	sent.Attempts = 1
 	assert.Equal(t, 240, sent.chargedMinutes())
 }
+
+// A command in the ledger that expired after being sent may still be
+// running (its reports were lost): another zone on the same one-valve
+// source must not start before that run's latest possible end, Expiry +
+// Minutes.
+func TestDecideExpiredMayStillOccupySource(t *testing.T) {
+	a, b := maizeZone(), maizeZone()
+	b.ID, b.Valve = "lowmead-south", "v2"
+	src := Source{ID: a.Source, MaxValves: 1}
+	now := at(1, 21, 30)
+	stB := withWeather(&State{Depletion: 80}, now)
+	lostA := Command{ID: "a-lost", Zone: a.ID, Source: a.Source, Flow: a.Flow(), Minutes: 120,
+		Start: at(1, 21, 1), Expiry: at(1, 21, 16), State: Expired, Attempts: 3}
+	p := Decide(now, []ZoneInput{{b, stB}}, []Source{src}, []Command{lostA}, Holds{})
+	require.NotEmpty(t, p.Commands)
+	// A may have started as late as 21:16 and run 120 minutes: 23:16.
+	assert.False(t, p.Commands[0].Start.Before(at(1, 23, 16)), "start %v overlaps the run that may still be open", p.Commands[0].Start)
+
+	// Once that latest end has passed, it no longer counts.
+	now = at(1, 23, 20)
+	stB = withWeather(&State{Depletion: 80}, now)
+	p = Decide(now, []ZoneInput{{b, stB}}, []Source{src}, []Command{lostA}, Holds{})
+	require.NotEmpty(t, p.Commands)
+	assert.Equal(t, at(1, 23, 21), p.Commands[0].Start)
+}
