@@ -148,16 +148,17 @@ type candidate struct {
 // open commands already in the ledger and, until their latest possible end
 // (expiry plus minutes), sent commands that expired without a report. A cycle that does not fit in the
 // window, or in the day's cap, with at least MinMinutes is left for a later
-// decision. After a command expired without any report, or failed, the zone
-// is not watered again in the same window occurrence (alerted skip).
+// decision. After a command expired without any report, failed, or was
+// stopped at the controller without a stop asked for, the zone is not
+// watered again in the same window occurrence (alerted skip).
 func Decide(now time.Time, zones []ZoneInput, sources []Source, ledger []Command, holds Holds) Plan {
 	var plan Plan
 	open := map[string]bool{}
-	var troubled []*Command // expired without report, or failed
+	var troubled []*Command // expired without report, failed, stopped at the controller
 	bySource := map[string][]interval{}
 	for i := range ledger {
 		c := &ledger[i]
-		if (c.State == Expired && !c.Credited && c.Attempts > 0) || c.State == Failed {
+		if (c.State == Expired && !c.Credited && c.Attempts > 0) || c.State == Failed || (c.State == Stopped && c.StopAt.IsZero()) {
 			troubled = append(troubled, c)
 		}
 		if c.State == Expired && !c.Credited && c.Attempts > 0 {
@@ -212,8 +213,10 @@ func Decide(now time.Time, zones []ZoneInput, sources []Source, ledger []Command
 		}
 		if c := troubleIn(troubled, z.ID, slot); c != nil {
 			// An expired command may have run with its report lost; a failed
-			// one will likely fail again: do not water again in this window
-			// occurrence, and say so.
+			// one will likely fail again; one the controller stopped without
+			// being asked was closed for a reason known only in the field (a
+			// flow alarm, a stop pressed on site): do not water again in this
+			// window occurrence, and say so.
 			skip(fmt.Sprintf("command %s %s in this window", c.ID, c.State), true)
 			continue
 		}

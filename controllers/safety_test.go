@@ -52,3 +52,26 @@ func TestDecideExpiredMayStillOccupySource(t *testing.T) {
 	require.NotEmpty(t, p.Commands)
 	assert.Equal(t, at(1, 23, 21), p.Commands[0].Start)
 }
+
+// A controller that closes the valve on its own (a stopped report without a
+// stop asked for: a flow alarm, someone pressing stop in the field) has a
+// reason the gateway does not know: the zone is not watered again in the
+// same window occurrence, like after a failure.
+func TestDecideAfterStopAtController(t *testing.T) {
+	z := maizeZone()
+	now := at(1, 22, 0)
+	st := withWeather(&State{Depletion: 80}, now)
+	stopped := Command{ID: "s", Zone: z.ID, Minutes: 60, Start: at(1, 21, 1), State: Stopped, Attempts: 1,
+		RunKnown: true, MinutesRun: 2, Credited: true}
+	p := Decide(now, []ZoneInput{{z, st}}, nil, []Command{stopped}, Holds{})
+	assert.Empty(t, p.Commands)
+	require.Len(t, p.Skips, 1)
+	assert.Contains(t, p.Skips[0].Reason, "stopped")
+	assert.True(t, p.Skips[0].Alert)
+
+	// Stopped because the gateway asked (a hold, since released): the next
+	// decision plans a new run, as documented.
+	stopped.StopAt = at(1, 21, 3)
+	p = Decide(now, []ZoneInput{{z, st}}, nil, []Command{stopped}, Holds{})
+	assert.Len(t, p.Commands, 1)
+}
