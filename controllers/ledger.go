@@ -198,7 +198,8 @@ func (c *Command) stoppedMinutes(now time.Time) float64 {
 // duplicate, or one older than the known state, changes nothing; water is
 // credited once, on the first finished, failed or stopped report, even when
 // it comes after the command expired (the water did run; the report is
-// late, not wrong). Reports for a cancelled command are refused.
+// late, not wrong). Reports for a command never sent (planned, cancelled, or
+// expired unsent) are refused.
 func (c *Command) Apply(r Report, now time.Time) (Outcome, error) {
 	if err := r.Validate(); err != nil {
 		return Outcome{}, err
@@ -211,6 +212,10 @@ func (c *Command) Apply(r Report, now time.Time) (Outcome, error) {
 		return Outcome{Duplicate: true}, nil
 	case Cancelled:
 		return Outcome{}, fmt.Errorf("report %s: command was cancelled before it was sent: %w", r.ID, ErrInput)
+	}
+	if c.Attempts == 0 {
+		// Planned, or expired unsent: no controller can know of this run.
+		return Outcome{}, fmt.Errorf("report %s: command was never sent: %w", r.ID, ErrInput)
 	}
 	rank := map[CommandState]int{Planned: 0, Sent: 1, Accepted: 2, Started: 3}
 	switch r.State {

@@ -75,3 +75,21 @@ func TestDecideAfterStopAtController(t *testing.T) {
 	p = Decide(now, []ZoneInput{{z, st}}, nil, []Command{stopped}, Holds{})
 	assert.Len(t, p.Commands, 1)
 }
+
+// A report can only be about a command that was sent: one for a command
+// still planned (never published) is refused and credits nothing.
+func TestReportForUnsentCommandRefused(t *testing.T) {
+	c := Command{ID: "x", Zone: "z", Minutes: 30, Rate: 6, Efficiency: 0.9, Area: 1000, State: Planned}
+	out, err := c.Apply(Report{ID: "x", State: ReportFinished, MinutesRun: 30, HasMinutes: true}, at(1, 21, 0))
+	require.ErrorIs(t, err, ErrInput)
+	assert.False(t, out.Credit)
+	assert.Equal(t, Planned, c.State)
+	_, err = c.Apply(Report{ID: "x", State: ReportStarted}, at(1, 21, 0))
+	require.ErrorIs(t, err, ErrInput)
+
+	// Likewise one that expired without ever being sent.
+	c.State = Expired
+	_, err = c.Apply(Report{ID: "x", State: ReportFinished}, at(1, 21, 0))
+	require.ErrorIs(t, err, ErrInput)
+	assert.False(t, c.Credited)
+}
