@@ -190,7 +190,7 @@ type Step struct {
 	EffRain    float64 // effective rain, mm
 	Irrigation float64 // net irrigation credited, mm
 	Depletion  float64 // Dr after the step, mm
-	Drainage   float64 // deep percolation DP, mm (FAO-56 eq. 88)
+	Drainage   float64 // deep percolation DP, mm (FAO-56 eq. 88); negative when a revision takes back drainage of its hour
 	Adjust     float64 // depletion dropped because TAW shrank below Dr (root depth fell), mm
 	TAW        float64 // FAO-56 eq. 82
 	RAW        float64 // FAO-56 eq. 83
@@ -263,7 +263,8 @@ func finite(v float64) bool { return !math.IsNaN(v) && !math.IsInf(v, 0) }
 // 81), Ks by eq. 84 from the depletion at the start of the hour, Dr kept
 // within [0, TAW] and water above field capacity counted as deep percolation
 // DP (eq. 88). A revision applies the difference against what was applied for
-// that hour before, with the Kc and Ks used then. It reports false (and no
+// that hour before, with the Kc and Ks used then; water it takes away is
+// taken first from the hour's drainage. It reports false (and no
 // error) for a revision not newer than the one applied, or an hour older than
 // the kept window.
 func (z *Zone) StepHour(st *State, in HourInput) (Step, bool, error) {
@@ -321,6 +322,15 @@ func (z *Zone) StepHour(st *State, in HourInput) (Step, bool, error) {
 		dETc, dEff, dRain, dET = etc-prev.ETc, eff-prev.EffRain, in.Rain-prev.Rain, e.ET-prev.ET
 	}
 	d := st.Depletion + dETc - dEff // FAO-56 eq. 85
+	if up := dETc - dEff; prev != nil && prev.Drainage > 0 && up > 0 {
+		// The hour drained: the soil was at field capacity at its end, so
+		// the water the revision takes away first comes out of what
+		// drained (a negative drainage step), and only the rest out of the
+		// soil (FAO-56 eq. 88).
+		u := math.Min(up, prev.Drainage)
+		s.Drainage = -u
+		d -= u
+	}
 	if d > lv.TAW {
 		// The crop cannot extract water that is not there.
 		dETc -= d - lv.TAW

@@ -93,3 +93,50 @@ func TestReportForUnsentCommandRefused(t *testing.T) {
 	require.ErrorIs(t, err, ErrInput)
 	assert.False(t, c.Credited)
 }
+
+// A revision that raises an hour's ET after that hour's rain drained below
+// the root zone takes the extra ET out of the drainage counted for the
+// hour, not out of the soil: the soil was at field capacity at the end of
+// that hour either way (FAO-56 eq. 85, 88).
+func TestRevisionAfterDrainage(t *testing.T) {
+	z := maizeZone()
+	z.Rain = EffectiveRain{Method: RainAll}
+	st := &State{Depletion: 5}
+	// Hour 0: 0.5 mm ET x Kc 1.2 = 0.6 mm, 20 mm rain: 5 + 0.6 - 20 < 0,
+	// drainage 14.4 mm, Dr 0.
+	s, ok, err := z.StepHour(st, validHour(0, 0.5, 20))
+	require.NoError(t, err)
+	require.True(t, ok)
+	assert.InDelta(t, 14.4, s.Drainage, 1e-9)
+	assert.Zero(t, st.Depletion)
+	// Hour 1: 0.5 mm ET -> Dr 0.6.
+	_, _, err = z.StepHour(st, validHour(1, 0.5, 0))
+	require.NoError(t, err)
+	assert.InDelta(t, 0.6, st.Depletion, 1e-9)
+
+	// Hour 0 revised: ET 0.8 (0.96 mm ETc, +0.36). Re-deriving by hand:
+	// 5 + 0.96 - 20 < 0, drainage 14.04, Dr 0 at the end of hour 0, then
+	// 0.6 in hour 1: Dr stays 0.6; the step returns -0.36 mm of drainage.
+	rev := validHour(0, 0.8, 20)
+	rev.Revision = 1
+	s, ok, err = z.StepHour(st, rev)
+	require.NoError(t, err)
+	require.True(t, ok)
+	assert.InDelta(t, 0.6, st.Depletion, 1e-9)
+	assert.InDelta(t, 0.36, s.ETc, 1e-9)
+	assert.InDelta(t, -0.36, s.Drainage, 1e-9)
+	assert.InDelta(t, 14.04, s.Hour.Drainage, 1e-9, "the hour's total drainage")
+
+	// A revision raising ET by more than the hour drained: the rest
+	// depletes the soil. Hour 2 drains 0.4 mm; revised +1.2 mm ETc.
+	st2 := &State{}
+	_, _, err = z.StepHour(st2, validHour(2, 0.5, 1.0)) // 0 + 0.6 - 1.0: DP 0.4
+	require.NoError(t, err)
+	rev = validHour(2, 1.5, 1.0) // ETc 1.8: 0 + 1.8 - 1.0 = 0.8, no DP
+	rev.Revision = 1
+	s, _, err = z.StepHour(st2, rev)
+	require.NoError(t, err)
+	assert.InDelta(t, 0.8, st2.Depletion, 1e-9)
+	assert.InDelta(t, -0.4, s.Drainage, 1e-9)
+	assert.InDelta(t, 0, s.Hour.Drainage, 1e-9)
+}
