@@ -419,3 +419,59 @@ func ceilMinute(t time.Time) time.Time {
 }
 
 func round2(v float64) float64 { return math.Round(v*100) / 100 }
+
+// SendCheck reports why the planned command c must not be sent under the
+// zone's current configuration, or "" when it may. Rate, efficiency, area,
+// flow, valve and source are copied into a command when it is planned; when
+// any of them differs from the zone's now (the configuration changed, e.g.
+// across a restart) the command is stale. Otherwise the zone's caps are
+// checked again as they stand now: minutes per cycle and per run (with the
+// earlier cycles of the same run) and per standard-time day, counting the
+// ledger except commands of the zone planned to start after c (they are
+// checked when they are due).
+func (z *Zone) SendCheck(c *Command, ledger []Command) string {
+	if c.Valve != z.Valve || c.Source != z.Source || c.Rate != z.System.Rate ||
+		c.Efficiency != z.System.Efficiency || c.Area != z.Area || c.Flow != z.Flow() {
+		return "zone configuration changed since the command was planned"
+	}
+	s := z.System
+	if c.Minutes > s.MaxMinutes || (s.CycleMinutes > 0 && c.Minutes > s.CycleMinutes) {
+		return fmt.Sprintf("%d minutes exceed the zone's caps (max_minutes %d, cycle_minutes %d)", c.Minutes, s.MaxMinutes, s.CycleMinutes)
+	}
+	day := dayKey(c.Start, z.Loc)
+	used := 0
+	for i := range ledger {
+		o := &ledger[i]
+		if o.Zone != z.ID || o.ID == c.ID || (o.State == Planned && !o.Start.Before(c.Start)) {
+			continue
+		}
+		if dayKey(o.Start, z.Loc) == day {
+			used += o.chargedMinutes()
+		}
+	}
+	if used+c.Minutes > s.MaxPerDay {
+		return fmt.Sprintf("%d minutes with %d already charged on %s exceed max_minutes_per_day %d", c.Minutes, used, day, s.MaxPerDay)
+	}
+	// The earlier cycles of the same run: for each, the latest command of
+	// the zone with that cycle number and cycle count before the next one.
+	event, next := c.Minutes, c
+	for k := c.Cycle - 1; k >= 1; k-- {
+		var prev *Command
+		for i := range ledger {
+			o := &ledger[i]
+			if o.Zone == z.ID && o.Cycles == c.Cycles && o.Cycle == k && o.Start.Before(next.Start) &&
+				(prev == nil || o.Start.After(prev.Start)) {
+				prev = o
+			}
+		}
+		if prev == nil {
+			break
+		}
+		event += prev.chargedMinutes()
+		next = prev
+	}
+	if event > s.MaxMinutes {
+		return fmt.Sprintf("run of %d minutes over its cycles exceeds max_minutes %d", event, s.MaxMinutes)
+	}
+	return ""
+}

@@ -140,3 +140,43 @@ func TestRevisionAfterDrainage(t *testing.T) {
 	assert.InDelta(t, -0.4, s.Drainage, 1e-9)
 	assert.InDelta(t, 0, s.Hour.Drainage, 1e-9)
 }
+
+// A planned command is checked again before its first send against the
+// zone as configured now (a restart may bring a changed configuration).
+func TestSendCheck(t *testing.T) {
+	z := maizeZone()
+	z.System.MaxMinutes, z.System.MaxPerDay, z.System.CycleMinutes, z.System.SoakMinutes = 240, 300, 120, 30
+	now := at(1, 21, 0)
+	st := withWeather(&State{Depletion: 80}, now)
+	p := Decide(now, []ZoneInput{{z, st}}, nil, nil, Holds{})
+	require.Len(t, p.Commands, 2) // 240 minutes in two 120-minute cycles
+	led := p.Commands
+	for i := range led {
+		assert.Empty(t, z.SendCheck(&led[i], led), "unchanged configuration")
+	}
+
+	lowered := *z
+	lowered.System.MaxMinutes, lowered.System.CycleMinutes = 200, 100
+	assert.Contains(t, lowered.SendCheck(&led[0], led), "exceed the zone's caps")
+
+	// Cycle 1 ran; a lowered per-run cap (cycles unchanged) stops cycle 2.
+	led[0].State, led[0].Attempts = Finished, 1
+	lowered = *z
+	lowered.System.MaxMinutes = 200
+	assert.Contains(t, lowered.SendCheck(&led[1], led), "run of 240 minutes")
+	// A lowered day cap likewise.
+	lowered = *z
+	lowered.System.MaxPerDay = 200
+	assert.Contains(t, lowered.SendCheck(&led[1], led), "max_minutes_per_day")
+
+	// A changed rate, valve or area makes the planned minutes meaningless.
+	for _, change := range []func(*Zone){
+		func(z *Zone) { z.System.Rate = 10 },
+		func(z *Zone) { z.Valve = "v9" },
+		func(z *Zone) { z.Area = 10000 },
+	} {
+		changed := *z
+		change(&changed)
+		assert.Contains(t, changed.SendCheck(&led[1], led), "configuration changed")
+	}
+}

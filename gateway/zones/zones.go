@@ -588,6 +588,14 @@ func (s *Service) tick(now time.Time) (time.Time, []outgoing, error) {
 						if ref != nil {
 							reason, _ = ref.z.Blocked(&recs[ref.id].State, holds, now)
 						}
+						if reason == "" && ref != nil {
+							// Planned under a configuration since changed (a
+							// restart) or over a cap lowered since: never
+							// sent; the zone is planned again at once.
+							if reason = ref.z.SendCheck(c, ledger); reason != "" {
+								soon(now.Add(time.Second))
+							}
+						}
 						if reason != "" {
 							if err := c.Cancel(now, reason); err != nil {
 								return err
