@@ -12,6 +12,21 @@ import (
 	"etpulse/gateway/mqtt"
 )
 
+var checkHelp = helpText{
+	name:  "check",
+	usage: "etpulse check --config FILE [--quiet]",
+	intro: `Validates a configuration file the way 'etpulse run' loads it (unknown
+keys, ranges, units, topics, zones, alerts) and prints a summary on stdout:
+broker, state file, the gateway's own topics, and per station its place,
+reference, timing settings and every sensor with its topic, payload format,
+quantity and unit. Every problem found is listed on stderr, each naming its
+field. What only the target machine has (the broker password and TLS files,
+the store token) is reported as a warning on stderr and does not change the
+exit status, so the check also runs before every start of the service.`,
+	outro: `Exit status: 0 valid (warnings allowed), 1 the summary could not be
+written, 2 bad command line or invalid configuration.`,
+}
+
 // runCheck validates a configuration file. It prints a summary and exits 0
 // when the file is valid, or prints every problem and exits 2. Things that
 // can only be checked on this machine (the broker password's source, TLS
@@ -19,24 +34,16 @@ import (
 // command also works as a systemd ExecStartPre on a machine without them.
 func runCheck(_ context.Context, args []string, _ io.Reader, stdout, stderr io.Writer) int {
 	fs := flag.NewFlagSet("check", flag.ContinueOnError)
-	fs.SetOutput(stderr)
 	path := fs.String("config", "", "configuration `file` (YAML) to validate")
-	quiet := fs.Bool("quiet", false, "print nothing when the configuration is valid")
-	fs.Usage = func() {
-		fmt.Fprintln(stderr, "usage: etpulse check --config FILE [--quiet]")
-		fmt.Fprintln(stderr)
-		fmt.Fprintln(stderr, "Validates the configuration and prints a summary; exits 2 listing every problem.")
-		fs.PrintDefaults()
+	quiet := fs.Bool("quiet", false, "print nothing when the configuration is valid (warnings still go to stderr)")
+	if code, done := parseFlags(fs, args, checkHelp, stdout, stderr); done {
+		return code
 	}
-	if err := fs.Parse(args); err != nil {
-		if errors.Is(err, flag.ErrHelp) {
-			return exitOK
-		}
-		return exitUsage
+	if fs.NArg() > 0 {
+		return usageError(stderr, checkHelp, "unexpected argument %q", fs.Arg(0))
 	}
-	if *path == "" || fs.NArg() > 0 {
-		fs.Usage()
-		return exitUsage
+	if *path == "" {
+		return usageError(stderr, checkHelp, "--config FILE is required")
 	}
 
 	cfg, err := config.Load(*path)

@@ -20,32 +20,42 @@ import (
 	"etpulse/gateway/state"
 )
 
+var runHelp = helpText{
+	name:  "run",
+	usage: "etpulse run --config FILE [--log-format text|json] [--log-level LEVEL]",
+	intro: `Runs the gateway: subscribes to the configured sensor topics, closes
+clock hours and publishes each hourly record on
+<topic_prefix>/<site>/<station>/hour, keeps the zone balances and sends
+valve commands, raises alerts, writes the store, and serves /metrics,
+/healthz and /readyz on http.listen (default 127.0.0.1:9470). Logs go to
+stderr.
+
+The first SIGINT or SIGTERM stops taking messages, finishes the batch in
+hand, publishes the hours it closed, flushes the store and exits 0; a second
+one forces exit. Start from deploy/etpulse.example.yaml.`,
+	outro: `Exit status: 0 stopped by a signal, 1 failure at run time (e.g. the state
+file is locked by another gateway), 2 bad command line or configuration.`,
+}
+
 // runDaemon is `etpulse run --config FILE`: the live gateway until the first
 // SIGINT/SIGTERM, then an ordered shutdown and exit 0.
 func runDaemon(ctx context.Context, args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 	fs := flag.NewFlagSet("run", flag.ContinueOnError)
-	fs.SetOutput(stderr)
-	cfgPath := fs.String("config", "", "configuration file (YAML)")
-	logFormat := fs.String("log-format", "text", "log format: text or json")
-	logLevel := fs.String("log-level", "info", "log level: debug, info, warn or error")
-	fs.Usage = func() {
-		fmt.Fprintln(stderr, "usage: etpulse run --config FILE [--log-format text|json] [--log-level LEVEL]")
-		fs.PrintDefaults()
+	cfgPath := fs.String("config", "", "configuration `file` (YAML); check it first with 'etpulse check'")
+	logFormat := fs.String("log-format", "text", "log `format` on stderr: text or json")
+	logLevel := fs.String("log-level", "info", "log `level`: debug, info, warn or error")
+	if code, done := parseFlags(fs, args, runHelp, stdout, stderr); done {
+		return code
 	}
-	if err := fs.Parse(args); err != nil {
-		if errors.Is(err, flag.ErrHelp) {
-			return exitOK
-		}
-		return exitUsage
+	if fs.NArg() > 0 {
+		return usageError(stderr, runHelp, "unexpected argument %q", fs.Arg(0))
 	}
-	if *cfgPath == "" || fs.NArg() > 0 {
-		fs.Usage()
-		return exitUsage
+	if *cfgPath == "" {
+		return usageError(stderr, runHelp, "--config FILE is required")
 	}
 	log, err := newLogger(stderr, *logFormat, *logLevel)
 	if err != nil {
-		fmt.Fprintf(stderr, "etpulse run: %v\n", err)
-		return exitUsage
+		return usageError(stderr, runHelp, "%v", err)
 	}
 	cfg, err := config.Load(*cfgPath)
 	if err != nil {

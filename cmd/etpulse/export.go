@@ -16,35 +16,38 @@ import (
 	"etpulse/gateway/store"
 )
 
+var exportHelp = helpText{
+	name:  "export",
+	usage: "etpulse export --from TIME --to TIME [--station STATION] [--measurement LIST] [--format csv|lp] (--state FILE | --config FILE)",
+	intro: `Prints the local history kept in a state file (hourly records, zone
+steps, valve commands and reports, alerts; raw summaries are not kept) on
+stdout, and the number of points on stderr. Times: RFC 3339, or UTC
+2006-01-02 / 2006-01-02T15:04; a point's time is the start of its period.
+The state file must not be open in a running gateway: stop it, or export
+from a copy. 'etpulse demo --state FILE' keeps a demo's state for this.`,
+	outro: `CSV: one row per point; columns time (UTC), measurement, then every tag,
+field and note key found (tags first), empty where a point has no such key.
+lp: the line protocol the store writer sends, nanosecond times.
+
+Exit status: 0 success, 1 the state file cannot be read (missing, locked,
+no local history), 2 bad command line or configuration.`,
+}
+
 // runExport prints the local history kept in the state file.
 func runExport(ctx context.Context, args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 	fs := flag.NewFlagSet("export", flag.ContinueOnError)
-	fs.SetOutput(stderr)
-	fs.Usage = func() {
-		fmt.Fprintln(stderr, "usage: etpulse export --from T --to T [--station S] [--measurement M,...] [--format csv|lp] (--state FILE | --config FILE)")
-		fmt.Fprintln(stderr)
-		fmt.Fprintln(stderr, "Prints the local history (hourly records, zone steps, commands, reports, alerts) kept")
-		fmt.Fprintln(stderr, "in the state file. Times: RFC 3339, or UTC 2006-01-02 / 2006-01-02T15:04. The state")
-		fmt.Fprintln(stderr, "file must not be open in a running gateway: stop it, or export from a copy.")
-		fmt.Fprintln(stderr)
-		fs.PrintDefaults()
-	}
-	from := fs.String("from", "", "first point time to print (inclusive)")
-	to := fs.String("to", "", "end of the period (exclusive)")
-	station := fs.String("station", "", "only points of this station")
-	meas := fs.String("measurement", "", "only these measurements, comma-separated ("+strings.Join(store.Measurements(), ", ")+")")
-	format := fs.String("format", "csv", "csv, or lp for InfluxDB line protocol (post it with precision=ns)")
-	statePath := fs.String("state", "", "state file")
-	configPath := fs.String("config", "", "configuration file (its state.path is used)")
-	if err := fs.Parse(args); err != nil {
-		if errors.Is(err, flag.ErrHelp) {
-			return exitOK
-		}
-		return exitUsage
+	from := fs.String("from", "", "first point `time` to print (inclusive)")
+	to := fs.String("to", "", "end `time` of the period (exclusive)")
+	station := fs.String("station", "", "only points of this `station` id")
+	meas := fs.String("measurement", "", "only the measurements in this comma-separated `list`: "+strings.Join(store.Measurements(), ", "))
+	format := fs.String("format", "csv", "output `format`: csv, or lp for InfluxDB line protocol (post it with precision=ns)")
+	statePath := fs.String("state", "", "state `file` to read")
+	configPath := fs.String("config", "", "configuration `file`: read its state.path")
+	if code, done := parseFlags(fs, args, exportHelp, stdout, stderr); done {
+		return code
 	}
 	usageErr := func(format string, a ...any) int {
-		fmt.Fprintf(stderr, "etpulse export: "+format+"\n", a...)
-		return exitUsage
+		return usageError(stderr, exportHelp, format, a...)
 	}
 	if fs.NArg() > 0 {
 		return usageErr("unexpected argument %q", fs.Arg(0))

@@ -3,7 +3,6 @@ package main
 import (
 	"context"
 	"encoding/json"
-	"errors"
 	"flag"
 	"fmt"
 	"io"
@@ -11,44 +10,52 @@ import (
 	"etpulse/gateway/loadgen"
 )
 
+var loadHelp = helpText{
+	name:  "load",
+	usage: "etpulse load [--broker tcp://127.0.0.1:PORT] [--stations N] [--messages N] [--duration D] [--rate R] [--json]",
+	intro: `Measures the gateway's throughput: runs the real gateway in process
+(pipeline, state file in a temporary directory, outbox and local history,
+alerts) against an MQTT broker on this machine, fed by simulated stations
+that publish at QoS 1 a reading of each sensor every --interval of simulated
+time, so hours close during the run. Publishers keep at most --window
+messages unacknowledged, or send at --rate. The run stops after --messages
+or --duration, waits for the gateway to catch up, and prints a summary on
+stdout (progress lines on stderr): throughput, acknowledgement and record
+latency, hours and records, CPU and memory, and a consistency verdict.`,
+	outro: `For mosquitto, set set_tcp_nodelay true and max_queued_messages 0.
+
+Exit status: 0 consistent (also when interrupted: the summary covers what
+was done), 1 inconsistent result or failure, 2 bad command line.`,
+}
+
 // runLoad is `etpulse load`: the live gateway in process against a broker on
 // this machine, fed simulated readings until --messages or --duration, then
 // a summary of throughput, latency, hours and memory.
 func runLoad(ctx context.Context, args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 	fs := flag.NewFlagSet("load", flag.ContinueOnError)
-	fs.SetOutput(stderr)
 	var o loadgen.Options
-	fs.StringVar(&o.BrokerURL, "broker", "", "broker on this machine, tcp://127.0.0.1:PORT; empty starts an embedded broker")
-	fs.IntVar(&o.Stations, "stations", loadgen.DefaultStations, "simulated stations (payload formats mixed)")
-	fs.IntVar(&o.Messages, "messages", loadgen.DefaultMessages, "messages to publish at most")
-	fs.DurationVar(&o.Duration, "duration", loadgen.DefaultDuration, "publishing time at most (at most 10m)")
-	fs.Float64Var(&o.Rate, "rate", 0, "total messages per second; 0 publishes as fast as the gateway takes them")
-	fs.DurationVar(&o.Interval, "interval", loadgen.DefaultInterval, "simulated time between two readings of a sensor (1s-5m)")
-	fs.IntVar(&o.Publishers, "publishers", loadgen.DefaultPublishers, "publishing connections")
-	fs.IntVar(&o.Window, "window", loadgen.DefaultWindow, "messages published and not yet acknowledged by the gateway, at most")
-	fs.IntVar(&o.Bad, "bad", 0, "malformed messages to inject (the gateway must reject exactly these)")
-	fs.StringVar(&o.Dir, "dir", "", "directory for the run's temporary state file (default: the system's temporary directory)")
-	fs.DurationVar(&o.Every, "every", loadgen.DefaultEvery, "progress line interval on stderr; 0 for none")
+	fs.StringVar(&o.BrokerURL, "broker", "", "`URL` of a broker on this machine, tcp://127.0.0.1:PORT (a host that is not a loopback address is refused); empty starts an embedded broker")
+	fs.IntVar(&o.Stations, "stations", loadgen.DefaultStations, "simulate `N` stations (payload formats mixed)")
+	fs.IntVar(&o.Messages, "messages", loadgen.DefaultMessages, "publish at most `N` messages (rounded down to whole rounds of readings of every sensor)")
+	fs.DurationVar(&o.Duration, "duration", loadgen.DefaultDuration, "publish for at most `D` (at most 10m)")
+	fs.Float64Var(&o.Rate, "rate", 0, "publish `R` messages per second in total; 0 (the default) as fast as the gateway takes them")
+	fs.DurationVar(&o.Interval, "interval", loadgen.DefaultInterval, "simulated time `D` between two readings of a sensor (1s-5m)")
+	fs.IntVar(&o.Publishers, "publishers", loadgen.DefaultPublishers, "publish over `N` connections")
+	fs.IntVar(&o.Window, "window", loadgen.DefaultWindow, "at most `N` messages published and not yet acknowledged by the gateway")
+	fs.IntVar(&o.Bad, "bad", 0, "inject `N` malformed messages (the gateway must reject exactly these)")
+	fs.StringVar(&o.Dir, "dir", "", "put the run's temporary state file in `DIR` (default: the system's temporary directory)")
+	fs.DurationVar(&o.Every, "every", loadgen.DefaultEvery, "a progress line on stderr every `D`; 0 for none")
 	asJSON := fs.Bool("json", false, "print the summary as JSON")
-	logLevel := fs.String("log-level", "error", "gateway log level on stderr: debug, info, warn or error")
-	fs.Usage = func() {
-		fmt.Fprintln(stderr, "usage: etpulse load [--broker tcp://127.0.0.1:PORT] [--stations N] [--messages N] [--duration D] [--rate R] [--json]")
-		fs.PrintDefaults()
-	}
-	if err := fs.Parse(args); err != nil {
-		if errors.Is(err, flag.ErrHelp) {
-			return exitOK
-		}
-		return exitUsage
+	logLevel := fs.String("log-level", "error", "gateway log `level` on stderr: debug, info, warn or error")
+	if code, done := parseFlags(fs, args, loadHelp, stdout, stderr); done {
+		return code
 	}
 	if fs.NArg() > 0 {
-		fs.Usage()
-		return exitUsage
+		return usageError(stderr, loadHelp, "unexpected argument %q", fs.Arg(0))
 	}
 	log, err := newLogger(stderr, "text", *logLevel)
 	if err != nil {
-		fmt.Fprintf(stderr, "etpulse load: %v\n", err)
-		return exitUsage
+		return usageError(stderr, loadHelp, "%v", err)
 	}
 	o.Logger = log
 	o.Progress = stderr
@@ -56,8 +63,7 @@ func runLoad(ctx context.Context, args []string, stdin io.Reader, stdout, stderr
 		o.Progress = nil
 	}
 	if err := o.Validate(); err != nil {
-		fmt.Fprintf(stderr, "etpulse load: %v\n", err)
-		return exitUsage
+		return usageError(stderr, loadHelp, "%v", err)
 	}
 	sum, err := loadgen.Run(ctx, o)
 	if err != nil {

@@ -2,7 +2,6 @@ package main
 
 import (
 	"context"
-	"errors"
 	"flag"
 	"fmt"
 	"io"
@@ -16,29 +15,49 @@ import (
 	"etpulse/gateway/zones"
 )
 
+var replayHelp = helpText{
+	name:  "replay",
+	usage: "etpulse replay --config FILE --in readings.csv [--state FILE] [--zones FILE] [--summary] > records.csv",
+	intro: `Runs recorded readings through the same pipeline as 'etpulse run', offline
+(no broker), and writes one CSV row per hourly record on stdout, revisions
+as extra rows. The configuration's zones are run too, with every valve
+reporting a normal run, as a backtest. A bad input row is reported on
+stderr with its line number and skipped; a progress bar goes to stderr when
+it is a terminal.`,
+	outro: `Readings CSV: a header row naming the columns, in any order:
+  time      RFC 3339 timestamp of the reading
+  station   station id (site/station when ids repeat across sites)
+  quantity  air_temp, rel_humidity, dew_point, vapour_pressure, wind, solar,
+            rain (an increment), net_rad, soil_heat
+  value     decimal number
+  unit      a unit of the quantity, as in the configuration (degC, %, kPa,
+            m/s, W/m2, mm, ...)
+
+Output columns: site, station, reference, start_utc, end_utc, local_start,
+revision, complete, air_temp_c, ea_kpa, wind2_m_s, solar_mj_m2, rain_mm,
+ra_mj_m2, rso_mj_m2, rn_mj_m2, g_mj_m2, fcd, fcd_source, et_mm, flags, fill.
+
+Exit status: 0 success (bad rows skipped), 1 the run failed, 2 bad command
+line, unreadable configuration or input file.`,
+}
+
 // runReplay is `etpulse replay --config FILE --in readings.csv`: recorded
 // readings through the pipeline offline, hourly records as CSV on stdout.
 func runReplay(ctx context.Context, args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 	fs := flag.NewFlagSet("replay", flag.ContinueOnError)
-	fs.SetOutput(stderr)
-	cfgPath := fs.String("config", "", "configuration file (YAML)")
-	inPath := fs.String("in", "", "readings CSV (time,station,quantity,value,unit); - for stdin")
-	statePath := fs.String("state", "", "state file to keep (default: a temporary file, removed afterwards)")
-	zonesPath := fs.String("zones", "", "write the zone backtest (per zone and day: ETc, rain, runs, credited, drainage, depletion) to FILE")
-	summary := fs.Bool("summary", false, "print the season totals per zone to stderr")
-	fs.Usage = func() {
-		fmt.Fprintln(stderr, "usage: etpulse replay --config FILE --in readings.csv [--state FILE] [--zones FILE] [--summary] > records.csv")
-		fs.PrintDefaults()
+	cfgPath := fs.String("config", "", "configuration `file` (YAML): stations, sensors' units and zones")
+	inPath := fs.String("in", "", "readings CSV `file` (time,station,quantity,value,unit); - for stdin")
+	statePath := fs.String("state", "", "keep the pipeline's state file at `FILE` (hour bins, carries, zone balances; no local history to export); default: a temporary file, removed afterwards")
+	zonesPath := fs.String("zones", "", "write the zone backtest to `FILE`: one row per zone and day (ETc, rain, runs, credited, drainage, depletion)")
+	summary := fs.Bool("summary", false, "print the season totals per zone on stderr")
+	if code, done := parseFlags(fs, args, replayHelp, stdout, stderr); done {
+		return code
 	}
-	if err := fs.Parse(args); err != nil {
-		if errors.Is(err, flag.ErrHelp) {
-			return exitOK
-		}
-		return exitUsage
+	if fs.NArg() > 0 {
+		return usageError(stderr, replayHelp, "unexpected argument %q", fs.Arg(0))
 	}
-	if *cfgPath == "" || *inPath == "" || fs.NArg() > 0 {
-		fs.Usage()
-		return exitUsage
+	if *cfgPath == "" || *inPath == "" {
+		return usageError(stderr, replayHelp, "--config FILE and --in FILE are required")
 	}
 	cfg, err := config.Load(*cfgPath)
 	if err != nil {

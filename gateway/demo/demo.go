@@ -2,8 +2,10 @@ package demo
 
 import (
 	"context"
+	"errors"
 	"fmt"
 	"io"
+	"io/fs"
 	"log/slog"
 	"os"
 	"path/filepath"
@@ -32,6 +34,10 @@ type RunOptions struct {
 	Speed  float64
 	Out    io.Writer    // the table
 	Logger *slog.Logger // gateway logs; nil discards
+	// StatePath keeps the run's state file (with its local history) at this
+	// path, which must not exist yet; empty puts it in a temporary directory
+	// removed when Run returns.
+	StatePath string
 
 	// Hooks for other parts of the product to join the demo.
 	Faults     map[string]Fault     // sensor faults, keyed "<station>/<sensor>"
@@ -58,11 +64,17 @@ type Summary struct {
 	ZoneSteps                       int // zone balance steps in the local history
 	Rejected                        map[string]float64
 	Wall                            time.Duration
+
+	// StatePath is the kept state file (RunOptions.StatePath), empty when
+	// the state was temporary. From and To bound the simulated days as UTC
+	// dates (To exclusive): the period to export from it.
+	StatePath string
+	From, To  time.Time
 }
 
 // Run starts an embedded broker on loopback, the gateway with its state in a
-// temporary directory, and the simulated farm; it prints closed hours as they
-// come and returns after opt.Days simulated days.
+// temporary directory (or at opt.StatePath), and the simulated farm; it
+// prints closed hours as they come and returns after opt.Days simulated days.
 func Run(ctx context.Context, opt RunOptions) (sum Summary, err error) {
 	began := time.Now()
 	if opt.Days <= 0 {
@@ -74,11 +86,22 @@ func Run(ctx context.Context, opt RunOptions) (sum Summary, err error) {
 	if opt.Logger == nil {
 		opt.Logger = slog.New(slog.DiscardHandler)
 	}
-	dir, err := os.MkdirTemp("", "etpulse-demo-")
-	if err != nil {
-		return sum, fmt.Errorf("demo: %w", err)
+	statePath := opt.StatePath
+	if statePath == "" {
+		dir, err := os.MkdirTemp("", "etpulse-demo-")
+		if err != nil {
+			return sum, fmt.Errorf("demo: %w", err)
+		}
+		defer os.RemoveAll(dir)
+		statePath = filepath.Join(dir, "state.db")
+	} else {
+		if _, err := os.Stat(statePath); err == nil {
+			return sum, fmt.Errorf("demo: state file %s already exists: give a new path (the demo starts from an empty state)", statePath)
+		} else if !errors.Is(err, fs.ErrNotExist) {
+			return sum, fmt.Errorf("demo: state file: %w", err)
+		}
+		sum.StatePath = statePath
 	}
-	defer os.RemoveAll(dir)
 
 	broker, url, err := StartBroker(true)
 	if err != nil {
@@ -87,7 +110,6 @@ func Run(ctx context.Context, opt RunOptions) (sum Summary, err error) {
 	defer broker.Close()
 
 	sim := New(Options{Seed: opt.Seed, Faults: opt.Faults})
-	statePath := filepath.Join(dir, "state.db")
 	cfg, err := sim.Config(ConfigOptions{BrokerURL: url, ClientID: "etpulse-demo", StatePath: statePath})
 	if err != nil {
 		return sum, err
@@ -208,6 +230,8 @@ func Run(ctx context.Context, opt RunOptions) (sum Summary, err error) {
 	if err := countHistory(db, &sum); err != nil {
 		return sum, fmt.Errorf("demo: %w", err)
 	}
+	sum.From = sim.Start().UTC().Truncate(24 * time.Hour)
+	sum.To = end.UTC().Truncate(24 * time.Hour).Add(24 * time.Hour)
 	sum.Wall = time.Since(began)
 	table.Footer(sum)
 	return sum, nil
@@ -472,7 +496,12 @@ func (t *Table) Footer(sum Summary) {
 	sort.Strings(reasons)
 	fmt.Fprintf(t.w, "messages %d (duplicates %d, late %d, malformed %d); rejected: %s; hourly records %d (revisions %d); wall time %s\n",
 		sum.Messages, sum.Duplicates, sum.Late, sum.Bad, strings.Join(reasons, ", "), sum.Records, sum.Revisions, sum.Wall.Round(10*time.Millisecond))
-	fmt.Fprintf(t.w, "history: %d hourly records and %d zone steps in the local history (etpulse export prints them)\n", sum.History, sum.ZoneSteps)
+	if sum.StatePath == "" {
+		fmt.Fprintf(t.w, "history: %d hourly records and %d zone steps in the local history of a temporary state file, removed when the demo ends (keep it with --state FILE)\n", sum.History, sum.ZoneSteps)
+		return
+	}
+	fmt.Fprintf(t.w, "history: %d hourly records and %d zone steps kept in %s; print them with\n  etpulse export --state %s --from %s --to %s\n",
+		sum.History, sum.ZoneSteps, sum.StatePath, sum.StatePath, sum.From.Format(time.DateOnly), sum.To.Format(time.DateOnly))
 }
 
 // localTime formats t in the farm's standard time.
