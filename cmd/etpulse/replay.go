@@ -6,11 +6,14 @@ import (
 	"fmt"
 	"io"
 	"os"
+	"sort"
+	"strings"
 
 	"github.com/schollz/progressbar/v3"
 	"golang.org/x/term"
 
 	"etpulse/gateway/config"
+	"etpulse/gateway/ingest"
 	"etpulse/gateway/replay"
 	"etpulse/gateway/zones"
 )
@@ -97,8 +100,8 @@ func runReplay(ctx context.Context, args []string, stdin io.Reader, stdout, stde
 		fmt.Fprintf(stderr, "etpulse replay: %v\n", err)
 		return exitError
 	}
-	fmt.Fprintf(stderr, "etpulse replay: %d rows (%d bad, %d duplicate), %d readings stored, %d hourly records (%d complete first records, %d revisions)\n",
-		sum.Rows, sum.BadRows, sum.Duplicates, sum.Accepted, sum.Records, sum.Complete, sum.Revisions)
+	fmt.Fprintf(stderr, "etpulse replay: %d rows (%d bad, %d duplicate), %d readings stored, %d hourly records (%d complete first records, %d revisions)%s\n",
+		sum.Rows, sum.BadRows, sum.Duplicates, sum.Accepted, sum.Records, sum.Complete, sum.Revisions, rejectedText(sum.Rejected))
 	if bt != nil {
 		if err := bt.Report(*zonesPath, *summary, stderr); err != nil {
 			fmt.Fprintf(stderr, "etpulse replay: %v\n", err)
@@ -106,4 +109,20 @@ func runReplay(ctx context.Context, args []string, stdin io.Reader, stdout, stde
 		}
 	}
 	return exitOK
+}
+
+// rejectedText is "; N readings rejected (reason n, ...)" for the readings
+// the pipeline refused, or "" when there were none.
+func rejectedText(rejected map[ingest.Reason]int) string {
+	total := 0
+	reasons := make([]string, 0, len(rejected))
+	for r, n := range rejected {
+		total += n
+		reasons = append(reasons, fmt.Sprintf("%s %d", r, n))
+	}
+	if total == 0 {
+		return ""
+	}
+	sort.Strings(reasons)
+	return fmt.Sprintf("; %d readings rejected (%s)", total, strings.Join(reasons, ", "))
 }
