@@ -50,7 +50,7 @@ func runReplay(ctx context.Context, args []string, stdin io.Reader, stdout, stde
 	fs := flag.NewFlagSet("replay", flag.ContinueOnError)
 	cfgPath := fs.String("config", "", "configuration `file` (YAML): stations, sensors' units and zones")
 	inPath := fs.String("in", "", "readings CSV `file` (time,station,quantity,value,unit); - for stdin")
-	statePath := fs.String("state", "", "keep the pipeline's state file at `FILE` (hour bins, carries, zone balances; no local history to export); default: a temporary file, removed afterwards")
+	statePath := fs.String("state", "", "keep the pipeline's state file at `FILE` (hour bins and carries; the zone backtest and a local history are not in it); default: a temporary file, removed afterwards")
 	zonesPath := fs.String("zones", "", "write the zone backtest to `FILE`: one row per zone and day (ETc, rain, runs, credited, drainage, depletion)")
 	summary := fs.Bool("summary", false, "print the season totals per zone on stderr")
 	if code, done := parseFlags(fs, args, replayHelp, stdout, stderr); done {
