@@ -67,14 +67,15 @@ func (p *Pipeline) tickStation(st *station, now time.Time) ([]hourly.Record, err
 
 // closeDue closes, in order, every open hour of the station that the
 // watermark has passed by the close grace or, when now is not zero, that the
-// wall clock has passed by the silence timeout.
+// wall clock has passed by the silence timeout after both the hour's end and
+// the station's latest arrival.
 func (p *Pipeline) closeDue(st *station, watermark, now time.Time) ([]hourly.Record, error) {
 	var out []hourly.Record
-	grace, silence := st.cfg.CloseGrace.D(), st.cfg.SilenceClose.D()
+	grace := st.cfg.CloseGrace.D()
 	for st.hasCursor {
 		end := st.cursor.Add(time.Hour)
 		byData := !watermark.Before(end.Add(grace))
-		bySilence := !now.IsZero() && !now.Before(end.Add(silence))
+		bySilence := !now.IsZero() && !now.Before(st.silenceDeadline(end))
 		if !byData && !bySilence {
 			break
 		}

@@ -81,6 +81,22 @@ type station struct {
 	cursor    time.Time // start of the earliest hour not yet closed
 	watermark time.Time // latest reading time accepted
 	dirty     bool      // a closed hour may need a revision
+	// arrival is the pipeline clock when the station's latest reading was
+	// accepted (memory only). A station is quiet, and its hour may close by
+	// the wall clock, only when nothing has arrived for SilenceClose: a
+	// logger uploading a backlog closes its hours by their own clock.
+	arrival time.Time
+}
+
+// silenceDeadline is when the wall clock may close the station's hour that
+// ends at end: SilenceClose after the end, and after the latest arrival.
+func (st *station) silenceDeadline(end time.Time) time.Time {
+	silence := st.cfg.SilenceClose.D()
+	d := end.Add(silence)
+	if a := st.arrival.Add(silence); a.After(d) {
+		d = a
+	}
+	return d
 }
 
 // New builds a pipeline for every station of cfg and loads their state.
@@ -333,6 +349,11 @@ func (p *Pipeline) ingestTx(now time.Time, readings []ingest.Reading, noStop map
 	for st, mu := range updates {
 		st.cursor, st.hasCursor, st.watermark = mu.cursor, mu.hasCursor, mu.watermark
 		st.dirty = st.dirty || mu.dirty
+	}
+	for _, a := range acc {
+		if now.After(a.st.arrival) {
+			a.st.arrival = now
+		}
 	}
 	for _, r := range rejs {
 		p.m.rejected.WithLabelValues(stationLabel(r.Station), string(r.Reason)).Inc()

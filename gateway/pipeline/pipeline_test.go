@@ -289,6 +289,48 @@ func TestSilenceClosesQuietStation(t *testing.T) {
 	assert.Equal(t, 3.0, testutil.ToFloat64(p.m.closed.WithLabelValues("bench", "false")))
 }
 
+// A logger that uploads a backlog long after the fact is not a quiet
+// station: while its readings keep arriving, its hours close by their own
+// clock, complete and once, not by the wall clock at the first reading and
+// then revised with every later message.
+func TestBacklogUploadClosesByReadingClock(t *testing.T) {
+	db := openDB(t, filepath.Join(t.TempDir(), "s.db"))
+	p, _ := newTestPipeline(t, db, Options{})
+	upload := h10.Add(5 * time.Hour) // far past silence_close of every hour uploaded
+	var recs []hourly.Record
+	for i, r := range benchReadings(h10, h10.Add(3*time.Hour), 5*time.Minute) {
+		now := upload.Add(time.Duration(i) * 100 * time.Millisecond) // one message at a time
+		res, err := p.Ingest(now, []ingest.Reading{r})
+		require.NoError(t, err)
+		recs = append(recs, res.Records...)
+		out, err := p.Tick(now)
+		require.NoError(t, err)
+		recs = append(recs, out...)
+	}
+	require.Len(t, recs, 2, "10:00 and 11:00 close by the readings' clock; 12:00 waits")
+	for i, rec := range recs {
+		assert.Equal(t, h10.Add(time.Duration(i)*time.Hour), rec.Start)
+		assert.Zero(t, rec.Revision)
+		assert.True(t, rec.Complete, rec.Flags)
+		assert.NotContains(t, rec.Flags, FlagSilenceClose)
+	}
+	// Once the upload stops, the last uploaded hour closes by silence_close
+	// after the last arrival (complete), then the empty hours up to the wall
+	// clock follow, as for any quiet station.
+	last := upload.Add(time.Duration(3*12*4-1) * 100 * time.Millisecond)
+	assert.Equal(t, last.Add(15*time.Minute), p.NextDeadline())
+	out, err := p.Tick(last.Add(15*time.Minute - time.Second))
+	require.NoError(t, err)
+	assert.Empty(t, out)
+	out, err = p.Tick(last.Add(15 * time.Minute))
+	require.NoError(t, err)
+	require.Len(t, out, 3, "12:00 with data, 13:00 and 14:00 empty")
+	assert.Equal(t, h10.Add(2*time.Hour), out[0].Start)
+	assert.True(t, out[0].Complete)
+	assert.Contains(t, out[0].Flags, FlagSilenceClose)
+	assert.False(t, out[2].Complete)
+}
+
 func TestLateReadingRevisesHour(t *testing.T) {
 	db := openDB(t, filepath.Join(t.TempDir(), "s.db"))
 	rec := &recorder{}

@@ -150,7 +150,7 @@ func (p *Pipeline) NextDeadline() time.Time {
 		if !st.hasCursor {
 			continue
 		}
-		d := st.cursor.Add(time.Hour + st.cfg.SilenceClose.D())
+		d := st.silenceDeadline(st.cursor.Add(time.Hour))
 		if next.IsZero() || d.Before(next) {
 			next = d
 		}
