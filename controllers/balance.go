@@ -133,6 +133,10 @@ type HourInput struct {
 	AirTemp    float64 // °C (when HasTemp)
 	HasWind    bool
 	HasTemp    bool
+	// Fill names the gap-filling method behind ET (e.g. a Hargreaves-Samani
+	// radiation estimate for an excluded pyranometer); empty when the ET
+	// came from the hour's own measurements.
+	Fill string
 }
 
 // InputFromRecord converts a station-hour record. Wind and temperature for
@@ -157,6 +161,7 @@ func InputFromRecord(rec hourly.Record) HourInput {
 		in.Valid = true
 		in.ET = rec.Result.ET
 		in.Wind2 = rec.Inputs.Wind2
+		in.Fill = rec.Fill
 	}
 	return in
 }
@@ -197,6 +202,9 @@ type Step struct {
 
 	Missing  bool // the station produced no ET for the hour; none was applied
 	Fallback bool // fallback ET was used for the hour
+	// Fill is the gap-filling method behind the hour's ET (HourInput.Fill),
+	// empty when none: the step is driven by an estimate, and says so.
+	Fill string
 
 	// Hour holds the hour's totals after this step (for a first emission
 	// the same values as the step); a store that overwrites the hour's
@@ -363,6 +371,9 @@ func (z *Zone) StepHour(st *State, in HourInput) (Step, bool, error) {
 	s.Depletion = d
 	s.Fallback = e.Fallback
 	s.Missing = !in.Valid && !e.Fallback
+	if in.Valid {
+		s.Fill = in.Fill
+	}
 	s.Hour = e
 	return s, true, nil
 }

@@ -204,4 +204,25 @@ func TestInputFromRecord(t *testing.T) {
 	// No temperature samples: unknown, not 0 °C.
 	delete(rec.Stats, hourly.AirTemp)
 	assert.False(t, InputFromRecord(rec).HasTemp)
+	// An hour whose ET rests on a filled input carries the method along.
+	rec.Fill = "hargreaves-samani-rs"
+	assert.Equal(t, "hargreaves-samani-rs", InputFromRecord(rec).Fill)
+}
+
+// A step driven by an estimated hour says so; the estimate still counts as
+// valid ET (it is a named, alerted method, not a silent fill).
+func TestStepMarksFilledHour(t *testing.T) {
+	z := maizeZone()
+	st := &State{Depletion: 60}
+	in := validHour(0, 0.5, 0)
+	in.Fill = "hargreaves-samani-rs"
+	s, ok, err := z.StepHour(st, in)
+	require.NoError(t, err)
+	require.True(t, ok)
+	assert.Equal(t, "hargreaves-samani-rs", s.Fill)
+	assert.False(t, s.Missing)
+	assert.InDelta(t, 0.6, s.ETc, 1e-12) // 1.2 x 0.5, as for a measured hour
+
+	s, _, _ = z.StepHour(st, validHour(1, 0.5, 0))
+	assert.Empty(t, s.Fill)
 }

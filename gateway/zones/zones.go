@@ -295,8 +295,12 @@ func stepPoint(site string, st controllers.Step) store.Point {
 		"irrigation_mm": st.Irrigation, "depletion_mm": st.Depletion,
 		"taw_mm": st.TAW, "raw_mm": st.RAW, "adjust_mm": st.Adjust,
 		"revision": int64(st.Revision), "fallback": st.Fallback, "missing": st.Missing,
+		"estimated": st.Fill != "",
 	}
 	notes := map[string]string{"kind": string(st.Kind)}
+	if st.Fill != "" {
+		notes["fill"] = st.Fill
+	}
 	if st.Kind == controllers.StepHour {
 		f["et_mm"], f["etc_mm"], f["rain_mm"], f["eff_rain_mm"], f["drainage_mm"] = st.Hour.ET, st.Hour.ETc, st.Hour.Rain, st.Hour.EffRain, st.Hour.Drainage
 	} else {
