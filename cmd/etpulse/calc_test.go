@@ -15,6 +15,7 @@ import (
 	"github.com/stretchr/testify/require"
 
 	"etpulse/gateway/hourcsv"
+	"etpulse/gateway/loadgen"
 )
 
 var update = flag.Bool("update", false, "rewrite the golden files of the calc tests")
@@ -395,7 +396,7 @@ func BenchmarkCalc(b *testing.B) {
 	out.Grow(8 << 20)
 	b.SetBytes(int64(len(data)))
 	b.ReportAllocs()
-	cpu0 := processCPU()
+	cpu0 := loadgen.ProcessCPU()
 	for b.Loop() {
 		out.Reset()
 		errOut.Reset()
@@ -403,7 +404,7 @@ func BenchmarkCalc(b *testing.B) {
 			b.Fatalf("exit %d: %s", code, errOut.String())
 		}
 	}
-	cpu := processCPU() - cpu0
+	cpu := loadgen.ProcessCPU() - cpu0
 	if n := bytes.Count(out.Bytes(), []byte{'\n'}) - 1; n != rows {
 		b.Fatalf("wrote %d rows, want %d", n, rows)
 	}

@@ -4,5 +4,5 @@ package loadgen
 
 import "time"
 
-// processCPU is not measured on this platform.
-func processCPU() time.Duration { return 0 }
+// ProcessCPU is not measured on this platform: it returns 0.
+func ProcessCPU() time.Duration { return 0 }

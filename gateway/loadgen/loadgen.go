@@ -258,7 +258,7 @@ func Run(ctx context.Context, o Options) (sum Summary, err error) {
 	go func() { <-pubCtx.Done(); tr.stop() }()
 
 	prog := startProgress(o.Progress, o.Every, tr, g, mem)
-	cpu0 := processCPU()
+	cpu0 := ProcessCPU()
 	began := tr.since()
 	errs := make(chan error, len(pubs))
 	for _, p := range pubs {
@@ -293,7 +293,7 @@ func Run(ctx context.Context, o Options) (sum Summary, err error) {
 	}
 	drainErr := drain(ctx, g, uint64(total), runDone)
 	sum.collect(o, f, tr, g, reg, pubs, began, publishing)
-	if cpu := processCPU() - cpu0; cpu0 > 0 && sum.Acked > 0 {
+	if cpu := ProcessCPU() - cpu0; cpu0 > 0 && sum.Acked > 0 {
 		sum.CPUSeconds = cpu.Seconds()
 		sum.CPUPerMsgUs = float64(cpu.Microseconds()) / float64(sum.Acked)
 	}
