@@ -1,6 +1,7 @@
 package pipeline
 
 import (
+	"encoding/json"
 	"errors"
 	"math"
 	"path/filepath"
@@ -235,6 +236,30 @@ func TestWatermarkClosesHourAndMatchesDirectComputation(t *testing.T) {
 	require.NoError(t, err)
 	require.True(t, ok)
 	assert.Equal(t, got.Result, stored.Result)
+}
+
+// An incomplete hour publishes its inputs as null, not as zeros a consumer
+// could mistake for measurements (0 degC, calm, dark).
+func TestIncompleteRecordInputsNull(t *testing.T) {
+	rec := hourly.Record{Site: "larkspur", Station: "bench", Start: h10, End: h10.Add(time.Hour),
+		Stats: map[hourly.Quantity]hourly.Stats{hourly.AirTemp: {Count: 3, Min: 20, Max: 21, Mean: 20.5, Coverage: 0.25}}}
+	b, err := MarshalRecord(rec)
+	require.NoError(t, err)
+	var raw struct {
+		ET     *float64            `json:"et_mm"`
+		Inputs map[string]*float64 `json:"inputs"`
+	}
+	require.NoError(t, json.Unmarshal(b, &raw))
+	assert.Nil(t, raw.ET)
+	for _, k := range []string{"air_temp_c", "ea_kpa", "wind2_m_s", "solar_mj_m2"} {
+		v, ok := raw.Inputs[k]
+		assert.True(t, ok, k)
+		assert.Nil(t, v, k)
+	}
+	back, err := UnmarshalRecord(b)
+	require.NoError(t, err)
+	assert.Zero(t, back.Inputs.AirTemp)
+	assert.Equal(t, rec.Stats, back.Stats)
 }
 
 func TestDuplicatesDropped(t *testing.T) {

@@ -38,6 +38,22 @@ func (n *num) UnmarshalJSON(b []byte) error {
 	return nil
 }
 
+// known is v, or null (NaN) when the value was not computed.
+func known(v float64, ok bool) num {
+	if !ok {
+		return num(math.NaN())
+	}
+	return num(v)
+}
+
+// orZero is the value, or 0 for null.
+func (n num) orZero() float64 {
+	if math.IsNaN(float64(n)) {
+		return 0
+	}
+	return float64(n)
+}
+
 // recordJSON is the wire form of an hourly.Record on the results topic and in
 // the state file. Field names carry their units; README.md documents them.
 type recordJSON struct {
@@ -129,8 +145,8 @@ func toJSON(rec hourly.Record) recordJSON {
 		Start: rec.Start.UTC(), End: rec.End.UTC(), LocalStart: rec.LocalStart,
 		Revision: rec.Revision, Complete: rec.Complete,
 		Inputs: inputsJSON{
-			AirTempC: num(rec.Inputs.AirTemp), EaKPa: num(rec.Inputs.Ea),
-			Wind2MS: num(rec.Inputs.Wind2), SolarMJ: num(rec.Inputs.Solar),
+			AirTempC: known(rec.Inputs.AirTemp, rec.Complete), EaKPa: known(rec.Inputs.Ea, rec.Complete),
+			Wind2MS: known(rec.Inputs.Wind2, rec.Complete), SolarMJ: known(rec.Inputs.Solar, rec.Complete),
 			LengthSecond: int(rec.End.Sub(rec.Start) / time.Second),
 		},
 		RainMM: num(rec.Rain),
@@ -176,8 +192,8 @@ func (j recordJSON) record() hourly.Record {
 		Revision: j.Revision, Complete: j.Complete,
 		Inputs: hourly.Hour{
 			Start: j.Start.UTC(), Length: time.Duration(j.Inputs.LengthSecond) * time.Second,
-			AirTemp: float64(j.Inputs.AirTempC), Ea: float64(j.Inputs.EaKPa),
-			Wind2: float64(j.Inputs.Wind2MS), Solar: float64(j.Inputs.SolarMJ),
+			AirTemp: j.Inputs.AirTempC.orZero(), Ea: j.Inputs.EaKPa.orZero(),
+			Wind2: j.Inputs.Wind2MS.orZero(), Solar: j.Inputs.SolarMJ.orZero(),
 		},
 		Rain:  float64(j.RainMM),
 		Stats: make(map[hourly.Quantity]hourly.Stats, len(j.Stats)),
