@@ -34,4 +34,6 @@ func Influx(t testing.TB) string { return lookup(t, "ETPULSE_TEST_INFLUX", "stor
 
 // Victoria returns the path of the victoria-metrics binary, for tests that
 // start and stop a store server of their own (outage tests).
-func Victoria(t testing.TB) string { return lookup(t, "ETPULSE_TEST_VICTORIA", "victoria-metrics binary") }
+func Victoria(t testing.TB) string {
+	return lookup(t, "ETPULSE_TEST_VICTORIA", "victoria-metrics binary")
+}
