@@ -76,6 +76,11 @@ type Summary struct {
 // temporary directory (or at opt.StatePath), and the simulated farm; it
 // prints closed hours as they come and returns after opt.Days simulated days.
 func Run(ctx context.Context, opt RunOptions) (sum Summary, err error) {
+	defer func() {
+		if err != nil {
+			err = fmt.Errorf("demo: %w", err)
+		}
+	}()
 	began := time.Now()
 	if opt.Days <= 0 {
 		opt.Days = 1
@@ -90,22 +95,22 @@ func Run(ctx context.Context, opt RunOptions) (sum Summary, err error) {
 	if statePath == "" {
 		dir, err := os.MkdirTemp("", "etpulse-demo-")
 		if err != nil {
-			return sum, fmt.Errorf("demo: %w", err)
+			return sum, err
 		}
 		defer os.RemoveAll(dir)
 		statePath = filepath.Join(dir, "state.db")
 	} else {
 		if _, err := os.Stat(statePath); err == nil {
-			return sum, fmt.Errorf("demo: state file %s already exists: give a new path (the demo starts from an empty state)", statePath)
+			return sum, fmt.Errorf("state file %s already exists: give a new path (the demo starts from an empty state)", statePath)
 		} else if !errors.Is(err, fs.ErrNotExist) {
-			return sum, fmt.Errorf("demo: state file: %w", err)
+			return sum, fmt.Errorf("state file: %w", err)
 		}
 		sum.StatePath = statePath
 	}
 
 	broker, url, err := StartBroker(true)
 	if err != nil {
-		return sum, fmt.Errorf("demo: %w", err)
+		return sum, err
 	}
 	defer broker.Close()
 
@@ -116,11 +121,11 @@ func Run(ctx context.Context, opt RunOptions) (sum Summary, err error) {
 	}
 	db, err := state.Open(statePath)
 	if err != nil {
-		return sum, fmt.Errorf("demo: %w", err)
+		return sum, err
 	}
 	defer func() {
 		if cerr := db.Close(); cerr != nil && err == nil {
-			err = fmt.Errorf("demo: close state: %w", cerr)
+			err = fmt.Errorf("close state: %w", cerr)
 		}
 	}()
 
@@ -128,41 +133,50 @@ func Run(ctx context.Context, opt RunOptions) (sum Summary, err error) {
 	defer cancel()
 	client, err := mqtt.Dial(runCtx, mqtt.Options{URL: url, ClientID: "etpulse-demo", Workers: 1, MaxInflight: 1024, Logger: opt.Logger})
 	if err != nil {
-		return sum, fmt.Errorf("demo: %w", err)
+		return sum, err
 	}
 	defer client.Close(time.Second)
 
 	clock := NewClock(sim.Start())
+	// The alert monitor's and the zone scheduler's loops are stepped by the
+	// demo (see settle); the intake keeps sleeping on the clock.
+	clock.Park(steppedLoops...)
+	tr := newTraffic()
 	table := NewTable(opt.Out)
 	reg := prometheus.NewRegistry()
 	comps := opt.Components
 	g, err := gateway.New(cfg, gateway.Deps{
-		Logger: opt.Logger, Registerer: reg, Gatherer: reg, DB: db, MQTT: client,
+		Logger: opt.Logger, Registerer: reg, Gatherer: reg, DB: db, MQTT: tr.client("gateway", client),
 		Clock: clock.Now, After: clock.After, Components: comps,
 		OnRecord: table.Record, OnZoneEvent: func(e zones.Event) { zoneEvent(table, e) },
 	})
 	if err != nil {
-		return sum, fmt.Errorf("demo: %w", err)
+		return sum, err
 	}
 	env := &Env{BrokerURL: url, Clock: clock, StatePath: statePath, Gateway: g, Table: table, Sim: sim}
 	if opt.Setup != nil {
 		if err := opt.Setup(env); err != nil {
-			return sum, fmt.Errorf("demo: setup: %w", err)
+			return sum, fmt.Errorf("setup: %w", err)
 		}
 	}
 	runDone := make(chan error, 1)
 	go func() { runDone <- g.Run(runCtx) }()
+	// Unparked loops see their context end; a no-op once the run has
+	// stopped them.
+	defer clock.Unpark()
 	select {
 	case <-g.Ready():
 	case err := <-runDone:
-		return sum, fmt.Errorf("demo: gateway: %w", err)
+		return sum, fmt.Errorf("gateway: %w", err)
 	}
+	st := &stepper{g: g, clock: clock, traffic: tr, runDone: runDone}
 	if hasZones(cfg) {
-		valves, err := serveValves(runCtx, url, cfg, clock)
+		vc, v, err := serveValves(runCtx, url, cfg, clock, tr, opt.Logger)
 		if err != nil {
 			return sum, err
 		}
-		defer valves.Close(time.Second)
+		defer vc.Close(time.Second)
+		st.valves = v
 	}
 
 	end := sim.Start().Add(time.Duration(opt.Days) * 24 * time.Hour)
@@ -170,14 +184,16 @@ func Run(ctx context.Context, opt RunOptions) (sum Summary, err error) {
 	table.Header(sim, opt)
 
 	step := time.Minute
-	published, i := 0, 0
+	i := 0
 	publishUntil := func(at time.Time) error {
 		for ; i < len(msgs) && !msgs[i].At.After(at); i++ {
 			m := msgs[i]
+			n := tr.expect(m.Topic, false)
 			if err := broker.Publish(m.Topic, m.Payload, false, 1); err != nil {
-				return fmt.Errorf("demo: publish: %w", err)
+				tr.add(-n)
+				return fmt.Errorf("publish: %w", err)
 			}
-			published++
+			st.readings++
 			switch m.Kind {
 			case Duplicate:
 				sum.Duplicates++
@@ -195,7 +211,7 @@ func Run(ctx context.Context, opt RunOptions) (sum Summary, err error) {
 		if err := publishUntil(at); err != nil {
 			return sum, err
 		}
-		if err := barrier(ctx, g, uint64(published), runDone); err != nil {
+		if err := st.settle(ctx, at); err != nil {
 			return sum, err
 		}
 		table.Flush()
@@ -215,20 +231,22 @@ func Run(ctx context.Context, opt RunOptions) (sum Summary, err error) {
 	if err := publishUntil(msgs[len(msgs)-1].At); err != nil {
 		return sum, err
 	}
-	if err := barrier(ctx, g, uint64(published), runDone); err != nil {
+	if err := st.settle(ctx, clock.Now()); err != nil {
 		return sum, err
 	}
 	table.Flush()
+	clock.Unpark()
 	cancel()
 	if err := <-runDone; err != nil {
-		return sum, fmt.Errorf("demo: gateway: %w", err)
+		return sum, fmt.Errorf("gateway: %w", err)
 	}
 	table.Flush()
+	published := int(st.readings)
 	sum.Messages = published
 	sum.Records, sum.Revisions = table.Counts()
 	sum.Rejected = rejectedByReason(reg)
 	if err := countHistory(db, &sum); err != nil {
-		return sum, fmt.Errorf("demo: %w", err)
+		return sum, err
 	}
 	sum.From = sim.Start().UTC().Truncate(24 * time.Hour)
 	sum.To = end.UTC().Truncate(24 * time.Hour).Add(24 * time.Hour)
@@ -251,21 +269,6 @@ func countHistory(db *bbolt.DB, sum *Summary) error {
 	return err
 }
 
-// barrier waits until the gateway has handled n messages and published every
-// record it committed, so the table and the clock move in step with the data.
-func barrier(ctx context.Context, g *gateway.Gateway, n uint64, runDone <-chan error) error {
-	for g.Handled() < n || g.Published() < g.Emitted() {
-		select {
-		case <-ctx.Done():
-			return ctx.Err()
-		case err := <-runDone:
-			return fmt.Errorf("demo: gateway stopped: %w", err)
-		case <-time.After(200 * time.Microsecond):
-		}
-	}
-	return nil
-}
-
 func rejectedByReason(g prometheus.Gatherer) map[string]float64 {
 	out := map[string]float64{}
 	mfs, err := g.Gather()
@@ -285,60 +288,6 @@ func rejectedByReason(g prometheus.Gatherer) map[string]float64 {
 		}
 	}
 	return out
-}
-
-// Clock is the demo's simulated clock: the gateway reads it and sleeps on it.
-type Clock struct {
-	mu      sync.Mutex
-	now     time.Time
-	waiters []waiter
-}
-
-type waiter struct {
-	at time.Time
-	ch chan time.Time
-}
-
-// NewClock returns a clock stopped at start.
-func NewClock(start time.Time) *Clock { return &Clock{now: start} }
-
-// Now returns the simulated time.
-func (c *Clock) Now() time.Time {
-	c.mu.Lock()
-	defer c.mu.Unlock()
-	return c.now
-}
-
-// After fires once the simulated time has moved d past now.
-func (c *Clock) After(d time.Duration) <-chan time.Time {
-	c.mu.Lock()
-	defer c.mu.Unlock()
-	ch := make(chan time.Time, 1)
-	at := c.now.Add(d)
-	if !at.After(c.now) {
-		ch <- c.now
-		return ch
-	}
-	c.waiters = append(c.waiters, waiter{at, ch})
-	return ch
-}
-
-// Set moves the clock to t (never backwards) and fires due waiters.
-func (c *Clock) Set(t time.Time) {
-	c.mu.Lock()
-	defer c.mu.Unlock()
-	if t.After(c.now) {
-		c.now = t
-	}
-	kept := c.waiters[:0]
-	for _, w := range c.waiters {
-		if !w.at.After(c.now) {
-			w.ch <- c.now
-			continue
-		}
-		kept = append(kept, w)
-	}
-	c.waiters = kept
 }
 
 // Table prints closed hours as a readable table. Records are buffered and

@@ -457,7 +457,7 @@ func (s *Sim) ConfigYAML(o ConfigOptions) string {
 func (s *Sim) Config(o ConfigOptions) (*config.Config, error) {
 	cfg, err := config.Parse([]byte(s.ConfigYAML(o)))
 	if err != nil {
-		return nil, fmt.Errorf("demo config: %w", err)
+		return nil, fmt.Errorf("config: %w", err)
 	}
 	return cfg, nil
 }

@@ -3,6 +3,7 @@ package demo
 import (
 	"context"
 	"fmt"
+	"log/slog"
 	"time"
 
 	"etpulse/controllers"
@@ -75,26 +76,26 @@ func hasZones(cfg *config.Config) bool {
 	return false
 }
 
-// serveValves connects the simulated valve controllers: every run reports
-// accepted, started at its start and finished when its minutes have run. The
-// caller closes the returned client.
-func serveValves(ctx context.Context, url string, cfg *config.Config, clock *Clock) (*mqtt.Client, error) {
+// serveValves connects the simulated valve controllers (valves), which
+// the demo steps each simulated minute. The caller closes the returned
+// client.
+func serveValves(ctx context.Context, url string, cfg *config.Config, clock *Clock, tr *traffic, log *slog.Logger) (*mqtt.Client, *valves, error) {
 	c, err := mqtt.Dial(ctx, mqtt.Options{URL: url, ClientID: "etpulse-demo-valves", Workers: 1})
 	if err != nil {
-		return nil, fmt.Errorf("demo valves: %w", err)
+		return nil, nil, fmt.Errorf("valves: %w", err)
 	}
-	valves := &zones.ValveSimulator{MQTT: c, Clock: clock.Now, After: clock.After}
+	v := &valves{mqtt: tr.client("valves", c), clock: clock.Now, log: log}
 	topics := map[string]string{}
 	for _, s := range cfg.Sites {
 		for i := range s.Zones {
 			topics[s.Zones[i].CommandTopicIn(cfg.Prefix(), s.ID)] = s.Zones[i].ReportTopicIn(cfg.Prefix(), s.ID)
 		}
 	}
-	if err := valves.Serve(topics); err != nil {
+	if err := v.serve(topics); err != nil {
 		c.Close(time.Second)
-		return nil, err
+		return nil, nil, err
 	}
-	return c, nil
+	return c, v, nil
 }
 
 func zoneEvent(t *Table, e zones.Event) {
