@@ -207,7 +207,8 @@ func runCalc(ctx context.Context, args []string, stdin io.Reader, stdout, stderr
 		return exitError
 	}
 	if sum.Skipped > 0 || sum.Gaps > 0 {
-		fmt.Fprintf(stderr, "etpulse calc: %d hours computed, %d bad rows skipped, %d gaps\n", sum.Hours, sum.Skipped, sum.Gaps)
+		fmt.Fprintf(stderr, "etpulse calc: %s computed, %s skipped, %s\n",
+			count(sum.Hours, "hour", "hours"), count(sum.Skipped, "bad row", "bad rows"), count(sum.Gaps, "gap", "gaps"))
 	}
 	if sum.Hours == 0 && sum.Skipped > 0 {
 		fmt.Fprintln(stderr, "etpulse calc: no row could be computed")

@@ -346,7 +346,7 @@ etpulse calc: 3 hours computed, 3 bad rows skipped, 2 gaps
 	assert.Equal(t, exitError, code, "nothing computed")
 	assert.Len(t, table(t, out), 0)
 	assert.Equal(t, `etpulse calc: skipped line 2: column air_temp_c: value "x": not a number
-etpulse calc: 0 hours computed, 1 bad rows skipped, 0 gaps
+etpulse calc: 0 hours computed, 1 bad row skipped, 0 gaps
 etpulse calc: no row could be computed
 `, errOut)
 

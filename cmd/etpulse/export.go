@@ -118,6 +118,6 @@ func runExport(ctx context.Context, args []string, stdin io.Reader, stdout, stde
 		fmt.Fprintf(stderr, "etpulse export: %v\n", err)
 		return exitError
 	}
-	fmt.Fprintf(stderr, "etpulse export: %d points\n", n)
+	fmt.Fprintf(stderr, "etpulse export: %s\n", count(n, "point", "points"))
 	return exitOK
 }

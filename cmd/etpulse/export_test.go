@@ -52,7 +52,7 @@ func TestExportCommand(t *testing.T) {
 	code, out, errs := export(t, "--state", path, "--from", "2024-06-11", "--to", "2024-06-12", "--format", "lp", "--station", "east-mast")
 	require.Equal(t, exitOK, code, errs)
 	assert.Equal(t, "et_hour,reference=short,site=lowmead,station=east-mast complete=true,et_mm=0.42,revision=0i 1718096400000000000\n", out)
-	assert.Contains(t, errs, "1 points")
+	assert.Contains(t, errs, "etpulse export: 1 point\n")
 
 	code, out, errs = export(t, "--state", path, "--from", "2024-06-11T10:00", "--to", "2024-06-11T11:00:00Z")
 	require.Equal(t, exitOK, code, errs)

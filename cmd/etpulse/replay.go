@@ -80,7 +80,13 @@ func runReplay(ctx context.Context, args []string, stdin io.Reader, stdout, stde
 		}
 		in = f
 	}
-	opts := replay.Options{StatePath: *statePath, RowErrors: stderr}
+	// Rejected readings are logged by the pipeline at a bounded rate.
+	log, err := newLogger(stderr, "text", "warn")
+	if err != nil {
+		fmt.Fprintf(stderr, "etpulse replay: %v\n", err)
+		return exitError
+	}
+	opts := replay.Options{StatePath: *statePath, RowErrors: stderr, Logger: log}
 	bt, closeBT, err := zones.OpenBacktest(cfg)
 	if err != nil {
 		fmt.Fprintf(stderr, "etpulse replay: %v\n", err)
@@ -100,8 +106,10 @@ func runReplay(ctx context.Context, args []string, stdin io.Reader, stdout, stde
 		fmt.Fprintf(stderr, "etpulse replay: %v\n", err)
 		return exitError
 	}
-	fmt.Fprintf(stderr, "etpulse replay: %d rows (%d bad, %d duplicate), %d readings stored, %d hourly records (%d complete first records, %d revisions)%s\n",
-		sum.Rows, sum.BadRows, sum.Duplicates, sum.Accepted, sum.Records, sum.Complete, sum.Revisions, rejectedText(sum.Rejected))
+	fmt.Fprintf(stderr, "etpulse replay: %s (%d bad, %d duplicate), %s stored, %s (%s, %s)%s\n",
+		count(sum.Rows, "row", "rows"), sum.BadRows, sum.Duplicates, count(sum.Accepted, "reading", "readings"),
+		count(sum.Records, "hourly record", "hourly records"), count(sum.Complete, "complete first record", "complete first records"),
+		count(sum.Revisions, "revision", "revisions"), rejectedText(sum.Rejected))
 	if bt != nil {
 		if err := bt.Report(*zonesPath, *summary, stderr); err != nil {
 			fmt.Fprintf(stderr, "etpulse replay: %v\n", err)
@@ -124,5 +132,5 @@ func rejectedText(rejected map[ingest.Reason]int) string {
 		return ""
 	}
 	sort.Strings(reasons)
-	return fmt.Sprintf("; %d readings rejected (%s)", total, strings.Join(reasons, ", "))
+	return fmt.Sprintf("; %s rejected (%s)", count(total, "reading", "readings"), strings.Join(reasons, ", "))
 }

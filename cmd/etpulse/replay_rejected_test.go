@@ -3,8 +3,10 @@ package main
 import (
 	"bytes"
 	"context"
+	"fmt"
 	"os"
 	"path/filepath"
+	"strings"
 	"testing"
 
 	"github.com/stretchr/testify/assert"
@@ -24,7 +26,30 @@ func TestReplaySummaryCountsRejected(t *testing.T) {
 	var out, errOut bytes.Buffer
 	code := run(context.Background(), []string{"replay", "--config", "../../testdata/config/minimal.yaml", "--in", in}, nil, &out, &errOut)
 	require.Equal(t, exitOK, code, errOut.String())
-	assert.Contains(t, errOut.String(), "rejected too_old reading: air_temp reading at 2026-07-14T00:05:00Z")
+	assert.Regexp(t, `level=WARN msg="reading rejected" station=mast .*reason=too_old err=".*air_temp reading at 2026-07-14T00:05:00Z`, errOut.String())
 	assert.Contains(t, errOut.String(), "3 rows (0 bad, 0 duplicate), 2 readings stored")
-	assert.Contains(t, errOut.String(), "; 1 readings rejected (too_old 1)\n")
+	assert.Contains(t, errOut.String(), "; 1 reading rejected (too_old 1)\n")
+}
+
+// TestReplayRejectedLogRateLimited: rejected readings are logged the way the
+// live gateway logs them, a few per reason and minute; the summary line
+// still counts every one.
+func TestReplayRejectedLogRateLimited(t *testing.T) {
+	var rows strings.Builder
+	rows.WriteString("time,station,quantity,value,unit\n")
+	rows.WriteString("2026-07-14T00:00:00Z,mast,air_temp,20,degC\n")
+	rows.WriteString("2026-07-15T12:00:00Z,mast,air_temp,21,degC\n")
+	for i := range 12 {
+		fmt.Fprintf(&rows, "2026-07-14T00:%02d:00Z,mast,air_temp,20,degC\n", i+1)
+	}
+	in := filepath.Join(t.TempDir(), "readings.csv")
+	require.NoError(t, os.WriteFile(in, []byte(rows.String()), 0o644))
+	var out, errOut bytes.Buffer
+	code := run(context.Background(), []string{"replay", "--config", "../../testdata/config/minimal.yaml", "--in", in}, nil, &out, &errOut)
+	require.Equal(t, exitOK, code, errOut.String())
+	text := errOut.String()
+	assert.Equal(t, 5, strings.Count(text, `msg="reading rejected"`), "the first 5 of the minute: %s", text)
+	assert.Contains(t, text, "00:05:00Z", "the 5th is logged")
+	assert.NotContains(t, text, "00:06:00Z", "the 6th is not")
+	assert.Contains(t, text, "; 12 readings rejected (too_old 12)\n")
 }
