@@ -52,7 +52,7 @@ func runDemo(ctx context.Context, args []string, stdin io.Reader, stdout, stderr
 		if ctx.Err() != nil {
 			return exitOK
 		}
-		fmt.Fprintf(stderr, "etpulse demo: %v\n", err)
+		fmt.Fprintf(stderr, "etpulse %v\n", err) // err starts with "demo: "
 		return exitError
 	}
 	return exitOK

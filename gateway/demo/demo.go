@@ -188,12 +188,26 @@ func Run(ctx context.Context, opt RunOptions) (sum Summary, err error) {
 	publishUntil := func(at time.Time) error {
 		for ; i < len(msgs) && !msgs[i].At.After(at); i++ {
 			m := msgs[i]
+			// A late reading revises a closed hour, and the readings handled
+			// in one batch make one revision: it goes in a batch of its own,
+			// so the revisions do not depend on how the intake's batches fall.
+			alone := m.Kind == Late
+			if alone {
+				if err := st.quiet(ctx); err != nil {
+					return err
+				}
+			}
 			n := tr.expect(m.Topic, false)
 			if err := broker.Publish(m.Topic, m.Payload, false, 1); err != nil {
 				tr.add(-n)
 				return fmt.Errorf("publish: %w", err)
 			}
 			st.readings++
+			if alone {
+				if err := st.quiet(ctx); err != nil {
+					return err
+				}
+			}
 			switch m.Kind {
 			case Duplicate:
 				sum.Duplicates++
