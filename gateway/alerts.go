@@ -15,8 +15,8 @@ import (
 // server, and adds them to comp: the monitor observes every sample, handles
 // every closed hour (after the outbox, so its points share the transaction),
 // gates the hours of alerted sensors, and runs as a Service that persists,
-// publishes and checks for silence; the HTTP server runs as a Service unless
-// disabled.
+// publishes and checks for silence; an outbox watch raises outbox-near-cap;
+// the HTTP server runs as a Service unless disabled.
 func setupAlerts(cfg *config.Config, deps Deps, outbox *store.Outbox, comp *Components) (*quality.Monitor, error) {
 	mon, err := quality.New(quality.Options{
 		Config: cfg, DB: deps.DB, Outbox: outbox, Publisher: deps.MQTT,
@@ -34,6 +34,16 @@ func setupAlerts(cfg *config.Config, deps Deps, outbox *store.Outbox, comp *Comp
 		}
 	}
 	comp.Services = append(comp.Services, mon)
+	if outbox != nil {
+		sites := make([]string, len(cfg.Sites))
+		for i := range cfg.Sites {
+			sites[i] = cfg.Sites[i].ID
+		}
+		comp.Services = append(comp.Services, &outboxWatch{
+			outbox: outbox, alerts: mon, sites: sites,
+			clock: deps.Clock, after: deps.After, log: deps.Logger.With("component", "alerts"),
+		})
+	}
 	if cfg.HTTP.Disabled {
 		return mon, nil
 	}

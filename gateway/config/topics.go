@@ -20,6 +20,8 @@ var reservedStationIDs = map[string]string{
 	"alerts": "alert topics",
 	"zones":  "zone command and report topics",
 	"hold":   "hold topics",
+	// Not a topic subtree, but the station of gateway-wide alerts.
+	"gateway": "alerts about the gateway itself (store outbox)",
 }
 
 // Prefix returns the topic prefix: topic_prefix, or DefaultTopicPrefix for a

@@ -47,6 +47,7 @@ const (
 	KindZoneETStale   Kind = "zone-et-stale"   // no valid ET for the zone for too long
 	KindValveNoReport Kind = "valve-no-report" // a command (or its stop) got no final report
 	KindValveFailed   Kind = "valve-failed"    // the valve controller reported a failed run
+	KindOutboxNearCap Kind = "outbox-near-cap" // the store outbox is close to its size cap
 )
 
 // ZoneStation is the Station of alerts about an irrigation zone rather than
@@ -77,6 +78,17 @@ func (k Key) Zone() string {
 		return k.Sensor
 	}
 	return ""
+}
+
+// GatewayStation is the Station of alerts about the gateway itself rather
+// than a weather station or a zone (e.g. its store outbox). The
+// configuration refuses it as a station id.
+const GatewayStation = "gateway"
+
+// OutboxKey returns the key of a site's outbox alert:
+// <prefix>/<site>/alerts/gateway/outbox/points/outbox-near-cap.
+func OutboxKey(site string) Key {
+	return Key{Site: site, Station: GatewayStation, Sensor: "outbox", Quantity: "points", Kind: KindOutboxNearCap}
 }
 
 // HourSubject is the Sensor of alerts derived from a station's hourly

@@ -1,0 +1,68 @@
+package gateway
+
+import (
+	"context"
+	"fmt"
+	"log/slog"
+	"time"
+
+	"etpulse/gateway/quality"
+	"etpulse/gateway/store"
+)
+
+// outboxCheckEvery is how often the outbox watch looks at the outbox depth.
+const outboxCheckEvery = time.Minute
+
+// outboxWatch raises an outbox-near-cap alert for every site while the store
+// outbox holds more than its near-cap share (the store is unreachable or
+// too slow, and raw summaries are about to be dropped), and clears it once
+// the outbox has drained below that share.
+type outboxWatch struct {
+	outbox *store.Outbox
+	alerts *quality.Monitor
+	sites  []string
+	clock  func() time.Time
+	after  func(time.Duration) <-chan time.Time
+	log    *slog.Logger
+}
+
+var _ Service = (*outboxWatch)(nil)
+
+// Run checks the outbox once a minute until ctx ends.
+func (w *outboxWatch) Run(ctx context.Context) error {
+	for {
+		if err := w.check(w.clock()); err != nil {
+			w.log.Error("checking the outbox for its alert", "err", err)
+		}
+		select {
+		case <-ctx.Done():
+			return nil
+		case <-w.after(outboxCheckEvery):
+		}
+	}
+}
+
+// check raises or clears the alert from the outbox's state at now. Raising an
+// active alert updates its evidence; clearing an inactive one does nothing.
+func (w *outboxWatch) check(now time.Time) error {
+	depth, oldest := w.outbox.Stats()
+	capacity := w.outbox.Cap()
+	for _, site := range w.sites {
+		key := quality.OutboxKey(site)
+		var err error
+		if w.outbox.NearCap() {
+			err = w.alerts.Raise(nil, quality.Alert{
+				Key: key, Severity: quality.SeverityWarning, Since: now,
+				Value: float64(depth), Limit: float64(capacity),
+				Message: fmt.Sprintf("store outbox holds %d points of its cap %d, the oldest waiting %s: is the store reachable?",
+					depth, capacity, oldest.Round(time.Second)),
+			})
+		} else {
+			err = w.alerts.Clear(nil, key, now, fmt.Sprintf("store outbox down to %d points of its cap %d", depth, capacity))
+		}
+		if err != nil {
+			return fmt.Errorf("outbox alert for site %s: %w", site, err)
+		}
+	}
+	return nil
+}
