@@ -21,7 +21,7 @@ func setupAlerts(cfg *config.Config, deps Deps, outbox *store.Outbox, comp *Comp
 	mon, err := quality.New(quality.Options{
 		Config: cfg, DB: deps.DB, Outbox: outbox, Publisher: deps.MQTT,
 		Logger: deps.Logger.With("component", "alerts"), Registerer: deps.Registerer,
-		Clock: deps.Clock, After: deps.After,
+		Clock: deps.Clock, After: deps.afterFor(TimerAlerts),
 	})
 	if err != nil {
 		return nil, fmt.Errorf("set up alerts: %w", err)
@@ -34,7 +34,7 @@ func setupAlerts(cfg *config.Config, deps Deps, outbox *store.Outbox, comp *Comp
 		}
 	}
 	comp.Services = append(comp.Services, mon)
-	if outbox != nil {
+	if outbox != nil && cfg.Store.URL != "" { // local history only: nothing ever waits
 		sites := make([]string, len(cfg.Sites))
 		for i := range cfg.Sites {
 			sites[i] = cfg.Sites[i].ID

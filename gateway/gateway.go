@@ -46,6 +46,20 @@ type Broker interface {
 	mqtt.Subscriber
 }
 
+// The names of the background loops that Deps.AfterFor can time apart.
+const (
+	TimerAlerts = "alerts" // the alert monitor's loop
+	TimerZones  = "zones"  // the zone scheduler's loop
+)
+
+// afterFor returns the After of the named loop.
+func (d Deps) afterFor(name string) func(time.Duration) <-chan time.Time {
+	if d.AfterFor != nil {
+		return d.AfterFor(name)
+	}
+	return d.After
+}
+
 // Components are the parts that plug into the pipeline. The caller may pass
 // some in Deps (e.g. the demo's table printer); New adds the configured ones.
 type Components struct {
@@ -66,8 +80,12 @@ type Deps struct {
 	// After returns a channel that fires once d of Clock time has passed;
 	// nil means time.After (correct for a real-time Clock only).
 	After func(d time.Duration) <-chan time.Time
-	DB    *bbolt.DB // the state file (state.Open); the caller closes it after Run
-	MQTT  Broker    // the broker connection; the caller closes it after Run
+	// AfterFor, when set, gives a background loop its own After by name
+	// (TimerAlerts, TimerZones); nil means After for every loop. The demo
+	// uses it to step those loops one pass at a time.
+	AfterFor func(name string) func(d time.Duration) <-chan time.Time
+	DB       *bbolt.DB // the state file (state.Open); the caller closes it after Run
+	MQTT     Broker    // the broker connection; the caller closes it after Run
 
 	Components
 

@@ -24,6 +24,11 @@ type outboxWatch struct {
 	clock  func() time.Time
 	after  func(time.Duration) <-chan time.Time
 	log    *slog.Logger
+
+	// cleared: the alert is known to be inactive for every site, so a
+	// check below the near-cap share writes nothing. False at start, so an
+	// alert left active by an earlier run is cleared by the first check.
+	cleared bool
 }
 
 var _ Service = (*outboxWatch)(nil)
@@ -47,10 +52,14 @@ func (w *outboxWatch) Run(ctx context.Context) error {
 func (w *outboxWatch) check(now time.Time) error {
 	depth, oldest := w.outbox.Stats()
 	capacity := w.outbox.Cap()
+	near := w.outbox.NearCap()
+	if !near && w.cleared {
+		return nil
+	}
 	for _, site := range w.sites {
 		key := quality.OutboxKey(site)
 		var err error
-		if w.outbox.NearCap() {
+		if near {
 			err = w.alerts.Raise(nil, quality.Alert{
 				Key: key, Severity: quality.SeverityWarning, Since: now,
 				Value: float64(depth), Limit: float64(capacity),
@@ -64,5 +73,6 @@ func (w *outboxWatch) check(now time.Time) error {
 			return fmt.Errorf("outbox alert for site %s: %w", site, err)
 		}
 	}
+	w.cleared = !near
 	return nil
 }

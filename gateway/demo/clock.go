@@ -1,9 +1,6 @@
 package demo
 
 import (
-	"reflect"
-	"runtime"
-	"strings"
 	"sync"
 	"time"
 )
@@ -11,18 +8,18 @@ import (
 // Clock is the demo's simulated clock: the gateway reads it and sleeps on it.
 //
 // By default After behaves like time.After on simulated time: its channel
-// fires when Set moves the clock past the deadline. With Park, the loops of
-// chosen packages are stepped instead: their After call parks the calling
-// goroutine until the demo releases it, then returns a channel that has
-// already fired. A parked loop cannot be woken by anything else (its other
+// fires when Set moves the clock past the deadline. With Park, chosen loops
+// (named by AfterFor) are stepped instead: their After call parks the
+// calling goroutine until the demo releases it, then returns a channel that
+// has already fired. A parked loop cannot be woken by anything else (its other
 // wake-up channels wait buffered), so the demo knows when it is idle and
 // runs it at a simulated instant of its choosing, one loop at a time.
 type Clock struct {
 	mu      sync.Mutex
 	now     time.Time
 	waiters []waiter
-	park    map[string]bool          // package path -> its After calls park
-	parked  map[string]chan struct{} // package path -> closed to release its parked goroutine
+	park    map[string]bool          // loop name -> its After calls park
+	parked  map[string]chan struct{} // loop name -> closed to release its parked goroutine
 	changed chan struct{}            // closed and replaced when parked changes
 }
 
@@ -43,19 +40,26 @@ func (c *Clock) Now() time.Time {
 	return c.now
 }
 
-// After fires once the simulated time has moved d past now; called from a
-// parked package (Park), it first waits for Release.
-func (c *Clock) After(d time.Duration) <-chan time.Time {
+// After fires once the simulated time has moved d past now.
+func (c *Clock) After(d time.Duration) <-chan time.Time { return c.after("", d) }
+
+// AfterFor returns the After of the named loop (gateway.Deps.AfterFor):
+// while the name is parked (Park), each call first waits for Release.
+func (c *Clock) AfterFor(name string) func(time.Duration) <-chan time.Time {
+	return func(d time.Duration) <-chan time.Time { return c.after(name, d) }
+}
+
+func (c *Clock) after(name string, d time.Duration) <-chan time.Time {
 	c.mu.Lock()
 	defer c.mu.Unlock()
-	if pkg := c.parkingCaller(); pkg != "" {
+	if name != "" && c.park[name] {
 		gate := make(chan struct{})
-		c.parked[pkg] = gate
+		c.parked[name] = gate
 		c.notifyLocked()
 		c.mu.Unlock()
 		<-gate
 		c.mu.Lock()
-		if c.park[pkg] {
+		if c.park[name] {
 			ch := make(chan time.Time, 1)
 			ch <- c.now
 			return ch
@@ -70,18 +74,6 @@ func (c *Clock) After(d time.Duration) <-chan time.Time {
 	}
 	c.waiters = append(c.waiters, waiter{at, ch})
 	return ch
-}
-
-// parkingCaller returns the package of After's caller when its calls park,
-// else "". c.mu must be held.
-func (c *Clock) parkingCaller() string {
-	if len(c.park) == 0 {
-		return ""
-	}
-	if pkg := callerPackage(); c.park[pkg] {
-		return pkg
-	}
-	return ""
 }
 
 // Set moves the clock to t (never backwards) and fires due waiters. Parked
@@ -103,23 +95,23 @@ func (c *Clock) Set(t time.Time) {
 	c.waiters = kept
 }
 
-// Park makes After park its caller when called from code of one of the
-// packages (import paths, e.g. "etpulse/gateway/zones"): each such package
-// is expected to run one loop that calls After once per pass.
-func (c *Clock) Park(pkgs ...string) {
+// Park makes the After of the named loops (AfterFor, e.g. "zones") park
+// their caller: each is expected to be one loop that calls After once per
+// pass.
+func (c *Clock) Park(names ...string) {
 	c.mu.Lock()
 	defer c.mu.Unlock()
-	for _, p := range pkgs {
+	for _, p := range names {
 		c.park[p] = true
 	}
 }
 
-// Parked returns a channel closed once the loop of pkg is parked, or already
+// Parked returns a channel closed once the loop of name is parked, or already
 // closed when it is.
-func (c *Clock) Parked(pkg string) <-chan struct{} {
+func (c *Clock) Parked(name string) <-chan struct{} {
 	c.mu.Lock()
 	defer c.mu.Unlock()
-	if _, ok := c.parked[pkg]; ok {
+	if _, ok := c.parked[name]; ok {
 		ch := make(chan struct{})
 		close(ch)
 		return ch
@@ -127,23 +119,23 @@ func (c *Clock) Parked(pkg string) <-chan struct{} {
 	return c.changed
 }
 
-// IsParked reports whether the loop of pkg is parked in After.
-func (c *Clock) IsParked(pkg string) bool {
+// IsParked reports whether the loop of name is parked in After.
+func (c *Clock) IsParked(name string) bool {
 	c.mu.Lock()
 	defer c.mu.Unlock()
-	_, ok := c.parked[pkg]
+	_, ok := c.parked[name]
 	return ok
 }
 
-// Release lets the parked loop of pkg run one pass at the current time: its
+// Release lets the parked loop of name run one pass at the current time: its
 // After returns a channel that has fired. It reports whether a loop was
 // parked.
-func (c *Clock) Release(pkg string) bool {
+func (c *Clock) Release(name string) bool {
 	c.mu.Lock()
 	defer c.mu.Unlock()
-	gate, ok := c.parked[pkg]
+	gate, ok := c.parked[name]
 	if ok {
-		delete(c.parked, pkg)
+		delete(c.parked, name)
 		close(gate)
 	}
 	return ok
@@ -156,9 +148,9 @@ func (c *Clock) Unpark() {
 	c.mu.Lock()
 	defer c.mu.Unlock()
 	clear(c.park)
-	for pkg, gate := range c.parked {
+	for name, gate := range c.parked {
 		close(gate)
-		delete(c.parked, pkg)
+		delete(c.parked, name)
 	}
 	c.notifyLocked()
 }
@@ -167,32 +159,3 @@ func (c *Clock) notifyLocked() {
 	close(c.changed)
 	c.changed = make(chan struct{})
 }
-
-// callerPackage returns the import path of the first function on the stack
-// outside this package: the loop calling After.
-func callerPackage() string {
-	var pcs [8]uintptr
-	n := runtime.Callers(2, pcs[:])
-	frames := runtime.CallersFrames(pcs[:n])
-	for {
-		f, more := frames.Next()
-		if pkg := funcPackage(f.Function); pkg != thisPackage {
-			return pkg
-		}
-		if !more {
-			return ""
-		}
-	}
-}
-
-// funcPackage returns the import path part of a fully qualified function
-// name such as "etpulse/gateway/zones.(*Service).Run".
-func funcPackage(fn string) string {
-	slash := strings.LastIndexByte(fn, '/')
-	if dot := strings.IndexByte(fn[slash+1:], '.'); dot >= 0 {
-		return fn[:slash+1+dot]
-	}
-	return fn
-}
-
-var thisPackage = reflect.TypeFor[Clock]().PkgPath()

@@ -1,7 +1,6 @@
 package demo_test
 
 import (
-	"reflect"
 	"testing"
 	"time"
 
@@ -11,16 +10,15 @@ import (
 	"etpulse/gateway/demo"
 )
 
-type probe struct{}
-
-// TestClockParksSteppedLoop: a loop of a parked package runs one pass per
+// TestClockParksSteppedLoop: a parked loop (named by AfterFor) runs one pass per
 // Release, at the time the demo chose; Set alone does not wake it; Unpark
 // lets it sleep on simulated time again.
 func TestClockParksSteppedLoop(t *testing.T) {
-	pkg := reflect.TypeFor[probe]().PkgPath()
+	const pkg = "probe"
 	start := time.Date(2026, 1, 12, 0, 0, 0, 0, time.UTC)
 	clock := demo.NewClock(start)
 	clock.Park(pkg)
+	after := clock.AfterFor(pkg)
 	passes := make(chan time.Time, 10)
 	stop := make(chan struct{})
 	done := make(chan struct{})
@@ -28,7 +26,7 @@ func TestClockParksSteppedLoop(t *testing.T) {
 		defer close(done)
 		for {
 			select {
-			case at := <-clock.After(time.Hour):
+			case at := <-after(time.Hour):
 				passes <- at
 			case <-stop:
 				return
@@ -53,12 +51,12 @@ func TestClockParksSteppedLoop(t *testing.T) {
 	assert.False(t, clock.Release(pkg), "nothing parked after Unpark")
 }
 
-// TestClockUnparkedAfter: packages not parked sleep on simulated time.
+// TestClockUnparkedAfter: loops not parked sleep on simulated time.
 func TestClockUnparkedAfter(t *testing.T) {
 	start := time.Date(2026, 1, 12, 0, 0, 0, 0, time.UTC)
 	clock := demo.NewClock(start)
-	clock.Park("etpulse/gateway/zones")
-	ch := clock.After(time.Minute)
+	clock.Park("zones")
+	ch := clock.AfterFor("alerts")(time.Minute)
 	clock.Set(start.Add(30 * time.Second))
 	select {
 	case <-ch:

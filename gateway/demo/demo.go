@@ -147,7 +147,7 @@ func Run(ctx context.Context, opt RunOptions) (sum Summary, err error) {
 	comps := opt.Components
 	g, err := gateway.New(cfg, gateway.Deps{
 		Logger: opt.Logger, Registerer: reg, Gatherer: reg, DB: db, MQTT: tr.client("gateway", client),
-		Clock: clock.Now, After: clock.After, Components: comps,
+		Clock: clock.Now, After: clock.After, AfterFor: clock.AfterFor, Components: comps,
 		OnRecord: table.Record, OnZoneEvent: func(e zones.Event) { zoneEvent(table, e) },
 	})
 	if err != nil {

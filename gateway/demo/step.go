@@ -3,22 +3,16 @@ package demo
 import (
 	"context"
 	"fmt"
-	"reflect"
 	"time"
 
 	"etpulse/gateway"
-	"etpulse/gateway/quality"
-	"etpulse/gateway/zones"
 )
 
-// steppedLoops are the packages whose loops the demo steps (Clock.Park), in
+// steppedLoops are the loops the demo steps (Clock.Park), in
 // the order it runs them at each simulated minute: the alert monitor
 // (silence checks, reading alerts), then the zone scheduler, which acts on
 // everything the minute brought.
-var steppedLoops = []string{
-	reflect.TypeFor[quality.Monitor]().PkgPath(),
-	reflect.TypeFor[zones.Service]().PkgPath(),
-}
+var steppedLoops = []string{gateway.TimerAlerts, gateway.TimerZones}
 
 // maxPasses bounds the scheduler passes at one simulated minute (a command
 // sent, its acceptance reported, and so on); the zones settle in two or
