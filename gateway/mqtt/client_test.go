@@ -208,6 +208,9 @@ func TestResubscribeAfterBrokerRestart(t *testing.T) {
 
 	b.Stop()
 	require.Eventually(t, func() bool { return !c.Connected() }, 10*time.Second, 20*time.Millisecond)
+	// paho reports the link down before it calls the connection-lost
+	// handler that sets the gauge: wait for the handler, not just the link.
+	require.Eventually(t, func() bool { return downs.Load() == 1 }, 10*time.Second, 20*time.Millisecond)
 	assert.Equal(t, 0.0, testutil.ToFloat64(c.m.connected))
 	b.Start()
 	require.Eventually(t, func() bool { return c.Connected() && ups.Load() == 2 }, 60*time.Second, 50*time.Millisecond)
