@@ -82,9 +82,12 @@ func TestPropertyETRisesWithSolar(t *testing.T) {
 // aerodynamic term moves and it is proportional to es - ea: strictly
 // non-decreasing for any wind (ASCE-EWRI 2005 eq. 1). With estimated Rn a
 // lower ea also raises Rnl (ASCE-EWRI 2005 eq. 44), which can win in calm
-// air; for u2 >= 2 m/s and ea >= 0.5 kPa the aerodynamic gain dominates
-// (derivation: γ Cn/(T+273) u2 > 0.408 Δ σ T^4 fcd 0.07/√ea over 0-45 degC;
-// the property checks it).
+// air. Within one day/night regime, dET/d(-ea) > 0 when
+// γ Cn/(T+273) u2 > 0.408 Δ (1 - G/Rn) σ T^4 fcd 0.07/√ea; the right side
+// is largest at 45 degC (Δ 0.493, σ T^4 2.09 MJ m-2 h-1) with fcd 1 and
+// ea 0.5 kPa: 0.0374, against 0.0078 u2 on the left (γ 0.0673, Cn 37), so
+// u2 >= 5 m/s suffices over 0-45 degC (derivation here; the property
+// checks it).
 func TestPropertyETRisesWithVPD(t *testing.T) {
 	rapid.Check(t, func(t *rapid.T) {
 		st := genStation(t)
@@ -98,7 +101,7 @@ func TestPropertyETRisesWithVPD(t *testing.T) {
 		if measured {
 			h.NetRad, h.HasNetRad = rapid.Float64Range(-0.3, 3).Draw(t, "rn"), true
 		} else {
-			h.Wind2 = rapid.Float64Range(2, 12).Draw(t, "wind2_windy")
+			h.Wind2 = rapid.Float64Range(5, 12).Draw(t, "wind2_windy")
 			lowEa = 0.5
 		}
 		if es <= lowEa {
@@ -109,6 +112,13 @@ func TestPropertyETRisesWithVPD(t *testing.T) {
 		a, b := h, h
 		a.Ea, b.Ea = eaHi, eaLo // b has the larger VPD
 		ra, rb := mustCompute(t, st, ref, a, Carry{}), mustCompute(t, st, ref, b, Carry{})
+		if ra.Day != rb.Day {
+			// Near Rn = 0 the larger Rnl of the drier hour can turn it to
+			// night, where ASCE-EWRI 2005 Table 1 switches Cd (0.24 -> 0.96
+			// short) and G/Rn (0.1 -> 0.5): a step the equation has by
+			// design. The property holds within one regime.
+			t.Skip("the two hours straddle the day/night switch")
+		}
 		if rb.ET < ra.ET-1e-12 {
 			t.Fatalf("ET fell from %v to %v as VPD rose from %v to %v", ra.ET, rb.ET, ra.VPD, rb.VPD)
 		}
@@ -145,9 +155,11 @@ func TestPropertyETRisesWithWindWhenDry(t *testing.T) {
 }
 
 // Night hours stay near zero: for the standardized short reference, nights
-// with VPD up to 1 kPa and wind up to 3 m/s give -0.05..0.1 mm/h (the
+// with VPD up to 1 kPa and wind up to 3 m/s give -0.06..0.1 mm/h (the
 // ASCE-EWRI 2005 night Cd of 0.96 damps the aerodynamic term; bounds:
-// common practice, no source).
+// common practice, no source). The low end is a calm, clear, bone-dry night
+// near 7 degC at altitude: 0.408 Δ 0.5 Rn / (Δ + γ) with Rn = -σ T^4 0.34,
+// about -0.05 mm/h (derivation here).
 func TestPropertyNightNearZero(t *testing.T) {
 	rapid.Check(t, func(t *rapid.T) {
 		st := genStation(t)
@@ -164,15 +176,19 @@ func TestPropertyNightNearZero(t *testing.T) {
 		if r.Day || r.Ra != 0 {
 			t.Fatalf("not a night hour: %+v", r)
 		}
-		if r.ET < -0.05 || r.ET > 0.1 {
-			t.Fatalf("night ET %v mm/h outside -0.05..0.1", r.ET)
+		if r.ET < -0.06 || r.ET > 0.1 {
+			t.Fatalf("night ET %v mm/h outside -0.06..0.1", r.ET)
 		}
 	})
 }
 
 // The 24 hourly Ra of a standard-time day add up to the daily Ra of FAO-56
 // eq. 21 (eq. 28 integrates the same sine over the same day, the clipping at
-// ±ωs keeping only the sunlit part); exact up to rounding at any latitude.
+// ±ωs keeping only the sunlit part). Where sunset falls near standard-time
+// midnight (near the polar day, or a station far from its zone meridian)
+// the standard-time day and the solar day part a few minutes of sunlight
+// belonging to neighbouring dates, so the sums agree to a relative 1e-4,
+// not to rounding (seen: 2e-6 at 69 S in mid-January).
 func TestPropertyHourlyRaSumsToDaily(t *testing.T) {
 	rapid.Check(t, func(t *rapid.T) {
 		off := rapid.IntRange(-12, 14).Draw(t, "utc_offset")
@@ -187,7 +203,7 @@ func TestPropertyHourlyRaSumsToDaily(t *testing.T) {
 			sum += SunForPeriod(st, day.Add(time.Duration(h)*time.Hour), time.Hour).Ra
 		}
 		want := DailyRa(st.Latitude, day.YearDay())
-		if math.Abs(sum-want) > 1e-9*math.Max(1, want) {
+		if math.Abs(sum-want) > 1e-4*math.Max(1, want) {
 			t.Fatalf("sum of hourly Ra %v, daily Ra %v", sum, want)
 		}
 	})
