@@ -29,14 +29,8 @@ func (d *decoding) number(payload []byte) {
 // json decodes {"<value_key>": 21.4, "<time_key>": ...}; other keys are
 // ignored (they carry nothing this sensor is configured for).
 func (d *decoding) json(payload []byte) {
-	obj, err := decodeObject(payload)
-	if err != nil {
-		d.rejectAll(ReasonUnparseable, err)
-		return
-	}
-	at, err := d.objectTime(obj)
-	if err != nil {
-		d.rejectAll(ReasonUnparseable, err)
+	obj, at, ok := d.timedObject(payload)
+	if !ok {
 		return
 	}
 	key := d.b.sensor.ValueKey
@@ -60,14 +54,8 @@ func (d *decoding) json(payload []byte) {
 // with a null value is "no reading" and skipped; a key neither mapped nor
 // ignored is rejected as unknown_field while the other keys pass.
 func (d *decoding) fields(payload []byte) {
-	obj, err := decodeObject(payload)
-	if err != nil {
-		d.rejectAll(ReasonUnparseable, err)
-		return
-	}
-	at, err := d.objectTime(obj)
-	if err != nil {
-		d.rejectAll(ReasonUnparseable, err)
+	obj, at, ok := d.timedObject(payload)
+	if !ok {
 		return
 	}
 	keys := make([]string, 0, len(obj))
@@ -270,6 +258,20 @@ func mustUnderstand(raw json.RawMessage) string {
 	}
 	sort.Strings(keys)
 	return keys[0]
+}
+
+// timedObject decodes a JSON object payload and its reading time; on
+// failure it rejects the whole message and reports false.
+func (d *decoding) timedObject(payload []byte) (map[string]json.RawMessage, time.Time, bool) {
+	obj, err := decodeObject(payload)
+	if err == nil {
+		var at time.Time
+		if at, err = d.objectTime(obj); err == nil {
+			return obj, at, true
+		}
+	}
+	d.rejectAll(ReasonUnparseable, err)
+	return nil, time.Time{}, false
 }
 
 // decodeObject decodes a JSON object into its raw members.
