@@ -1,10 +1,7 @@
 package config
 
 import (
-	"errors"
-	"os"
 	"path/filepath"
-	"strings"
 	"testing"
 	"time"
 
@@ -19,29 +16,7 @@ const alertsDir = "../../testdata/quality/config"
 // TestInvalidAlertConfigs loads every testdata/quality/config/invalid-*.yaml
 // and compares the error with the paired .txt exactly; each file breaks one
 // rule.
-func TestInvalidAlertConfigs(t *testing.T) {
-	files, err := filepath.Glob(filepath.Join(alertsDir, "invalid-*.yaml"))
-	require.NoError(t, err)
-	require.NotEmpty(t, files)
-	for _, f := range files {
-		name := strings.TrimSuffix(filepath.Base(f), ".yaml")
-		t.Run(name, func(t *testing.T) {
-			_, err := Load(f)
-			require.Error(t, err)
-			want := strings.TrimSuffix(f, ".yaml") + ".txt"
-			if *update {
-				require.NoError(t, os.WriteFile(want, []byte(err.Error()+"\n"), 0o644))
-			}
-			b, rerr := os.ReadFile(want)
-			require.NoError(t, rerr, "every invalid-*.yaml needs its expected message in a .txt")
-			assert.Equal(t, strings.TrimRight(string(b), "\n"), err.Error())
-			var ve *ValidationError
-			if errors.As(err, &ve) {
-				assert.Len(t, ve.Problems, 1, "one broken rule per file")
-			}
-		})
-	}
-}
+func TestInvalidAlertConfigs(t *testing.T) { checkInvalidDir(t, alertsDir) }
 
 func TestAlertExample(t *testing.T) {
 	c, err := Load(filepath.Join(alertsDir, "alerts.yaml"))

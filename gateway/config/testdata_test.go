@@ -17,9 +17,15 @@ var update = flag.Bool("update", false, "rewrite testdata/config/invalid-*.txt f
 const configDir = "../../testdata/config"
 
 // TestInvalidConfigs loads every testdata/config/invalid-*.yaml and compares
-// the error with the paired invalid-*.txt, exactly.
-func TestInvalidConfigs(t *testing.T) {
-	files, err := filepath.Glob(filepath.Join(configDir, "invalid-*.yaml"))
+// the error with the paired invalid-*.txt, exactly; each file breaks exactly
+// one rule.
+func TestInvalidConfigs(t *testing.T) { checkInvalidDir(t, configDir) }
+
+// checkInvalidDir loads every invalid-*.yaml in dir, compares its error with
+// the paired .txt exactly (rewritten with -update) and checks that each
+// file breaks one rule.
+func checkInvalidDir(t *testing.T, dir string) {
+	files, err := filepath.Glob(filepath.Join(dir, "invalid-*.yaml"))
 	require.NoError(t, err)
 	require.NotEmpty(t, files)
 	for _, f := range files {
@@ -35,21 +41,11 @@ func TestInvalidConfigs(t *testing.T) {
 			b, err := os.ReadFile(want)
 			require.NoError(t, err, "every invalid-*.yaml needs its expected message in a .txt")
 			assert.Equal(t, strings.TrimRight(string(b), "\n"), got)
+			var ve *ValidationError
+			if errors.As(err, &ve) {
+				assert.Len(t, ve.Problems, 1, "one broken rule per file: %v", ve.Problems)
+			}
 		})
-	}
-}
-
-// TestInvalidConfigsOneProblemEach keeps the invalid files focused: each
-// breaks exactly one rule.
-func TestInvalidConfigsOneProblemEach(t *testing.T) {
-	files, err := filepath.Glob(filepath.Join(configDir, "invalid-*.yaml"))
-	require.NoError(t, err)
-	for _, f := range files {
-		_, err := Load(f)
-		var ve *ValidationError
-		if errors.As(err, &ve) {
-			assert.Len(t, ve.Problems, 1, "%s: %v", f, ve.Problems)
-		}
 	}
 }
 
