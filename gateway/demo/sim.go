@@ -134,9 +134,6 @@ func New(o Options) *Sim {
 // Start returns the first reading time.
 func (s *Sim) Start() time.Time { return s.o.Start }
 
-// Stations returns the simulated station ids.
-func (s *Sim) Stations() []string { return slices.Clone(s.o.Stations) }
-
 // Topic returns a topic under the simulator's root.
 func (s *Sim) Topic(parts ...string) string {
 	return s.o.TopicRoot + "/" + strings.Join(parts, "/")

@@ -49,12 +49,6 @@ type Gate struct {
 	StopET  bool
 }
 
-// HourHandlerFunc adapts a function to HourHandler.
-type HourHandlerFunc func(tx *bbolt.Tx, rec hourly.Record) error
-
-// HandleHour calls f.
-func (f HourHandlerFunc) HandleHour(tx *bbolt.Tx, rec hourly.Record) error { return f(tx, rec) }
-
 // SampleObserverFunc adapts a function to SampleObserver.
 type SampleObserverFunc func(site, station string, s hourly.Sample, now time.Time)
 
@@ -63,7 +57,4 @@ func (f SampleObserverFunc) ObserveSample(site, station string, s hourly.Sample,
 	f(site, station, s, now)
 }
 
-var (
-	_ HourHandler    = HourHandlerFunc(nil)
-	_ SampleObserver = SampleObserverFunc(nil)
-)
+var _ SampleObserver = SampleObserverFunc(nil)

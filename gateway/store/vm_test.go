@@ -9,7 +9,6 @@ import (
 	"net/url"
 	"os/exec"
 	"strconv"
-	"strings"
 	"syscall"
 	"testing"
 	"time"
@@ -148,8 +147,4 @@ func byName(t testing.TB, ss []vmSeries) map[string]vmSeries {
 // uniqueSite returns a site id no other test run uses on a shared server.
 func uniqueSite(prefix string) string {
 	return fmt.Sprintf("%s-%d", prefix, time.Now().UnixNano())
-}
-
-func siteSelector(measurementPrefix, site string) string {
-	return fmt.Sprintf(`{__name__=~"%s.*",site=%q}`, strings.ReplaceAll(measurementPrefix, ".", `\\.`), site)
 }

@@ -97,11 +97,6 @@ type fakeClock struct {
 }
 
 func (c *fakeClock) Now() time.Time { c.mu.Lock(); defer c.mu.Unlock(); return c.now }
-func (c *fakeClock) Set(t time.Time) {
-	c.mu.Lock()
-	defer c.mu.Unlock()
-	c.now = t
-}
 
 func newFixture(t testing.TB, cfg *config.Config, broker Broker, start time.Time) *fixture {
 	t.Helper()
