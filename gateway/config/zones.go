@@ -80,6 +80,15 @@ type ZoneSoil struct {
 	InitialDepletionMM   float64 `yaml:"initial_depletion_mm"` // depletion when the zone is first seen
 }
 
+func (s *ZoneSoil) controller() controllers.Soil {
+	return controllers.Soil{
+		FieldCapacity: s.FieldCapacity, WiltingPoint: s.WiltingPoint,
+		AvailableWater: s.AvailableWaterMMPerM,
+		RootMin:        s.RootDepthMinM, RootMax: s.RootDepthM,
+		P: s.P, AdjustP: s.AdjustP, TriggerMM: s.TriggerMM, RefillFraction: s.RefillFraction,
+	}
+}
+
 // ZoneRain chooses the effective rain method.
 type ZoneRain struct {
 	Method      string  `yaml:"method"` // all (default), none, fraction_above_threshold
@@ -89,12 +98,15 @@ type ZoneRain struct {
 
 // ZoneSystem is the irrigation system and its hard caps.
 type ZoneSystem struct {
-	Type       string           `yaml:"type"` // sprinkler, drip, micro_sprinkler
-	RateMMH    float64          `yaml:"rate_mm_h"`
-	Sprinkler  *SprinklerLayout `yaml:"sprinkler"`
-	Drip       *DripLayout      `yaml:"drip"`
-	Efficiency float64          `yaml:"efficiency"` // default by type: sprinkler 0.75, micro_sprinkler 0.85, drip 0.90
-	FlowLMin   float64          `yaml:"flow_l_min"` // default rate x area / 60
+	Type      string           `yaml:"type"` // sprinkler, drip, micro_sprinkler
+	RateMMH   float64          `yaml:"rate_mm_h"`
+	Sprinkler *SprinklerLayout `yaml:"sprinkler"`
+	Drip      *DripLayout      `yaml:"drip"`
+	// Efficiency is the application efficiency (0, 1]; unset takes the
+	// type's default (sprinkler 0.75, micro_sprinkler 0.85, drip 0.90), and
+	// 0 written out is an error, not a default.
+	Efficiency *float64 `yaml:"efficiency"`
+	FlowLMin   float64  `yaml:"flow_l_min"` // default rate x area / 60
 
 	MinMinutes       int `yaml:"min_minutes"` // default 5
 	MaxMinutes       int `yaml:"max_minutes"` // required
@@ -166,8 +178,9 @@ func (z *Zone) setDefaults() {
 	if z.Rain.Method == "" {
 		z.Rain.Method = string(controllers.RainAll)
 	}
-	if z.System.Efficiency == 0 {
-		z.System.Efficiency = DefaultEfficiency[z.System.Type]
+	if z.System.Efficiency == nil {
+		v := DefaultEfficiency[z.System.Type]
+		z.System.Efficiency = &v
 	}
 	if z.System.MinMinutes == 0 {
 		z.System.MinMinutes = DefaultZoneMinMinutes
@@ -249,15 +262,10 @@ func (z *Zone) Controller(st *Station) (*controllers.Zone, error) {
 		ID: z.ID, Valve: z.Valve, Source: z.Source, Area: z.AreaM2,
 		Loc:   time.FixedZone(fmt.Sprintf("UTC%+g", st.UTCOffset), int(math.Round(st.UTCOffset*3600))),
 		Cover: z.Crop.CoverTransmission,
-		Soil: controllers.Soil{
-			FieldCapacity: z.Soil.FieldCapacity, WiltingPoint: z.Soil.WiltingPoint,
-			AvailableWater: z.Soil.AvailableWaterMMPerM,
-			RootMin:        z.Soil.RootDepthMinM, RootMax: z.Soil.RootDepthM,
-			P: z.Soil.P, AdjustP: z.Soil.AdjustP, TriggerMM: z.Soil.TriggerMM, RefillFraction: z.Soil.RefillFraction,
-		},
-		Rain: controllers.EffectiveRain{Method: controllers.RainMethod(z.Rain.Method), Fraction: z.Rain.Fraction, Threshold: z.Rain.ThresholdMM},
+		Soil:  z.Soil.controller(),
+		Rain:  controllers.EffectiveRain{Method: controllers.RainMethod(z.Rain.Method), Fraction: z.Rain.Fraction, Threshold: z.Rain.ThresholdMM},
 		System: controllers.System{
-			Kind: controllers.SystemKind(z.System.Type), Rate: rate, Efficiency: z.System.Efficiency, Flow: z.System.FlowLMin,
+			Kind: controllers.SystemKind(z.System.Type), Rate: rate, Efficiency: *z.System.Efficiency, Flow: z.System.FlowLMin,
 			MinMinutes: z.System.MinMinutes, MaxMinutes: z.System.MaxMinutes, MaxPerDay: z.System.MaxMinutesPerDay,
 			CycleMinutes: z.System.CycleMinutes, SoakMinutes: z.System.SoakMinutes,
 		},
@@ -480,6 +488,7 @@ func (z *Zone) validateCrop(path string, p *Problems) {
 
 func (z *Zone) validateSoil(path string, p *Problems) {
 	s := &z.Soil
+	before := len(p.list)
 	if s.AvailableWaterMMPerM != 0 {
 		if !(s.AvailableWaterMMPerM > 0 && s.AvailableWaterMMPerM <= 400) {
 			p.Addf(path+".available_water_mm_per_m", "must be within (0, 400], got %s", fmtF(s.AvailableWaterMMPerM))
@@ -515,7 +524,49 @@ func (z *Zone) validateSoil(path string, p *Problems) {
 	if !(s.InitialDepletionMM >= 0) {
 		p.Addf(path+".initial_depletion_mm", "must be >= 0, got %s", fmtF(s.InitialDepletionMM))
 	}
+	if len(p.list) == before && s.TriggerMM > 0 {
+		z.validateTrigger(path, p)
+	}
 }
+
+// validateTrigger refuses an explicit trigger_mm the zone can never reach
+// (at or above TAW, where Ks is 0 and the crop stops drawing water: FAO-56
+// eq. 84) and a refill target (refill_fraction_of_raw x RAW) not below the
+// trigger, where a run would stop at once. TAW changes with the root depth
+// over a season: the trigger must stay below the smallest TAW, and the
+// target below the trigger at the largest RAW (largest TAW, and with
+// adjust_p the largest p the FAO-56 Table 22 footnote gives, at ETc 0).
+func (z *Zone) validateTrigger(path string, p *Problems) {
+	s := &z.Soil
+	cz := controllers.Zone{Soil: s.controller()}
+	if z.Crop.Season != nil {
+		cz.Crop.Season = &controllers.Season{}
+	}
+	lo, hi := cz.TAWRange()
+	if s.TriggerMM >= lo {
+		const why = "the crop stops drawing water (Ks 0) before the depletion reaches the trigger, so the zone would never be watered; lower trigger_mm or leave it unset to trigger at RAW"
+		if lo < hi {
+			p.Addf(path+".trigger_mm", "must be below TAW at the shallowest roots of the season, %s mm (root_depth_min_m %s m; %s mm at root_depth_m %s m), got %s: %s",
+				fmtF(round2(lo)), fmtF(s.RootDepthMinM), fmtF(round2(hi)), fmtF(s.RootDepthM), fmtF(s.TriggerMM), why)
+		} else {
+			p.Addf(path+".trigger_mm", "must be below TAW, %s mm (root_depth_m %s m), got %s: %s",
+				fmtF(round2(hi)), fmtF(s.RootDepthM), fmtF(s.TriggerMM), why)
+		}
+		return
+	}
+	pmax := s.P
+	if s.AdjustP {
+		pmax = math.Min(0.8, s.P+0.04*5) // FAO-56 Table 22 footnote at ETc 0
+	}
+	raw := controllers.RAW(pmax, hi) // FAO-56 eq. 83
+	if target := s.RefillFraction * raw; target >= s.TriggerMM {
+		p.Addf(path+".refill_fraction_of_raw", "%s puts the refill target at %s mm (%s x RAW %s mm at root_depth_m %s m, p %s), not below trigger_mm %s: every run would stop at or above the trigger, so the zone would hardly be watered; use a refill_fraction_of_raw below %s or raise trigger_mm",
+			fmtF(s.RefillFraction), fmtF(round2(target)), fmtF(s.RefillFraction), fmtF(round2(raw)), fmtF(s.RootDepthM), fmtF(pmax),
+			fmtF(s.TriggerMM), fmtF(math.Floor(s.TriggerMM/raw*100)/100))
+	}
+}
+
+func round2(v float64) float64 { return math.Round(v*100) / 100 }
 
 func (z *Zone) validateSystem(path string, p *Problems, site *Site) {
 	s := &z.System
@@ -540,8 +591,12 @@ func (z *Zone) validateSystem(path string, p *Problems, site *Site) {
 	case n == 1 && !(rate > 0 && rate <= 200):
 		p.Addf(path+".rate_mm_h", "must be within (0, 200], got %s", fmtF(rate))
 	}
-	if !(s.Efficiency > 0 && s.Efficiency <= 1) {
-		p.Addf(path+".efficiency", "must be within (0, 1], got %s", fmtF(s.Efficiency))
+	switch e := *s.Efficiency; {
+	case e == 0 && DefaultEfficiency[s.Type] > 0:
+		p.Addf(path+".efficiency", "must be within (0, 1], got 0: 0 would mean no water ever reaches the roots; remove the key to use the %s default %s, or set the measured efficiency",
+			s.Type, fmtF(DefaultEfficiency[s.Type]))
+	case !(e > 0 && e <= 1):
+		p.Addf(path+".efficiency", "must be within (0, 1], got %s", fmtF(e))
 	}
 	if !(s.FlowLMin >= 0) || math.IsInf(s.FlowLMin, 0) {
 		p.Addf(path+".flow_l_min", "must be >= 0, got %s", fmtF(s.FlowLMin))
