@@ -1,7 +1,9 @@
 package config
 
 import (
+	"os"
 	"path/filepath"
+	"strings"
 	"testing"
 	"time"
 
@@ -45,4 +47,44 @@ func TestZonesExample(t *testing.T) {
 	assert.True(t, paddock.AcceptsReference("short"))
 	assert.False(t, paddock.AcceptsReference("tall"))
 	assert.Equal(t, controllers.Source{ID: "river-pump", MaxValves: 2, MaxFlow: 4000}, site.Sources[0].Controller())
+}
+
+// TestWarnConfigs loads every testdata/config/warn-*.yaml, which is valid
+// but has one implausible figure, and compares its warnings with the paired
+// warn-*.txt exactly (rewritten with -update): one warning per file.
+func TestWarnConfigs(t *testing.T) {
+	files, err := filepath.Glob(filepath.Join(configDir, "warn-*.yaml"))
+	require.NoError(t, err)
+	require.NotEmpty(t, files)
+	for _, f := range files {
+		name := strings.TrimSuffix(filepath.Base(f), ".yaml")
+		t.Run(name, func(t *testing.T) {
+			c, err := Load(f)
+			require.NoError(t, err, "a warn-*.yaml must load")
+			ws := c.Warnings()
+			want := strings.TrimSuffix(f, ".yaml") + ".txt"
+			if *update {
+				require.NoError(t, os.WriteFile(want, []byte(strings.Join(ws, "\n")+"\n"), 0o644))
+			}
+			b, err := os.ReadFile(want)
+			require.NoError(t, err, "every warn-*.yaml needs its expected warning in a .txt")
+			assert.Equal(t, strings.TrimRight(string(b), "\n"), strings.Join(ws, "\n"))
+			assert.Len(t, ws, 1, "one warning per file")
+		})
+	}
+}
+
+// TestShippedExamplesHaveNoWarnings keeps the examples plausible: a warning
+// there is fixed in the example, not by weakening the rule.
+func TestShippedExamplesHaveNoWarnings(t *testing.T) {
+	for _, f := range []string{
+		filepath.Join(configDir, "farm.yaml"),
+		filepath.Join(configDir, "minimal.yaml"),
+		filepath.Join("..", "..", "testdata", "zones", "brackenby.yaml"),
+		filepath.Join("..", "..", "deploy", "etpulse.example.yaml"),
+	} {
+		c, err := Load(f)
+		require.NoError(t, err, f)
+		assert.Empty(t, c.Warnings(), f)
+	}
 }
