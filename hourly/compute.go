@@ -42,6 +42,14 @@ const (
 	// (FAO-56 eq. 7 gives about 31 kPa at 9000 m and 107 kPa at -500 m).
 	MinPressure = 30.0
 	MaxPressure = 110.0
+	// MaxMinWind2 bounds Station.MinWind2, m/s (a floor above a light
+	// breeze would no longer be a floor; common practice, no source).
+	MaxMinWind2 = 2.0
+	// MinAeroResistance and MaxAeroResistance bound a fixed aerodynamic
+	// resistance, s/m: 208/ra is then between about 0.1 and 2 m/s of
+	// equivalent wind (common practice, no source).
+	MinAeroResistance = 100.0
+	MaxAeroResistance = 2000.0
 )
 
 // constants of one reference surface for hourly periods.
@@ -91,8 +99,9 @@ func finite(v float64) bool { return !math.IsNaN(v) && !math.IsInf(v, 0) }
 
 // Validate checks a station description: finite latitude -90..90, longitude
 // -180..180, elevation -500..9000 m, UTC offset -14..14 h, a known clear-sky
-// form, turbidity 0..1, night Rs/Rso 0 or 0.3..1 and a given pressure 0 or
-// 30..110 kPa. Errors wrap ErrConfig.
+// form, turbidity 0..1, night Rs/Rso 0 or 0.3..1, a given pressure 0 or
+// 30..110 kPa, a minimum wind 0..MaxMinWind2 and an aerodynamic resistance
+// 0 or MinAeroResistance..MaxAeroResistance. Errors wrap ErrConfig.
 func (st Station) Validate() error {
 	switch {
 	case !finite(st.Latitude) || st.Latitude < -90 || st.Latitude > 90:
@@ -111,6 +120,10 @@ func (st Station) Validate() error {
 		return fmt.Errorf("station night Rs/Rso: %v outside 0.3..1: %w", st.NightRsRso, ErrConfig)
 	case !finite(st.Pressure) || (st.Pressure != 0 && (st.Pressure < MinPressure || st.Pressure > MaxPressure)):
 		return fmt.Errorf("station pressure: %v kPa outside %g..%g: %w", st.Pressure, MinPressure, MaxPressure, ErrConfig)
+	case !finite(st.MinWind2) || st.MinWind2 < 0 || st.MinWind2 > MaxMinWind2:
+		return fmt.Errorf("station minimum wind: %v m/s outside 0..%g (FAO-56 advises 0.5): %w", st.MinWind2, MaxMinWind2, ErrConfig)
+	case !finite(st.AeroResistance) || (st.AeroResistance != 0 && (st.AeroResistance < MinAeroResistance || st.AeroResistance > MaxAeroResistance)):
+		return fmt.Errorf("station aerodynamic resistance: %v s/m outside %g..%g (0 for none): %w", st.AeroResistance, MinAeroResistance, MaxAeroResistance, ErrConfig)
 	}
 	return nil
 }
@@ -150,10 +163,17 @@ func checkFlux(name string, mj, hours float64) error {
 // and the G/Rn ratio. A measured Rn (h.HasNetRad) and/or G (h.HasSoilHeat)
 // replaces the estimate. The cloudiness function fcd is computed from Rs/Rso
 // when the sun at mid-period is above 0.3 rad and returned in the new carry;
-// otherwise the carried value is used, or, when carry is not Valid, the fcd
-// of the station's NightRsRso (FcdDefault); a Valid carry whose Fcd lies
-// outside 0.05..1 is treated as absent and dropped. The caller resets carry
-// to the zero value after a gap in the data if it does not want it bridged.
+// otherwise the carried value is used when CarryUsable (it comes from the
+// last hour with the sun above 0.3 rad before this night, at most
+// MaxCarryAge old), or else the fcd of the station's NightRsRso
+// (FcdDefault, Result.CarryExpired when a valid carry was too old); a Valid
+// carry whose Fcd lies outside 0.05..1 is treated as absent and dropped.
+// Callers pass the last carry whatever gaps there were: the rule decides.
+//
+// An estimated Rs (h.SolarEstimated) is limited to Rso (Result.SolarCapped);
+// u2 below st.MinWind2 is raised to it (Result.WindFloored); with
+// st.AeroResistance the equation uses u2 = 208/ra (FAO-56 eq. 4) instead of
+// the measured wind.
 //
 // Result.ET keeps the value of the equation, which can be slightly negative
 // at night (dew); see Result.WaterUse.
@@ -185,6 +205,9 @@ func Compute(st Station, ref Reference, h Hour, carry Carry) (Result, Carry, err
 	}
 	if !finite(h.Wind2) || h.Wind2 < 0 || h.Wind2 > MaxWind {
 		return r, carry, fmt.Errorf("compute: wind speed at 2 m: %v m/s outside 0..%g: %w", h.Wind2, MaxWind, ErrInput)
+	}
+	if st.AeroResistance > 0 && ref == Tall {
+		return r, carry, fmt.Errorf("compute: aerodynamic resistance %v s/m: a fixed resistance applies to the grass references (short, fao56), not tall: %w", st.AeroResistance, ErrConfig)
 	}
 	rs := h.Solar
 	if !finite(rs) {
@@ -232,6 +255,10 @@ func Compute(st Station, ref Reference, h Hour, carry Carry) (Result, Carry, err
 	} else {
 		r.Rso = RsoSimple(sun.Ra, st.Elevation) // ASCE-EWRI 2005 eq. 47
 	}
+	if h.SolarEstimated {
+		rs, r.SolarCapped = CapAtClearSky(rs, r.Rso)
+	}
+	r.Rs = rs
 
 	switch {
 	case sun.Elevation > HighSunElevation && r.Rso > 0:
@@ -239,12 +266,14 @@ func Compute(st Station, ref Reference, h Hour, carry Carry) (Result, Carry, err
 		r.Fcd = CloudFactor(r.RsRso) // ASCE-EWRI 2005 eq. 45
 		r.FcdSource = FcdComputed
 		carry = Carry{Fcd: r.Fcd, From: h.Start, Valid: true}
-	case carry.Valid && finite(carry.Fcd) && carry.Fcd >= 0.05 && carry.Fcd <= 1:
+	case carry.Valid && finite(carry.Fcd) && carry.Fcd >= 0.05 && carry.Fcd <= 1 && CarryUsable(st, carry, h.Start):
 		r.Fcd = carry.Fcd
 		r.RsRso = (r.Fcd + 0.35) / 1.35
 		r.FcdSource = FcdCarried
 	default:
-		carry = Carry{} // a corrupt carried value is dropped, not passed on
+		// A corrupt or expired carried value is dropped, not passed on.
+		r.CarryExpired = carry.Valid && finite(carry.Fcd) && carry.Fcd >= 0.05 && carry.Fcd <= 1
+		carry = Carry{}
 		r.RsRso = st.NightRsRso
 		if r.RsRso == 0 {
 			r.RsRso = DefaultNightRsRso
@@ -275,11 +304,20 @@ func Compute(st Station, ref Reference, h Hour, carry Carry) (Result, Carry, err
 		r.G = gRatio * r.Rn // FAO-56 eq. 45/46; ASCE-EWRI 2005 eq. 65/66 (from memory)
 	}
 
+	u2 := h.Wind2
+	switch {
+	case st.AeroResistance > 0:
+		u2 = 208 / st.AeroResistance // FAO-56 eq. 4: ra = 208/u2 over the grass reference
+	case u2 < st.MinWind2:
+		u2, r.WindFloored = st.MinWind2, true // FAO-56 ch. 4: u2 >= 0.5 m/s in the equation
+	}
+	r.Wind2 = u2
+
 	// ASCE-EWRI 2005 eq. 1 (FAO-56 eq. 53 with Cn 37, Cd 0.34); Cn is per
 	// hour, so the aerodynamic term scales with the period length.
-	den := r.Delta + r.Gamma*(1+r.Cd*h.Wind2)
+	den := r.Delta + r.Gamma*(1+r.Cd*u2)
 	r.RadiationTerm = 0.408 * r.Delta * (r.Rn - r.G) / den
-	r.AerodynamicTerm = r.Gamma * r.Cn / (t + 273) * h.Wind2 * r.VPD * hours / den
+	r.AerodynamicTerm = r.Gamma * r.Cn / (t + 273) * u2 * r.VPD * hours / den
 	r.ET = r.RadiationTerm + r.AerodynamicTerm
 	return r, carry, nil
 }
@@ -288,4 +326,44 @@ func Compute(st Station, ref Reference, h Hour, carry Carry) (Result, Carry, err
 // should debit (dew does not refill the root zone).
 func (r Result) WaterUse() float64 {
 	return max(r.ET, 0)
+}
+
+// Limits of the hourly method that come from its sources.
+const (
+	// DefaultMinWind2 is the lower limit of u2 FAO-56 advises for the
+	// Penman-Monteith equation: calm air still exchanges vapour through
+	// boundary-layer instability and buoyancy, and "limiting u2 >= 0.5 m/s
+	// in the ETo equation improves the estimation accuracy under the
+	// conditions of very low wind speed" (FAO-56 ch. 4, notes on wind speed
+	// data; wording as quoted by a reference implementation, section from
+	// memory).
+	DefaultMinWind2 = 0.5
+	// MaxCarryAge bounds how old a carried night cloudiness value may be: at
+	// most one night, about 18 h after the last hour with the sun above
+	// 0.3 rad (ASCE-EWRI 2005 carries fcd through the night only; the bound
+	// is common practice, no source).
+	MaxCarryAge = 18 * time.Hour
+	// GreenhouseResistance is a fixed aerodynamic resistance for a reference
+	// computed inside a greenhouse, s/m: Fernández et al. (2010, Irrigation
+	// Science 28, Penman-Monteith under plastic greenhouse with ra = 295 s/m;
+	// from memory).
+	GreenhouseResistance = 295.0
+)
+
+// CarryUsable reports whether carry may be used for the period starting at
+// start at station st: it must be valid, no older than MaxCarryAge, not
+// later than start, and no hour between the carry's hour and start may have
+// had the sun above 0.3 rad at its mid-point (such an hour would have
+// computed a newer value; its data are missing). Live, calc and replay use
+// this one rule, so an outage of any length never bridges a stale value.
+func CarryUsable(st Station, carry Carry, start time.Time) bool {
+	if !carry.Valid || !carry.From.Before(start) || start.Sub(carry.From) > MaxCarryAge {
+		return false
+	}
+	for h := carry.From.Add(time.Hour); h.Before(start); h = h.Add(time.Hour) {
+		if sunForPeriod(st, h, time.Hour).Elevation > HighSunElevation {
+			return false
+		}
+	}
+	return true
 }

@@ -121,7 +121,11 @@ func TestComputeClampsWithinTolerance(t *testing.T) {
 // to eq. 45): computed and carried while the sun is above 0.3 rad, reused
 // below it, a documented default without a carried value.
 func TestCarryRule(t *testing.T) {
+	// 16:00-17:00 is the last hour of 1 October with the sun above 0.3 rad
+	// at its mid-point there (about 0.33 rad; 17:30 is about 0.08 rad).
 	day := ex19Day()
+	day.Start = time.Date(2001, 10, 1, 16, 0, 0, 0, ex19Zone)
+	day.Solar = 1.0
 	res, carry, err := Compute(ex19, Short, day, Carry{})
 	require.NoError(t, err)
 	assert.Equal(t, FcdComputed, res.FcdSource)
@@ -140,7 +144,7 @@ func TestCarryRule(t *testing.T) {
 	// Sun up but below 0.3 rad (06:00-07:00 local standard time, sunrise about
 	// 06:00 there): Ra > 0, the carry is still used.
 	early := ex19Night()
-	early.Start = time.Date(2001, 10, 1, 6, 0, 0, 0, ex19Zone)
+	early.Start = time.Date(2001, 10, 2, 6, 0, 0, 0, ex19Zone)
 	early.Solar = 0.05
 	eres, ecarry, err := Compute(ex19, Short, early, carry)
 	require.NoError(t, err)

@@ -135,9 +135,8 @@ func sunForPeriod(st Station, start time.Time, length time.Duration) SolarPeriod
 	dc := &dayTable[sp.DayOfYear]
 	sp.Dr, sp.Declination, sp.Sc = dc.dr, dc.decl, dc.sc
 
-	lat := st.Latitude * math.Pi / 180 // FAO-56 eq. 22
-	lzMinusLm := st.Longitude - 15*st.UTCOffset
-	w := math.Pi / 12 * ((sp.MidHour + 0.06667*lzMinusLm + sp.Sc) - 12) // FAO-56 eq. 31
+	lat := st.Latitude * math.Pi / 180                                      // FAO-56 eq. 22
+	w := math.Pi / 12 * ((sp.MidHour + 0.06667*lzMinusLm(st) + sp.Sc) - 12) // FAO-56 eq. 31
 	if w < -math.Pi || w >= math.Pi {
 		w = math.Mod(w+math.Pi, 2*math.Pi)
 		if w < 0 {
@@ -199,6 +198,24 @@ func sunForPeriod(st Station, start time.Time, length time.Duration) SolarPeriod
 		sp.Ra = max(ra, 0)
 	}
 	return sp
+}
+
+// lzMinusLm returns Lz - Lm of FAO-56 eq. 31 in degrees west, wrapped to
+// [-180, 180): the zone meridian of the station's standard time (15° per
+// hour of UTC offset) less the station's longitude. Near the date line the
+// plain difference can exceed 180° (e.g. 171.8° W with UTC+13 gives
+// -366.8°); the factor 0.06667 h/degree is not exactly 1/15, so an unwrapped
+// difference would shift solar time by 0.0012 h per 360°.
+func lzMinusLm(st Station) float64 {
+	d := st.Longitude - 15*st.UTCOffset
+	if d >= -180 && d < 180 {
+		return d
+	}
+	d = math.Mod(d+180, 360)
+	if d < 0 {
+		d += 360
+	}
+	return d - 180
 }
 
 // sin and cos of half an hour's solar time angle, π/24.
@@ -339,13 +356,25 @@ func NetLongwave(sigma, t, ea, fcd float64) float64 {
 // Rs), tmax/tmin the extremes of the surrounding 24 h in °C, krs the
 // adjustment coefficient (0.16 interior, 0.19 coastal; FAO-56 eq. 50 notes).
 // A range below zero counts as zero. The Rs returned is not limited to Rso;
-// the caller may cap it.
+// CapAtClearSky (or Hour.SolarEstimated in Compute) limits it.
 func HargreavesSolar(ra, tmax, tmin, krs float64) float64 {
 	d := tmax - tmin
 	if !(d > 0) || !(ra > 0) {
 		return 0
 	}
 	return krs * math.Sqrt(d) * ra // FAO-56 eq. 50
+}
+
+// CapAtClearSky limits an estimated solar radiation rs to the clear-sky
+// radiation rso and reports whether it did: Rs cannot exceed Rso (FAO-56
+// eq. 39 limits Rs/Rso to 1.0). The Hargreaves-Samani estimate (eq. 50)
+// exceeds Rso whenever kRs √ΔT > 0.75 + 2e-5 z, e.g. a 22 °C range with
+// kRs 0.16.
+func CapAtClearSky(rs, rso float64) (float64, bool) {
+	if rs > rso {
+		return rso, true
+	}
+	return rs, false
 }
 
 // SunshineSolar returns Rs from the sunshine duration n (hours), the

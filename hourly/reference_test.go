@@ -108,6 +108,8 @@ func TestFAO56Scalar(t *testing.T) {
 			got = u2
 		case "hargreaves_rs":
 			got = HargreavesSolar(a("ra"), a("tmax"), a("tmin"), a("krs"))
+		case "hargreaves_rs_capped":
+			got, _ = CapAtClearSky(HargreavesSolar(a("ra"), a("tmax"), a("tmin"), a("krs")), RsoSimple(a("ra"), a("z")))
 		default:
 			t.Fatalf("unknown check %q", row["check"])
 		}

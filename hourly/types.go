@@ -58,6 +58,15 @@ type Station struct {
 	// eq. 7 from Elevation. Prepared fills it once, so the per-hour
 	// computation does not repeat a per-station constant.
 	Pressure float64
+	// MinWind2 is the lower limit of the wind speed at 2 m used in the
+	// equation, m/s; zero means none. FAO-56 advises u2 >= 0.5 m/s
+	// (DefaultMinWind2); callers that follow it set it.
+	MinWind2 float64
+	// AeroResistance, when above zero, fixes the aerodynamic resistance ra
+	// in s/m instead of deriving it from the wind: the form for a station
+	// inside a greenhouse (GreenhouseResistance). The measured wind is then
+	// not used and MinWind2 does not apply.
+	AeroResistance float64
 }
 
 // Hour is one period (normally one clock hour) of aggregated weather, the
@@ -80,6 +89,11 @@ type Hour struct {
 	// SoilHeat is a measured soil heat flux over the period, MJ m-2; used when HasSoilHeat.
 	SoilHeat    float64
 	HasSoilHeat bool
+
+	// SolarEstimated says Solar is an estimate (e.g. Hargreaves-Samani,
+	// FAO-56 eq. 50), not a measurement; Compute limits it to the clear-sky
+	// radiation Rso and says so in Result.SolarCapped.
+	SolarEstimated bool
 }
 
 // FcdSource tells where the cloudiness function of an hour came from.
@@ -93,8 +107,9 @@ const (
 	// FcdCarried: night or low sun; the value of the last hour with the sun
 	// above 0.3 rad was carried (ASCE-EWRI 2005, eq. 45 and its notes).
 	FcdCarried FcdSource = "carried"
-	// FcdDefault: no carried value was available (e.g. the first night after
-	// start-up or a gap); a documented default was used and the result says so.
+	// FcdDefault: no usable carried value was available (the first night
+	// after start-up, or a carry older than the current night, see
+	// CarryUsable); a documented default was used and the result says so.
 	FcdDefault FcdSource = "default"
 )
 
@@ -132,6 +147,14 @@ type Result struct {
 
 	NetRadMeasured   bool
 	SoilHeatMeasured bool
+
+	Rs          float64 // incoming solar radiation used, MJ m-2 per period (Hour.Solar, capped at Rso when estimated)
+	SolarCapped bool    // an estimated Rs exceeded Rso and was limited to it
+	Wind2       float64 // wind speed at 2 m used in the equation, m/s (after MinWind2; 208/ra with AeroResistance)
+	WindFloored bool    // the measured u2 was below Station.MinWind2 and the limit was used
+	// CarryExpired: a valid carry was offered but was older than the current
+	// night (see CarryUsable) and the default was used instead.
+	CarryExpired bool
 
 	Cn float64 // numerator constant of the standardized equation
 	Cd float64 // denominator constant of the standardized equation
@@ -205,4 +228,30 @@ type Record struct {
 	Carry  Carry              // cloudiness carry after this hour
 	Flags  []string           // quality flags, e.g. "incomplete:solar", "fcd:default", "alert:rh-drift"
 	Fill   string             // name of a gap-filling method used, empty when none
+}
+
+// Flags a Result adds to its record (Result.Flags), the same words in the
+// live records, replay and calc.
+const (
+	FlagFcdDefault  = "fcd:default"         // no usable carried cloudiness; the start-up default was used
+	FlagFcdExpired  = "fcd:carry-expired"   // a carried cloudiness older than the current night was dropped
+	FlagWindFloor   = "wind:floor"          // u2 was below the station's minimum; the minimum was used
+	FlagSolarCapped = "solar:capped-at-rso" // an estimated Rs exceeded Rso and was limited to it
+)
+
+// Flags appends to dst the flags that describe how r was computed.
+func (r *Result) Flags(dst []string) []string {
+	if r.FcdSource == FcdDefault {
+		dst = append(dst, FlagFcdDefault)
+	}
+	if r.CarryExpired {
+		dst = append(dst, FlagFcdExpired)
+	}
+	if r.WindFloored {
+		dst = append(dst, FlagWindFloor)
+	}
+	if r.SolarCapped {
+		dst = append(dst, FlagSolarCapped)
+	}
+	return dst
 }

@@ -25,7 +25,15 @@ type Station struct {
 	LateWindow   Duration         `yaml:"late_window"`      // default 6h
 	SilenceClose Duration         `yaml:"silence_close"`    // wall-clock fallback, default 15m
 	MaxFuture    Duration         `yaml:"max_future"`       // readings further ahead are rejected, default 5m
-	Sensors      []Sensor         `yaml:"sensors"`
+	// MinWind is the lower limit of u2 in the equation, m/s; unset means
+	// hourly.DefaultMinWind2 (0.5, as FAO-56 advises), 0 turns it off.
+	MinWind *float64 `yaml:"min_wind_m_s"`
+	// InsideGreenhouse: the station stands inside a greenhouse; the reference
+	// is computed with the fixed aerodynamic resistance
+	// hourly.GreenhouseResistance instead of the (near-zero) measured wind.
+	// Short and fao56 references only.
+	InsideGreenhouse bool     `yaml:"inside_greenhouse"`
+	Sensors          []Sensor `yaml:"sensors"`
 }
 
 // Station defaults.
@@ -47,7 +55,22 @@ func (s *Station) HourlyStation() hourly.Station {
 		Elevation: s.Elevation,
 		UTCOffset: s.UTCOffset,
 		ClearSky:  s.ClearSky,
+		MinWind2:  s.minWind(),
+		AeroResistance: func() float64 {
+			if s.InsideGreenhouse {
+				return hourly.GreenhouseResistance
+			}
+			return 0
+		}(),
 	}.Prepared()
+}
+
+// minWind is the configured minimum wind, or the default when unset.
+func (s *Station) minWind() float64 {
+	if s.MinWind == nil {
+		return hourly.DefaultMinWind2
+	}
+	return *s.MinWind
 }
 
 // Format is the payload format of a sensor topic.
@@ -249,6 +272,12 @@ func (s *Station) validate(path string, p *Problems) {
 	}
 	if !(s.MinCoverage > 0 && s.MinCoverage <= 1) {
 		p.Addf(path+".min_coverage", "must be a fraction above 0 and at most 1, got %g", s.MinCoverage)
+	}
+	if w := s.minWind(); !(w >= 0 && w <= hourly.MaxMinWind2) {
+		p.Addf(path+".min_wind_m_s", "must be between 0 (off) and %g m/s (FAO-56 advises 0.5), got %g", hourly.MaxMinWind2, w)
+	}
+	if s.InsideGreenhouse && s.Reference == hourly.Tall {
+		p.Addf(path+".inside_greenhouse", "the greenhouse form (fixed aerodynamic resistance) is for the grass references; set reference to short or fao56, or remove inside_greenhouse")
 	}
 	checkDur := func(key string, d Duration, lo, hi time.Duration) bool {
 		if d.D() < lo || d.D() > hi {

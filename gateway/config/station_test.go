@@ -1,6 +1,7 @@
 package config
 
 import (
+	"os"
 	"path/filepath"
 	"strings"
 	"testing"
@@ -24,7 +25,22 @@ func TestStationDefaults(t *testing.T) {
 	assert.Equal(t, 6*time.Hour, st.LateWindow.D())
 	assert.Equal(t, 15*time.Minute, st.SilenceClose.D())
 	assert.Equal(t, 5*time.Minute, st.MaxFuture.D())
-	assert.Equal(t, hourly.Station{Latitude: 38.5, Longitude: -121.7, Elevation: 20, UTCOffset: -8, ClearSky: hourly.ClearSkySimple}.Prepared(), st.HourlyStation())
+	// FAO-56 ch. 4 advises u2 >= 0.5 m/s in the equation: the default.
+	assert.Equal(t, hourly.Station{Latitude: 38.5, Longitude: -121.7, Elevation: 20, UTCOffset: -8, ClearSky: hourly.ClearSkySimple, MinWind2: 0.5}.Prepared(), st.HourlyStation())
+}
+
+// TestStationWindAndGreenhouse: min_wind_m_s 0 turns the floor off;
+// inside_greenhouse fixes the aerodynamic resistance.
+func TestStationWindAndGreenhouse(t *testing.T) {
+	b, err := os.ReadFile(filepath.Join(configDir, "minimal.yaml"))
+	require.NoError(t, err)
+	src := strings.Replace(string(b), "    sensors:", "    min_wind_m_s: 0\n    inside_greenhouse: true\n    sensors:", 1)
+	require.NotEqual(t, string(b), src)
+	c, err := Parse([]byte(src))
+	require.NoError(t, err)
+	hs := c.Sites[0].Stations[0].HourlyStation()
+	assert.Zero(t, hs.MinWind2)
+	assert.Equal(t, hourly.GreenhouseResistance, hs.AeroResistance)
 }
 
 func TestFarmExample(t *testing.T) {

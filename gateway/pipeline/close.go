@@ -15,7 +15,7 @@ import (
 
 // Flags the pipeline writes into records.
 const (
-	FlagFcdDefault   = "fcd:default"             // no carried cloudiness was available; hourly's default was used
+	FlagFcdDefault   = hourly.FlagFcdDefault     // no usable carried cloudiness; hourly's default was used (see hourly.Result.Flags for the others)
 	FlagETStopped    = "et:stopped"              // the quality gate stopped ET for the hour
 	FlagSolarFill    = "solar:hargreaves-samani" // solar excluded, Hargreaves-Samani estimate used
 	FlagSilenceClose = "closed:silence"          // closed by the wall clock, the station had gone quiet
@@ -271,7 +271,7 @@ func (p *Pipeline) build(sb stationBuckets, st *station, hour time.Time, carryIn
 			rec.Flags = append(rec.Flags, flagIncomplete+string(hourly.Solar))
 			return rec, tmin, tmax, nil
 		}
-		rec.Inputs.Solar = rs
+		rec.Inputs.Solar, rec.Inputs.SolarEstimated = rs, true // hourly.Compute caps it at Rso
 		rec.Fill = FillHargreaves
 		rec.Flags = append(rec.Flags, FlagSolarFill)
 	}
@@ -282,9 +282,7 @@ func (p *Pipeline) build(sb stationBuckets, st *station, hour time.Time, carryIn
 		return rec, tmin, tmax, nil
 	}
 	rec.Complete, rec.Result, rec.Carry = true, &res, carryOut
-	if res.FcdSource == hourly.FcdDefault {
-		rec.Flags = append(rec.Flags, FlagFcdDefault)
-	}
+	rec.Flags = res.Flags(rec.Flags)
 	return rec, tmin, tmax, nil
 }
 

@@ -83,6 +83,8 @@ type inputsJSON struct {
 	NetRadMJ     *num `json:"net_rad_mj_m2,omitempty"`
 	SoilHeatMJ   *num `json:"soil_heat_mj_m2,omitempty"`
 	LengthSecond int  `json:"length_s"`
+	// SolarEstimated: solar_mj_m2 is a fill estimate, not a measurement.
+	SolarEstimated bool `json:"solar_estimated,omitempty"`
 }
 
 type statsJ struct {
@@ -111,6 +113,11 @@ type resultJSON struct {
 	SunElevationRad  num              `json:"sun_elevation_rad"`
 	RaMJ             num              `json:"ra_mj_m2"`
 	RsoMJ            num              `json:"rso_mj_m2"`
+	RsMJ             num              `json:"rs_mj_m2"`
+	SolarCapped      bool             `json:"solar_capped"`
+	Wind2MS          num              `json:"wind2_m_s"`
+	WindFloored      bool             `json:"wind_floored"`
+	CarryExpired     bool             `json:"carry_expired"`
 	RsRso            num              `json:"rs_rso"`
 	Fcd              num              `json:"fcd"`
 	FcdSource        hourly.FcdSource `json:"fcd_source"`
@@ -147,7 +154,8 @@ func toJSON(rec hourly.Record) recordJSON {
 		Inputs: inputsJSON{
 			AirTempC: known(rec.Inputs.AirTemp, rec.Complete), EaKPa: known(rec.Inputs.Ea, rec.Complete),
 			Wind2MS: known(rec.Inputs.Wind2, rec.Complete), SolarMJ: known(rec.Inputs.Solar, rec.Complete),
-			LengthSecond: int(rec.End.Sub(rec.Start) / time.Second),
+			LengthSecond:   int(rec.End.Sub(rec.Start) / time.Second),
+			SolarEstimated: rec.Inputs.SolarEstimated,
 		},
 		RainMM: num(rec.Rain),
 		Stats:  make(map[hourly.Quantity]statsJ, len(rec.Stats)),
@@ -174,7 +182,9 @@ func toJSON(rec hourly.Record) recordJSON {
 			PressureKPa: num(r.Pressure), GammaKPaC: num(r.Gamma), DeltaKPaC: num(r.Delta),
 			EsKPa: num(r.Es), EaKPa: num(r.Ea), VPDKPa: num(r.VPD),
 			SunElevationRad: num(r.SunElevation), RaMJ: num(r.Ra), RsoMJ: num(r.Rso),
-			RsRso: num(r.RsRso), Fcd: num(r.Fcd), FcdSource: r.FcdSource,
+			RsMJ: num(r.Rs), SolarCapped: r.SolarCapped, Wind2MS: num(r.Wind2), WindFloored: r.WindFloored,
+			CarryExpired: r.CarryExpired,
+			RsRso:        num(r.RsRso), Fcd: num(r.Fcd), FcdSource: r.FcdSource,
 			RnsMJ: num(r.Rns), RnlMJ: num(r.Rnl), RnMJ: num(r.Rn), GMJ: num(r.G),
 			NetRadMeasured: r.NetRadMeasured, SoilHeatMeasured: r.SoilHeatMeasured,
 			Cn: num(r.Cn), Cd: num(r.Cd),
@@ -192,7 +202,8 @@ func (j recordJSON) record() hourly.Record {
 		Revision: j.Revision, Complete: j.Complete,
 		Inputs: hourly.Hour{
 			Start: j.Start.UTC(), Length: time.Duration(j.Inputs.LengthSecond) * time.Second,
-			AirTemp: j.Inputs.AirTempC.orZero(), Ea: j.Inputs.EaKPa.orZero(),
+			SolarEstimated: j.Inputs.SolarEstimated,
+			AirTemp:        j.Inputs.AirTempC.orZero(), Ea: j.Inputs.EaKPa.orZero(),
 			Wind2: j.Inputs.Wind2MS.orZero(), Solar: j.Inputs.SolarMJ.orZero(),
 		},
 		Rain:  float64(j.RainMM),
@@ -216,7 +227,9 @@ func (j recordJSON) record() hourly.Record {
 			Pressure: float64(r.PressureKPa), Gamma: float64(r.GammaKPaC), Delta: float64(r.DeltaKPaC),
 			Es: float64(r.EsKPa), Ea: float64(r.EaKPa), VPD: float64(r.VPDKPa),
 			SunElevation: float64(r.SunElevationRad), Ra: float64(r.RaMJ), Rso: float64(r.RsoMJ),
-			RsRso: float64(r.RsRso), Fcd: float64(r.Fcd), FcdSource: r.FcdSource,
+			Rs: float64(r.RsMJ), SolarCapped: r.SolarCapped, Wind2: float64(r.Wind2MS), WindFloored: r.WindFloored,
+			CarryExpired: r.CarryExpired,
+			RsRso:        float64(r.RsRso), Fcd: float64(r.Fcd), FcdSource: r.FcdSource,
 			Rns: float64(r.RnsMJ), Rnl: float64(r.RnlMJ), Rn: float64(r.RnMJ), G: float64(r.GMJ),
 			NetRadMeasured: r.NetRadMeasured, SoilHeatMeasured: r.SoilHeatMeasured,
 			Cn: float64(r.Cn), Cd: float64(r.Cd),
