@@ -70,6 +70,9 @@ func runCheck(_ context.Context, args []string, _ io.Reader, stdout, stderr io.W
 			return exitError
 		}
 	}
+	for _, w := range cfg.Warnings() {
+		fmt.Fprintf(stderr, "warning: %s\n", w)
+	}
 	for _, err := range machineLocalProblems(cfg) {
 		fmt.Fprintf(stderr, "warning: %v (needed by 'etpulse run' on this machine)\n", err)
 	}

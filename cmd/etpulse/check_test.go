@@ -117,3 +117,46 @@ func TestCheckUsage(t *testing.T) {
 	assert.Equal(t, 2, code)
 	assert.Contains(t, errs, "no-such-file.yaml: load config: open no-such-file.yaml: no such file or directory")
 }
+
+func TestCheckZoneSummary(t *testing.T) {
+	code, out, errs := runCmd(t, "check", "--config", "../../testdata/zones/brackenby.yaml")
+	require.Equal(t, 0, code, errs)
+	assert.Empty(t, errs)
+	for _, want := range []string{
+		// Drip pear block: TAW 120 mm x 1 m (FAO-56 eq. 82), RAW 0.5 x 120 (eq. 83);
+		// RAW 60 mm / 0.9 / 1.2267 mm/h = 54.35 h = 3261 min rounded up.
+		"zone pear-block-2  station mast  valve v2  source river-pump  drip  24000 m2  windows 20:00-06:00",
+		"TAW 120 mm (root depth 1 m), RAW 60 mm (p 0.5), trigger 10 mm (trigger_mm), refill target 3 mm (0.05 x RAW)",
+		"rate 1.2267 mm/h (drip layout 6 x 2.3 L/h / 11.25 m2), efficiency 0.9: RAW takes 3261 min",
+		"one window 480 min = 8.83 mm net (20:00-06:00; bounded by max minutes)",
+		"peak month ETc 5.89 mm/day (peak Kc 0.95 x 6.2 mm/day, largest month of fail_safe.fallback_et_mm_day) against a capacity of 8.83 mm/day (480 min/day): keeps up",
+		// Sprinkler paddock with roots growing 0.3 -> 1 m: TAW 39-130 mm,
+		// RAW 0.55 TAW; RAW minutes 21.45 / 0.75 / 5 x 60 = 343.2 -> 344.
+		"TAW 39-130 mm (root depth 0.3-1 m), RAW 21.45-71.5 mm (p 0.55, adjusted daily: FAO-56 Table 22 footnote), trigger 21.45-71.5 mm (RAW), refill target 4.29-14.3 mm (0.2 x RAW)",
+		"rate 5 mm/h (sprinkler layout 60 x 15 L/min / (12 m x 15 m)), efficiency 0.75: RAW takes 344-1144 min",
+		"one window 360 min = 22.5 mm net (21:00-05:00, 3 cycles with 45 min soaks; bounded by max minutes)",
+		// Peak Kc: maize Kc mid 1.20 adjusted by FAO-56 eq. 62 to 1.2708.
+		"peak month ETc 8.9 mm/day (peak Kc 1.27 x 7 mm/day, default peak reference ET) against a capacity of 22.5 mm/day (360 min/day): keeps up",
+	} {
+		assert.Contains(t, out, want)
+	}
+}
+
+func TestCheckPrintsWarningsAndExits0(t *testing.T) {
+	code, out, errs := runCmd(t, "check", "--config", "../../testdata/config/warn-zone-peak-capacity.yaml")
+	assert.Equal(t, 0, code)
+	assert.Contains(t, out, "configuration is valid")
+	assert.Contains(t, out, "against a capacity of 1.8 mm/day (60 min/day): CANNOT KEEP UP")
+	assert.Contains(t, errs, "warning: sites[0].zones[0].system: this zone cannot keep up in the peak month: it can receive 1.8 mm/day net")
+
+	files, err := filepath.Glob("../../testdata/config/warn-*.yaml")
+	require.NoError(t, err)
+	require.NotEmpty(t, files)
+	for _, f := range files {
+		code, _, errs := runCmd(t, "check", "--quiet", "--config", f)
+		assert.Equal(t, 0, code, f)
+		want, err := os.ReadFile(strings.TrimSuffix(f, ".yaml") + ".txt")
+		require.NoError(t, err)
+		assert.Contains(t, errs, "warning: "+strings.TrimSpace(string(want)), f)
+	}
+}

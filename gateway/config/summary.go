@@ -6,7 +6,9 @@ import (
 	"math"
 	"strings"
 	"text/tabwriter"
+	"time"
 
+	"etpulse/controllers"
 	"etpulse/hourly"
 )
 
@@ -68,11 +70,70 @@ func (c *Config) Summary(w io.Writer) error {
 				return fmt.Errorf("config summary: %w", err)
 			}
 		}
+		for i := range s.Zones {
+			zoneSummary(ew, &s.Zones[i], &s)
+		}
 	}
 	if ew.err != nil {
 		return fmt.Errorf("config summary: %w", ew.err)
 	}
 	return nil
+}
+
+// zoneSummary writes a zone's levels, rate, capacity under its caps and its
+// peak-month ETc against that capacity.
+func zoneSummary(ew *errWriter, z *Zone, s *Site) {
+	ew.printf("  zone %s  station %s  valve %s  source %s  %s  %s m2  windows %s\n",
+		z.ID, z.Station, z.Valve, orNone(z.Source), z.System.Type, fmtF(z.AreaM2), strings.Join(z.Windows, ", "))
+	cz, err := z.Controller(s.StationByID(z.Station))
+	if err != nil {
+		ew.printf("    (no summary: %v)\n", err)
+		return
+	}
+	// Levels at the shallowest and the deepest roots, with the tabled p (an
+	// empty balance has no recent ETc to adjust p with).
+	shallow, deep := time.Date(2025, 1, 1, 12, 0, 0, 0, cz.Loc), time.Date(2025, 1, 1, 12, 0, 0, 0, cz.Loc)
+	if se := cz.Crop.Season; se != nil {
+		shallow = time.Date(2025, se.StartMonth, se.StartDay, 12, 0, 0, 0, cz.Loc)
+		deep = shallow.AddDate(0, 0, se.Initial+se.Development)
+	}
+	lo, hi := cz.LevelsAt(&controllers.State{}, shallow), cz.LevelsAt(&controllers.State{}, deep)
+	span := func(a, b float64) string {
+		if a == b {
+			return fmtF(round2(a))
+		}
+		return fmtF(round2(a)) + "-" + fmtF(round2(b))
+	}
+	pNote := "p " + fmtF(z.Soil.P)
+	if z.Soil.AdjustP {
+		pNote += ", adjusted daily: FAO-56 Table 22 footnote"
+	}
+	trig := "RAW"
+	if z.Soil.TriggerMM > 0 {
+		trig = "trigger_mm"
+	}
+	ew.printf("    TAW %s mm (root depth %s m), RAW %s mm (%s), trigger %s mm (%s), refill target %s mm (%s x RAW)\n",
+		span(lo.TAW, hi.TAW), span(lo.Zr, hi.Zr), span(lo.RAW, hi.RAW), pNote, span(lo.Trigger, hi.Trigger), trig,
+		span(lo.Target, hi.Target), fmtF(z.Soil.RefillFraction))
+	ceil := func(m float64) float64 { return math.Ceil(m - 1e-9) }
+	ew.printf("    rate %s mm/h (%s), efficiency %s: RAW takes %s min\n",
+		fmtF(math.Round(cz.System.Rate*1e4)/1e4), z.RateSource(), fmtF(cz.System.Efficiency),
+		span(ceil(cz.MinutesFor(lo.RAW)), ceil(cz.MinutesFor(hi.RAW))))
+	r := cz.BestWindowRun()
+	cycles := ""
+	if r.Cycles > 1 {
+		cycles = fmt.Sprintf(", %d cycles with %d min soaks", r.Cycles, cz.System.SoakMinutes)
+	}
+	ew.printf("    one window %d min = %s mm net (%s%s; bounded by %s)\n", r.Minutes, fmtF(round2(r.Net)), r.Window, cycles, r.Limit)
+	ref, from := z.PeakReferenceET()
+	peak := cz.PeakETc(ref)
+	minutes, capacity := cz.DailyCapacity()
+	verdict := "keeps up"
+	if capacity < peak {
+		verdict = "CANNOT KEEP UP (see the warning)"
+	}
+	ew.printf("    peak month ETc %s mm/day (peak Kc %s x %s mm/day, %s) against a capacity of %s mm/day (%d min/day): %s\n",
+		fmtF(round2(peak)), fmtF(round2(cz.PeakKc())), fmtF(ref), from, fmtF(round2(capacity)), minutes, verdict)
 }
 
 func notes(sn Sensor, ch Channel, first bool) string {
