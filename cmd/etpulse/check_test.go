@@ -19,11 +19,19 @@ func runCmd(t *testing.T, args ...string) (code int, stdout, stderr string) {
 	return code, out.String(), errb.String()
 }
 
-func TestCheckValid(t *testing.T) {
-	t.Setenv("ETPULSE_BROKER_PASSWORD", "x")
-	code, out, errs := runCmd(t, "check", "--config", "../../testdata/config/farm.yaml")
+// checkValid runs check on a valid file that gives no warning and returns
+// its summary.
+func checkValid(t *testing.T, path string) string {
+	t.Helper()
+	code, out, errs := runCmd(t, "check", "--config", path)
 	require.Equal(t, 0, code, errs)
 	assert.Empty(t, errs)
+	return out
+}
+
+func TestCheckValid(t *testing.T) {
+	t.Setenv("ETPULSE_BROKER_PASSWORD", "x")
+	out := checkValid(t, "../../testdata/config/farm.yaml")
 	for _, want := range []string{
 		"configuration is valid",
 		"broker    tcp://127.0.0.1:1883",
@@ -119,9 +127,7 @@ func TestCheckUsage(t *testing.T) {
 }
 
 func TestCheckZoneSummary(t *testing.T) {
-	code, out, errs := runCmd(t, "check", "--config", "../../testdata/zones/brackenby.yaml")
-	require.Equal(t, 0, code, errs)
-	assert.Empty(t, errs)
+	out := checkValid(t, "../../testdata/zones/brackenby.yaml")
 	for _, want := range []string{
 		// Drip pear block: TAW 120 mm x 1 m (FAO-56 eq. 82), RAW 0.5 x 120 (eq. 83);
 		// RAW 60 mm / 0.9 / 1.2267 mm/h = 54.35 h = 3261 min rounded up.
