@@ -38,6 +38,13 @@ Method:
                      full (ASCE-EWRI 2005 Appendix D, with precipitable water)
   --turbidity KT     turbidity for --clear-sky full: 1 clean air (default),
                      0.5 extremely turbid
+  --min-wind U       lower limit of the 2 m wind speed in the equation, m/s
+                     (default 0.5, as FAO-56 advises for calm air; 0 turns
+                     it off); hours where it applied are flagged wind:floor
+  --inside-greenhouse
+                     the station stands inside a greenhouse: the reference
+                     uses a fixed aerodynamic resistance of 295 s/m instead
+                     of the measured wind (short and fao56 only)
 
 Input and output:
   --in FILE          weather CSV (default: stdin)
@@ -50,8 +57,9 @@ Input columns, named in a header line, in any order ('#' starts a comment line):
   time           hour START in station standard time, 2026-07-01T14:00, or
                  RFC 3339 with an offset (2026-07-01T22:00:00Z), which is
                  converted to station standard time. One row per hour, in
-                 increasing order; a missing hour is reported on stderr and
-                 restarts the night cloudiness carry; a repeated or earlier
+                 increasing order; a missing hour is reported on stderr (the
+                 night cloudiness carry survives it only when no hour with
+                 the sun above 0.3 rad was missed); a repeated or earlier
                  time is a bad row.
   air_temp_c     mean air temperature, degC
   exactly one of:
@@ -74,12 +82,15 @@ Output columns (hourly):
   ra_mj     extraterrestrial radiation, MJ/m2
   rso_mj    clear-sky radiation, MJ/m2
   fcd       cloudiness function (night: carried from the last hour with the
-            sun above 0.3 rad, or the 0.8 Rs/Rso default after a start or gap)
+            sun above 0.3 rad before this night, at most 18 h old; else the
+            0.8 Rs/Rso default, flagged)
   rn_mj     net radiation, MJ/m2
   g_mj      soil heat flux, MJ/m2
   es_kpa    saturation vapour pressure, kPa
   ea_kpa    actual vapour pressure, kPa
   day       1 when Rn > 0 (daytime constants), else 0
+  flags     space-separated, as in the live records: fcd:default,
+            fcd:carry-expired, wind:floor
 
 Output columns (--daily):
   date, hours (computed hours of the date), et_mm (sum of hourly ET),
@@ -109,6 +120,8 @@ func runCalc(ctx context.Context, args []string, stdin io.Reader, stdout, stderr
 		windHeight = fs.Float64("wind-height", 2, "")
 		clearSky   = fs.String("clear-sky", string(hourly.ClearSkySimple), "")
 		turbidity  = fs.Float64("turbidity", 1, "")
+		minWind    = fs.Float64("min-wind", hourly.DefaultMinWind2, "")
+		greenhouse = fs.Bool("inside-greenhouse", false, "")
 		daily      = fs.Bool("daily", false, "")
 		skipBad    = fs.Bool("skip-bad", false, "")
 	)
@@ -156,7 +169,16 @@ func runCalc(ctx context.Context, args []string, stdin io.Reader, stdout, stderr
 	if _, err := hourly.WindFactor(*windHeight); err != nil {
 		return usageErr("--wind-height: %v m outside 0.5..100", *windHeight)
 	}
-	st := hourly.Station{Latitude: *lat, Longitude: *lon, Elevation: *elevation, UTCOffset: *utcOffset, ClearSky: cs, Turbidity: *turbidity}
+	if !(*minWind >= 0 && *minWind <= hourly.MaxMinWind2) {
+		return usageErr("--min-wind: %v m/s outside 0..%g (FAO-56 advises 0.5; 0 turns it off)", *minWind, hourly.MaxMinWind2)
+	}
+	st := hourly.Station{Latitude: *lat, Longitude: *lon, Elevation: *elevation, UTCOffset: *utcOffset, ClearSky: cs, Turbidity: *turbidity, MinWind2: *minWind}
+	if *greenhouse {
+		if ref == hourly.Tall {
+			return usageErr("--inside-greenhouse: the fixed-resistance form is for the grass references; use --reference short or fao56")
+		}
+		st.AeroResistance = hourly.GreenhouseResistance
+	}
 	for _, c := range []struct {
 		name   string
 		v      float64

@@ -34,8 +34,9 @@ type Summary struct {
 
 // Calc reads an hourly weather CSV from in, computes the reference ET of
 // every hour with hourly.Compute and writes the results CSV to out. It
-// carries the night cloudiness factor from hour to hour and restarts it
-// after every gap or skipped row, so no value is bridged across missing data.
+// passes the night cloudiness carry from hour to hour across gaps and
+// skipped rows, as the live gateway does; hourly.CarryUsable drops a carry
+// older than the current night, so no value is bridged across a missed day.
 //
 // A bad header is an error wrapping ErrHeader; a bad row (without SkipBad)
 // is a *RowError, including a row that hourly.Compute rejects.
@@ -91,7 +92,6 @@ func Calc(ctx context.Context, in io.Reader, out io.Writer, opt CalcOptions) (Su
 		}
 		sum.Skipped++
 		fmt.Fprintf(report, "skipped %v\n", err)
-		carry = hourly.Carry{} // the skipped hour breaks the sequence
 		return nil
 	}
 
@@ -117,9 +117,8 @@ func Calc(ctx context.Context, in io.Reader, out io.Writer, opt CalcOptions) (Su
 		}
 		if row.Gap > 0 {
 			sum.Gaps++
-			fmt.Fprintf(report, "line %d: %s missing before %s: night cloudiness carry restarted\n",
+			fmt.Fprintf(report, "line %d: %s missing before %s\n",
 				row.Line, describeGap(row.Gap), AppendLocal(nil, row.Hour.Start))
-			carry = hourly.Carry{}
 		}
 		res, next, err := hourly.Compute(opt.Station, opt.Reference, row.Hour, carry)
 		if err != nil {

@@ -36,7 +36,7 @@ func TestCalcDailyPartialDay(t *testing.T) {
 	f = strings.Split(lines[2], ",")
 	assert.Equal(t, "2026-07-15", f[0])
 	assert.Equal(t, "", f[4], "no rain value that day")
-	assert.Equal(t, "line 4: 23 hours missing before 2026-07-15T12:00: night cloudiness carry restarted\n", report.String())
+	assert.Equal(t, "line 4: 23 hours missing before 2026-07-15T12:00\n", report.String())
 }
 
 func TestCalcCancelled(t *testing.T) {

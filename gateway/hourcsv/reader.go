@@ -81,8 +81,9 @@ type Row struct {
 	Rain    float64 // mm over the hour; 0 when absent
 	HasRain bool
 	// Gap is the time missing between the end of the previous good row and
-	// this row's start; 0 for the first row and for contiguous hours. A gap
-	// means the night cloudiness carry must restart.
+	// this row's start; 0 for the first row and for contiguous hours. Calc
+	// reports it; hourly.CarryUsable decides whether the night cloudiness
+	// carry survives it.
 	Gap time.Duration
 }
 

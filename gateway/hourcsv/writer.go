@@ -11,7 +11,7 @@ import (
 )
 
 // HourColumns are the columns of the hourly results CSV, in order.
-var HourColumns = []string{"time", "et_mm", "ra_mj", "rso_mj", "fcd", "rn_mj", "g_mj", "es_kpa", "ea_kpa", "day"}
+var HourColumns = []string{"time", "et_mm", "ra_mj", "rso_mj", "fcd", "rn_mj", "g_mj", "es_kpa", "ea_kpa", "day", "flags"}
 
 // Decimals written for each kind of number. Fixed, so that output files can
 // be compared line by line.
@@ -28,8 +28,9 @@ const (
 // HourWriter writes one CSV line per computed hour. Output is buffered; call
 // Flush at the end.
 type HourWriter struct {
-	w   *bufio.Writer
-	buf []byte
+	w     *bufio.Writer
+	buf   []byte
+	flags []string
 }
 
 // NewHourWriter returns a HourWriter on w. The header line is written by
@@ -58,10 +59,18 @@ func (hw *HourWriter) Write(start time.Time, r *hourly.Result) error {
 		b = AppendFixed(b, f.v, f.prec)
 	}
 	if r.Day {
-		b = append(b, ",1\n"...)
+		b = append(b, ",1,"...)
 	} else {
-		b = append(b, ",0\n"...)
+		b = append(b, ",0,"...)
 	}
+	hw.flags = r.Flags(hw.flags[:0]) // the words of the live records (hourly.Flag*)
+	for i, f := range hw.flags {
+		if i > 0 {
+			b = append(b, ' ')
+		}
+		b = append(b, f...)
+	}
+	b = append(b, '\n')
 	hw.buf = b
 	if _, err := hw.w.Write(b); err != nil {
 		return fmt.Errorf("write hour: %w", err)
