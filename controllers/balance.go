@@ -325,6 +325,15 @@ func (z *Zone) StepHour(st *State, in HourInput) (Step, bool, error) {
 	e.ETcPot = e.Kc * e.ET
 	etc := e.Ks * e.ETcPot // FAO-56 eq. 81
 	eff := z.Rain.Of(in.Rain)
+	if z.Rain.Method == RainFractionAboveDailyThreshold {
+		// The day's effective rain moves by what this hour (or its
+		// revision) adds to the day's total above the threshold.
+		prevRain, prevEff := 0.0, 0.0
+		if prev != nil {
+			prevRain, prevEff = prev.Rain, prev.EffRain
+		}
+		eff = prevEff + z.Rain.OfDay(st.rainOfDay(in.Start, z.Loc), in.Rain-prevRain)
+	}
 	dETc, dEff, dRain, dET := etc, eff, in.Rain, e.ET
 	if prev != nil {
 		dETc, dEff, dRain, dET = etc-prev.ETc, eff-prev.EffRain, in.Rain-prev.Rain, e.ET-prev.ET
@@ -423,16 +432,22 @@ type RecentWeather struct {
 	AirTemp float64 // latest hour's mean air temperature, °C
 	HasWind bool
 	HasTemp bool
+	// Raining: the latest hour (within the last two) had rain.
+	Raining bool
 }
 
-// Recent returns the rain of the hours starting within lookback before now
-// and the wind and temperature of the latest hour that has them (within the
-// last three hours; older values are not used).
+// Recent returns the rain of the hours starting within lookback before now,
+// whether the latest hour had rain, and the wind and temperature of the
+// latest hour that has them (within the last three hours; older values are
+// not used).
 func (st *State) Recent(now time.Time, lookback time.Duration) RecentWeather {
 	var w RecentWeather
 	for _, h := range st.Hours {
 		if !h.Start.Before(now.Add(-lookback)) && h.Start.Before(now) {
 			w.Rain += h.Rain
+		}
+		if h.Start.Before(now) && !h.Start.Before(now.Add(-2*time.Hour)) {
+			w.Raining = h.Rain > 0
 		}
 		if h.Start.Before(now) && !h.Start.Before(now.Add(-3*time.Hour)) {
 			if h.HasWind {
@@ -444,4 +459,55 @@ func (st *State) Recent(now time.Time, lookback time.Duration) RecentWeather {
 		}
 	}
 	return w
+}
+
+// recentHours is the span of applied hours RecentETc averages over, and
+// minRecentHours the fewest it accepts.
+const (
+	recentHours    = KeepHours * time.Hour
+	minRecentHours = 24
+)
+
+// RecentETc returns the crop ET rate expected for the coming hours, mm/h,
+// and how it was found: the mean hourly Kc ETo (unstressed, after any cover
+// factor) of the applied hours of the last 72 h, when at least 24 of them
+// had valid or fallback ET, else the month's fallback ET times the current
+// Kc when the zone has a fallback table; 0 when neither is known (the zone
+// then waters on its trigger alone). A mean over the last days as the
+// forecast of the next is common practice, no source.
+func (z *Zone) RecentETc(st *State, now time.Time) (float64, string) {
+	var sum float64
+	n := 0
+	for _, h := range st.Hours {
+		if !h.Start.Before(now.Add(-recentHours)) && h.Start.Before(now) && (h.Valid || h.Fallback) {
+			sum += h.ETcPot
+			n++
+		}
+	}
+	if n >= minRecentHours {
+		return sum / float64(n), fmt.Sprintf("mean Kc ETo of the last %d h", n)
+	}
+	if z.FailSafe.Fallback {
+		lt := now.In(z.Loc)
+		cover := z.Cover
+		if cover == 0 {
+			cover = 1
+		}
+		return z.Crop.KcOn(lt) * z.FailSafe.FallbackET[lt.Month()-1] / 24 * cover, "Kc times the month's fallback ET"
+	}
+	return 0, ""
+}
+
+// rainOfDay sums the measured rain of the applied hours of t's
+// standard-time day.
+func (st *State) rainOfDay(t time.Time, loc *time.Location) float64 {
+	lt := t.In(loc)
+	day := time.Date(lt.Year(), lt.Month(), lt.Day(), 0, 0, 0, 0, loc)
+	var sum float64
+	for _, h := range st.Hours {
+		if !h.Start.Before(day) && h.Start.Before(day.AddDate(0, 0, 1)) {
+			sum += h.Rain
+		}
+	}
+	return sum
 }

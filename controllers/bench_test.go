@@ -44,7 +44,7 @@ func BenchmarkDecide20Zones(b *testing.B) {
 	}
 	src := []Source{{ID: "lowmead-pump", MaxValves: 2}}
 	for b.Loop() {
-		p := Decide(now, zones, src, ledger, Holds{})
+		p := PlanRuns(now, zones, src, ledger, Holds{})
 		if len(p.Commands) == 0 {
 			b.Fatal("no commands")
 		}

@@ -16,8 +16,10 @@ type WeatherHolds struct {
 	// below FrostC (°C); HasFrost enables. Unknown temperature also holds.
 	FrostC   float64
 	HasFrost bool
-	// RainSkip: no start when the measured rain of the last RainLookback is
-	// at least RainSkipMM (0 disables), or at least the net need.
+	// RainSkip: no start while rain is still falling (the latest hour had
+	// rain) and the rain of the last RainLookback is at least RainSkipMM (0
+	// disables). Rain that has stopped is already in the balance: it lowers
+	// the depletion and is never compared with the need again.
 	RainSkipMM   float64
 	RainLookback time.Duration
 }
@@ -69,10 +71,13 @@ type Skip struct {
 	Alert  bool // the condition should be alerted (e.g. stale ET)
 }
 
-// Plan is the result of Decide.
+// Plan is the result of PlanRuns.
 type Plan struct {
 	Commands []Command
 	Skips    []Skip
+	// Why says, per zone given a run, why it was due (Skip.Reason holds
+	// the text).
+	Why []Skip
 }
 
 // Flow returns the zone's flow, L/min.
@@ -99,8 +104,8 @@ func (z *Zone) Blocked(st *State, holds Holds, now time.Time) (reason string, al
 		return fmt.Sprintf("no valid ET for more than %d h", z.FailSafe.MaxMissingHours), true
 	}
 	w := st.Recent(now, z.Holds.RainLookback)
-	if z.Holds.RainSkipMM > 0 && w.Rain >= z.Holds.RainSkipMM {
-		return fmt.Sprintf("rain %.1f mm in the last %v", w.Rain, z.Holds.RainLookback), false
+	if z.Holds.RainSkipMM > 0 && w.Raining && w.Rain >= z.Holds.RainSkipMM {
+		return fmt.Sprintf("rain still falling: %.1f mm in the last %v", w.Rain, z.Holds.RainLookback), false
 	}
 	if z.System.Kind == Sprinkler && z.Holds.WindMax > 0 {
 		if !w.HasWind {
@@ -130,36 +135,109 @@ type candidate struct {
 	in      ZoneInput
 	lv      Levels
 	minutes int
+	need    float64 // net mm to refill to the target
 	slot    Slot
+	reason  Reason
 }
 
-// Decide plans the commands that are due at now. A zone gets a run when its
-// depletion has reached its trigger, no command of it is still open, no hold
-// applies, and now lies inside one of its windows. The run brings the
-// depletion back to the target: net = Dr - target, gross minutes =
-// net / efficiency / rate (rounded up), limited to MaxMinutes, raised to
-// MinMinutes only when that much water still fits below field capacity,
-// split into cycles with soaks, each cycle placed inside the current window
-// occurrence (shortened to end with it) and inside the day's remaining cap.
+// farFuture ends the source occupancy of a valve that may be open until its
+// controller answers.
+var farFuture = time.Date(9999, 1, 1, 0, 0, 0, 0, time.UTC)
+
+// due decides whether zone z should be watered in slot (the window
+// occurrence holding now) and on which basis: its depletion has reached the
+// trigger; or, projected forward at the recent crop ET, it would cross the
+// trigger before the end of the next window occurrence (waiting would water
+// too late); or the zone's previous run, in an earlier window, was cut short
+// by a cap or its window's end and the remainder is still owed. It returns
+// the reason and its text ("" when the zone is not due).
+func (z *Zone) due(st *State, lv Levels, now time.Time, slot Slot, last *Command) (Reason, string) {
+	r := Reason{DepletionMM: round2(st.Depletion), TriggerMM: round2(lv.Trigger), EtcSinceLastMM: round2(st.EtcSinceRun)}
+	if st.Depletion >= lv.Trigger {
+		r.Basis = BasisTrigger
+		return r, fmt.Sprintf("depletion %.1f mm at or above the trigger %.1f mm", st.Depletion, lv.Trigger)
+	}
+	if rate, how := z.RecentETc(st, now); rate > 0 {
+		if next, ok := SlotAt(z.Windows, z.Loc, NextSlotStart(z.Windows, z.Loc, slot.Start)); ok {
+			proj := st.Depletion + rate*next.End.Sub(now).Hours()
+			if proj >= lv.Trigger {
+				r.Basis, r.ProjectedMM = BasisProjected, round2(proj)
+				return r, fmt.Sprintf("depletion %.1f mm projected to %.1f mm by the end of the next window (%s) at %.2f mm/h (%s), trigger %.1f mm",
+					st.Depletion, proj, next.End.In(z.Loc).Format("2006-01-02 15:04"), rate, how, lv.Trigger)
+			}
+		}
+	}
+	if last != nil && last.Reason.ShortMM > 0 && last.Start.Before(slot.Start) && st.Depletion > lv.Target {
+		r.Basis = BasisCarry
+		return r, fmt.Sprintf("carries over %.1f mm that run %s could not deliver", last.Reason.ShortMM, last.ID)
+	}
+	return r, ""
+}
+
+// lastRuns indexes, per zone, the latest command that ran, may have run or
+// is planned to (cancelled ones and ones that expired unsent never ran; one
+// stopped for a hold was interrupted, not completed).
+func lastRuns(ledger []Command) map[string]*Command {
+	out := map[string]*Command{}
+	for i := range ledger {
+		c := &ledger[i]
+		if c.State == Cancelled || (c.Attempts == 0 && c.State != Planned) || (c.State == Stopped && !c.StopAt.IsZero() && c.StopReason != silentStop) {
+			// Never ran, or stopped at the gateway's request (a hold):
+			// the zone may be watered again once the hold ends.
+			continue
+		}
+		if p := out[c.Zone]; p == nil || c.Start.After(p.Start) {
+			out[c.Zone] = c
+		}
+	}
+	return out
+}
+
+// PlanRuns plans the runs that are due at now (the planning part of
+// Decide). A zone gets a run when it is due (see the bases of Reason: the
+// trigger reached, the trigger projected to be crossed before the next
+// window ends, or a short run carried over), no command of it is open or
+// may still be running, it has had no run in the current window
+// occurrence, no hold applies, and now lies inside one of its windows. The
+// run brings the depletion back to the target: net = Dr - target, gross
+// minutes = net / efficiency / rate (rounded up), limited to MaxMinutes,
+// raised to MinMinutes only when that much water still fits below field
+// capacity, split into cycles with soaks, each cycle placed inside the
+// current window occurrence (shortened to end with it) and inside the day's
+// remaining cap. What the caps or the window leave undelivered is the run's
+// ShortMM, watered in the next window.
 //
 // Sequencing: zones are served most depleted relative to their TAW first
 // (ties by zone id). Each cycle starts at the earliest minute at which its
 // source stays within its valve and flow limits for the whole cycle, counting
-// open commands already in the ledger and, until their latest possible end
-// (expiry plus minutes), sent commands that expired without a report. A cycle that does not fit in the
-// window, or in the day's cap, with at least MinMinutes is left for a later
-// decision. After a command expired without any report, failed, or was
-// stopped at the controller without a stop asked for, the zone is not
-// watered again in the same window occurrence (alerted skip).
-func Decide(now time.Time, zones []ZoneInput, sources []Source, ledger []Command, holds Holds) Plan {
+// open commands already in the ledger, commands being stopped (until their
+// controller answers), and, until their latest possible end (expiry plus
+// minutes), sent commands that expired without a report. A cycle that does
+// not fit in the window, or in the day's cap, with at least MinMinutes is
+// left for a later decision. After a command expired without any report,
+// failed, or was stopped at the controller without a stop asked for, the
+// zone is not watered again in the same window occurrence (alerted skip).
+func PlanRuns(now time.Time, zones []ZoneInput, sources []Source, ledger []Command, holds Holds) Plan {
 	var plan Plan
 	open := map[string]bool{}
 	var troubled []*Command // expired without report, failed, stopped at the controller
 	bySource := map[string][]interval{}
 	for i := range ledger {
 		c := &ledger[i]
-		if (c.State == Expired && !c.Credited && c.Attempts > 0) || c.State == Failed || (c.State == Stopped && c.StopAt.IsZero()) {
+		if (c.State == Expired && !c.Credited && c.Attempts > 0) || c.State == Failed ||
+			(c.State == Stopped && (c.StopAt.IsZero() || c.StopReason == silentStop)) {
 			troubled = append(troubled, c)
+		}
+		if c.Stopping() {
+			// A stop not yet confirmed: the valve may be open for as long
+			// as the controller does not answer.
+			open[c.Zone] = true
+			start := c.Start
+			if !c.StartedAt.IsZero() {
+				start = c.StartedAt
+			}
+			bySource[c.Source] = append(bySource[c.Source], interval{start, farFuture, c.Flow})
+			continue
 		}
 		if c.State == Expired && !c.Credited && c.Attempts > 0 {
 			// It may have run with its reports lost (the valve may even
@@ -189,6 +267,7 @@ func Decide(now time.Time, zones []ZoneInput, sources []Source, ledger []Command
 	for _, s := range sources {
 		srcs[s.ID] = s
 	}
+	last := lastRuns(ledger)
 
 	var cands []candidate
 	for _, in := range zones {
@@ -203,12 +282,15 @@ func Decide(now time.Time, zones []ZoneInput, sources []Source, ledger []Command
 			continue
 		}
 		lv := z.LevelsAt(st, now)
-		if st.Depletion < lv.Trigger {
+		slot, inWindow := SlotAt(z.Windows, z.Loc, now)
+		if !inWindow {
+			if st.Depletion >= lv.Trigger {
+				skip("outside watering windows", false)
+			}
 			continue
 		}
-		slot, ok := SlotAt(z.Windows, z.Loc, now)
-		if !ok {
-			skip("outside watering windows", false)
+		reason, why := z.due(st, lv, now, slot, last[z.ID])
+		if why == "" {
 			continue
 		}
 		if c := troubleIn(troubled, z.ID, slot); c != nil {
@@ -220,11 +302,10 @@ func Decide(now time.Time, zones []ZoneInput, sources []Source, ledger []Command
 			skip(fmt.Sprintf("command %s %s in this window", c.ID, c.State), true)
 			continue
 		}
-		need := st.Depletion - lv.Target
-		if w := st.Recent(now, z.Holds.RainLookback); z.Holds.RainLookback > 0 && w.Rain > 0 && w.Rain >= need {
-			skip(fmt.Sprintf("recent rain %.1f mm covers the need %.1f mm", w.Rain, need), false)
-			continue
+		if c := last[z.ID]; c != nil && !c.Start.Before(slot.Start) && c.Start.Before(slot.End) {
+			continue // one run per window occurrence
 		}
+		need := st.Depletion - lv.Target
 		m := GrossMinutes(need, z.System.Efficiency, z.System.Rate)
 		if m > z.System.MaxMinutes {
 			m = z.System.MaxMinutes
@@ -236,7 +317,8 @@ func Decide(now time.Time, zones []ZoneInput, sources []Source, ledger []Command
 			}
 			m = z.System.MinMinutes
 		}
-		cands = append(cands, candidate{in, lv, m, slot})
+		plan.Why = append(plan.Why, Skip{Zone: z.ID, Reason: why})
+		cands = append(cands, candidate{in, lv, m, need, slot, reason})
 	}
 	sort.SliceStable(cands, func(i, j int) bool {
 		ri := cands[i].in.State.Depletion / cands[i].lv.TAW
@@ -249,7 +331,7 @@ func Decide(now time.Time, zones []ZoneInput, sources []Source, ledger []Command
 
 	used := dayUse(ledger, zoneIndex(zones))
 	for _, c := range cands {
-		z, st := c.in.Zone, c.in.State
+		z := c.in.Zone
 		src := srcs[z.Source]
 		flow := z.Flow()
 		if src.MaxFlow > 0 && flow > src.MaxFlow {
@@ -280,7 +362,7 @@ func Decide(now time.Time, zones []ZoneInput, sources []Source, ledger []Command
 			planned = append(planned, Command{
 				ID: CommandID(z.ID, start, k+1), Zone: z.ID, Valve: z.Valve, Source: z.Source,
 				Minutes: m, Start: start, Expiry: start.Add(z.Policy.StartTolerance), Cycle: k + 1,
-				Reason: Reason{DepletionMM: round2(st.Depletion), TriggerMM: round2(c.lv.Trigger), EtcSinceLastMM: round2(st.EtcSinceRun)},
+				Reason: c.reason,
 				Rate:   z.System.Rate, Efficiency: z.System.Efficiency, Area: z.Area, Flow: flow,
 				State: Planned,
 			})
@@ -292,8 +374,17 @@ func Decide(now time.Time, zones []ZoneInput, sources []Source, ledger []Command
 			plan.Skips = append(plan.Skips, Skip{z.ID, "no room in the window or the day's cap", false})
 			continue
 		}
+		total := 0
+		for _, p := range planned {
+			total += p.Minutes
+		}
+		short := 0.0
+		if d := c.need - NetMM(float64(total), z.System.Rate, z.System.Efficiency); d >= 0.05 {
+			short = round2(d)
+		}
 		for i := range planned {
 			planned[i].Cycles = len(planned)
+			planned[i].Reason.ShortMM = short
 		}
 		plan.Commands = append(plan.Commands, planned...)
 	}

@@ -40,6 +40,10 @@ type CommandPolicy struct {
 	MaxAttempts    int           // sends per command, first one included
 	StartTolerance time.Duration // a controller must not start later than planned start + this (the command's expiry)
 	FinishGrace    time.Duration // wait this long past the planned end for the finished report
+	// OverrunMargin is the share by which a reported run (minutes or
+	// metered volume) may exceed the commanded one before it is an overrun:
+	// alerted, and credited only up to the commanded water plus this share.
+	OverrunMargin float64
 }
 
 // DefaultPolicy is the policy used when none is configured.
@@ -49,21 +53,40 @@ var DefaultPolicy = CommandPolicy{
 	MaxAttempts:    3,
 	StartTolerance: 15 * time.Minute,
 	FinishGrace:    15 * time.Minute,
+	OverrunMargin:  0.10,
 }
 
 // Validate reports an impossible policy.
 func (p CommandPolicy) Validate() error {
-	if p.SendLead < 0 || p.AckTimeout <= 0 || p.MaxAttempts < 1 || p.MaxAttempts > 10 || p.StartTolerance <= 0 || p.FinishGrace < 0 {
-		return fmt.Errorf("command policy: need send lead >= 0, ack timeout > 0, 1-10 attempts, start tolerance > 0, finish grace >= 0, got %+v: %w", p, ErrInput)
+	if p.SendLead < 0 || p.AckTimeout <= 0 || p.MaxAttempts < 1 || p.MaxAttempts > 10 || p.StartTolerance <= 0 || p.FinishGrace < 0 ||
+		!(p.OverrunMargin >= 0 && p.OverrunMargin <= 1) {
+		return fmt.Errorf("command policy: need send lead >= 0, ack timeout > 0, 1-10 attempts, start tolerance > 0, finish grace >= 0, overrun margin 0-1, got %+v: %w", p, ErrInput)
 	}
 	return nil
 }
+
+// Basis names the rule that made a zone due for water.
+type Basis string
+
+// The bases of a run.
+const (
+	BasisTrigger   Basis = "trigger"   // the depletion has reached the trigger
+	BasisProjected Basis = "projected" // it would cross the trigger before the next window ends
+	BasisCarry     Basis = "carry"     // the previous run was cut short by a cap or the window end
+)
 
 // Reason says why a command was planned.
 type Reason struct {
 	DepletionMM    float64 `json:"depletion_mm"`
 	TriggerMM      float64 `json:"trigger_mm"`
 	EtcSinceLastMM float64 `json:"etc_since_last_mm"`
+	// Basis is the rule that made the zone due; ProjectedMM the depletion
+	// projected to the end of the next window (BasisProjected).
+	Basis       Basis   `json:"basis,omitempty"`
+	ProjectedMM float64 `json:"projected_mm,omitempty"`
+	// ShortMM is the net water the run needed but could not deliver (cut by
+	// a cap or the window's end): the next window waters it.
+	ShortMM float64 `json:"short_mm,omitempty"`
 }
 
 // Command is one valve run and its ledger entry. Rate, Efficiency and Area
@@ -161,6 +184,10 @@ type Outcome struct {
 	Credit    bool    // water is to be credited to the zone now
 	CreditMM  float64 // net depth to credit, mm
 	Late      bool    // the report arrived after the command had expired
+	// Overrun names both figures when the report claims more minutes or
+	// volume than the command plus the policy's margin; the credit is then
+	// capped at the commanded water plus the margin.
+	Overrun string
 }
 
 // CreditFor returns the net depth a report credits, mm. Only the water that
@@ -194,13 +221,41 @@ func (c *Command) stoppedMinutes(now time.Time) float64 {
 	return math.Min(now.Sub(c.StartedAt).Minutes(), float64(c.Minutes))
 }
 
-// Apply applies a report received at now. Reports are idempotent: a
-// duplicate, or one older than the known state, changes nothing; water is
-// credited once, on the first finished, failed or stopped report, even when
-// it comes after the command expired (the water did run; the report is
-// late, not wrong). Reports for a command never sent (planned, cancelled, or
-// expired unsent) are refused.
-func (c *Command) Apply(r Report, now time.Time) (Outcome, error) {
+// commandedFlow is the command's flow, L/min.
+func (c *Command) commandedFlow() float64 {
+	if c.Flow > 0 {
+		return c.Flow
+	}
+	return c.Rate * c.Area / 60
+}
+
+// overrun checks a final report against the commanded run plus margin m and
+// returns the figures when it claims more, else "".
+func (c *Command) overrun(r Report, m float64) string {
+	var out []string
+	limit := float64(c.Minutes) * (1 + m)
+	if r.HasMinutes && r.MinutesRun > limit+1e-9 {
+		out = append(out, fmt.Sprintf("reported %.1f min run for a %d min command (limit %.1f min with a %.0f %% margin)",
+			r.MinutesRun, c.Minutes, limit, m*100))
+	}
+	if vol := float64(c.Minutes) * c.commandedFlow(); r.HasVolume && r.VolumeL > vol*(1+m)+1e-9 {
+		out = append(out, fmt.Sprintf("reported volume %.0f L for a %d min command of about %.0f L (limit %.0f L with a %.0f %% margin)",
+			r.VolumeL, c.Minutes, vol, vol*(1+m), m*100))
+	}
+	return strings.Join(out, "; ")
+}
+
+// Apply applies a report received at now under policy p. Reports are
+// idempotent: a duplicate, or one older than the known state, changes
+// nothing; water is credited once, on the first finished, failed or stopped
+// report, even when it comes after the command expired (the water did run;
+// the report is late, not wrong). Reports for a command never sent
+// (planned, cancelled, or expired unsent) are refused. A final report that
+// claims more than the command plus p.OverrunMargin is an overrun: its
+// figures are kept and named in the outcome, and the credit is capped at
+// the commanded water plus the margin (a broken or forged meter must not
+// empty the balance).
+func (c *Command) Apply(r Report, now time.Time, p CommandPolicy) (Outcome, error) {
 	if err := r.Validate(); err != nil {
 		return Outcome{}, err
 	}
@@ -261,36 +316,71 @@ func (c *Command) Apply(r Report, now time.Time) (Outcome, error) {
 		mm = NetMM(estimated, c.Rate, c.Efficiency)
 		c.Note = strings.TrimPrefix(c.Note+"; minutes estimated from the started and stopped report times", "; ")
 	}
+	over := c.overrun(r, p.OverrunMargin)
+	if limit := NetMM(float64(c.Minutes)*(1+p.OverrunMargin), c.Rate, c.Efficiency); mm > limit {
+		mm = limit
+		if over == "" {
+			over = fmt.Sprintf("credit %.2f mm capped at the commanded water plus margin", c.CreditFor(r))
+		}
+	}
+	if over != "" {
+		c.Note = strings.TrimPrefix(c.Note+"; overrun: "+over, "; ")
+	}
 	c.CreditMM = mm
 	c.Credited = true
-	return Outcome{Changed: true, Credit: true, CreditMM: mm, Late: late}, nil
+	return Outcome{Changed: true, Credit: true, CreditMM: mm, Late: late, Overrun: over}, nil
 }
 
-// Action is what the scheduler must do with a command now.
-type Action int
+// Todo is what the scheduler must do with a command now.
+type Todo int
 
-// The actions.
+// The things to do.
 const (
-	None     Action = iota
+	None       Todo = iota
 	Send            // publish (first attempt or a retry) and MarkSent
-	Expire          // no (further) report can be expected: MarkExpired and alert
+	Expire          // no report came before expiry: MarkExpired and alert (it may have run)
 	SendStop        // publish the stop (first attempt or a retry) and MarkStopSent
+	StopSilent      // the latest possible end passed without a final report: RequestStop, then send it
 )
+
+// maxStopInterval bounds the pause between repeated stops to a controller
+// that does not answer. Common practice, no source.
+const maxStopInterval = 30 * time.Minute
+
+// stopInterval is the pause after the n-th stop: the ack timeout for the
+// policy's usual attempts, then doubling up to maxStopInterval.
+func stopInterval(n int, p CommandPolicy) time.Duration {
+	d := p.AckTimeout
+	for i := p.MaxAttempts; i <= n && d < maxStopInterval; i++ {
+		d *= 2
+	}
+	return min(d, maxStopInterval)
+}
+
+// MayRun reports whether the valve of the command may be open or still
+// open: it was sent and no final report (finished, failed, stopped) has
+// come, including a sent command that expired without any report.
+func (c *Command) MayRun() bool {
+	switch c.State {
+	case Sent, Accepted, Started, Expired:
+		return c.Attempts > 0
+	}
+	return false
+}
 
 // Stopping reports whether a stop was asked for and no final report has
 // come yet.
-func (c *Command) Stopping() bool { return !c.StopAt.IsZero() && c.State.Open() }
+func (c *Command) Stopping() bool { return !c.StopAt.IsZero() && c.MayRun() }
 
 // RequestStop asks for the valve of a command that may be running (sent,
-// accepted or started) to be closed now; the scheduler then publishes stops
-// instead of the command (see Due). Planned commands are cancelled instead
-// (Cancel). It reports whether the command changed: asking again for a stop
-// already asked for changes nothing.
+// accepted, started, or expired after being sent) to be closed now; the
+// scheduler then publishes stops instead of the command (see Due) until a
+// final report arrives. Planned commands are cancelled instead (Cancel). It
+// reports whether the command changed: asking again for a stop already
+// asked for changes nothing.
 func (c *Command) RequestStop(now time.Time, reason string) (bool, error) {
-	switch c.State {
-	case Sent, Accepted, Started:
-	default:
-		return false, fmt.Errorf("stop %s: state is %s, only sent, accepted or started commands can be stopped: %w", c.ID, c.State, ErrInput)
+	if !c.MayRun() {
+		return false, fmt.Errorf("stop %s: state is %s, only commands sent and not finished can be stopped: %w", c.ID, c.State, ErrInput)
 	}
 	if !c.StopAt.IsZero() {
 		return false, nil
@@ -306,20 +396,17 @@ func (c *Command) MarkStopSent(now time.Time) {
 }
 
 // Due returns what to do with the command at now under policy p. A command
-// being stopped is never sent again: its stop is sent up to MaxAttempts
-// times, AckTimeout apart, and when no final report came AckTimeout after
-// the last one the command expires (the valve may still be open: alert).
-func (c *Command) Due(now time.Time, p CommandPolicy) Action {
+// being stopped is never sent again: its stop is repeated until a final
+// report arrives, AckTimeout apart for the usual MaxAttempts, then less
+// often (see stopInterval). A command that may be running when its latest
+// possible end has passed (sent or started, without a final report) is
+// stopped (StopSilent).
+func (c *Command) Due(now time.Time, p CommandPolicy) Todo {
 	if c.Stopping() {
-		switch {
-		case c.StopAttempts == 0:
-			return SendStop
-		case now.Before(c.StopSentAt.Add(p.AckTimeout)):
-			return None
-		case c.StopAttempts < p.MaxAttempts:
+		if c.StopAttempts == 0 || !now.Before(c.StopSentAt.Add(stopInterval(c.StopAttempts, p))) {
 			return SendStop
 		}
-		return Expire
+		return None
 	}
 	switch c.State {
 	case Planned:
@@ -338,7 +425,11 @@ func (c *Command) Due(now time.Time, p CommandPolicy) Action {
 		}
 	case Accepted, Started:
 		if !now.Before(c.finishDeadline(p)) {
-			return Expire
+			return StopSilent
+		}
+	case Expired:
+		if c.Attempts > 0 && !now.Before(c.finishDeadline(p)) {
+			return StopSilent
 		}
 	}
 	return None
@@ -350,7 +441,7 @@ func (c *Command) NextWake(p CommandPolicy) time.Time {
 		if c.StopAttempts == 0 {
 			return c.StopAt
 		}
-		return c.StopSentAt.Add(p.AckTimeout)
+		return c.StopSentAt.Add(stopInterval(c.StopAttempts, p))
 	}
 	switch c.State {
 	case Planned:
@@ -364,13 +455,20 @@ func (c *Command) NextWake(p CommandPolicy) time.Time {
 		return c.Expiry
 	case Accepted, Started:
 		return c.finishDeadline(p)
+	case Expired:
+		if c.Attempts > 0 {
+			return c.finishDeadline(p)
+		}
 	}
 	return time.Time{}
 }
 
+// finishDeadline is the latest possible end of the run plus the finish
+// grace: from the started report when one came, else from the expiry (the
+// latest start a controller may make).
 func (c *Command) finishDeadline(p CommandPolicy) time.Time {
 	run := time.Duration(c.Minutes) * time.Minute
-	if c.State == Started && !c.StartedAt.IsZero() {
+	if !c.StartedAt.IsZero() {
 		return c.StartedAt.Add(run + p.FinishGrace)
 	}
 	return c.Expiry.Add(run + p.FinishGrace)

@@ -27,22 +27,22 @@ func TestLedgerHappyPath(t *testing.T) {
 	assert.Equal(t, Sent, c.State)
 	assert.Equal(t, None, c.Due(now.Add(time.Minute), p))
 
-	o, err := c.Apply(Report{ID: c.ID, State: ReportAccepted}, now.Add(10*time.Second))
+	o, err := c.Apply(Report{ID: c.ID, State: ReportAccepted}, now.Add(10*time.Second), DefaultPolicy)
 	require.NoError(t, err)
 	assert.True(t, o.Changed)
-	o, _ = c.Apply(Report{ID: c.ID, State: ReportAccepted}, now.Add(20*time.Second))
+	o, _ = c.Apply(Report{ID: c.ID, State: ReportAccepted}, now.Add(20*time.Second), DefaultPolicy)
 	assert.True(t, o.Duplicate)
-	o, _ = c.Apply(Report{ID: c.ID, State: ReportStarted}, c.Start)
+	o, _ = c.Apply(Report{ID: c.ID, State: ReportStarted}, c.Start, DefaultPolicy)
 	assert.True(t, o.Changed)
 	assert.Equal(t, c.Start.Add(75*time.Minute), c.NextWake(p)) // 60 minutes + 15 grace
 
 	// Finished with minutes: 60/60 x 0.8 mm/h x 0.9 = 0.72 mm net.
-	o, err = c.Apply(Report{ID: c.ID, State: ReportFinished, MinutesRun: 60, HasMinutes: true}, c.Start.Add(time.Hour))
+	o, err = c.Apply(Report{ID: c.ID, State: ReportFinished, MinutesRun: 60, HasMinutes: true}, c.Start.Add(time.Hour), DefaultPolicy)
 	require.NoError(t, err)
 	assert.True(t, o.Credit)
 	assert.InDelta(t, 0.72, o.CreditMM, 1e-12)
 	// The duplicate finished report credits nothing.
-	o, _ = c.Apply(Report{ID: c.ID, State: ReportFinished, MinutesRun: 60, HasMinutes: true}, c.Start.Add(time.Hour))
+	o, _ = c.Apply(Report{ID: c.ID, State: ReportFinished, MinutesRun: 60, HasMinutes: true}, c.Start.Add(time.Hour), DefaultPolicy)
 	assert.True(t, o.Duplicate)
 	assert.False(t, o.Credit)
 	assert.Equal(t, None, c.Due(c.Start.Add(48*time.Hour), p), "a finished command is never sent again")
@@ -53,7 +53,7 @@ func TestLedgerVolumeCredit(t *testing.T) {
 	c := testCommand()
 	c.MarkSent(c.Start)
 	// A meter reading of 4000 L on 5000 m2 = 0.8 mm gross; x 0.9 = 0.72 mm net.
-	o, err := c.Apply(Report{ID: c.ID, State: ReportFinished, MinutesRun: 55, HasMinutes: true, VolumeL: 4000, HasVolume: true}, c.Start)
+	o, err := c.Apply(Report{ID: c.ID, State: ReportFinished, MinutesRun: 55, HasMinutes: true, VolumeL: 4000, HasVolume: true}, c.Start, DefaultPolicy)
 	require.NoError(t, err)
 	assert.InDelta(t, 0.72, o.CreditMM, 1e-12)
 }
@@ -77,11 +77,11 @@ func TestLedgerRetryAndExpiry(t *testing.T) {
 	assert.Equal(t, None, c.Due(c.Expiry.Add(time.Hour), p))
 
 	// A late finished report (the water did run) is credited once.
-	o, err := c.Apply(Report{ID: c.ID, State: ReportFinished}, c.Expiry.Add(time.Hour))
+	o, err := c.Apply(Report{ID: c.ID, State: ReportFinished}, c.Expiry.Add(time.Hour), DefaultPolicy)
 	require.NoError(t, err)
 	assert.True(t, o.Late)
 	assert.InDelta(t, 0.72, o.CreditMM, 1e-12) // commanded minutes assumed
-	o, _ = c.Apply(Report{ID: c.ID, State: ReportFinished}, c.Expiry.Add(time.Hour))
+	o, _ = c.Apply(Report{ID: c.ID, State: ReportFinished}, c.Expiry.Add(time.Hour), DefaultPolicy)
 	assert.False(t, o.Credit)
 }
 
@@ -89,7 +89,7 @@ func TestLedgerFailure(t *testing.T) {
 	c := testCommand()
 	c.MarkSent(c.Start)
 	// Failed after 20 minutes: 20/60 x 0.8 x 0.9 = 0.24 mm credited.
-	o, err := c.Apply(Report{ID: c.ID, State: ReportFailed, MinutesRun: 20, HasMinutes: true, Reason: "low pressure"}, c.Start.Add(20*time.Minute))
+	o, err := c.Apply(Report{ID: c.ID, State: ReportFailed, MinutesRun: 20, HasMinutes: true, Reason: "low pressure"}, c.Start.Add(20*time.Minute), DefaultPolicy)
 	require.NoError(t, err)
 	assert.InDelta(t, 0.24, o.CreditMM, 1e-12)
 	assert.Equal(t, Failed, c.State)
@@ -97,7 +97,7 @@ func TestLedgerFailure(t *testing.T) {
 	assert.Equal(t, 20, c.chargedMinutes())
 	// Failed without any figure: nothing credited, full minutes charged.
 	c2 := testCommand()
-	o, _ = c2.Apply(Report{ID: c2.ID, State: ReportFailed}, c2.Start)
+	o, _ = c2.Apply(Report{ID: c2.ID, State: ReportFailed}, c2.Start, DefaultPolicy)
 	assert.Zero(t, o.CreditMM)
 	assert.Equal(t, 60, c2.chargedMinutes())
 }
@@ -111,12 +111,12 @@ func TestLedgerBadReports(t *testing.T) {
 		{ID: c.ID, State: ReportFinished, HasVolume: true, VolumeL: -5},
 		{ID: "other", State: ReportFinished},
 	} {
-		_, err := c.Apply(r, c.Start)
+		_, err := c.Apply(r, c.Start, DefaultPolicy)
 		assert.ErrorIs(t, err, ErrInput, "%+v", r)
 	}
 	assert.Equal(t, Planned, c.State)
 	require.NoError(t, c.Cancel(c.Start, "hold"))
-	_, err := c.Apply(Report{ID: c.ID, State: ReportAccepted}, c.Start)
+	_, err := c.Apply(Report{ID: c.ID, State: ReportAccepted}, c.Start, DefaultPolicy)
 	assert.ErrorIs(t, err, ErrInput)
 	assert.Zero(t, c.chargedMinutes())
 }

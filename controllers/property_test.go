@@ -136,7 +136,7 @@ func TestPropertyCaps(t *testing.T) {
 				})
 			}
 		}
-		plan := Decide(now, zones, []Source{src}, ledger, Holds{})
+		plan := PlanRuns(now, zones, []Source{src}, ledger, Holds{})
 		byID := zoneIndex(zones)
 		day := dayUse(ledger, byID)
 		event := map[string]int{}

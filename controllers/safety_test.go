@@ -17,7 +17,7 @@ func TestDecideNeverSentExpiredNotCharged(t *testing.T) {
 	st := withWeather(&State{Depletion: 80}, now)
 	unsent := Command{ID: "unsent", Zone: z.ID, Minutes: 240, Start: at(1, 21, 1), Expiry: at(1, 21, 16),
 		State: Expired, Note: "not sent before expiry (gateway down)"}
-	p := Decide(now, []ZoneInput{{z, st}}, nil, []Command{unsent}, Holds{})
+	p := PlanRuns(now, []ZoneInput{{z, st}}, nil, []Command{unsent}, Holds{})
 	require.Len(t, p.Commands, 1)
 	assert.Equal(t, 240, p.Commands[0].Minutes, "the full run: nothing ran today")
 
@@ -40,7 +40,7 @@ func TestDecideExpiredMayStillOccupySource(t *testing.T) {
 	stB := withWeather(&State{Depletion: 80}, now)
 	lostA := Command{ID: "a-lost", Zone: a.ID, Source: a.Source, Flow: a.Flow(), Minutes: 120,
 		Start: at(1, 21, 1), Expiry: at(1, 21, 16), State: Expired, Attempts: 3}
-	p := Decide(now, []ZoneInput{{b, stB}}, []Source{src}, []Command{lostA}, Holds{})
+	p := PlanRuns(now, []ZoneInput{{b, stB}}, []Source{src}, []Command{lostA}, Holds{})
 	require.NotEmpty(t, p.Commands)
 	// A may have started as late as 21:16 and run 120 minutes: 23:16.
 	assert.False(t, p.Commands[0].Start.Before(at(1, 23, 16)), "start %v overlaps the run that may still be open", p.Commands[0].Start)
@@ -48,7 +48,7 @@ func TestDecideExpiredMayStillOccupySource(t *testing.T) {
 	// Once that latest end has passed, it no longer counts.
 	now = at(1, 23, 20)
 	stB = withWeather(&State{Depletion: 80}, now)
-	p = Decide(now, []ZoneInput{{b, stB}}, []Source{src}, []Command{lostA}, Holds{})
+	p = PlanRuns(now, []ZoneInput{{b, stB}}, []Source{src}, []Command{lostA}, Holds{})
 	require.NotEmpty(t, p.Commands)
 	assert.Equal(t, at(1, 23, 21), p.Commands[0].Start)
 }
@@ -63,7 +63,7 @@ func TestDecideAfterStopAtController(t *testing.T) {
 	st := withWeather(&State{Depletion: 80}, now)
 	stopped := Command{ID: "s", Zone: z.ID, Minutes: 60, Start: at(1, 21, 1), State: Stopped, Attempts: 1,
 		RunKnown: true, MinutesRun: 2, Credited: true}
-	p := Decide(now, []ZoneInput{{z, st}}, nil, []Command{stopped}, Holds{})
+	p := PlanRuns(now, []ZoneInput{{z, st}}, nil, []Command{stopped}, Holds{})
 	assert.Empty(t, p.Commands)
 	require.Len(t, p.Skips, 1)
 	assert.Contains(t, p.Skips[0].Reason, "stopped")
@@ -72,7 +72,7 @@ func TestDecideAfterStopAtController(t *testing.T) {
 	// Stopped because the gateway asked (a hold, since released): the next
 	// decision plans a new run, as documented.
 	stopped.StopAt = at(1, 21, 3)
-	p = Decide(now, []ZoneInput{{z, st}}, nil, []Command{stopped}, Holds{})
+	p = PlanRuns(now, []ZoneInput{{z, st}}, nil, []Command{stopped}, Holds{})
 	assert.Len(t, p.Commands, 1)
 }
 
@@ -80,16 +80,16 @@ func TestDecideAfterStopAtController(t *testing.T) {
 // still planned (never published) is refused and credits nothing.
 func TestReportForUnsentCommandRefused(t *testing.T) {
 	c := Command{ID: "x", Zone: "z", Minutes: 30, Rate: 6, Efficiency: 0.9, Area: 1000, State: Planned}
-	out, err := c.Apply(Report{ID: "x", State: ReportFinished, MinutesRun: 30, HasMinutes: true}, at(1, 21, 0))
+	out, err := c.Apply(Report{ID: "x", State: ReportFinished, MinutesRun: 30, HasMinutes: true}, at(1, 21, 0), DefaultPolicy)
 	require.ErrorIs(t, err, ErrInput)
 	assert.False(t, out.Credit)
 	assert.Equal(t, Planned, c.State)
-	_, err = c.Apply(Report{ID: "x", State: ReportStarted}, at(1, 21, 0))
+	_, err = c.Apply(Report{ID: "x", State: ReportStarted}, at(1, 21, 0), DefaultPolicy)
 	require.ErrorIs(t, err, ErrInput)
 
 	// Likewise one that expired without ever being sent.
 	c.State = Expired
-	_, err = c.Apply(Report{ID: "x", State: ReportFinished}, at(1, 21, 0))
+	_, err = c.Apply(Report{ID: "x", State: ReportFinished}, at(1, 21, 0), DefaultPolicy)
 	require.ErrorIs(t, err, ErrInput)
 	assert.False(t, c.Credited)
 }
@@ -148,7 +148,7 @@ func TestSendCheck(t *testing.T) {
 	z.System.MaxMinutes, z.System.MaxPerDay, z.System.CycleMinutes, z.System.SoakMinutes = 240, 300, 120, 30
 	now := at(1, 21, 0)
 	st := withWeather(&State{Depletion: 80}, now)
-	p := Decide(now, []ZoneInput{{z, st}}, nil, nil, Holds{})
+	p := PlanRuns(now, []ZoneInput{{z, st}}, nil, nil, Holds{})
 	require.Len(t, p.Commands, 2) // 240 minutes in two 120-minute cycles
 	led := p.Commands
 	for i := range led {

@@ -15,7 +15,7 @@ func startedCommand(t *testing.T) Command {
 	t.Helper()
 	c := testCommand()
 	c.MarkSent(c.Start.Add(-time.Minute))
-	_, err := c.Apply(Report{ID: c.ID, State: ReportStarted}, c.Start)
+	_, err := c.Apply(Report{ID: c.ID, State: ReportStarted}, c.Start, DefaultPolicy)
 	require.NoError(t, err)
 	return c
 }
@@ -43,7 +43,7 @@ func TestStopPartialRunCredited(t *testing.T) {
 	assert.Equal(t, now.Add(p.AckTimeout), c.NextWake(p))
 
 	// 25 minutes at 0.8 mm/h x 0.9: 25/60 x 0.8 x 0.9 = 0.3 mm net.
-	o, err := c.Apply(Report{ID: c.ID, State: ReportStopped, MinutesRun: 25, HasMinutes: true}, now.Add(10*time.Second))
+	o, err := c.Apply(Report{ID: c.ID, State: ReportStopped, MinutesRun: 25, HasMinutes: true}, now.Add(10*time.Second), DefaultPolicy)
 	require.NoError(t, err)
 	assert.True(t, o.Credit)
 	assert.InDelta(t, 0.3, o.CreditMM, 1e-12)
@@ -54,7 +54,7 @@ func TestStopPartialRunCredited(t *testing.T) {
 
 	// Repeats credit nothing, and nothing is ever sent again.
 	for _, st := range []ReportState{ReportStopped, ReportFinished, ReportFailed} {
-		o, err = c.Apply(Report{ID: c.ID, State: st, MinutesRun: 25, HasMinutes: true}, now.Add(time.Minute))
+		o, err = c.Apply(Report{ID: c.ID, State: st, MinutesRun: 25, HasMinutes: true}, now.Add(time.Minute), DefaultPolicy)
 		require.NoError(t, err)
 		assert.True(t, o.Duplicate)
 		assert.False(t, o.Credit)
@@ -74,18 +74,19 @@ func TestStopAnsweredFinished(t *testing.T) {
 	require.NoError(t, err)
 	c.MarkStopSent(now)
 	// 40/60 x 0.8 x 0.9 = 0.48 mm.
-	o, err := c.Apply(Report{ID: c.ID, State: ReportFinished, MinutesRun: 40, HasMinutes: true}, now.Add(5*time.Second))
+	o, err := c.Apply(Report{ID: c.ID, State: ReportFinished, MinutesRun: 40, HasMinutes: true}, now.Add(5*time.Second), DefaultPolicy)
 	require.NoError(t, err)
 	assert.InDelta(t, 0.48, o.CreditMM, 1e-12)
 	assert.Equal(t, Finished, c.State)
 	assert.Equal(t, None, c.Due(now.Add(time.Hour), DefaultPolicy))
 }
 
-// TestStopRetriesBounded: a controller that never answers the stop gets it
-// MaxAttempts times, AckTimeout apart; then the command expires (alerted by
-// the scheduler, never credited) and nothing more is sent. A late stopped
-// report is still credited once.
-func TestStopRetriesBounded(t *testing.T) {
+// TestStopRepeatedUntilAnswered: a controller that never answers the stop
+// gets it AckTimeout apart for the usual MaxAttempts, then less and less
+// often (at most maxStopInterval apart), for as long as it stays silent: the
+// valve may be open. The command is never quietly expired, never sent
+// again, and a late stopped report is credited once.
+func TestStopRepeatedUntilAnswered(t *testing.T) {
 	p := DefaultPolicy // 3 attempts, 2 minutes apart
 	c := testCommand()
 	sentAt := c.Start.Add(-time.Minute)
@@ -95,35 +96,33 @@ func TestStopRetriesBounded(t *testing.T) {
 	_, err := c.RequestStop(now, "hold")
 	require.NoError(t, err)
 	var stops []time.Time
-	for t0 := now; t0.Before(now.Add(time.Hour)); t0 = t0.Add(10 * time.Second) {
+	for t0 := now; t0.Before(now.Add(3 * time.Hour)); t0 = t0.Add(10 * time.Second) {
 		switch c.Due(t0, p) {
 		case SendStop:
 			c.MarkStopSent(t0)
 			stops = append(stops, t0)
-		case Send:
-			t.Fatalf("command re-sent at %v while stopping", t0)
-		case Expire:
-			c.MarkExpired(t0, "stop not confirmed")
-		}
-		if !c.State.Open() {
-			break
+		case None:
+		default:
+			t.Fatalf("unexpected %v at %v while stopping", c.Due(t0, p), t0)
 		}
 	}
-	require.Len(t, stops, 3)
-	assert.Equal(t, []time.Time{now, now.Add(2 * time.Minute), now.Add(4 * time.Minute)}, stops)
-	assert.Equal(t, Expired, c.State)
-	assert.Equal(t, now.Add(6*time.Minute), c.EndedAt)
+	// 2, 2, then 4, 8, 16, 30, 30, ... minutes apart.
+	require.Greater(t, len(stops), 8)
+	assert.Equal(t, []time.Time{now, now.Add(2 * time.Minute), now.Add(4 * time.Minute), now.Add(8 * time.Minute),
+		now.Add(16 * time.Minute), now.Add(32 * time.Minute), now.Add(62 * time.Minute)}, stops[:7])
+	assert.Equal(t, Sent, c.State)
+	assert.True(t, c.Stopping())
 	assert.Equal(t, 1, c.Attempts, "the run command itself was never sent again")
 	assert.Equal(t, 60, c.chargedMinutes(), "may have run: counts in full")
 
-	o, err := c.Apply(Report{ID: c.ID, State: ReportStopped, MinutesRun: 0, HasMinutes: true}, c.EndedAt.Add(time.Minute))
+	o, err := c.Apply(Report{ID: c.ID, State: ReportStopped, MinutesRun: 0, HasMinutes: true}, now.Add(3*time.Hour), DefaultPolicy)
 	require.NoError(t, err)
-	assert.True(t, o.Late)
 	assert.True(t, o.Credit)
 	assert.Zero(t, o.CreditMM)
 	assert.Equal(t, Stopped, c.State)
+	assert.False(t, c.Stopping())
 	assert.Equal(t, 0, c.chargedMinutes())
-	o, _ = c.Apply(Report{ID: c.ID, State: ReportStopped, MinutesRun: 0, HasMinutes: true}, c.EndedAt.Add(time.Minute))
+	o, _ = c.Apply(Report{ID: c.ID, State: ReportStopped, MinutesRun: 0, HasMinutes: true}, now.Add(3*time.Hour), DefaultPolicy)
 	assert.True(t, o.Duplicate)
 }
 
@@ -133,7 +132,7 @@ func TestStopRetriesBounded(t *testing.T) {
 func TestStopWithoutFigures(t *testing.T) {
 	c := startedCommand(t)
 	// Stopped 30 minutes after started: 30/60 x 0.8 x 0.9 = 0.36 mm.
-	o, err := c.Apply(Report{ID: c.ID, State: ReportStopped}, c.Start.Add(30*time.Minute))
+	o, err := c.Apply(Report{ID: c.ID, State: ReportStopped}, c.Start.Add(30*time.Minute), DefaultPolicy)
 	require.NoError(t, err)
 	assert.InDelta(t, 0.36, o.CreditMM, 1e-12)
 	assert.InDelta(t, 30, c.MinutesRun, 1e-12)
@@ -141,12 +140,12 @@ func TestStopWithoutFigures(t *testing.T) {
 	assert.Equal(t, 60, c.chargedMinutes(), "estimated minutes: the day is charged in full")
 
 	c = startedCommand(t)
-	o, _ = c.Apply(Report{ID: c.ID, State: ReportStopped}, c.Start.Add(3*time.Hour))
+	o, _ = c.Apply(Report{ID: c.ID, State: ReportStopped}, c.Start.Add(3*time.Hour), DefaultPolicy)
 	assert.InDelta(t, 0.72, o.CreditMM, 1e-12, "at most the commanded 60 minutes")
 
 	c = testCommand()
 	c.MarkSent(c.Start.Add(-time.Minute))
-	o, _ = c.Apply(Report{ID: c.ID, State: ReportStopped}, c.Start.Add(10*time.Minute))
+	o, _ = c.Apply(Report{ID: c.ID, State: ReportStopped}, c.Start.Add(10*time.Minute), DefaultPolicy)
 	assert.True(t, o.Credit)
 	assert.Zero(t, o.CreditMM, "never started: nothing credited")
 }
@@ -158,7 +157,7 @@ func TestStopOnlyRunningCommands(t *testing.T) {
 	_, err := c.RequestStop(c.Start, "hold")
 	assert.ErrorIs(t, err, ErrInput)
 	c = startedCommand(t)
-	_, err = c.Apply(Report{ID: c.ID, State: ReportFinished}, c.Start.Add(time.Hour))
+	_, err = c.Apply(Report{ID: c.ID, State: ReportFinished}, c.Start.Add(time.Hour), DefaultPolicy)
 	require.NoError(t, err)
 	_, err = c.RequestStop(c.Start.Add(time.Hour), "hold")
 	assert.ErrorIs(t, err, ErrInput)
@@ -166,8 +165,9 @@ func TestStopOnlyRunningCommands(t *testing.T) {
 }
 
 // TestPropertyStopNeverResends: whatever reports arrive and whenever the
-// scheduler looks, a command asked to stop is never sent again, its stop is
-// sent at most MaxAttempts times, and water is credited at most once.
+// scheduler looks, a command asked to stop is never sent again, its stops
+// are never closer than the stop interval, no stop goes out once a final
+// report came, and water is credited at most once.
 func TestPropertyStopNeverResends(t *testing.T) {
 	rapid.Check(t, func(t *rapid.T) {
 		p := DefaultPolicy
@@ -194,13 +194,25 @@ func TestPropertyStopNeverResends(t *testing.T) {
 				}
 				c.MarkSent(now)
 			case SendStop:
+				if !c.MayRun() {
+					t.Fatalf("stop sent in state %s", c.State)
+				}
+				if c.StopAttempts > 0 && now.Sub(c.StopSentAt) < stopInterval(c.StopAttempts, p) {
+					t.Fatalf("stop %d only %v after the previous one", c.StopAttempts+1, now.Sub(c.StopSentAt))
+				}
+				c.MarkStopSent(now)
+			case StopSilent:
+				if _, err := c.RequestStop(now, "silent"); err != nil {
+					t.Fatalf("silent stop in state %s: %v", c.State, err)
+				}
+				stopped = true
 				c.MarkStopSent(now)
 			case Expire:
 				c.MarkExpired(now, "no report")
 			}
 			if rapid.IntRange(0, 9).Draw(t, "report?") == 0 {
 				st := rapid.SampledFrom([]ReportState{ReportAccepted, ReportStarted, ReportFinished, ReportFailed, ReportStopped}).Draw(t, "state")
-				o, err := c.Apply(Report{ID: c.ID, State: st, MinutesRun: 10, HasMinutes: true}, now)
+				o, err := c.Apply(Report{ID: c.ID, State: st, MinutesRun: 10, HasMinutes: true}, now, DefaultPolicy)
 				if err != nil {
 					t.Fatalf("apply %s: %v", st, err)
 				}
@@ -208,9 +220,6 @@ func TestPropertyStopNeverResends(t *testing.T) {
 					credits++
 				}
 			}
-		}
-		if c.StopAttempts > p.MaxAttempts {
-			t.Fatalf("stop sent %d times, limit %d", c.StopAttempts, p.MaxAttempts)
 		}
 		if credits > 1 {
 			t.Fatalf("credited %d times", credits)

@@ -47,6 +47,9 @@ const (
 	KindZoneETStale   Kind = "zone-et-stale"   // no valid ET for the zone for too long
 	KindValveNoReport Kind = "valve-no-report" // a command (or its stop) got no final report
 	KindValveFailed   Kind = "valve-failed"    // the valve controller reported a failed run
+	KindValveOpen     Kind = "valve-open"      // a valve may be open: its stop is not confirmed
+	KindValveOverrun  Kind = "valve-overrun"   // a report claims more minutes or water than commanded
+	KindValveStopped  Kind = "valve-stopped"   // the controller stopped a run on its own (flow alarm, stop in the field)
 	KindOutboxNearCap Kind = "outbox-near-cap" // the store outbox is close to its size cap
 )
 

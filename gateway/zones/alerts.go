@@ -98,13 +98,59 @@ func noReportAlert(c *controllers.Command, note string, p controllers.CommandPol
 
 // failedAlert describes a failed run report.
 func failedAlert(c *controllers.Command, r controllers.Report) zoneAlert {
+	return runEndAlert(quality.KindValveFailed, quality.SeverityCritical, "failed", "no reason given", c, r)
+}
+
+// runEndAlert describes a run that ended early: verb says how, the report
+// gives the cause (or dflt) and the minutes run.
+func runEndAlert(kind quality.Kind, sev quality.Severity, verb, dflt string, c *controllers.Command, r controllers.Report) zoneAlert {
 	why := r.Reason
 	if why == "" {
-		why = "no reason given"
+		why = dflt
 	}
-	return zoneAlert{kind: quality.KindValveFailed, severity: quality.SeverityCritical,
-		message: fmt.Sprintf("command %s failed after %.1f of %d min: %s", c.ID, c.MinutesRun, c.Minutes, why),
+	return zoneAlert{kind: kind, severity: sev,
+		message: fmt.Sprintf("command %s %s after %.1f of %d min: %s", c.ID, verb, c.MinutesRun, c.Minutes, why),
 		value:   c.MinutesRun, limit: float64(c.Minutes)}
+}
+
+// valveOpenAlert describes a command whose valve may still be open: its
+// run's latest possible end passed without a final report, or its stops go
+// unanswered.
+func valveOpenAlert(c *controllers.Command, reason string) zoneAlert {
+	return zoneAlert{kind: quality.KindValveOpen, severity: quality.SeverityCritical,
+		message: fmt.Sprintf("command %s (valve %s, %d min from %s): %s; stop %d sent, the zone waits for the controller's final report",
+			c.ID, c.Valve, c.Minutes, c.Start.UTC().Format(time.RFC3339), reason, c.StopAttempts),
+		value: float64(c.StopAttempts)}
+}
+
+// overrunAlert describes a report that claims more than the command.
+func overrunAlert(c *controllers.Command, out controllers.Outcome) zoneAlert {
+	return zoneAlert{kind: quality.KindValveOverrun, severity: quality.SeverityWarning,
+		message: fmt.Sprintf("command %s: %s; credited %.2f mm", c.ID, out.Overrun, out.CreditMM),
+		value:   c.MinutesRun, limit: float64(c.Minutes)}
+}
+
+// stoppedAlert describes a run the controller closed on its own.
+func stoppedAlert(c *controllers.Command, r controllers.Report) zoneAlert {
+	return runEndAlert(quality.KindValveStopped, quality.SeverityWarning, "stopped at the controller", "no cause given", c, r)
+}
+
+// clearAfterReport clears the valve alerts a final report answers: any
+// final report shows the controller answers again (no report, valve open);
+// a full run without overrun shows the valve works normally again (failed,
+// stopped in the field, overrun).
+func (s *Service) clearAfterReport(tx *bbolt.Tx, ref *zoneRef, c *controllers.Command, r controllers.Report, out controllers.Outcome, now time.Time) error {
+	text := fmt.Sprintf("command %s reported %s", c.ID, r.State)
+	kinds := []quality.Kind{quality.KindValveNoReport, quality.KindValveOpen}
+	if r.State == controllers.ReportFinished && out.Overrun == "" {
+		kinds = append(kinds, quality.KindValveFailed, quality.KindValveStopped, quality.KindValveOverrun)
+	}
+	for _, k := range kinds {
+		if err := s.clear(tx, ref.site, ref.id, k, now, text, false); err != nil {
+			return err
+		}
+	}
+	return nil
 }
 
 func finiteOr0(v float64) float64 {

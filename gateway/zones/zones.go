@@ -368,6 +368,10 @@ func (s *Service) Run(ctx context.Context) error {
 		if err := s.o.MQTT.Subscribe(t, 1, s.onHold(site)); err != nil {
 			return fmt.Errorf("run zones: subscribe %s: %w", t, err)
 		}
+		wt := s.waterTopic(site.id)
+		if err := s.o.MQTT.Subscribe(wt, 1, s.onWater(site)); err != nil {
+			return fmt.Errorf("run zones: subscribe %s: %w", wt, err)
+		}
 	}
 	s.log.Info("zone scheduler running", "zones", len(s.zones))
 	for {
@@ -433,15 +437,9 @@ func (s *Service) tick(now time.Time) (time.Time, []outgoing, error) {
 	var sends []outgoing
 	var events []Event
 	next := now.Add(time.Hour)
-	soon := func(t time.Time) {
-		if !t.IsZero() && t.After(now) && t.Before(next) {
-			next = t
-		}
-	}
 	s.mu.Lock()
 	resumeAt := s.resumeAt
 	s.mu.Unlock()
-	soon(resumeAt)
 	err := s.o.DB.Update(func(tx *bbolt.Tx) error {
 		b, err := openBuckets(tx)
 		if err != nil {
@@ -467,201 +465,33 @@ func (s *Service) tick(now time.Time) (time.Time, []outgoing, error) {
 				inputs = append(inputs, controllers.ZoneInput{Zone: ref.z, State: &recs[ref.id].State})
 			}
 
-			plan := controllers.Decide(now, inputs, site.sources, ledger, holds)
-			known := map[string]bool{}
-			for _, c := range ledger {
-				known[c.ID] = true
+			d := controllers.Decide(now, controllers.Input{Zones: inputs, Sources: site.sources, Ledger: ledger, Holds: holds, Resume: resumeAt})
+			if d.Wake.Before(next) {
+				next = d.Wake
 			}
-			for i := range plan.Commands {
-				c := plan.Commands[i]
-				if known[c.ID] {
-					continue
-				}
-				ledger = append(ledger, c)
-				if err := putJSON(b.ledger, key(site.id, c.ID), c); err != nil {
+			for _, a := range d.Actions {
+				o, ev, err := s.carryOut(tx, b, site.id, a, now)
+				if err != nil {
 					return err
 				}
-				events = append(events, Event{Time: now, Site: site.id, Zone: c.Zone, Kind: EventPlanned, Command: &c})
-			}
-			skipped := map[string]controllers.Skip{}
-			for _, sk := range plan.Skips {
-				skipped[sk.Zone] = sk
-			}
-			for _, ref := range site.zones {
-				zr := recs[ref.id]
-				sk := skipped[ref.id]
-				if sk.Reason != zr.Skip {
-					zr.Skip = sk.Reason
-					if sk.Reason != "" {
-						lvl := slog.LevelInfo
-						if sk.Alert {
-							lvl = slog.LevelWarn
-						}
-						s.log.Log(context.Background(), lvl, "zone not watered", "site", site.id, "zone", ref.id, "reason", sk.Reason)
-						events = append(events, Event{Time: now, Site: site.id, Zone: ref.id, Kind: EventSkip, Text: sk.Reason})
-					}
-					if err := putJSON(b.state, key(site.id, ref.id), zr); err != nil {
-						return err
-					}
+				if o != nil {
+					sends = append(sends, *o)
 				}
-				stale := ref.z.Stale(&zr.State, now)
-				if stale != zr.StaleAlert {
-					zr.StaleAlert = stale
-					a := staleAlert(ref.z, &zr.State, now)
-					text := a.message
-					if !stale {
-						text = "valid ET; zone active"
-					}
-					s.log.Log(context.Background(), map[bool]slog.Level{true: slog.LevelWarn, false: slog.LevelInfo}[stale], "zone ET alert", "site", site.id, "zone", ref.id, "raised", stale, "text", text)
-					if stale {
-						err = s.raise(tx, site.id, ref.id, a, now)
-					} else {
-						err = s.clear(tx, site.id, ref.id, quality.KindZoneETStale, now, text, true)
-					}
-					if err != nil {
-						return err
-					}
-					if err := putJSON(b.state, key(site.id, ref.id), zr); err != nil {
-						return err
-					}
-					events = append(events, Event{Time: now, Site: site.id, Zone: ref.id, Kind: EventAlert, Text: text})
-				}
-				if !zr.State.LastValid.IsZero() && !stale {
-					soon(zr.State.LastValid.Add(time.Duration(ref.z.FailSafe.MaxMissingHours)*time.Hour + time.Second))
-				}
-				if slot, in := controllers.SlotAt(ref.z.Windows, ref.z.Loc, now); !in {
-					soon(controllers.NextSlotStart(ref.z.Windows, ref.z.Loc, now))
-				} else {
-					// At its end the next window start becomes due (it may be
-					// minutes away, before any hour closes).
-					soon(slot.End)
-				}
-				if h, ok := holds.Zones[ref.id]; ok && !h.Forever {
-					soon(h.Until)
+				if ev.Kind != "" {
+					events = append(events, ev)
 				}
 			}
-			if !holds.Site.Forever {
-				soon(holds.Site.Until)
+			evs, err := s.noteZones(tx, b, site, recs, d.Skips, now)
+			if err != nil {
+				return err
 			}
-
+			events = append(events, evs...)
 			for i := range ledger {
 				c := &ledger[i]
-				if !c.State.Open() {
-					if !c.EndedAt.IsZero() && now.Sub(c.EndedAt) > s.o.LedgerRetention {
-						if err := b.ledger.Delete(key(site.id, c.ID)); err != nil {
-							return fmt.Errorf("prune %s: %w", c.ID, err)
-						}
+				if !c.State.Open() && !c.MayRun() && !c.EndedAt.IsZero() && now.Sub(c.EndedAt) > s.o.LedgerRetention {
+					if err := b.ledger.Delete(key(site.id, c.ID)); err != nil {
+						return fmt.Errorf("prune %s: %w", c.ID, err)
 					}
-					continue
-				}
-				ref := s.zones[site.id+"/"+c.Zone]
-				policy := controllers.DefaultPolicy
-				if ref != nil {
-					policy = ref.z.Policy
-				}
-				changed := false
-				if h, held := holds.For(c.Zone, now); held && c.State != controllers.Planned {
-					// A command sent before the hold (or re-sent in a race
-					// with it) is stopped, never re-sent.
-					ok, err := c.RequestStop(now, holdText(h))
-					if err != nil {
-						return err
-					}
-					changed = changed || ok
-				}
-				switch c.Due(now, policy) {
-				case controllers.SendStop:
-					c.MarkStopSent(now)
-					outcome := "stop_sent"
-					if c.StopAttempts > 1 {
-						outcome = "stop_resent"
-					}
-					o, err := s.queue(tx, site.id, ref, c, stopMessage(c), outcome, now)
-					if err != nil {
-						return err
-					}
-					o.stop = true
-					sends = append(sends, o)
-					changed = true
-				case controllers.Send:
-					if c.Attempts > 0 && now.Before(resumeAt) {
-						break
-					}
-					if c.State == controllers.Planned {
-						reason := "zone no longer configured"
-						if ref != nil {
-							reason, _ = ref.z.Blocked(&recs[ref.id].State, holds, now)
-						}
-						if reason == "" && ref != nil {
-							// Planned under a configuration since changed (a
-							// restart) or over a cap lowered since: never
-							// sent; the zone is planned again at once.
-							if reason = ref.z.SendCheck(c, ledger); reason != "" {
-								soon(now.Add(time.Second))
-							}
-						}
-						if reason != "" {
-							if err := c.Cancel(now, reason); err != nil {
-								return err
-							}
-							s.m.command(site.id, c.Zone, "cancelled")
-							if err := s.enqueue(tx, commandPoint(site.id, c, "cancelled", now)); err != nil {
-								return err
-							}
-							cc := *c
-							events = append(events, Event{Time: now, Site: site.id, Zone: c.Zone, Kind: EventCancelled, Command: &cc, Text: reason})
-							changed = true
-							break
-						}
-					}
-					first := c.Attempts == 0
-					c.MarkSent(now)
-					outcome := "sent"
-					if !first {
-						outcome = "resent"
-					}
-					o, err := s.queue(tx, site.id, ref, c, commandMessage(c), outcome, now)
-					if err != nil {
-						return err
-					}
-					o.first = first
-					sends = append(sends, o)
-					changed = true
-				case controllers.Expire:
-					note := "no report before expiry"
-					switch {
-					case c.Stopping():
-						note = fmt.Sprintf("stop not confirmed after %d attempts (%s); the valve may still be open", c.StopAttempts, c.StopReason)
-					case c.State == controllers.Planned:
-						note = "not sent before expiry (gateway down)"
-					case c.State != controllers.Sent:
-						note = "no finished report (" + string(c.State) + ")"
-					}
-					alert := noReportAlert(c, note, policy)
-					c.MarkExpired(now, note)
-					s.m.command(site.id, c.Zone, "expired")
-					s.log.Warn("command expired, not credited", "site", site.id, "zone", c.Zone, "id", c.ID, "attempts", c.Attempts, "note", note)
-					if err := s.enqueue(tx, commandPoint(site.id, c, "expired", now)); err != nil {
-						return err
-					}
-					if err := s.raise(tx, site.id, c.Zone, alert, now); err != nil {
-						return err
-					}
-					cc := *c
-					events = append(events, Event{Time: now, Site: site.id, Zone: c.Zone, Kind: EventExpired, Command: &cc, Text: note})
-					changed = true
-				}
-				if changed {
-					if err := putJSON(b.ledger, key(site.id, c.ID), c); err != nil {
-						return err
-					}
-				}
-				if c.State.Open() {
-					w := c.NextWake(policy)
-					if c.State == controllers.Sent && w.Before(resumeAt) {
-						w = resumeAt
-					}
-					soon(w)
 				}
 			}
 		}
@@ -682,6 +512,129 @@ func (s *Service) tick(now time.Time) (time.Time, []outgoing, error) {
 		next = now.Add(time.Second)
 	}
 	return next, sends, nil
+}
+
+// carryOut carries out one action of the decision function in tx: the
+// command is stored as the action left it, counted, written to the store,
+// alerted as the action's concern asks, and returned as a message to publish
+// once tx has commits (send, resend, stop). Adapters execute; the decision
+// was made in controllers.Decide.
+func (s *Service) carryOut(tx *bbolt.Tx, b buckets, site string, a controllers.Action, now time.Time) (*outgoing, Event, error) {
+	c := a.Command
+	ref := s.zones[site+"/"+c.Zone]
+	ev := Event{Time: now, Site: site, Zone: c.Zone, Command: &c, Text: a.Reason}
+	if err := putJSON(b.ledger, key(site, c.ID), c); err != nil {
+		return nil, ev, err
+	}
+	var out *outgoing
+	switch a.Kind {
+	case controllers.ActPlan:
+		ev.Kind = EventPlanned
+		s.log.Info("run planned", "site", site, "zone", c.Zone, "id", c.ID, "start", c.Start, "minutes", c.Minutes,
+			"cycle", c.Cycle, "cycles", c.Cycles, "basis", c.Reason.Basis, "reason", a.Reason)
+	case controllers.ActSend, controllers.ActResend:
+		outcome := "sent"
+		if a.Kind == controllers.ActResend {
+			outcome = "resent"
+		}
+		o, err := s.queue(tx, site, ref, &c, commandMessage(&c), outcome, now)
+		if err != nil {
+			return nil, ev, err
+		}
+		o.first = a.Kind == controllers.ActSend
+		out = &o
+		ev.Kind = "" // reported by publish once it has gone out
+	case controllers.ActStop:
+		outcome := "stop_sent"
+		if c.StopAttempts > 1 {
+			outcome = "stop_resent"
+		}
+		o, err := s.queue(tx, site, ref, &c, stopMessage(&c), outcome, now)
+		if err != nil {
+			return nil, ev, err
+		}
+		o.stop = true
+		out = &o
+		ev.Kind = ""
+		if a.Concern == controllers.ConcernValveOpen {
+			s.log.Error("valve may be open: stop not confirmed", "site", site, "zone", c.Zone, "id", c.ID, "attempt", c.StopAttempts, "reason", a.Reason)
+			if err := s.raise(tx, site, c.Zone, valveOpenAlert(&c, a.Reason), now); err != nil {
+				return nil, ev, err
+			}
+		}
+	case controllers.ActCancel:
+		s.m.command(site, c.Zone, "cancelled")
+		if err := s.enqueue(tx, commandPoint(site, &c, "cancelled", now)); err != nil {
+			return nil, ev, err
+		}
+		ev.Kind = EventCancelled
+	case controllers.ActExpire:
+		policy := controllers.DefaultPolicy
+		if ref != nil {
+			policy = ref.z.Policy
+		}
+		s.m.command(site, c.Zone, "expired")
+		s.log.Warn("command expired, not credited", "site", site, "zone", c.Zone, "id", c.ID, "attempts", c.Attempts, "note", c.Note)
+		if err := s.enqueue(tx, commandPoint(site, &c, "expired", now)); err != nil {
+			return nil, ev, err
+		}
+		if err := s.raise(tx, site, c.Zone, noReportAlert(&c, c.Note, policy), now); err != nil {
+			return nil, ev, err
+		}
+		ev.Kind = EventExpired
+	}
+	return out, ev, nil
+}
+
+// noteZones records, per zone of site, a changed skip reason (logged once)
+// and the raising or clearing of the stale-ET alert.
+func (s *Service) noteZones(tx *bbolt.Tx, b buckets, site *siteRef, recs map[string]*zoneRecord, skips []controllers.Skip, now time.Time) ([]Event, error) {
+	var events []Event
+	skipped := map[string]controllers.Skip{}
+	for _, sk := range skips {
+		skipped[sk.Zone] = sk
+	}
+	for _, ref := range site.zones {
+		zr := recs[ref.id]
+		sk := skipped[ref.id]
+		changed := false
+		if sk.Reason != zr.Skip {
+			zr.Skip, changed = sk.Reason, true
+			if sk.Reason != "" {
+				lvl := slog.LevelInfo
+				if sk.Alert {
+					lvl = slog.LevelWarn
+				}
+				s.log.Log(context.Background(), lvl, "zone not watered", "site", site.id, "zone", ref.id, "reason", sk.Reason)
+				events = append(events, Event{Time: now, Site: site.id, Zone: ref.id, Kind: EventSkip, Text: sk.Reason})
+			}
+		}
+		if stale := ref.z.Stale(&zr.State, now); stale != zr.StaleAlert {
+			zr.StaleAlert, changed = stale, true
+			a := staleAlert(ref.z, &zr.State, now)
+			text := a.message
+			if !stale {
+				text = "valid ET; zone active"
+			}
+			s.log.Log(context.Background(), map[bool]slog.Level{true: slog.LevelWarn, false: slog.LevelInfo}[stale], "zone ET alert", "site", site.id, "zone", ref.id, "raised", stale, "text", text)
+			var err error
+			if stale {
+				err = s.raise(tx, site.id, ref.id, a, now)
+			} else {
+				err = s.clear(tx, site.id, ref.id, quality.KindZoneETStale, now, text, true)
+			}
+			if err != nil {
+				return nil, err
+			}
+			events = append(events, Event{Time: now, Site: site.id, Zone: ref.id, Kind: EventAlert, Text: text})
+		}
+		if changed {
+			if err := putJSON(b.state, key(site.id, ref.id), zr); err != nil {
+				return nil, err
+			}
+		}
+	}
+	return events, nil
 }
 
 // queue records one publish of c (its command or its stop, msg) in tx:
@@ -749,7 +702,7 @@ func (s *Service) applyReport(ref *zoneRef, r controllers.Report, now time.Time)
 			s.log.Warn("valve report for an unknown command", "site", ref.site, "zone", ref.id, "id", r.ID, "state", r.State)
 			return nil
 		}
-		out, err := c.Apply(r, now)
+		out, err := c.Apply(r, now, ref.z.Policy)
 		if err != nil {
 			s.m.badReports.Inc()
 			s.log.Warn("valve report refused", "site", ref.site, "zone", ref.id, "id", r.ID, "err", err)
@@ -774,19 +727,23 @@ func (s *Service) applyReport(ref *zoneRef, r controllers.Report, now time.Time)
 		case r.State == controllers.ReportStopped:
 			s.m.command(ref.site, ref.id, "stopped")
 			s.log.Info("valve stopped", "site", ref.site, "zone", ref.id, "id", r.ID, "minutes_run", c.MinutesRun, "note", c.Note)
-		}
-		if out.Credit {
-			// A final report shows the controller answers again; a full
-			// run shows the valve works again.
-			if err := s.clear(tx, ref.site, ref.id, quality.KindValveNoReport, now,
-				fmt.Sprintf("command %s reported %s", c.ID, r.State), false); err != nil {
-				return err
-			}
-			if r.State == controllers.ReportFinished {
-				if err := s.clear(tx, ref.site, ref.id, quality.KindValveFailed, now,
-					fmt.Sprintf("command %s finished", c.ID), false); err != nil {
+			if c.StopAt.IsZero() {
+				// Closed at the controller without a stop asked for: a
+				// flow alarm, a stop pressed in the field.
+				if err := s.raise(tx, ref.site, ref.id, stoppedAlert(&c, r), now); err != nil {
 					return err
 				}
+			}
+		}
+		if out.Overrun != "" {
+			s.log.Warn("valve report over the commanded run", "site", ref.site, "zone", ref.id, "id", r.ID, "overrun", out.Overrun, "credit_mm", out.CreditMM)
+			if err := s.raise(tx, ref.site, ref.id, overrunAlert(&c, out), now); err != nil {
+				return err
+			}
+		}
+		if out.Credit {
+			if err := s.clearAfterReport(tx, ref, &c, r, out, now); err != nil {
+				return err
 			}
 		}
 		if out.Changed {
@@ -999,12 +956,4 @@ func (s *Service) Ledger(site string) ([]controllers.Command, error) {
 		return nil, fmt.Errorf("zones ledger: %w", err)
 	}
 	return out, nil
-}
-
-// holdText is the reason a hold gives for stopping a command.
-func holdText(h controllers.Hold) string {
-	if h.Reason != "" {
-		return h.Reason
-	}
-	return "hold"
 }

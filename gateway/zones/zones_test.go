@@ -93,7 +93,8 @@ func TestTickPlansSendsExpiresAndCredits(t *testing.T) {
 	assert.Equal(t, "etpulse/fernhill/zones/row-a/command", sends[0].topic)
 	assert.Equal(t, CommandMessage{ID: "row-a-20260701T1802Z-c1", Zone: "row-a", Valve: "row-a", Minutes: 240,
 		Start: time.Date(2026, 7, 1, 18, 2, 0, 0, time.UTC), Expiry: time.Date(2026, 7, 1, 18, 17, 0, 0, time.UTC),
-		Cycle: 1, Cycles: 1, Attempt: 1, Reason: controllers.Reason{DepletionMM: 30.5, TriggerMM: 20, EtcSinceLastMM: 0.5}}, msg)
+		Cycle: 1, Cycles: 1, Attempt: 1, Reason: controllers.Reason{DepletionMM: 30.5, TriggerMM: 20, EtcSinceLastMM: 0.5,
+			Basis: controllers.BasisTrigger, ShortMM: 8.9}}, msg)
 	assert.Equal(t, 3.0, testutil.ToFloat64(f.svc.m.commands.WithLabelValues("fernhill", "row-a", "sent"))+
 		testutil.ToFloat64(f.svc.m.commands.WithLabelValues("fernhill", "row-b", "sent"))+
 		testutil.ToFloat64(f.svc.m.commands.WithLabelValues("fernhill", "row-c", "sent")))
@@ -124,8 +125,8 @@ func TestTickPlansSendsExpiresAndCredits(t *testing.T) {
 
 	// row-c never answers: re-sent at +2 and +4 minutes, expired at 10:17.
 	// row-a, credited but still above its trigger (27.58 mm; the 240-minute
-	// cap limited the run), gets the rest of its daily cap: 300 - 240 = 60
-	// minutes, planned at the next pass (10:03:01) to start at 10:05.
+	// cap limited the run, 8.9 mm short), is not watered again in this
+	// window: the shortfall carries over to the next one.
 	now = now.Add(2 * time.Minute)
 	_, sends, err = f.svc.tick(now)
 	require.NoError(t, err)
@@ -141,27 +142,21 @@ func TestTickPlansSendsExpiresAndCredits(t *testing.T) {
 		require.NoError(t, json.Unmarshal(o.payload, &msg))
 		byZone[msg.Zone] = msg
 	}
-	require.Len(t, byZone, 2)
+	require.Len(t, byZone, 1)
 	assert.Equal(t, 3, byZone["row-c"].Attempt)
-	assert.Equal(t, 60, byZone["row-a"].Minutes)
-	assert.Equal(t, 1, byZone["row-a"].Attempt)
-	assert.Equal(t, 27.58, byZone["row-a"].Reason.DepletionMM)
-	assert.Zero(t, byZone["row-a"].Reason.EtcSinceLastMM, "reset by the credit")
-	require.True(t, driveReport(f, "row-a", ReportMessage{ID: byZone["row-a"].ID, State: "started"}))
 	next, sends, _ := f.svc.tick(now.Add(3 * time.Minute))
-	assert.Empty(t, sends, "row-c: three attempts at most; row-a: started")
+	assert.Empty(t, sends, "row-c: three attempts at most")
 	assert.Equal(t, time.Date(2026, 7, 1, 10, 17, 0, 0, fernLoc), next.In(fernLoc))
 	_, _, err = f.svc.tick(next)
 	require.NoError(t, err)
 	led, _ = f.svc.Ledger("fernhill")
-	require.Len(t, led, 4)
+	require.Len(t, led, 3)
 	states := map[string]controllers.CommandState{}
 	for _, c := range led {
 		states[c.ID] = c.State
 	}
 	assert.Equal(t, map[string]controllers.CommandState{
-		idA: controllers.Finished, "row-a-20260701T1805Z-c1": controllers.Started,
-		idB: controllers.Failed, "row-c-20260701T1802Z-c1": controllers.Expired}, states)
+		idA: controllers.Finished, idB: controllers.Failed, "row-c-20260701T1802Z-c1": controllers.Expired}, states)
 	assert.InDelta(t, 30.5, f.status(t, "row-c").State.Depletion, 1e-9, "never credited without a report")
 	assert.Equal(t, 1.0, testutil.ToFloat64(f.svc.m.commands.WithLabelValues("fernhill", "row-c", "expired")))
 
@@ -169,7 +164,7 @@ func TestTickPlansSendsExpiresAndCredits(t *testing.T) {
 	_, _, err = f.svc.tick(next.Add(time.Minute))
 	require.NoError(t, err)
 	led, _ = f.svc.Ledger("fernhill")
-	assert.Len(t, led, 4)
+	assert.Len(t, led, 3)
 }
 
 func TestHoldsCancelPlannedCommands(t *testing.T) {
