@@ -91,7 +91,7 @@ func (s *ZoneSoil) controller() controllers.Soil {
 
 // ZoneRain chooses the effective rain method.
 type ZoneRain struct {
-	Method      string  `yaml:"method"` // all (default), none, fraction_above_threshold
+	Method      string  `yaml:"method"` // all (default), none, fraction_above_threshold, fraction_above_daily_threshold
 	Fraction    float64 `yaml:"fraction"`
 	ThresholdMM float64 `yaml:"threshold_mm"` // per hour
 }
@@ -151,6 +151,9 @@ type ZoneCommands struct {
 	MaxAttempts    int      `yaml:"max_attempts"`    // default 3
 	StartTolerance Duration `yaml:"start_tolerance"` // default 15m
 	FinishGrace    Duration `yaml:"finish_grace"`    // default 15m
+	// OverrunMarginPct is how far (%) a reported run may exceed the command
+	// before it is alerted and its credit capped; default 10.
+	OverrunMarginPct *float64 `yaml:"overrun_margin_pct"`
 }
 
 // Zone defaults.
@@ -210,6 +213,10 @@ func (z *Zone) setDefaults() {
 	}
 	if c.FinishGrace == 0 {
 		c.FinishGrace = Duration(d.FinishGrace)
+	}
+	if c.OverrunMarginPct == nil {
+		v := d.OverrunMargin * 100
+		c.OverrunMarginPct = &v
 	}
 }
 
@@ -275,6 +282,7 @@ func (z *Zone) Controller(st *Station) (*controllers.Zone, error) {
 		Policy: controllers.CommandPolicy{
 			SendLead: z.Commands.SendLead.D(), AckTimeout: z.Commands.AckTimeout.D(), MaxAttempts: z.Commands.MaxAttempts,
 			StartTolerance: z.Commands.StartTolerance.D(), FinishGrace: z.Commands.FinishGrace.D(),
+			OverrunMargin: *z.Commands.OverrunMarginPct / 100,
 		},
 		FailSafe: controllers.FailSafe{MaxMissingHours: z.FailSafe.MaxMissingHours, Fallback: z.FailSafe.Mode == "fallback"},
 	}
@@ -339,7 +347,7 @@ func (z *Zone) validate(path string, p *Problems, site *Site) {
 	z.validateSoil(path+".soil", p)
 	switch controllers.RainMethod(z.Rain.Method) {
 	case controllers.RainAll, controllers.RainNone:
-	case controllers.RainFractionAboveThreshold:
+	case controllers.RainFractionAboveThreshold, controllers.RainFractionAboveDailyThreshold:
 		if !(z.Rain.Fraction > 0 && z.Rain.Fraction <= 1) {
 			p.Addf(path+".effective_rain.fraction", "must be within (0, 1], got %s", fmtF(z.Rain.Fraction))
 		}
@@ -347,7 +355,7 @@ func (z *Zone) validate(path string, p *Problems, site *Site) {
 			p.Addf(path+".effective_rain.threshold_mm", "must be >= 0, got %s", fmtF(z.Rain.ThresholdMM))
 		}
 	default:
-		p.Addf(path+".effective_rain.method", "must be one of all, none, fraction_above_threshold, got %q", z.Rain.Method)
+		p.Addf(path+".effective_rain.method", "must be one of all, none, fraction_above_threshold, fraction_above_daily_threshold, got %q", z.Rain.Method)
 	}
 	z.validateSystem(path+".system", p, site)
 	if len(z.Windows) == 0 {
@@ -407,6 +415,9 @@ func (z *Zone) validate(path string, p *Problems, site *Site) {
 	}
 	if c.FinishGrace.D() < 0 || c.FinishGrace.D() > 6*time.Hour {
 		p.Addf(path+".commands.finish_grace", "must be within 0-6h, got %s", c.FinishGrace)
+	}
+	if m := c.OverrunMarginPct; m != nil && !(*m >= 0 && *m <= 100) {
+		p.Addf(path+".commands.overrun_margin_pct", "must be within 0-100 (%% over the commanded minutes or volume), got %s", fmtF(*m))
 	}
 	for _, t := range []struct{ field, topic string }{{"command_topic", z.CommandTopic}, {"report_topic", z.ReportTopic}} {
 		if t.topic == "" {
