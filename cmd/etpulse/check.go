@@ -19,10 +19,16 @@ var checkHelp = helpText{
 keys, ranges, units, topics, zones, alerts) and prints a summary on stdout:
 broker, state file, the gateway's own topics, and per station its place,
 reference, timing settings and every sensor with its topic, payload format,
-quantity and unit. Every problem found is listed on stderr, each naming its
-field. What only the target machine has (the broker password and TLS files,
-the store token) is reported as a warning on stderr and does not change the
-exit status, so the check also runs before every start of the service.`,
+quantity and unit; per zone its TAW, RAW, trigger and refill target, the
+application rate and how it was derived, the minutes to apply RAW, the most
+net water one window can deliver under the caps, and the peak-month crop ET
+against the zone's daily capacity. Every problem found is listed on stderr,
+each naming its field. Figures that are valid but implausible (available
+water, rates, emitter or nozzle flows that look like another unit, a zone
+that cannot keep up in the peak month) and what only the target machine has
+(the broker password and TLS files, the store token) are reported as
+warnings on stderr and do not change the exit status, so the check also
+runs before every start of the service.`,
 	outro: `Exit status: 0 valid (warnings allowed), 1 the summary could not be
 written, 2 bad command line or invalid configuration.`,
 }
