@@ -166,3 +166,20 @@ func TestCheckPrintsWarningsAndExits0(t *testing.T) {
 		assert.Contains(t, errs, "warning: "+strings.TrimSpace(string(want)), f)
 	}
 }
+
+// TestRunLogsConfigWarnings: the daemon logs the plausibility warnings of
+// its configuration at start-up, as check prints them.
+func TestRunLogsConfigWarnings(t *testing.T) {
+	b, err := os.ReadFile("../../testdata/config/warn-zone-peak-capacity.yaml")
+	require.NoError(t, err)
+	dir := t.TempDir()
+	doc := strings.Replace(string(b), "sites:", "state: {path: '"+filepath.Join(dir, "s.db")+"'}\nhttp: {disabled: true}\nsites:", 1)
+	f := filepath.Join(dir, "c.yaml")
+	require.NoError(t, os.WriteFile(f, []byte(doc), 0o600))
+	ctx, cancel := context.WithCancel(context.Background())
+	cancel() // start and stop at once: only the start-up log matters here
+	var out, errb bytes.Buffer
+	run(ctx, []string{"run", "--config", f}, strings.NewReader(""), &out, &errb)
+	assert.Contains(t, errb.String(), "implausible configuration")
+	assert.Contains(t, errb.String(), "this zone cannot keep up in the peak month")
+}

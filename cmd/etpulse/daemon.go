@@ -62,6 +62,9 @@ func runDaemon(ctx context.Context, args []string, stdin io.Reader, stdout, stde
 		fmt.Fprintf(stderr, "etpulse run: %v\n", err)
 		return exitUsage
 	}
+	for _, w := range cfg.Warnings() {
+		log.Warn("implausible configuration", "problem", w)
+	}
 	if err := daemon(ctx, cfg, log); err != nil {
 		log.Error("gateway failed", "err", err)
 		return exitError
