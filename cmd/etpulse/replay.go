@@ -21,9 +21,11 @@ import (
 var replayHelp = helpText{
 	name:  "replay",
 	usage: "etpulse replay --config FILE --in readings.csv [--state FILE] [--zones FILE] [--summary] > records.csv",
-	intro: `Runs recorded readings through the same pipeline as 'etpulse run', offline
-(no broker), and writes one CSV row per hourly record on stdout, revisions
-as extra rows. The configuration's zones are run too, with every valve
+	intro: `Runs recorded readings through the same pipeline, sensor checks and quality
+gate as 'etpulse run', offline (no broker, nothing published), and writes
+one CSV row per hourly record on stdout, revisions as extra rows; an hour
+the live gateway would fill or stop because of an alerted sensor is filled
+or stopped here too. The configuration's zones are run too, with every valve
 reporting a normal run, as a backtest. A bad input row is reported on
 stderr with its line number and skipped; a progress bar goes to stderr when
 it is a terminal.`,
@@ -35,10 +37,13 @@ it is a terminal.`,
   value     decimal number
   unit      a unit of the quantity, as in the configuration (degC, %, kPa,
             m/s, W/m2, mm, ...)
+  sensor    optional: the sensor's name as the gateway gives it (id, or
+            id.key); default the station's first sensor of the quantity
 
 Output columns: site, station, reference, start_utc, end_utc, local_start,
 revision, complete, air_temp_c, ea_kpa, wind2_m_s, solar_mj_m2, rain_mm,
 ra_mj_m2, rso_mj_m2, rn_mj_m2, g_mj_m2, fcd, fcd_source, et_mm, flags, fill.
+The inputs of an incomplete hour are empty.
 
 Exit status: 0 success (bad rows skipped), 1 the run failed, 2 bad command
 line, unreadable configuration or input file.`,

@@ -12,6 +12,14 @@
 //	value                 decimal number
 //	unit                  a unit accepted for the quantity (hourly.UnitsFor),
 //	                      e.g. degC, degF, %, kPa, m/s, km/h, W/m2, mm, in
+//	sensor                optional: the sensor name as the live gateway gives
+//	                      it (sensor id, or id.key); empty or absent means the
+//	                      station's first configured sensor of the quantity
+//
+// The readings go through the live gateway's checks without publishing: the
+// drift and fault monitor sees each reading at its own time, and its quality
+// gate flags, excludes (filling an excluded pyranometer's hour by
+// Hargreaves-Samani) or stops hours exactly as live.
 //
 // Rain values are increments (fallen since the previous row of the station).
 // Rows of one quantity and station deduplicate on time. Output is one CSV row
@@ -31,9 +39,12 @@ import (
 	"strings"
 	"time"
 
+	"go.etcd.io/bbolt"
+
 	"etpulse/gateway/config"
 	"etpulse/gateway/ingest"
 	"etpulse/gateway/pipeline"
+	"etpulse/gateway/quality"
 	"etpulse/gateway/state"
 	"etpulse/hourly"
 )
@@ -107,9 +118,19 @@ func Run(ctx context.Context, cfg *config.Config, in io.Reader, out io.Writer, o
 			err = fmt.Errorf("replay: close state: %w", cerr)
 		}
 	}()
-	p, err := pipeline.New(cfg, pipeline.Options{DB: db, Logger: o.Logger, Handlers: o.Handlers})
-	if err != nil {
-		return sum, fmt.Errorf("replay: %w", err)
+	// The pipeline and the alert monitor are built at the first reading, so
+	// the monitor's clock starts where the readings do, as a live gateway's
+	// starts when it is switched on.
+	var (
+		p     *pipeline.Pipeline
+		mon   *quality.Monitor
+		clock time.Time // the replay's clock: the latest reading time of the batch being ingested
+	)
+	start := func(first time.Time) error {
+		clock = first
+		var err error
+		p, mon, err = newLive(cfg, db, o, func() time.Time { return clock })
+		return err
 	}
 
 	cr := &countingReader{r: in}
@@ -144,16 +165,25 @@ func Run(ctx context.Context, cfg *config.Config, in io.Reader, out io.Writer, o
 	}
 	// Batches hold consecutive rows of one station, so the clock (the
 	// station's latest reading time) suits files sorted by time or by station.
-	clock := map[string]time.Time{}
+	latest := map[string]time.Time{}
 	var batch []ingest.Reading
 	batchKey := ""
 	flush := func() error {
 		if len(batch) == 0 {
 			return nil
 		}
-		res, err := p.Ingest(clock[batchKey], batch)
+		if p == nil {
+			if err := start(batch[0].Sample.Time); err != nil {
+				return fmt.Errorf("replay: %w", err)
+			}
+		}
+		clock = latest[batchKey]
+		res, err := p.Ingest(clock, batch)
 		batch = batch[:0]
 		if err != nil {
+			return fmt.Errorf("replay: %w", err)
+		}
+		if err := mon.Sync(); err != nil {
 			return fmt.Errorf("replay: %w", err)
 		}
 		sum.Accepted += res.Accepted
@@ -207,25 +237,57 @@ func Run(ctx context.Context, cfg *config.Config, in io.Reader, out io.Writer, o
 			}
 			batchKey = key
 		}
-		if rd.Sample.Time.After(clock[key]) {
-			clock[key] = rd.Sample.Time
+		if rd.Sample.Time.After(latest[key]) {
+			latest[key] = rd.Sample.Time
 		}
 		batch = append(batch, rd)
 	}
 	if err := flush(); err != nil {
 		return sum, err
 	}
-	recs, err := p.Flush()
-	if err != nil {
-		return sum, fmt.Errorf("replay: %w", err)
-	}
-	if err := emit(recs); err != nil {
-		return sum, err
+	if p != nil {
+		recs, err := p.Flush()
+		if err != nil {
+			return sum, fmt.Errorf("replay: %w", err)
+		}
+		if err := emit(recs); err != nil {
+			return sum, err
+		}
+		if err := mon.Sync(); err != nil {
+			return sum, fmt.Errorf("replay: %w", err)
+		}
 	}
 	if o.Progress != nil {
 		o.Progress(cr.n)
 	}
 	return sum, nil
+}
+
+// newLive builds the pipeline as the live gateway composes it, without
+// publishing: the drift and fault monitor observes every reading, runs the
+// hour-level checks inside each closing transaction and is the quality gate
+// (so an excluded pyranometer's hour is filled here as it is live), then
+// the caller's handlers. The monitor sees each reading arrive at its own
+// time, as it would have live.
+func newLive(cfg *config.Config, db *bbolt.DB, o Options, clock func() time.Time) (*pipeline.Pipeline, *quality.Monitor, error) {
+	mon, err := quality.New(quality.Options{Config: cfg, DB: db, Logger: o.Logger.With("component", "alerts"), Clock: clock})
+	if err != nil {
+		return nil, nil, err
+	}
+	po := pipeline.Options{DB: db, Logger: o.Logger, Handlers: o.Handlers}
+	if !cfg.Alerts.Disabled {
+		arrived := pipeline.SampleObserverFunc(func(site, station string, s hourly.Sample, _ time.Time) {
+			mon.ObserveSample(site, station, s, s.Time)
+		})
+		po.Observers = []pipeline.SampleObserver{arrived}
+		po.Handlers = append([]pipeline.HourHandler{mon}, o.Handlers...)
+		po.Gate = mon
+	}
+	p, err := pipeline.New(cfg, po)
+	if err != nil {
+		return nil, nil, err
+	}
+	return p, mon, nil
 }
 
 type countingReader struct {
@@ -251,6 +313,10 @@ type rowReader struct {
 	r        *csv.Reader
 	col      map[string]int
 	stations map[string]stationRef // "station" (when unique) and "site/station"
+	// sensors names each station's first configured sensor of a quantity
+	// as the live gateway names its readings (sensor id, or id.key), so the
+	// alert checks see the sensors they expect.
+	sensors map[stationRef]map[hourly.Quantity]string
 }
 
 func newRowReader(r *csv.Reader, cfg *config.Config) (*rowReader, error) {
@@ -271,10 +337,26 @@ func newRowReader(r *csv.Reader, cfg *config.Config) (*rowReader, error) {
 		}
 	}
 	count := map[string]int{}
+	rr.sensors = map[stationRef]map[hourly.Quantity]string{}
 	for _, site := range cfg.Sites {
 		for _, st := range site.Stations {
 			count[st.ID]++
-			rr.stations[site.ID+"/"+st.ID] = stationRef{site.ID, st.ID}
+			ref := stationRef{site.ID, st.ID}
+			rr.stations[site.ID+"/"+st.ID] = ref
+			names := map[hourly.Quantity]string{}
+			for _, sensor := range st.Sensors {
+				channels := sensor.Channels()
+				for _, k := range config.SortedKeys(channels) {
+					name := sensor.ID
+					if k != "" {
+						name += "." + k
+					}
+					if _, ok := names[channels[k].Quantity]; !ok {
+						names[channels[k].Quantity] = name
+					}
+				}
+			}
+			rr.sensors[ref] = names
 		}
 	}
 	for _, site := range cfg.Sites {
@@ -332,8 +414,15 @@ func (rr *rowReader) next() (ingest.Reading, int, error) {
 	if v < rng.Min || v > rng.Max {
 		return bad("%s: %g %s outside %g..%g %s", q, raw, get("unit"), rng.Min, rng.Max, hourly.CanonicalUnit(q))
 	}
+	sensor := get("sensor")
+	if _, ok := rr.col["sensor"]; !ok || sensor == "" {
+		sensor = rr.sensors[ref][q]
+	}
+	if sensor == "" {
+		sensor = "csv." + string(q)
+	}
 	return ingest.Reading{Site: ref.site, Station: ref.station, Sample: hourly.Sample{
-		Sensor: "csv." + string(q), Quantity: q, Time: at.UTC(), Value: v,
+		Sensor: sensor, Quantity: q, Time: at.UTC(), Value: v,
 	}}, line, nil
 }
 
@@ -344,17 +433,16 @@ func recordRow(rec hourly.Record) []string {
 		rec.Start.UTC().Format(time.RFC3339), rec.End.UTC().Format(time.RFC3339), rec.LocalStart,
 		strconv.Itoa(rec.Revision), strconv.FormatBool(rec.Complete),
 	}
-	has := func(q hourly.Quantity) bool { s, ok := rec.Stats[q]; return ok && s.Count > 0 }
-	opt := func(ok bool, v float64) string {
-		if !ok {
+	// The inputs of an incomplete hour are empty, as the MQTT record's are
+	// null: a 0.0000 would read as a measured 0 °C, calm, dark hour.
+	opt := func(v float64) string {
+		if !rec.Complete {
 			return ""
 		}
 		return f(v)
 	}
-	hum := has(hourly.RelHumidity) || has(hourly.DewPoint) || has(hourly.VapourPressure)
 	row = append(row,
-		opt(has(hourly.AirTemp), rec.Inputs.AirTemp), opt(hum, rec.Inputs.Ea),
-		opt(has(hourly.Wind), rec.Inputs.Wind2), opt(has(hourly.Solar) || rec.Fill != "", rec.Inputs.Solar),
+		opt(rec.Inputs.AirTemp), opt(rec.Inputs.Ea), opt(rec.Inputs.Wind2), opt(rec.Inputs.Solar),
 		f(rec.Rain))
 	if r := rec.Result; r != nil {
 		row = append(row, f(r.Ra), f(r.Rso), f(r.Rn), f(r.G), f(r.Fcd), string(r.FcdSource), f(r.ET))
