@@ -21,12 +21,18 @@ import (
 )
 
 // Backtest runs the zones offline over recorded hours (etpulse replay): the
-// same balance, decisions and ledger as the live gateway, with every valve
-// reporting a normal run (finished, commanded minutes, at the planned end).
-// It collects one row per zone and standard-time day, and season totals.
+// same balance, the same decision function at the same moments as the live
+// gateway, and the same ledger, with every valve running what it is sent
+// and reporting it (started at its start, finished at its end, stopped when
+// a stop reaches it). An hour is decided on when the live gateway would
+// close it, at its end plus the station's close_grace: every scheduler pass
+// before that moment runs without the hour's ET. It collects one row per
+// zone and standard-time day, and season totals, counting only water that
+// ran; cancelled cycles are counted apart.
 type Backtest struct {
 	svc   *Service
 	clock *backtestClock
+	grace map[[2]string]time.Duration // site/station -> close_grace
 
 	mu       sync.Mutex
 	last     time.Time // scheduler time reached
@@ -57,19 +63,21 @@ func (c *backtestClock) set(t time.Time) {
 
 // DayRow is one zone's standard-time day in a backtest.
 type DayRow struct {
-	Site, Zone, Day string
-	ETc             float64 // mm
-	Rain            float64 // measured, mm
-	EffRain         float64 // mm
-	Runs            int     // commands planned (cycles count one each)
-	PlannedMinutes  int
-	GrossMM         float64 // planned minutes x rate
-	CreditedMM      float64 // net irrigation credited
-	Drainage        float64 // mm
-	Depletion       float64 // at the end of the day, mm
-	StressHours     int     // hours with Ks < 1
-	FallbackHours   int
-	MissingHours    int
+	Site, Zone, Day  string
+	ETc              float64 // mm
+	Rain             float64 // measured, mm
+	EffRain          float64 // mm
+	Runs             int     // commands (cycles count one each) that ran: reported with minutes run > 0
+	Minutes          float64 // minutes run, as reported
+	GrossMM          float64 // minutes run x rate
+	CreditedMM       float64 // net irrigation credited
+	Cancelled        int     // planned cycles withdrawn before they were sent (hold, weather, changed configuration)
+	CancelledMinutes int
+	Drainage         float64 // mm
+	Depletion        float64 // at the end of the day, mm
+	StressHours      int     // hours with Ks < 1
+	FallbackHours    int
+	MissingHours     int
 }
 
 // ZoneTotals are a zone's totals over a backtest.
@@ -77,8 +85,10 @@ type ZoneTotals struct {
 	Site, Zone                    string
 	Days                          int
 	ETc, Rain, EffRain            float64
-	Runs, PlannedMinutes          int
+	Runs                          int
+	Minutes                       float64
 	GrossMM, CreditedMM, Drainage float64
+	Cancelled, CancelledMinutes   int
 	StartDepletion, EndDepletion  float64
 	StressHours, FallbackHours    int
 	MissingHours                  int
@@ -88,7 +98,13 @@ type ZoneTotals struct {
 // own (not the pipeline's). pts, when set, receives the step, command and
 // report points like the live gateway's outbox.
 func NewBacktest(cfg *config.Config, db *bbolt.DB, pts store.Enqueuer) (*Backtest, error) {
-	b := &Backtest{clock: &backtestClock{}, days: map[string]*DayRow{}, totals: map[string]*ZoneTotals{}}
+	b := &Backtest{clock: &backtestClock{}, grace: map[[2]string]time.Duration{}, days: map[string]*DayRow{}, totals: map[string]*ZoneTotals{}}
+	for i := range cfg.Sites {
+		for j := range cfg.Sites[i].Stations {
+			st := &cfg.Sites[i].Stations[j]
+			b.grace[[2]string{cfg.Sites[i].ID, st.ID}] = st.CloseGrace.D()
+		}
+	}
 	svc, err := New(Options{Config: cfg, DB: db, Store: pts, Clock: b.clock.Now, OnEvent: b.event})
 	if err != nil {
 		return nil, fmt.Errorf("new backtest: %w", err)
@@ -106,17 +122,52 @@ func NewBacktest(cfg *config.Config, db *bbolt.DB, pts store.Enqueuer) (*Backtes
 
 // HandleHour is an HourHandler for the replay's pipeline: it steps the
 // zones in the backtest's own state file (the pipeline's transaction tx is
-// not used) and runs the scheduler up to the end of the hour. With several
+// not used) at the moment the live gateway would close the hour (its end
+// plus the station's close_grace, or the scheduler time already reached for
+// a later revision), after running the scheduler up to that moment, and
+// then runs the scheduler pass the closed hour triggers. With several
 // stations driving zones the readings should be sorted by time: the
 // scheduler's clock only moves forward.
 func (b *Backtest) HandleHour(_ *bbolt.Tx, rec hourly.Record) error {
+	at := rec.End.Add(b.grace[[2]string{rec.Site, rec.Station}])
+	if err := b.Advance(at); err != nil {
+		return err
+	}
+	at = b.clock.Now()
 	if err := b.svc.o.DB.Update(func(tx *bbolt.Tx) error { return b.svc.HandleHour(tx, rec) }); err != nil {
 		return fmt.Errorf("backtest: %w", err)
 	}
-	return b.Advance(rec.End)
+	b.mu.Lock()
+	b.nextTick = at // the live service wakes at once when an hour closes
+	b.mu.Unlock()
+	return b.Advance(at)
 }
 
-// Advance runs the scheduler up to t: plans, sends and the simulated valve
+// Hold applies a hold request (the JSON of the hold topic) to site at at,
+// after running the scheduler up to then, and runs the pass the live
+// service runs when a hold arrives.
+func (b *Backtest) Hold(site string, payload []byte, at time.Time) (HoldReply, error) {
+	if err := b.Advance(at); err != nil {
+		return HoldReply{}, err
+	}
+	var sr *siteRef
+	for _, x := range b.svc.sites {
+		if x.id == site {
+			sr = x
+		}
+	}
+	if sr == nil {
+		return HoldReply{}, fmt.Errorf("backtest hold: no site %q with zones", site)
+	}
+	at = b.clock.Now()
+	reply := b.svc.applyHold(sr, payload, at)
+	b.mu.Lock()
+	b.nextTick = at
+	b.mu.Unlock()
+	return reply, b.Advance(at)
+}
+
+// Advance runs the scheduler up to t: its passes and the simulated valve
 // reports, in time order.
 func (b *Backtest) Advance(t time.Time) error {
 	for {
@@ -155,18 +206,7 @@ func (b *Backtest) Advance(t time.Time) error {
 		b.mu.Lock()
 		b.nextTick = next
 		for _, o := range sends {
-			ref := b.svc.zones[b.svc.siteOf(o.cmd.Zone)+"/"+o.cmd.Zone]
-			if ref == nil || !o.first {
-				continue
-			}
-			start := o.cmd.Start
-			if start.Before(at) {
-				start = at
-			}
-			m := float64(o.cmd.Minutes)
-			b.finishes = append(b.finishes,
-				finish{at: start, ref: ref, r: controllers.Report{ID: o.cmd.ID, State: controllers.ReportStarted}},
-				finish{at: start.Add(time.Duration(o.cmd.Minutes) * time.Minute), ref: ref, r: controllers.Report{ID: o.cmd.ID, State: controllers.ReportFinished, MinutesRun: m, HasMinutes: true}})
+			b.valve(o, at)
 		}
 		sort.SliceStable(b.finishes, func(i, j int) bool { return b.finishes[i].at.Before(b.finishes[j].at) })
 		b.mu.Unlock()
@@ -176,6 +216,51 @@ func (b *Backtest) Advance(t time.Time) error {
 		b.last = t
 	}
 	return nil
+}
+
+// valve simulates the controller receiving o at at: a first send runs the
+// valve (started at its start, finished at its end); a stop closes it now
+// and reports the minutes it ran. Re-sends are answered by the reports
+// already scheduled. Called with b.mu held.
+func (b *Backtest) valve(o outgoing, at time.Time) {
+	ref := b.svc.zones[b.svc.siteOf(o.cmd.Zone)+"/"+o.cmd.Zone]
+	if ref == nil {
+		return
+	}
+	c := o.cmd
+	if o.stop {
+		pending, started := false, true
+		kept := b.finishes[:0]
+		for _, f := range b.finishes {
+			if f.r.ID == c.ID {
+				pending = true
+				started = started && f.r.State != controllers.ReportStarted
+				continue
+			}
+			kept = append(kept, f)
+		}
+		b.finishes = kept
+		if !pending {
+			return // already finished: its report answers the stop
+		}
+		ran := 0.0
+		if begin := c.StartedAt; started && !begin.IsZero() && at.After(begin) {
+			ran = at.Sub(begin).Minutes()
+		}
+		b.finishes = append(b.finishes, finish{at: at, ref: ref, r: controllers.Report{ID: c.ID, State: controllers.ReportStopped, MinutesRun: ran, HasMinutes: true, Reason: "stop received"}})
+		return
+	}
+	if !o.first {
+		return
+	}
+	start := c.Start
+	if start.Before(at) {
+		start = at
+	}
+	m := float64(c.Minutes)
+	b.finishes = append(b.finishes,
+		finish{at: start, ref: ref, r: controllers.Report{ID: c.ID, State: controllers.ReportStarted}},
+		finish{at: start.Add(time.Duration(c.Minutes) * time.Minute), ref: ref, r: controllers.Report{ID: c.ID, State: controllers.ReportFinished, MinutesRun: m, HasMinutes: true}})
 }
 
 func (b *Backtest) row(site, zone string, t time.Time) *DayRow {
@@ -214,15 +299,19 @@ func (b *Backtest) event(e Event) {
 			r.MissingHours++
 		}
 		b.totals[e.Site+"/"+e.Zone].EndDepletion = s.Depletion
-	case EventPlanned:
+	case EventCancelled:
 		c := e.Command
 		r := b.row(e.Site, e.Zone, c.Start)
-		r.Runs++
-		r.PlannedMinutes += c.Minutes
-		r.GrossMM += float64(c.Minutes) / 60 * c.Rate
+		r.Cancelled++
+		r.CancelledMinutes += c.Minutes
 	case EventCredited:
-		s := e.Step
-		r := b.row(e.Site, e.Zone, s.Start)
+		s, c := e.Step, e.Command
+		r := b.row(e.Site, e.Zone, c.Start)
+		if c.MinutesRun > 0 {
+			r.Runs++
+		}
+		r.Minutes += c.MinutesRun
+		r.GrossMM += c.MinutesRun / 60 * c.Rate
 		r.CreditedMM += s.Irrigation
 		r.Drainage += s.Drainage
 		r.Depletion = s.Depletion
@@ -251,8 +340,9 @@ func (b *Backtest) Totals() []ZoneTotals {
 	var out []ZoneTotals
 	for _, k := range sortedKeys(b.totals) {
 		t := *b.totals[k]
-		t.Days, t.ETc, t.Rain, t.EffRain, t.Runs, t.PlannedMinutes = 0, 0, 0, 0, 0, 0
+		t.Days, t.ETc, t.Rain, t.EffRain, t.Runs, t.Minutes = 0, 0, 0, 0, 0, 0
 		t.GrossMM, t.CreditedMM, t.Drainage, t.StressHours, t.FallbackHours, t.MissingHours = 0, 0, 0, 0, 0, 0
+		t.Cancelled, t.CancelledMinutes = 0, 0
 		for _, r := range rows {
 			if r.Site != t.Site || r.Zone != t.Zone {
 				continue
@@ -262,9 +352,11 @@ func (b *Backtest) Totals() []ZoneTotals {
 			t.Rain += r.Rain
 			t.EffRain += r.EffRain
 			t.Runs += r.Runs
-			t.PlannedMinutes += r.PlannedMinutes
+			t.Minutes += r.Minutes
 			t.GrossMM += r.GrossMM
 			t.CreditedMM += r.CreditedMM
+			t.Cancelled += r.Cancelled
+			t.CancelledMinutes += r.CancelledMinutes
 			t.Drainage += r.Drainage
 			t.StressHours += r.StressHours
 			t.FallbackHours += r.FallbackHours
@@ -284,24 +376,26 @@ func sortedKeys[V any](m map[string]V) []string {
 	return keys
 }
 
-// WriteDays prints the day rows as an aligned table.
+// WriteDays prints the day rows as an aligned table. runs, minutes and
+// gross_mm count only water that ran (as reported); cancelled counts the
+// cycles withdrawn before they were sent.
 func WriteDays(w io.Writer, rows []DayRow) error {
 	tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', tabwriter.AlignRight)
-	fmt.Fprintln(tw, "day\tzone\tetc_mm\train_mm\teff_rain_mm\truns\tminutes\tgross_mm\tcredited_mm\tdrainage_mm\tdepletion_mm\tstress_h\t")
+	fmt.Fprintln(tw, "day\tzone\tetc_mm\train_mm\teff_rain_mm\truns\tminutes\tgross_mm\tcredited_mm\tcancelled\tdrainage_mm\tdepletion_mm\tstress_h\t")
 	for _, r := range rows {
-		fmt.Fprintf(tw, "%s\t%s\t%.2f\t%.1f\t%.1f\t%d\t%d\t%.1f\t%.1f\t%.1f\t%.1f\t%d\t\n",
-			r.Day, r.Zone, r.ETc, r.Rain, r.EffRain, r.Runs, r.PlannedMinutes, r.GrossMM, r.CreditedMM, r.Drainage, r.Depletion, r.StressHours)
+		fmt.Fprintf(tw, "%s\t%s\t%.2f\t%.1f\t%.1f\t%d\t%.0f\t%.1f\t%.1f\t%d\t%.1f\t%.1f\t%d\t\n",
+			r.Day, r.Zone, r.ETc, r.Rain, r.EffRain, r.Runs, r.Minutes, r.GrossMM, r.CreditedMM, r.Cancelled, r.Drainage, r.Depletion, r.StressHours)
 	}
 	return tw.Flush()
 }
 
-// WriteTotals prints the season totals per zone.
+// WriteTotals prints the season totals per zone, counted as WriteDays does.
 func WriteTotals(w io.Writer, totals []ZoneTotals) error {
 	tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', tabwriter.AlignRight)
-	fmt.Fprintln(tw, "zone\tdays\tetc_mm\train_mm\teff_rain_mm\truns\tminutes\tgross_mm\tcredited_mm\tdrainage_mm\tstart_dep_mm\tend_dep_mm\tstress_h\tfallback_h\tmissing_h\t")
+	fmt.Fprintln(tw, "zone\tdays\tetc_mm\train_mm\teff_rain_mm\truns\tminutes\tgross_mm\tcredited_mm\tcancelled\tcancelled_min\tdrainage_mm\tstart_dep_mm\tend_dep_mm\tstress_h\tfallback_h\tmissing_h\t")
 	for _, t := range totals {
-		fmt.Fprintf(tw, "%s\t%d\t%.1f\t%.1f\t%.1f\t%d\t%d\t%.1f\t%.1f\t%.1f\t%.1f\t%.1f\t%d\t%d\t%d\t\n",
-			t.Zone, t.Days, t.ETc, t.Rain, t.EffRain, t.Runs, t.PlannedMinutes, t.GrossMM, t.CreditedMM, t.Drainage,
+		fmt.Fprintf(tw, "%s\t%d\t%.1f\t%.1f\t%.1f\t%d\t%.0f\t%.1f\t%.1f\t%d\t%d\t%.1f\t%.1f\t%.1f\t%d\t%d\t%d\t\n",
+			t.Zone, t.Days, t.ETc, t.Rain, t.EffRain, t.Runs, t.Minutes, t.GrossMM, t.CreditedMM, t.Cancelled, t.CancelledMinutes, t.Drainage,
 			t.StartDepletion, t.EndDepletion, t.StressHours, t.FallbackHours, t.MissingHours)
 	}
 	return tw.Flush()

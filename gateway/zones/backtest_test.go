@@ -12,6 +12,7 @@ import (
 	"github.com/stretchr/testify/assert"
 	"github.com/stretchr/testify/require"
 
+	"etpulse/controllers"
 	"etpulse/gateway/config"
 	"etpulse/gateway/state"
 	"etpulse/hourly"
@@ -71,7 +72,7 @@ func TestBacktestSeason(t *testing.T) {
 	}
 	caps := map[string]int{"pear-block-2": 540, "east-paddock": 420}
 	for _, r := range rows {
-		assert.LessOrEqual(t, r.PlannedMinutes, caps[r.Zone], "%s %s", r.Zone, r.Day)
+		assert.LessOrEqual(t, r.Minutes, float64(caps[r.Zone]), "%s %s", r.Zone, r.Day)
 	}
 	// The storm day: 25 mm measured; effective 0.8 (5 - 0.5) x 5 = 18 mm.
 	for _, r := range rows {
@@ -113,4 +114,82 @@ func testConfigNoZones(t *testing.T) *config.Config {
 	c, err := config.Load(filepath.Join("..", "..", "testdata", "config", "minimal.yaml"))
 	require.NoError(t, err)
 	return c
+}
+
+// TestBacktestDecidesWithoutFutureET: every scheduler pass runs at a moment
+// the live gateway could have reached, so a run is never planned from an
+// hour that had not closed yet (its end plus close_grace).
+func TestBacktestDecidesWithoutFutureET(t *testing.T) {
+	cfg, err := config.Load(filepath.Join("..", "..", "testdata", "zones", "brackenby.yaml"))
+	require.NoError(t, err)
+	bt, closeBT, err := OpenBacktest(cfg)
+	require.NoError(t, err)
+	defer closeBT()
+	var latest time.Time // end of the latest hour stepped
+	planned := 0
+	bt.svc.o.OnEvent = func(e Event) {
+		bt.event(e)
+		switch e.Kind {
+		case EventStep:
+			if e.Step.End.After(latest) {
+				latest = e.Step.End
+			}
+			now := bt.clock.Now()
+			assert.False(t, now.Before(e.Step.End.Add(2*time.Minute)), "hour %v stepped at %v, before it could close", e.Step.Start, now)
+		case EventPlanned:
+			planned++
+			assert.False(t, e.Time.Before(latest.Add(2*time.Minute)), "planned at %v with the hour ending %v already applied", e.Time, latest)
+		}
+	}
+	loc := time.FixedZone("UTC-8", -8*3600)
+	for _, rec := range syntheticHours(time.Date(2026, 7, 1, 0, 0, 0, 0, loc), 10) {
+		require.NoError(t, bt.HandleHour(nil, rec))
+	}
+	assert.Greater(t, planned, 0)
+}
+
+// TestBacktestCountsOnlyWaterThatRan: cycles withdrawn by a hold before
+// they were sent are not runs, minutes or gross water; they are counted
+// apart. A cycle stopped by the hold counts the minutes it ran.
+func TestBacktestCountsOnlyWaterThatRan(t *testing.T) {
+	cfg, err := config.Load(filepath.Join("..", "..", "testdata", "zones", "brackenby.yaml"))
+	require.NoError(t, err)
+	bt, closeBT, err := OpenBacktest(cfg)
+	require.NoError(t, err)
+	defer closeBT()
+	loc := time.FixedZone("UTC-8", -8*3600)
+	hours := syntheticHours(time.Date(2026, 7, 1, 0, 0, 0, 0, loc), 14)
+	var firstPlan *controllers.Command
+	bt.svc.o.OnEvent = func(e Event) {
+		bt.event(e)
+		if e.Kind == EventPlanned && e.Zone == "east-paddock" && firstPlan == nil && e.Command.Cycles > 1 {
+			c := *e.Command
+			firstPlan = &c
+		}
+	}
+	held := false
+	for _, rec := range hours {
+		require.NoError(t, bt.HandleHour(nil, rec))
+		if firstPlan != nil && !held {
+			// Hold the site 30 minutes into the first cycle.
+			r, err := bt.Hold("brackenby", []byte(`{"id":"h","action":"hold","hours":12}`), firstPlan.Start.Add(30*time.Minute))
+			require.NoError(t, err)
+			require.True(t, r.OK, r.Error)
+			held = true
+		}
+	}
+	require.NotNil(t, firstPlan, "the paddock got a multi-cycle run")
+	var day DayRow
+	for _, r := range bt.Rows() {
+		if r.Zone == "east-paddock" && r.Day == firstPlan.Start.In(loc).Format("2006-01-02") {
+			day = r
+		}
+	}
+	assert.Greater(t, day.Cancelled, 0, "the later cycles were withdrawn")
+	assert.Greater(t, day.CancelledMinutes, 0)
+	// The stopped first cycle ran 30 minutes (the hold's stop reaches the
+	// valve at once).
+	assert.InDelta(t, 30, day.Minutes, 1e-9)
+	assert.Equal(t, 1, day.Runs)
+	assert.InDelta(t, 30.0/60*5, day.GrossMM, 1e-9)
 }
