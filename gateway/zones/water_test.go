@@ -3,6 +3,8 @@ package zones
 import (
 	"context"
 	"encoding/json"
+	"os"
+	"strings"
 	"testing"
 	"time"
 
@@ -212,4 +214,21 @@ func TestWaterOverMosquitto(t *testing.T) {
 	require.Len(t, pts, 1)
 	assert.Equal(t, "hand run after the pump repair", pts[0].Notes["why"])
 	assert.Equal(t, "manual", pts[0].Notes["kind"])
+}
+
+// The water request shown in README.md decodes as documented.
+func TestReadmeWaterExample(t *testing.T) {
+	text, err := os.ReadFile("../../README.md")
+	require.NoError(t, err)
+	i := strings.Index(string(text), "`<prefix>/<site>/water` (QoS 1):\n\n```json\n")
+	require.GreaterOrEqual(t, i, 0, "README shows a water request")
+	block := string(text[i:])
+	block = block[strings.Index(block, "{"):strings.Index(block, "\n```\n")]
+	r, err := DecodeWaterRequest([]byte(block))
+	require.NoError(t, err, block)
+	assert.Equal(t, "applied", r.Kind)
+	w := r.Manual()
+	assert.Equal(t, controllers.UnitMinutes, w.Unit)
+	assert.InDelta(t, 45, w.Amount, 0)
+	assert.False(t, w.At.IsZero())
 }
