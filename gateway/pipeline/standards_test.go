@@ -79,3 +79,34 @@ func TestCalmHoursFlagged(t *testing.T) {
 	assert.Equal(t, 0.5, out[0].Result.Wind2)
 	assert.Contains(t, out[0].Flags, hourly.FlagWindFloor)
 }
+
+// TestOutageDropsStaleCarry: after a 28-hour outage the first night hours
+// do not use the cloudiness of two days earlier: the start-up value is used
+// and flagged (hourly.CarryUsable, the rule calc and replay follow too).
+func TestOutageDropsStaleCarry(t *testing.T) {
+	db := openDB(t, filepath.Join(t.TempDir(), "s.db"))
+	p, _ := newTestPipeline(t, db, Options{})
+	day := time.Date(2026, 7, 14, 8, 0, 0, 0, time.UTC) // 00:00 local
+	first := benchReadings(day, day.Add(20*time.Hour+10*time.Minute), 5*time.Minute)
+	out := feed(t, p, latest(first), first)
+	require.Len(t, out, 20)
+	evening := out[19] // 19:00 local: carried from the afternoon
+	require.NotNil(t, evening.Result)
+	require.Equal(t, hourly.FcdCarried, evening.Result.FcdSource)
+
+	back := day.Add(20*time.Hour + 28*time.Hour) // 04:00 local two days later
+	second := benchReadings(back, back.Add(time.Hour+10*time.Minute), 5*time.Minute)
+	out = feed(t, p, latest(second), second)
+	var night *hourly.Record
+	for i := range out {
+		if out[i].Start.Equal(back) {
+			night = &out[i]
+		}
+	}
+	require.NotNil(t, night)
+	require.NotNil(t, night.Result)
+	assert.Equal(t, hourly.FcdDefault, night.Result.FcdSource)
+	assert.True(t, night.Result.CarryExpired)
+	assert.Contains(t, night.Flags, hourly.FlagFcdDefault)
+	assert.Contains(t, night.Flags, hourly.FlagFcdExpired)
+}
