@@ -56,7 +56,7 @@ func runWater(ctx context.Context, args []string, _ io.Reader, stdout, stderr io
 	who := fs.String("who", "", "`name` of who applied the water or measured")
 	why := fs.String("why", "", "`reason`, kept in the history")
 	at := fs.String("time", "", "`time` the water was applied or the measurement taken (default now)")
-	id := fs.String("id", "", "request `id` echoed in the reply (default generated)")
+	id := fs.String("id", "", "request `id` (default generated); the gateway applies an id once, so give the printed id again to retry safely")
 	timeout := fs.Duration("timeout", 30*time.Second, "`duration` to wait for the gateway's answer")
 	if code, done := parseFlags(fs, args, waterHelp, stdout, stderr); done {
 		return code
@@ -145,6 +145,10 @@ func runWater(ctx context.Context, args []string, _ io.Reader, stdout, stderr io
 		fmt.Fprintf(stderr, "etpulse water: refused: %s\n", reply.Error)
 		return exitError
 	}
+	if reply.Duplicate {
+		fmt.Fprintf(stdout, "already recorded: request %s was applied before; nothing applied again\n", reply.ID)
+		return exitOK
+	}
 	fmt.Fprintf(stdout, "recorded %s for zone %s of %s: net %.1f mm, drained %.1f mm, depletion %.1f -> %.1f mm (request %s)\n",
 		reply.Kind, reply.Zone, s, deref(reply.NetMM), deref(reply.DrainageMM), deref(reply.PreviousMM), deref(reply.DepletionMM), reply.ID)
 	return exitOK
@@ -213,6 +217,6 @@ func askWater(ctx context.Context, mo mqtt.Options, topic, id string, payload []
 	case r := <-replies:
 		return r, nil
 	case <-ctx.Done():
-		return zones.WaterReply{}, fmt.Errorf("no answer on %s/reply within %s: is the gateway running for this site? (request %s may still be applied when it comes back)", topic, timeout, id)
+		return zones.WaterReply{}, fmt.Errorf("no answer on %s/reply within %s: is the gateway running for this site? (request %s may still be applied when it comes back; retry with --id %s)", topic, timeout, id, id)
 	}
 }

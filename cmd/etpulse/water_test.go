@@ -146,6 +146,14 @@ func TestWaterThroughGateway(t *testing.T) {
 	require.Equal(t, exitOK, code, stderr)
 	assert.Contains(t, stdout, "recorded applied for zone block-1 of wattle: net 3.6 mm, drained 0.0 mm, depletion 30.0 -> 26.4 mm")
 
+	// The same request id again (a retry): applied once.
+	code, stdout, stderr = runCmd(t, append(args, "--minutes", "40", "--id", "retry-1")...)
+	require.Equal(t, exitOK, code, stderr)
+	assert.Contains(t, stdout, "depletion 26.4 -> 22.8 mm")
+	code, stdout, stderr = runCmd(t, append(args, "--minutes", "40", "--id", "retry-1")...)
+	require.Equal(t, exitOK, code, stderr)
+	assert.Contains(t, stdout, "already recorded: request retry-1 was applied before; nothing applied again")
+
 	stop()
 	code, stdout, stderr = runCmd(t, "export", "--state", cfg.State.Path, "--from", "2000-01-01", "--to", "2100-01-01", "--measurement", "zone_step")
 	require.Equal(t, exitOK, code, stderr)

@@ -35,7 +35,7 @@ const (
 // Why are required. Time (RFC 3339) is when the water was applied or the
 // measurement taken; absent means now.
 type WaterRequest struct {
-	ID          string   `json:"id"` // the requester's id, echoed in the reply
+	ID          string   `json:"id"` // the requester's id, echoed in the reply; a repeated id is applied once
 	Zone        string   `json:"zone"`
 	Kind        string   `json:"kind"` // applied, frost_protection or depletion_reset
 	MM          *float64 `json:"mm,omitempty"`
@@ -59,7 +59,10 @@ type WaterReply struct {
 	DrainageMM  *float64 `json:"drainage_mm,omitempty"`
 	PreviousMM  *float64 `json:"previous_depletion_mm,omitempty"`
 	DepletionMM *float64 `json:"depletion_mm,omitempty"`
-	Error       string   `json:"error,omitempty"`
+	// Duplicate: a request with this id was applied before (a redelivery
+	// or a retry); nothing was applied again and the depths are absent.
+	Duplicate bool   `json:"duplicate,omitempty"`
+	Error     string `json:"error,omitempty"`
 }
 
 // DecodeWaterRequest parses and checks a water request: unknown keys, a
@@ -73,8 +76,8 @@ func DecodeWaterRequest(b []byte) (WaterRequest, error) {
 	bad := func(format string, a ...any) (WaterRequest, error) {
 		return WaterRequest{}, fmt.Errorf("decode water request: "+format, a...)
 	}
-	if len(r.ID) > 128 {
-		return bad("id: longer than 128 bytes")
+	if r.ID == "" || len(r.ID) > 128 {
+		return bad("id: required (1-128 bytes), so that a request delivered twice is applied once")
 	}
 	if r.Zone == "" || len(r.Zone) > 64 {
 		return bad("zone: must name the zone (1-64 bytes), got %q", r.Zone)
@@ -193,6 +196,11 @@ func (s *Service) applyWater(site *siteRef, payload []byte, now time.Time) Water
 		if err != nil {
 			return err
 		}
+		seen, err := waterSeen(tx, site.id, req, now)
+		if err != nil || seen {
+			reply.Duplicate = seen
+			return err
+		}
 		if w.Kind == controllers.ManualReset {
 			if err := resetConflict(b, site.id, req.Zone, at); err != nil {
 				return err
@@ -233,6 +241,10 @@ func (s *Service) applyWater(site *siteRef, payload []byte, now time.Time) Water
 		return reply
 	}
 	reply.OK = true
+	if reply.Duplicate {
+		s.log.Info("water request already applied", "site", site.id, "zone", req.Zone, "id", req.ID)
+		return reply
+	}
 	reply.NetMM, reply.DrainageMM, reply.PreviousMM, reply.DepletionMM = &step.Irrigation, &step.Drainage, &prev, &step.Depletion
 	s.m.setLevels(ref, &level, now)
 	s.log.Info("water recorded", "site", site.id, "zone", req.Zone, "kind", req.Kind, "id", req.ID,
@@ -266,4 +278,39 @@ func resetConflict(b buckets, site, zone string, at time.Time) error {
 		}
 	}
 	return nil
+}
+
+// bucketWater (inside "zones") keeps the ids of applied water requests,
+// site/zone/id -> RFC 3339 time applied, for ManualPast plus a day.
+var bucketWater = []byte("water")
+
+// waterSeen reports whether req was applied before; if not, it records its
+// id in tx (undone with tx when the request is refused) and forgets ids
+// older than ManualPast plus a day.
+func waterSeen(tx *bbolt.Tx, site string, req WaterRequest, now time.Time) (bool, error) {
+	b, err := tx.Bucket(bucketZones).CreateBucketIfNotExists(bucketWater)
+	if err != nil {
+		return false, fmt.Errorf("water ids: %w", err)
+	}
+	k := []byte(site + "/" + req.Zone + "/" + req.ID)
+	if b.Get(k) != nil {
+		return true, nil
+	}
+	cut := now.Add(-controllers.ManualPast - 24*time.Hour)
+	var old [][]byte
+	_ = b.ForEach(func(k, v []byte) error {
+		if t, err := time.Parse(time.RFC3339, string(v)); err != nil || t.Before(cut) {
+			old = append(old, k)
+		}
+		return nil
+	})
+	for _, o := range old {
+		if err := b.Delete(o); err != nil {
+			return false, fmt.Errorf("water ids: %w", err)
+		}
+	}
+	if err := b.Put(k, []byte(now.UTC().Format(time.RFC3339))); err != nil {
+		return false, fmt.Errorf("water ids: %w", err)
+	}
+	return false, nil
 }

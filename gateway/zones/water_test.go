@@ -232,3 +232,37 @@ func TestReadmeWaterExample(t *testing.T) {
 	assert.InDelta(t, 45, w.Amount, 0)
 	assert.False(t, w.At.IsZero())
 }
+
+// A request delivered twice (a broker redelivery after a crash before the
+// acknowledgement, or a retry) is applied once; a refused one leaves its id
+// free for the corrected request. A request without id is refused.
+func TestApplyWaterOncePerID(t *testing.T) {
+	start := time.Date(2026, 7, 1, 10, 20, 0, 0, fernLoc)
+	f := newFixture(t, testConfig(t), nil, start)
+	req := `{"id":"d1","zone":"row-a","kind":"applied","mm":4,"who":"Ana","why":"hand run"}`
+	r := f.water(t, req)
+	require.True(t, r.OK, r.Error)
+	assert.False(t, r.Duplicate)
+	r = f.water(t, req)
+	require.True(t, r.OK, r.Error)
+	assert.True(t, r.Duplicate)
+	assert.Nil(t, r.DepletionMM)
+	assert.InDelta(t, 26, f.status(t, "row-a").State.Depletion, 1e-12, "30 - 4, once")
+	assert.Len(t, f.zoneSteps(t), 1)
+
+	r = f.water(t, `{"id":"d2","zone":"row-a","kind":"applied","mm":400,"who":"Ana","why":"typo"}`)
+	require.False(t, r.OK)
+	r = f.water(t, `{"id":"d2","zone":"row-a","kind":"applied","mm":4,"who":"Ana","why":"corrected"}`)
+	require.True(t, r.OK, r.Error)
+	assert.False(t, r.Duplicate)
+	assert.InDelta(t, 22, f.status(t, "row-a").State.Depletion, 1e-12)
+
+	// The same id in another zone is another request.
+	r = f.water(t, `{"id":"d1","zone":"row-b","kind":"applied","mm":4,"who":"Ana","why":"hand run"}`)
+	require.True(t, r.OK, r.Error)
+	assert.False(t, r.Duplicate)
+
+	r = f.water(t, `{"zone":"row-a","kind":"applied","mm":4,"who":"Ana","why":"hand run"}`)
+	assert.False(t, r.OK)
+	assert.Contains(t, r.Error, "id: required")
+}
