@@ -19,6 +19,7 @@ import (
 	"go.etcd.io/bbolt"
 
 	"etpulse/controllers"
+	"etpulse/gateway/config"
 	"etpulse/gateway/internal/testenv"
 	"etpulse/gateway/mqtt"
 	"etpulse/gateway/state"
@@ -304,4 +305,62 @@ func TestKillBetweenCommandAndReport(t *testing.T) {
 	}))
 	assert.Equal(t, 1, sim.Received(cmd.ID))
 	assert.Len(t, sim.Runs(), 1)
+}
+
+// TestSilentControllerGetsStops: a controller that goes silent after its
+// started report (rebooted, hung) with the valve open is sent stops from
+// the run's latest possible end on, repeated until it answers; the water
+// it reports is credited once and the run is stopped, never re-sent.
+func TestSilentControllerGetsStops(t *testing.T) {
+	url := testenv.MQTT(t)
+	clock := fastClock{base: time.Date(2026, 7, 1, 10, 0, 30, 0, fernLoc), real0: time.Now()}
+	cfg := testConfig(t, "row-a")
+	cfg.Sites[0].Zones[0].System.MaxMinutes = 10
+	cfg.Sites[0].Zones[0].Commands.FinishGrace = config.Duration(time.Minute)
+	gw := dial(t, url, uniq("zones-gw"))
+	f := newFixture(t, cfg, gw, clock.Now())
+	f.svc.o.Clock, f.svc.o.After = clock.Now, clock.After
+	f.hour(t, record(time.Date(2026, 7, 1, 9, 0, 0, 0, fernLoc), 0.5, 0))
+
+	sim := &ValveSimulator{MQTT: dial(t, url, uniq("zones-valves")), Clock: clock.Now, After: clock.After,
+		Behave: func(CommandMessage) Behaviour { return Behaviour{SilentAfterStart: true, AnswerStop: 3} }}
+	topics := map[string]string{}
+	for _, ref := range f.svc.zones {
+		topics[ref.cmdTopic] = ref.reportTopic
+	}
+	require.NoError(t, sim.Serve(topics))
+
+	ctx, cancel := context.WithCancel(context.Background())
+	done := make(chan error, 1)
+	go func() { done <- f.svc.Run(ctx) }()
+	defer func() {
+		cancel()
+		require.NoError(t, <-done)
+	}()
+
+	// Start 10:02, 10 minutes, finish grace 1: stops from 10:13 (one real
+	// second is one simulated minute), 2 minutes apart: the third (10:17)
+	// is heard.
+	var cmd controllers.Command
+	require.Eventually(t, func() bool {
+		led, err := f.svc.Ledger("fernhill")
+		require.NoError(t, err)
+		if len(led) != 1 {
+			return false
+		}
+		cmd = led[0]
+		return cmd.State == controllers.Stopped
+	}, 40*time.Second, 100*time.Millisecond, "ledger: %+v", &cmd)
+	assert.Equal(t, 3, sim.Stops(cmd.ID))
+	assert.Equal(t, 1, sim.Received(cmd.ID), "the run itself was never sent again")
+	assert.Equal(t, 3, cmd.StopAttempts)
+	assert.Contains(t, cmd.StopReason, "latest possible end")
+	// Open from 10:02 until about 10:17: ~15 minutes reported for a
+	// 10-minute command, credited up to the 10 % over-run margin:
+	// 11 min x 6 mm/h x 0.9.
+	assert.Greater(t, cmd.MinutesRun, 13.0)
+	credit := 30.5 - f.status(t, "row-a").State.Depletion
+	assert.InDelta(t, controllers.NetMM(11, 6, 0.9), credit, 1e-9, "capped at the commanded water plus the margin")
+	assert.Contains(t, cmd.Note, "overrun")
+	assert.GreaterOrEqual(t, len(f.eventsOf(EventStop)), 3)
 }

@@ -27,6 +27,12 @@ type Behaviour struct {
 	// IgnoreStop: stops for this command are received but never acted on
 	// or answered (a controller with old firmware, or a lost link).
 	IgnoreStop bool
+	// SilentAfterStart: after its started report the controller goes
+	// silent (rebooted, hung): the valve stays open, no finished report,
+	// and stops are ignored until the AnswerStop-th one, which closes the
+	// valve and is answered stopped with the minutes it was open.
+	SilentAfterStart bool
+	AnswerStop       int
 }
 
 // ValveSimulator answers commands the way a valve controller does, for the
@@ -171,6 +177,10 @@ func (v *ValveSimulator) stop(st StopMessage, reportTopic string) {
 	ch, running := v.running[st.ID]
 	last, done := v.last[st.ID]
 	_, known := v.received[st.ID]
+	if running && b.SilentAfterStart && v.stops[st.ID] < b.AnswerStop {
+		v.mu.Unlock()
+		return // not heard: the valve stays open
+	}
 	if running {
 		delete(v.running, st.ID)
 	}
@@ -258,10 +268,18 @@ func (v *ValveSimulator) run(c CommandMessage, b Behaviour, reportTopic string, 
 	if !report(ReportMessage{ID: c.ID, State: "started"}) {
 		return
 	}
-	if !wait(start.Add(time.Duration(minutes * float64(time.Minute)))) {
+	end := start.Add(time.Duration(minutes * float64(time.Minute)))
+	if b.SilentAfterStart {
+		<-stop // open until a stop is heard, however long that takes
+		end = v.Clock()
+	}
+	if !wait(end) || b.SilentAfterStart {
 		ran := 0.0
 		if paced {
-			ran = min(max(v.Clock().Sub(start).Minutes(), 0), minutes)
+			ran = max(v.Clock().Sub(start).Minutes(), 0)
+			if !b.SilentAfterStart { // a hung controller's valve stays open past its minutes
+				ran = min(ran, minutes)
+			}
 			ran = math.Round(ran*100) / 100
 		}
 		finish(stopped, ran)
