@@ -84,11 +84,7 @@ func TestBacktestSeason(t *testing.T) {
 }
 
 func TestBacktestReportFiles(t *testing.T) {
-	cfg, err := config.Load(filepath.Join("..", "..", "testdata", "zones", "brackenby.yaml"))
-	require.NoError(t, err)
-	bt, closeBT, err := OpenBacktest(cfg)
-	require.NoError(t, err)
-	defer closeBT()
+	bt := exampleBacktest(t)
 	loc := time.FixedZone("UTC-8", -8*3600)
 	for _, rec := range syntheticHours(time.Date(2026, 7, 1, 0, 0, 0, 0, loc), 3) {
 		require.NoError(t, bt.HandleHour(nil, rec))
@@ -120,11 +116,7 @@ func testConfigNoZones(t *testing.T) *config.Config {
 // the live gateway could have reached, so a run is never planned from an
 // hour that had not closed yet (its end plus close_grace).
 func TestBacktestDecidesWithoutFutureET(t *testing.T) {
-	cfg, err := config.Load(filepath.Join("..", "..", "testdata", "zones", "brackenby.yaml"))
-	require.NoError(t, err)
-	bt, closeBT, err := OpenBacktest(cfg)
-	require.NoError(t, err)
-	defer closeBT()
+	bt := exampleBacktest(t)
 	var latest time.Time // end of the latest hour stepped
 	planned := 0
 	bt.svc.o.OnEvent = func(e Event) {
@@ -152,11 +144,7 @@ func TestBacktestDecidesWithoutFutureET(t *testing.T) {
 // they were sent are not runs, minutes or gross water; they are counted
 // apart. A cycle stopped by the hold counts the minutes it ran.
 func TestBacktestCountsOnlyWaterThatRan(t *testing.T) {
-	cfg, err := config.Load(filepath.Join("..", "..", "testdata", "zones", "brackenby.yaml"))
-	require.NoError(t, err)
-	bt, closeBT, err := OpenBacktest(cfg)
-	require.NoError(t, err)
-	defer closeBT()
+	bt := exampleBacktest(t)
 	loc := time.FixedZone("UTC-8", -8*3600)
 	hours := syntheticHours(time.Date(2026, 7, 1, 0, 0, 0, 0, loc), 14)
 	var firstPlan *controllers.Command
@@ -192,4 +180,16 @@ func TestBacktestCountsOnlyWaterThatRan(t *testing.T) {
 	assert.InDelta(t, 30, day.Minutes, 1e-9)
 	assert.Equal(t, 1, day.Runs)
 	assert.InDelta(t, 30.0/60*5, day.GrossMM, 1e-9)
+}
+
+// exampleBacktest is a backtest of the example farm's zones in a temporary
+// state file removed when the test ends.
+func exampleBacktest(t *testing.T) *Backtest {
+	t.Helper()
+	cfg, err := config.Load(filepath.Join("..", "..", "testdata", "zones", "brackenby.yaml"))
+	require.NoError(t, err)
+	bt, closeBT, err := OpenBacktest(cfg)
+	require.NoError(t, err)
+	t.Cleanup(closeBT)
+	return bt
 }

@@ -76,19 +76,7 @@ func TestValveRoundTripMosquitto(t *testing.T) {
 		}
 		return Behaviour{Lose: true}
 	}}
-	topics := map[string]string{}
-	for _, ref := range f.svc.zones {
-		topics[ref.cmdTopic] = ref.reportTopic
-	}
-	require.NoError(t, sim.Serve(topics))
-
-	ctx, cancel := context.WithCancel(context.Background())
-	done := make(chan error, 1)
-	go func() { done <- f.svc.Run(ctx) }()
-	defer func() {
-		cancel()
-		require.NoError(t, <-done)
-	}()
+	serveAndRun(t, f, sim)
 
 	// row-c expires 15 minutes after its 10:02 start: 10:17, ~17 s real.
 	require.Eventually(t, func() bool {
@@ -324,19 +312,7 @@ func TestSilentControllerGetsStops(t *testing.T) {
 
 	sim := &ValveSimulator{MQTT: dial(t, url, uniq("zones-valves")), Clock: clock.Now, After: clock.After,
 		Behave: func(CommandMessage) Behaviour { return Behaviour{SilentAfterStart: true, AnswerStop: 3} }}
-	topics := map[string]string{}
-	for _, ref := range f.svc.zones {
-		topics[ref.cmdTopic] = ref.reportTopic
-	}
-	require.NoError(t, sim.Serve(topics))
-
-	ctx, cancel := context.WithCancel(context.Background())
-	done := make(chan error, 1)
-	go func() { done <- f.svc.Run(ctx) }()
-	defer func() {
-		cancel()
-		require.NoError(t, <-done)
-	}()
+	serveAndRun(t, f, sim)
 
 	// Start 10:02, 10 minutes, finish grace 1: stops from 10:13 (one real
 	// second is one simulated minute), 2 minutes apart: the third (10:17)
@@ -363,4 +339,22 @@ func TestSilentControllerGetsStops(t *testing.T) {
 	assert.InDelta(t, controllers.NetMM(11, 6, 0.9), credit, 1e-9, "capped at the commanded water plus the margin")
 	assert.Contains(t, cmd.Note, "overrun")
 	assert.GreaterOrEqual(t, len(f.eventsOf(EventStop)), 3)
+}
+
+// serveAndRun lets sim answer every zone of f and runs f's scheduler loop
+// until the test ends.
+func serveAndRun(t *testing.T, f *fixture, sim *ValveSimulator) {
+	t.Helper()
+	topics := map[string]string{}
+	for _, ref := range f.svc.zones {
+		topics[ref.cmdTopic] = ref.reportTopic
+	}
+	require.NoError(t, sim.Serve(topics))
+	ctx, cancel := context.WithCancel(context.Background())
+	done := make(chan error, 1)
+	go func() { done <- f.svc.Run(ctx) }()
+	t.Cleanup(func() {
+		cancel()
+		require.NoError(t, <-done)
+	})
 }
