@@ -25,26 +25,34 @@ func TestInvalidConfigs(t *testing.T) { checkInvalidDir(t, configDir) }
 // the paired .txt exactly (rewritten with -update) and checks that each
 // file breaks one rule.
 func checkInvalidDir(t *testing.T, dir string) {
-	files, err := filepath.Glob(filepath.Join(dir, "invalid-*.yaml"))
+	checkGolden(t, dir, "invalid-*.yaml", func(t *testing.T, f string) string {
+		_, err := Load(f)
+		require.Error(t, err, "%s must not load", f)
+		var ve *ValidationError
+		if errors.As(err, &ve) {
+			assert.Len(t, ve.Problems, 1, "one broken rule per file: %v", ve.Problems)
+		}
+		return err.Error()
+	})
+}
+
+// checkGolden runs one subtest per file of dir matching pattern: got
+// returns the file's text (an error, warnings), compared exactly with the
+// paired .txt (rewritten with -update).
+func checkGolden(t *testing.T, dir, pattern string, got func(t *testing.T, f string) string) {
+	files, err := filepath.Glob(filepath.Join(dir, pattern))
 	require.NoError(t, err)
 	require.NotEmpty(t, files)
 	for _, f := range files {
-		name := strings.TrimSuffix(filepath.Base(f), ".yaml")
-		t.Run(name, func(t *testing.T) {
-			_, err := Load(f)
-			require.Error(t, err, "%s must not load", f)
-			got := err.Error()
+		t.Run(strings.TrimSuffix(filepath.Base(f), ".yaml"), func(t *testing.T) {
+			text := got(t, f)
 			want := strings.TrimSuffix(f, ".yaml") + ".txt"
 			if *update {
-				require.NoError(t, os.WriteFile(want, []byte(got+"\n"), 0o644))
+				require.NoError(t, os.WriteFile(want, []byte(text+"\n"), 0o644))
 			}
 			b, err := os.ReadFile(want)
-			require.NoError(t, err, "every invalid-*.yaml needs its expected message in a .txt")
-			assert.Equal(t, strings.TrimRight(string(b), "\n"), got)
-			var ve *ValidationError
-			if errors.As(err, &ve) {
-				assert.Len(t, ve.Problems, 1, "one broken rule per file: %v", ve.Problems)
-			}
+			require.NoError(t, err, "every %s needs its expected text in a .txt", pattern)
+			assert.Equal(t, strings.TrimRight(string(b), "\n"), text)
 		})
 	}
 }

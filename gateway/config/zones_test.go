@@ -1,7 +1,6 @@
 package config
 
 import (
-	"os"
 	"path/filepath"
 	"strings"
 	"testing"
@@ -53,25 +52,13 @@ func TestZonesExample(t *testing.T) {
 // but has one implausible figure, and compares its warnings with the paired
 // warn-*.txt exactly (rewritten with -update): one warning per file.
 func TestWarnConfigs(t *testing.T) {
-	files, err := filepath.Glob(filepath.Join(configDir, "warn-*.yaml"))
-	require.NoError(t, err)
-	require.NotEmpty(t, files)
-	for _, f := range files {
-		name := strings.TrimSuffix(filepath.Base(f), ".yaml")
-		t.Run(name, func(t *testing.T) {
-			c, err := Load(f)
-			require.NoError(t, err, "a warn-*.yaml must load")
-			ws := c.Warnings()
-			want := strings.TrimSuffix(f, ".yaml") + ".txt"
-			if *update {
-				require.NoError(t, os.WriteFile(want, []byte(strings.Join(ws, "\n")+"\n"), 0o644))
-			}
-			b, err := os.ReadFile(want)
-			require.NoError(t, err, "every warn-*.yaml needs its expected warning in a .txt")
-			assert.Equal(t, strings.TrimRight(string(b), "\n"), strings.Join(ws, "\n"))
-			assert.Len(t, ws, 1, "one warning per file")
-		})
-	}
+	checkGolden(t, configDir, "warn-*.yaml", func(t *testing.T, f string) string {
+		c, err := Load(f)
+		require.NoError(t, err, "a warn-*.yaml must load")
+		ws := c.Warnings()
+		assert.Len(t, ws, 1, "one warning per file")
+		return strings.Join(ws, "\n")
+	})
 }
 
 // TestShippedExamplesHaveNoWarnings keeps the examples plausible: a warning
