@@ -149,6 +149,17 @@ type Sensor struct {
 	Ignore []string `yaml:"ignore"`
 }
 
+// ChannelName is the name of the sensor's channel key in readings and
+// alerts: the sensor id for the single-value formats (key ""),
+// "<sensor>.<key>" for a field or SenML record, so every quantity of a
+// multi-quantity payload is told apart.
+func (s *Sensor) ChannelName(key string) string {
+	if key == "" {
+		return s.ID
+	}
+	return s.ID + "." + key
+}
+
 // Channels returns the sensor's channels keyed by payload field or record
 // name; for the number and json formats the single key is "".
 func (s *Sensor) Channels() map[string]Channel {

@@ -153,12 +153,7 @@ func (b *binding) reject(sensor string, reason Reason, err error) Rejection {
 // sampleName is the Sample.Sensor of a channel: the sensor id for the
 // single-value formats, "<sensor>.<key>" for fields and SenML records, so
 // that every quantity of a multi-quantity payload deduplicates on its own.
-func (b *binding) sampleName(key string) string {
-	if key == "" {
-		return b.sensor.ID
-	}
-	return b.sensor.ID + "." + key
-}
+func (b *binding) sampleName(key string) string { return b.sensor.ChannelName(key) }
 
 // decoding accumulates the result of one Route call.
 type decoding struct {

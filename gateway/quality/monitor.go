@@ -169,11 +169,7 @@ func New(o Options) (*Monitor, error) {
 			for _, sensor := range sc.Sensors {
 				channels := sensor.Channels()
 				for _, k := range config.SortedKeys(channels) {
-					name := sensor.ID
-					if k != "" {
-						name += "." + k
-					}
-					info.readings.Expect(name, channels[k].Quantity, now)
+					info.readings.Expect(sensor.ChannelName(k), channels[k].Quantity, now)
 				}
 			}
 			m.stations[stationID{site.ID, sc.ID}] = info

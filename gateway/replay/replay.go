@@ -347,12 +347,8 @@ func newRowReader(r *csv.Reader, cfg *config.Config) (*rowReader, error) {
 			for _, sensor := range st.Sensors {
 				channels := sensor.Channels()
 				for _, k := range config.SortedKeys(channels) {
-					name := sensor.ID
-					if k != "" {
-						name += "." + k
-					}
 					if _, ok := names[channels[k].Quantity]; !ok {
-						names[channels[k].Quantity] = name
+						names[channels[k].Quantity] = sensor.ChannelName(k)
 					}
 				}
 			}
