@@ -7,6 +7,11 @@
 # temporary data directories, exports their addresses to the tests, runs
 # `go vet` and `go test`, and stops exactly the processes it started (by PID)
 # on exit. Extra arguments go to `go test` (e.g. -run TestName).
+#
+# Before the tests it checks that `go mod tidy` would change nothing and runs
+# staticcheck (the pinned version below, installed with `go install` from the
+# Go module proxy into a temporary GOBIN when the one on PATH is missing or
+# another version).
 set -euo pipefail
 cd "$(dirname "$0")/.."
 
@@ -69,6 +74,37 @@ wait_tcp() { # port pid name
 	return 1
 }
 
+# STATICCHECK_VERSION is the staticcheck module version the suite must pass.
+STATICCHECK_VERSION=v0.8.2
+
+# check_tidy fails when `go mod tidy` would change go.mod or go.sum.
+check_tidy() {
+	local diff
+	if ! diff=$(go mod tidy -diff 2>&1); then
+		printf '%s\n' "$diff" >&2
+		log "go.mod/go.sum are not tidy (diff above): run 'go mod tidy' and commit go.mod and go.sum"
+		return 1
+	fi
+}
+
+# staticcheck_bin runs staticcheck $STATICCHECK_VERSION with the given
+# arguments, installing it into $work/bin when PATH has no such version.
+staticcheck_bin() {
+	local sc
+	sc=$(command -v staticcheck 2>/dev/null || true)
+	if [ -z "$sc" ] || ! "$sc" -version 2>/dev/null | grep -qF "(${STATICCHECK_VERSION#v})"; then
+		sc="$work/bin/staticcheck"
+		if [ ! -x "$sc" ]; then
+			log "installing staticcheck $STATICCHECK_VERSION"
+			GOBIN="$work/bin" go install "honnef.co/go/tools/cmd/staticcheck@$STATICCHECK_VERSION" ||
+				{ log "could not install staticcheck $STATICCHECK_VERSION (needs the Go module proxy)"; return 1; }
+		fi
+	fi
+	"$sc" "$@" || { log "staticcheck found problems (above): fix them; the suite must be clean"; return 1; }
+}
+
+check_tidy
+
 mqtt_port=$(free_port)
 cat >"$work/mosquitto.conf" <<CONF
 listener $mqtt_port 127.0.0.1
@@ -99,4 +135,5 @@ export ETPULSE_TEST_VICTORIA="$VM"
 log "mosquitto on $ETPULSE_TEST_MQTT (pid ${pids[0]}), victoria-metrics on $ETPULSE_TEST_INFLUX (pid ${pids[1]})"
 
 go vet ./...
+staticcheck_bin ./...
 go test -count=1 -timeout 45m "$@" ./...

@@ -7,7 +7,6 @@ import (
 	"os"
 	"os/exec"
 	"path/filepath"
-	"runtime"
 	"strings"
 	"sync"
 	"syscall"
@@ -28,12 +27,9 @@ import (
 // buildEtpulse compiles the etpulse command into dir.
 func buildEtpulse(t *testing.T, dir string) string {
 	t.Helper()
-	goTool := filepath.Join(runtime.GOROOT(), "bin", "go")
-	if _, err := os.Stat(goTool); err != nil {
-		goTool = "go"
-	}
 	bin := filepath.Join(dir, "etpulse")
-	cmd := exec.Command(goTool, "build", "-o", bin, "etpulse/cmd/etpulse")
+	// go test puts the go command of the running toolchain first on PATH.
+	cmd := exec.Command("go", "build", "-o", bin, "etpulse/cmd/etpulse")
 	out, err := cmd.CombinedOutput()
 	require.NoError(t, err, "go build: %s", out)
 	return bin

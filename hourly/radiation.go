@@ -263,8 +263,7 @@ func dayOfYear(days int64) int {
 	yoe := (doe - doe/1460 + doe/36524 - doe/146096) / 365 // [0, 399]
 	doyMar := doe - (365*yoe + yoe/4 - yoe/100)            // day of the year starting 1 March, [0, 365]
 	y := yoe + era*400
-	if doyMar >= 306 { // January or February: belongs to the next civil year
-		y++
+	if doyMar >= 306 { // January or February: day of the next civil year, leap day not yet passed
 		return int(doyMar-306) + 1
 	}
 	leap := y%4 == 0 && (y%100 != 0 || y%400 == 0)

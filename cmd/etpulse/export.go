@@ -11,6 +11,7 @@ import (
 	"time"
 
 	"go.etcd.io/bbolt"
+	bberrors "go.etcd.io/bbolt/errors"
 
 	"etpulse/gateway/config"
 	"etpulse/gateway/store"
@@ -95,7 +96,7 @@ func runExport(ctx context.Context, args []string, stdin io.Reader, stdout, stde
 
 	db, err := bbolt.Open(path, 0o600, &bbolt.Options{ReadOnly: true, Timeout: 2 * time.Second})
 	if err != nil {
-		if errors.Is(err, bbolt.ErrTimeout) {
+		if errors.Is(err, bberrors.ErrTimeout) {
 			fmt.Fprintf(stderr, "etpulse export: state file %s is in use by a running gateway; stop it or export from a copy\n", path)
 		} else {
 			fmt.Fprintf(stderr, "etpulse export: open state %s: %v\n", path, err)

@@ -4,6 +4,7 @@ import (
 	"bytes"
 	"errors"
 	"io"
+	"math"
 	"strconv"
 	"strings"
 	"testing"
@@ -257,7 +258,7 @@ func TestAppendFixed(t *testing.T) {
 		v    float64
 		prec int
 		want string
-	}{{0.62694, 4, "0.6269"}, {-0.00004, 4, "0.0000"}, {-0.00005001, 4, "-0.0001"}, {-0.0103, 4, "-0.0103"}, {3, 3, "3.000"}, {-0.0, 2, "0.00"}} {
+	}{{0.62694, 4, "0.6269"}, {-0.00004, 4, "0.0000"}, {-0.00005001, 4, "-0.0001"}, {-0.0103, 4, "-0.0103"}, {3, 3, "3.000"}, {math.Copysign(0, -1), 2, "0.00"}, {math.Copysign(0, -1), 9, "0.000000000"}, {-1e-12, 9, "0.000000000"}} {
 		assert.Equal(t, tc.want, string(AppendFixed(nil, tc.v, tc.prec)), "%v", tc.v)
 	}
 }

@@ -52,7 +52,6 @@ func newTestWriter(t testing.TB, o *Outbox, url string, reg prometheus.Registere
 // stores it: series <measurement>_<field>, tags as labels, millisecond time.
 func expectInVM(t *testing.T, ss []vmSeries, pts []Point) {
 	t.Helper()
-	type key struct{ labels string }
 	got := map[string]map[int64][]float64{}
 	for _, s := range ss {
 		k := labelKey(s.Metric)
