@@ -1,10 +1,9 @@
 package mqtt
 
 import (
-	"errors"
-	"fmt"
-
 	"github.com/prometheus/client_golang/prometheus"
+
+	"etpulse/gateway/internal/promreg"
 )
 
 type metrics struct {
@@ -36,38 +35,18 @@ func newMetrics(reg prometheus.Registerer) (*metrics, error) {
 			Help: "Received MQTT messages queued or being handled.",
 		}),
 	}
-	if reg == nil {
-		return m, nil
-	}
 	var err error
-	m.connected, err = register(reg, m.connected)
-	if err != nil {
+	if m.connected, err = promreg.Shared(reg, "mqtt", m.connected); err != nil {
 		return nil, err
 	}
-	m.reconnects, err = register(reg, m.reconnects)
-	if err != nil {
+	if m.reconnects, err = promreg.Shared(reg, "mqtt", m.reconnects); err != nil {
 		return nil, err
 	}
-	m.received, err = register(reg, m.received)
-	if err != nil {
+	if m.received, err = promreg.Shared(reg, "mqtt", m.received); err != nil {
 		return nil, err
 	}
-	m.inflight, err = register(reg, m.inflight)
-	if err != nil {
+	if m.inflight, err = promreg.Shared(reg, "mqtt", m.inflight); err != nil {
 		return nil, err
 	}
 	return m, nil
-}
-
-func register[C prometheus.Collector](reg prometheus.Registerer, c C) (C, error) {
-	if err := reg.Register(c); err != nil {
-		var are prometheus.AlreadyRegisteredError
-		if errors.As(err, &are) {
-			if existing, ok := are.ExistingCollector.(C); ok {
-				return existing, nil
-			}
-		}
-		return c, fmt.Errorf("register metrics: %w", err)
-	}
-	return c, nil
 }

@@ -1,7 +1,6 @@
 package pipeline
 
 import (
-	"fmt"
 	"log/slog"
 	"sync"
 	"time"
@@ -9,6 +8,7 @@ import (
 	"github.com/prometheus/client_golang/prometheus"
 
 	"etpulse/gateway/ingest"
+	"etpulse/gateway/internal/promreg"
 )
 
 // metrics are the pipeline's Prometheus collectors.
@@ -53,13 +53,8 @@ func newMetrics(reg prometheus.Registerer) (*metrics, error) {
 			Help: "End of the station's most recently closed hour, Unix seconds.",
 		}, []string{"station"}),
 	}
-	if reg == nil {
-		return m, nil
-	}
-	for _, c := range []prometheus.Collector{m.received, m.rejected, m.duplicates, m.closed, m.revisions, m.lastET, m.lastClosed} {
-		if err := reg.Register(c); err != nil {
-			return nil, fmt.Errorf("register pipeline metrics: %w", err)
-		}
+	if err := promreg.Register(reg, "pipeline", m.received, m.rejected, m.duplicates, m.closed, m.revisions, m.lastET, m.lastClosed); err != nil {
+		return nil, err
 	}
 	return m, nil
 }

@@ -1,9 +1,9 @@
 package quality
 
 import (
-	"fmt"
-
 	"github.com/prometheus/client_golang/prometheus"
+
+	"etpulse/gateway/internal/promreg"
 )
 
 // metrics are the monitor's Prometheus metrics.
@@ -33,13 +33,8 @@ func newMetrics(reg prometheus.Registerer) (*metrics, error) {
 			Help: "Failed attempts to publish an alert message on MQTT.",
 		}),
 	}
-	if reg == nil {
-		return m, nil
-	}
-	for _, c := range []prometheus.Collector{m.active, m.raised, m.cleared, m.publishErrors} {
-		if err := reg.Register(c); err != nil {
-			return nil, fmt.Errorf("register alert metrics: %w", err)
-		}
+	if err := promreg.Register(reg, "alert", m.active, m.raised, m.cleared, m.publishErrors); err != nil {
+		return nil, err
 	}
 	return m, nil
 }

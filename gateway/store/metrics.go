@@ -1,10 +1,9 @@
 package store
 
 import (
-	"errors"
-	"fmt"
-
 	"github.com/prometheus/client_golang/prometheus"
+
+	"etpulse/gateway/internal/promreg"
 )
 
 type outboxMetrics struct {
@@ -48,7 +47,7 @@ func newOutboxMetrics(o *Outbox, reg prometheus.Registerer) (*outboxMetrics, err
 			return 0
 		}),
 	}
-	if err := register(reg, cs...); err != nil {
+	if err := promreg.Register(reg, "outbox", cs...); err != nil {
 		return nil, err
 	}
 	return m, nil
@@ -76,24 +75,8 @@ func newWriterMetrics(reg prometheus.Registerer) (*writerMetrics, error) {
 			Buckets: prometheus.ExponentialBuckets(0.001, 4, 8),
 		}),
 	}
-	if err := register(reg, m.written, m.errors, m.duration); err != nil {
+	if err := promreg.Register(reg, "store writer", m.written, m.errors, m.duration); err != nil {
 		return nil, err
 	}
 	return m, nil
-}
-
-func register(reg prometheus.Registerer, cs ...prometheus.Collector) error {
-	if reg == nil {
-		return nil
-	}
-	var errs []error
-	for _, c := range cs {
-		if err := reg.Register(c); err != nil {
-			errs = append(errs, err)
-		}
-	}
-	if err := errors.Join(errs...); err != nil {
-		return fmt.Errorf("register metrics: %w", err)
-	}
-	return nil
 }

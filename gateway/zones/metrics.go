@@ -1,12 +1,12 @@
 package zones
 
 import (
-	"fmt"
 	"time"
 
 	"github.com/prometheus/client_golang/prometheus"
 
 	"etpulse/controllers"
+	"etpulse/gateway/internal/promreg"
 )
 
 type metrics struct {
@@ -35,13 +35,8 @@ func newMetrics(reg prometheus.Registerer) (*metrics, error) {
 			Help: "Valve reports that were malformed, for an unknown command, or contradicted the ledger.",
 		}),
 	}
-	if reg == nil {
-		return m, nil
-	}
-	for _, c := range []prometheus.Collector{m.depletion, m.taw, m.commands, m.badReports} {
-		if err := reg.Register(c); err != nil {
-			return nil, fmt.Errorf("register zone metrics: %w", err)
-		}
+	if err := promreg.Register(reg, "zone", m.depletion, m.taw, m.commands, m.badReports); err != nil {
+		return nil, err
 	}
 	return m, nil
 }
