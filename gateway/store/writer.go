@@ -6,13 +6,8 @@ import (
 	"fmt"
 	"log/slog"
 	"math/rand/v2"
-	"net/http"
-	"strconv"
 	"time"
 
-	influxdb2 "github.com/influxdata/influxdb-client-go/v2"
-	"github.com/influxdata/influxdb-client-go/v2/api"
-	http2 "github.com/influxdata/influxdb-client-go/v2/api/http"
 	"github.com/prometheus/client_golang/prometheus"
 )
 
@@ -29,6 +24,11 @@ const (
 
 // WriterOptions configures a Writer.
 type WriterOptions struct {
+	// Sink receives the points. When nil, the writer builds an InfluxSink
+	// from URL, Org, Bucket, Token, MaxFuture, MaxAge and WriteTimeout, and
+	// closes it in Close; those fields must then be empty when Sink is set.
+	Sink Sink
+
 	URL    string // base URL of a server with the InfluxDB v2 write API
 	Org    string
 	Bucket string
@@ -51,17 +51,33 @@ type WriterOptions struct {
 	Registerer prometheus.Registerer // nil: metrics are not registered
 }
 
-// lineWriter sends lines of line protocol; api.WriteAPIBlocking satisfies it.
-type lineWriter interface {
-	WriteRecord(ctx context.Context, line ...string) error
+// Sink is where the outbox drain sends points: the store server, or any
+// other destination. The drain removes a point from the outbox once the
+// sink settled it (stored or refused) and moves refused points to the
+// quarantine; it retries everything else after an outage.
+//
+// A sink may see a point again after an outage cut a write short (the
+// points in flight are re-sent); points with the same measurement, tags and
+// time carry the same or a newer value, so storing one again is harmless.
+type Sink interface {
+	// Write stores pts in order. It returns settled, how many points from
+	// the start of pts are dealt with (stored or refused), and the refused
+	// ones among them: points the sink will never accept as they are, with
+	// the reason. A non-nil error is an outage: pts[settled:] were not
+	// stored and are retried unchanged later. On success settled is len(pts).
+	Write(ctx context.Context, pts []Point) (settled int, refused []Refusal, err error)
 }
 
-var _ lineWriter = (api.WriteAPIBlocking)(nil)
+// Refusal is a point a Sink will never accept as it is.
+type Refusal struct {
+	Index  int    // position in the batch given to Write
+	Reason string // the sink's answer, kept with the point in the quarantine
+}
 
-// errServer marks a failed write to the server (as opposed to the state file).
+// errServer marks a failed write to the sink (as opposed to the state file).
 var errServer = errors.New("store server")
 
-// Writer drains an Outbox to the store in batches, oldest first. It is a
+// Writer drains an Outbox to a Sink in batches, oldest first. It is a
 // gateway service: Run loops until its context ends.
 //
 // Backfill rule: while more than one batch is pending, each batch is made of
@@ -75,30 +91,38 @@ var errServer = errors.New("store server")
 type Writer struct {
 	o       *Outbox
 	opt     WriterOptions
-	client  influxdb2.Client
-	api     lineWriter
+	sink    Sink
+	closer  func() // closes a sink the writer built; nil otherwise
 	log     *slog.Logger
 	metrics *writerMetrics
 
 	liveSince time.Time // points enqueued since then count as live
 }
 
-// NewWriter returns a writer of o's points to the server at opt.URL. It does
-// not contact the server.
+// NewWriter returns a writer of o's points to opt.Sink, or to the server at
+// opt.URL when no sink is given. It does not contact the server.
 func NewWriter(o *Outbox, opt WriterOptions) (*Writer, error) {
-	if opt.URL == "" {
-		return nil, errors.New("new writer: no store url")
-	}
 	if o.opt.LocalOnly {
 		return nil, errors.New("new writer: the outbox keeps local history only")
+	}
+	influx := InfluxOptions{URL: opt.URL, Org: opt.Org, Bucket: opt.Bucket, Token: opt.Token,
+		MaxFuture: opt.MaxFuture, MaxAge: opt.MaxAge, WriteTimeout: opt.WriteTimeout}
+	if opt.Sink != nil && (opt.URL != "" || opt.Org != "" || opt.Bucket != "" || opt.Token != "" ||
+		opt.MaxFuture != 0 || opt.MaxAge != 0 || opt.WriteTimeout != 0) {
+		return nil, fmt.Errorf("new writer: both a sink and store server options (url %q) given; set one", opt.URL)
+	}
+	if opt.Sink == nil && opt.URL == "" {
+		return nil, errors.New("new writer: no store url")
 	}
 	setDefault(&opt.BatchSize, DefaultBatchSize)
 	setDefault(&opt.FlushInterval, DefaultFlushInterval)
 	setDefault(&opt.MinBackoff, DefaultMinBackoff)
 	setDefault(&opt.MaxBackoff, DefaultMaxBackoff)
 	setDefault(&opt.BackfillRate, DefaultBackfillRate)
-	setDefault(&opt.MaxFuture, DefaultMaxFuture)
-	setDefault(&opt.WriteTimeout, DefaultWriteTimeout)
+	if opt.Sink == nil {
+		setDefault(&opt.MaxFuture, DefaultMaxFuture)
+		setDefault(&opt.WriteTimeout, DefaultWriteTimeout)
+	}
 	if opt.BatchSize < 1 {
 		return nil, fmt.Errorf("new writer: batch size must be > 0, got %d", opt.BatchSize)
 	}
@@ -112,19 +136,16 @@ func NewWriter(o *Outbox, opt WriterOptions) (*Writer, error) {
 	if err != nil {
 		return nil, fmt.Errorf("new writer: %w", err)
 	}
-	copt := influxdb2.DefaultOptions().
-		SetPrecision(time.Nanosecond).
-		SetHTTPRequestTimeout(uint(max(opt.WriteTimeout.Seconds(), 1)))
-	client := influxdb2.NewClientWithOptions(opt.URL, opt.Token, copt)
-	return &Writer{
-		o:         o,
-		opt:       opt,
-		client:    client,
-		api:       client.WriteAPIBlocking(opt.Org, opt.Bucket),
-		log:       opt.Logger,
-		metrics:   m,
-		liveSince: o.now(),
-	}, nil
+	w := &Writer{o: o, opt: opt, sink: opt.Sink, log: opt.Logger, metrics: m, liveSince: o.now()}
+	if w.sink == nil {
+		influx.Clock = o.now
+		s, err := NewInfluxSink(influx)
+		if err != nil {
+			return nil, fmt.Errorf("new writer: %w", err)
+		}
+		w.sink, w.closer = s, s.Close
+	}
+	return w, nil
 }
 
 func setDefault[T comparable](v *T, d T) {
@@ -208,8 +229,13 @@ func (w *Writer) Run(ctx context.Context) error {
 	return nil
 }
 
-// Close releases the client's connections. Call it after Run and Flush.
-func (w *Writer) Close() { w.client.Close() }
+// Close releases the connections of the sink the writer built (a sink given
+// in WriterOptions is the caller's to close). Call it after Run and Flush.
+func (w *Writer) Close() {
+	if w.closer != nil {
+		w.closer()
+	}
+}
 
 // waitForPoints waits until new points are committed, then lets FlushInterval
 // pass so a burst goes out as one batch. It reports false when ctx ended.
@@ -265,71 +291,57 @@ func (w *Writer) step(ctx context.Context, head, live int) (stepCount, error) {
 			}
 		}
 	}
-	// Points the server would silently drop go to the quarantine first.
-	now := w.o.now()
-	var ok, bad []item
-	var reasons []string
-	for _, it := range items {
-		if err := CheckTime(it.point.Time, now, w.opt.MaxFuture, w.opt.MaxAge); err != nil {
-			bad = append(bad, it)
-			reasons = append(reasons, err.Error())
-			continue
-		}
-		ok = append(ok, it)
-	}
-	if len(bad) > 0 {
-		if err := w.o.done(nil, bad, reasons); err != nil {
-			return stepCount{}, err
-		}
-	}
-	written, err := w.write(ctx, ok)
+	written, err := w.write(ctx, items)
 	return stepCount{read: len(items), head: nHead, written: written}, err
 }
 
-// write sends items and removes them from the outbox once accepted. When
-// the server refuses the batch as invalid (400, 413, 422), it splits the
-// batch in halves to find the bad points and quarantines them with the
-// server's reason; the rest is written.
+// write hands items to the sink, then in one transaction removes the points
+// it stored from the outbox and moves the ones it refused to the quarantine.
+// Points left unsettled by an outage stay pending.
 func (w *Writer) write(ctx context.Context, items []item) (int, error) {
 	if len(items) == 0 {
 		return 0, nil
 	}
-	lines := make([]string, len(items))
+	pts := make([]Point, len(items))
 	for i, it := range items {
-		lines[i] = string(it.line)
+		pts[i] = it.point
 	}
 	start := time.Now()
-	err := w.api.WriteRecord(ctx, lines...)
+	settled, refused, werr := w.sink.Write(ctx, pts)
 	w.metrics.duration.Observe(time.Since(start).Seconds())
-	if err == nil {
-		if err := w.o.done(items, nil, nil); err != nil {
-			return 0, err
+	if werr != nil {
+		w.metrics.errors.Inc()
+	} else {
+		settled = len(items)
+	}
+	if settled < 0 || settled > len(items) {
+		return 0, fmt.Errorf("%w: sink settled %d points of a batch of %d", errServer, settled, len(items))
+	}
+	isBad := make([]bool, settled)
+	var bad []item
+	var reasons []string
+	for _, r := range refused {
+		if r.Index < 0 || r.Index >= settled || isBad[r.Index] {
+			return 0, fmt.Errorf("%w: sink refused point %d of %d settled (out of range or twice)", errServer, r.Index, settled)
 		}
-		w.metrics.written.Add(float64(len(items)))
-		return len(items), nil
+		isBad[r.Index] = true
+		bad = append(bad, items[r.Index])
+		reasons = append(reasons, r.Reason)
 	}
-	w.metrics.errors.Inc()
-	var he *http2.Error
-	if !errors.As(err, &he) || !refusedAsInvalid(he.StatusCode) {
-		return 0, fmt.Errorf("%w: write %d points: %w", errServer, len(items), err)
+	var ok []item
+	for i, it := range items[:settled] {
+		if !isBad[i] {
+			ok = append(ok, it)
+		}
 	}
-	if len(items) == 1 {
-		reason := "store refused: " + strconv.Itoa(he.StatusCode) + " " + http.StatusText(he.StatusCode) + ": " + he.Error()
-		return 0, w.o.done(nil, items, []string{reason})
+	if err := w.o.done(ok, bad, reasons); err != nil {
+		return 0, err
 	}
-	half := len(items) / 2
-	n1, err := w.write(ctx, items[:half])
-	if err != nil {
-		return n1, err
+	w.metrics.written.Add(float64(len(ok)))
+	if werr != nil {
+		return len(ok), fmt.Errorf("%w: write %d points: %w", errServer, len(items)-settled, werr)
 	}
-	n2, err := w.write(ctx, items[half:])
-	return n1 + n2, err
-}
-
-// refusedAsInvalid reports whether a status code means the request's content
-// is at fault (so retrying it unchanged can never succeed).
-func refusedAsInvalid(code int) bool {
-	return code == http.StatusBadRequest || code == http.StatusRequestEntityTooLarge || code == http.StatusUnprocessableEntity
+	return len(ok), nil
 }
 
 // nextBackoff doubles the previous delay up to max, with jitter of up to a

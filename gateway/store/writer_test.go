@@ -7,6 +7,7 @@ import (
 	"io"
 	"log"
 	"maps"
+	"net"
 	"net/http"
 	"net/http/httptest"
 	"net/http/httputil"
@@ -147,10 +148,15 @@ func TestWriteRoundTripVictoria(t *testing.T) {
 // request the server accepted, in order. It returns 502 while the server is
 // down, like a broken uplink. With poison set, a request holding that text
 // is refused with 400, as InfluxDB refuses a batch with an unparsable point
-// (victoria-metrics accepts anything with 204).
+// (victoria-metrics accepts anything with 204). stop and start take the
+// proxy itself off and back on its loopback port (connection refused in
+// between, like a cut uplink).
 type recordingProxy struct {
-	*httptest.Server
+	URL      string
+	addr     string
+	handler  http.Handler
 	mu       sync.Mutex
+	srv      *http.Server
 	accepted []string
 	requests int
 }
@@ -161,8 +167,8 @@ func newRecordingProxy(t *testing.T, upstream, poison string) *recordingProxy {
 	require.NoError(t, err)
 	rp := httputil.NewSingleHostReverseProxy(u)
 	rp.ErrorLog = log.New(io.Discard, "", 0) // 502 while the server is down is expected
-	p := &recordingProxy{}
-	p.Server = httptest.NewServer(http.HandlerFunc(func(w http.ResponseWriter, r *http.Request) {
+	p := &recordingProxy{addr: "127.0.0.1:0"}
+	p.handler = http.HandlerFunc(func(w http.ResponseWriter, r *http.Request) {
 		body, err := io.ReadAll(r.Body)
 		if err != nil {
 			http.Error(w, err.Error(), http.StatusBadRequest)
@@ -188,9 +194,35 @@ func newRecordingProxy(t *testing.T, upstream, poison string) *recordingProxy {
 		maps.Copy(w.Header(), rec.Header())
 		w.WriteHeader(rec.Code)
 		_, _ = w.Write(rec.Body.Bytes())
-	}))
-	t.Cleanup(p.Close)
+	})
+	p.start(t)
+	t.Cleanup(p.stop)
 	return p
+}
+
+// start listens again on the proxy's port (a free one the first time).
+func (p *recordingProxy) start(t *testing.T) {
+	t.Helper()
+	l, err := net.Listen("tcp", p.addr)
+	require.NoError(t, err)
+	p.addr = l.Addr().String()
+	p.URL = "http://" + p.addr
+	srv := &http.Server{Handler: p.handler, ErrorLog: log.New(io.Discard, "", 0)}
+	p.mu.Lock()
+	p.srv = srv
+	p.mu.Unlock()
+	go func() { _ = srv.Serve(l) }()
+}
+
+// stop closes the listener and every open connection.
+func (p *recordingProxy) stop() {
+	p.mu.Lock()
+	srv := p.srv
+	p.srv = nil
+	p.mu.Unlock()
+	if srv != nil {
+		_ = srv.Close()
+	}
 }
 
 func (p *recordingProxy) lines() []string {
@@ -434,16 +466,9 @@ func TestRejectedPointsQuarantined(t *testing.T) {
 		reg := prometheus.NewRegistry()
 		w := newTestWriter(t, o, proxy.URL, reg, nil)
 		require.NoError(t, w.Flush(context.Background()))
-		depth, _ := o.Stats()
-		assert.Zero(t, depth, "the rest flowed")
-		assert.Equal(t, 5.0, testutil.ToFloat64(w.metrics.written))
-		assert.Equal(t, 1.0, testutil.ToFloat64(o.metrics.quarantined))
-		var qs []QuarantinedPoint
-		require.NoError(t, o.Quarantine(func(q QuarantinedPoint) error { qs = append(qs, q); return nil }))
-		require.Len(t, qs, 1)
-		assert.Equal(t, Line(bad), qs[0].Point)
-		assert.Contains(t, qs[0].Reason, "400 Bad Request")
-		assert.Contains(t, qs[0].Reason, "kind=poison refused")
+		q := expectOneRefused(t, o, w, bad, 5)
+		assert.Contains(t, q.Reason, "400 Bad Request")
+		assert.Contains(t, q.Reason, "kind=poison refused")
 		ss := waitVM(t, base, fmt.Sprintf(`{site=%q,zone="field-7"}`, site), 8)
 		expectInVM(t, ss, []Point{good(3), good(4), good(5), good(6), good(7)})
 	})
