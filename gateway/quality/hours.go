@@ -61,7 +61,7 @@ type HourObs struct {
 }
 
 // Rs returns the measured solar radiation of the hour in MJ m-2 h-1 (mean
-// W m-2 x 0.0036, the DESIGN.md conversion) and whether it was measured.
+// W m-2 x 3600 s x 1e-6 MJ/J = x 0.0036) and whether it was measured.
 func (o HourObs) Rs() (float64, bool) {
 	s, ok := o.Q[hourly.Solar]
 	if !ok || s.N == 0 {
