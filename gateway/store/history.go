@@ -2,6 +2,7 @@ package store
 
 import (
 	"context"
+	"errors"
 	"fmt"
 	"log/slog"
 	"time"
@@ -160,6 +161,53 @@ func (h *History) Run(ctx context.Context) error {
 		case <-t.C:
 		}
 	}
+}
+
+var _ Sink = (*History)(nil)
+
+// Write keeps pts in the history, each replacing the point of the same
+// measurement, tags and time, in one transaction. It makes History a Sink:
+// a Writer can drain an outbox into the history of another state file (an
+// archive on a second disk). A point older than the retention is refused (it
+// would be pruned at once), as is a point that fails Validate; raw
+// summaries are settled without being kept, as the history never keeps
+// them. A failure of the file (closed, disk full) is an outage.
+func (h *History) Write(ctx context.Context, pts []Point) (int, []Refusal, error) {
+	if err := ctx.Err(); err != nil {
+		return 0, nil, fmt.Errorf("history write: %w", err)
+	}
+	now := h.now()
+	var refused []Refusal
+	err := h.db.Update(func(tx *bbolt.Tx) error {
+		b := tx.Bucket(bucketHistory)
+		if b == nil {
+			return errors.New("no local history in this state file")
+		}
+		refused = refused[:0] // a retried transaction starts over
+		for i, p := range pts {
+			p = normalize(p)
+			p.Time = p.Time.UTC()
+			err := Validate(p)
+			if err == nil {
+				err = CheckTime(p.Time, now, 0, h.retention)
+			}
+			if err != nil {
+				refused = append(refused, Refusal{Index: i, Reason: err.Error()})
+				continue
+			}
+			if p.Class == ClassRaw {
+				continue
+			}
+			if err := b.Put(appendSeriesKey(nil, p), appendPoint(nil, p)); err != nil {
+				return err
+			}
+		}
+		return nil
+	})
+	if err != nil {
+		return 0, nil, fmt.Errorf("history write of %d points: %w", len(pts), err)
+	}
+	return len(pts), refused, nil
 }
 
 // Count returns the number of points in the history matching f.

@@ -5,6 +5,7 @@ import (
 	"fmt"
 	"maps"
 	"net/http"
+	"path/filepath"
 	"slices"
 	"strings"
 	"testing"
@@ -16,6 +17,7 @@ import (
 	"github.com/stretchr/testify/require"
 
 	"etpulse/gateway/internal/testenv"
+	"etpulse/gateway/state"
 )
 
 // sinkFixture is one implementation of Sink under the contract, with the
@@ -256,4 +258,46 @@ func readVM(t *testing.T, base string, p Point, want int) map[string][]float64 {
 		}
 		time.Sleep(300 * time.Millisecond)
 	}
+}
+
+// TestSinkContractHistory runs the contract on the local history of a
+// second state file (an archive): revisions overwrite, a point older than
+// the retention is refused, and the file closed (a disk gone) is the outage.
+func TestSinkContractHistory(t *testing.T) {
+	testSink(t, func(t *testing.T, site string) sinkFixture {
+		path := filepath.Join(t.TempDir(), "archive.db")
+		db, err := state.Open(path)
+		require.NoError(t, err)
+		t.Cleanup(func() { _ = db.Close() }) // closed already after an outage test
+		archive, err := OpenOutbox(db, OutboxOptions{LocalOnly: true, HistoryRetention: 7 * 24 * time.Hour, Clock: time.Now})
+		require.NoError(t, err)
+		h := archive.History()
+		return sinkFixture{
+			sink: h,
+			read: func(t *testing.T, p Point, _ int) map[string][]float64 {
+				out := map[string][]float64{}
+				f := Filter{From: p.Time, To: p.Time.Add(time.Nanosecond), Measurements: []string{p.Measurement}}
+				require.NoError(t, h.Range(f, func(q Point) error {
+					if maps.Equal(q.Tags, p.Tags) {
+						for k, v := range numericFields(q) {
+							out[k] = append(out[k], v)
+						}
+					}
+					return nil
+				}))
+				return out
+			},
+			refused: func(p Point) (Point, string) {
+				p.Time = time.Now().Add(-8 * 24 * time.Hour).Truncate(time.Hour)
+				return p, "older than the store retention"
+			},
+			down: func(t *testing.T) { require.NoError(t, h.db.Close()) },
+			up: func(t *testing.T) {
+				db, err := state.Open(path)
+				require.NoError(t, err)
+				t.Cleanup(func() { require.NoError(t, db.Close()) })
+				h.db = db // the disk is back: same file, opened again
+			},
+		}
+	})
 }
