@@ -67,7 +67,7 @@ func newWriterMetrics(reg prometheus.Registerer) (*writerMetrics, error) {
 		}),
 		errors: prometheus.NewCounter(prometheus.CounterOpts{
 			Name: "etpulse_store_write_errors_total",
-			Help: "Failed write requests to the store.",
+			Help: "Writes to the store that failed (server unreachable, timing out or failing); points it refused are counted in etpulse_outbox_quarantined_total.",
 		}),
 		duration: prometheus.NewHistogram(prometheus.HistogramOpts{
 			Name:    "etpulse_store_write_duration_seconds",
