@@ -5,9 +5,11 @@ import (
 	"fmt"
 	"maps"
 	"net/http"
+	"net/http/httptest"
 	"path/filepath"
 	"slices"
 	"strings"
+	"sync"
 	"testing"
 	"time"
 
@@ -300,4 +302,45 @@ func TestSinkContractHistory(t *testing.T) {
 			},
 		}
 	})
+}
+
+// TestInfluxSinkOutageWhileSplitting: a batch refused as invalid is split
+// in halves; when the server fails after the first half was accepted, that
+// half leaves the outbox and the rest (including a point the sink refuses
+// by its time check, further on) stays pending for the retry.
+func TestInfluxSinkOutageWhileSplitting(t *testing.T) {
+	var mu sync.Mutex
+	answers := []int{http.StatusBadRequest, http.StatusNoContent, http.StatusServiceUnavailable}
+	srv := httptest.NewServer(http.HandlerFunc(func(w http.ResponseWriter, r *http.Request) {
+		mu.Lock()
+		code := http.StatusNoContent
+		if len(answers) > 0 {
+			code, answers = answers[0], answers[1:]
+		}
+		mu.Unlock()
+		w.WriteHeader(code)
+	}))
+	t.Cleanup(srv.Close)
+
+	db := openTestDB(t)
+	o := openTestOutbox(t, db, OutboxOptions{Clock: time.Now, Registerer: prometheus.NewRegistry()})
+	w := newTestWriter(t, o, srv.URL, prometheus.NewRegistry(), nil)
+	t.Cleanup(w.Close)
+	pt := func(h int) Point {
+		return ZonePoint("lowmead", "field-7", realNow.Add(time.Duration(h-10)*time.Hour), map[string]any{"depletion_mm": float64(h)})
+	}
+	future := pt(3)
+	future.Time = realNow.Add(72 * time.Hour)
+	enqueue(t, db, o, pt(0), pt(1), pt(2), future, pt(4))
+
+	require.NoError(t, w.Flush(context.Background()))
+	assert.Equal(t, []string{Line(pt(2)), Line(future), Line(pt(4))}, pending(t, o), "the accepted half left, the rest waits")
+	assert.Equal(t, 2.0, testutil.ToFloat64(w.metrics.written))
+	assert.Equal(t, 1.0, testutil.ToFloat64(w.metrics.errors))
+	assert.Zero(t, testutil.ToFloat64(o.metrics.quarantined), "nothing past the outage is settled")
+
+	require.NoError(t, w.Flush(context.Background()))
+	assert.Empty(t, pending(t, o))
+	assert.Equal(t, 4.0, testutil.ToFloat64(w.metrics.written))
+	assert.Equal(t, 1.0, testutil.ToFloat64(o.metrics.quarantined), "the future point, at the retry")
 }
