@@ -62,8 +62,12 @@ func setupAlerts(cfg *config.Config, deps Deps, outbox *store.Outbox, comp *Comp
 	if outbox != nil {
 		checks = append(checks, httpapi.OutboxBelowCap(outbox.Stats, outbox.Cap()))
 	}
+	var history *store.History // served on /api/v1/history for etpulse export
+	if outbox != nil {
+		history = outbox.History()
+	}
 	comp.Services = append(comp.Services, httpapi.New(httpapi.Options{
-		Addr: cfg.HTTP.Listen, Gatherer: gatherer, Checks: checks,
+		Addr: cfg.HTTP.Listen, Gatherer: gatherer, Checks: checks, History: history,
 		Logger: deps.Logger.With("component", "http"),
 	}))
 	return mon, nil

@@ -6,7 +6,6 @@ import (
 	"flag"
 	"fmt"
 	"io"
-	"slices"
 	"strings"
 	"time"
 
@@ -14,6 +13,7 @@ import (
 	bberrors "go.etcd.io/bbolt/errors"
 
 	"etpulse/gateway/config"
+	"etpulse/gateway/httpapi"
 	"etpulse/gateway/store"
 )
 
@@ -24,26 +24,32 @@ var exportHelp = helpText{
 steps, valve commands and reports, alerts; raw summaries are not kept) on
 stdout, and the number of points on stderr. Times: RFC 3339, or UTC
 2006-01-02 / 2006-01-02T15:04; a point's time is the start of its period.
-The state file must not be open in a running gateway: stop it, or export
-from a copy. 'etpulse demo --state FILE' keeps a demo's state for this.`,
+
+With --config the history is read through the running gateway's HTTP
+listener (http.listen, GET /api/v1/history) while it runs and writes; when
+no gateway answers there, from the state file (state.path). stderr says
+which. --state reads the file only, so the gateway must be stopped (or give
+a copy). 'etpulse demo --state FILE' keeps a demo's state for this.`,
 	outro: `CSV: one row per point; columns time (UTC), measurement, then every tag,
 field and note key found (tags first), empty where a point has no such key.
 lp: the line protocol the store writer sends, nanosecond times.
 
-Exit status: 0 success, 1 the state file cannot be read (missing, locked,
-no local history), 2 bad command line or configuration.`,
+Exit status: 0 success, 1 the history cannot be read (gateway error, state
+file missing or locked, no local history), 2 bad command line or
+configuration.`,
 }
 
-// runExport prints the local history kept in the state file.
+// runExport prints the local history: through the running gateway when
+// --config names one that answers, else from the state file.
 func runExport(ctx context.Context, args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 	fs := flag.NewFlagSet("export", flag.ContinueOnError)
-	from := fs.String("from", "", "first point `time` to print (inclusive)")
-	to := fs.String("to", "", "end `time` of the period (exclusive)")
-	station := fs.String("station", "", "only points of this `station` id")
-	meas := fs.String("measurement", "", "only the measurements in this comma-separated `list`: "+strings.Join(store.Measurements(), ", "))
-	format := fs.String("format", "csv", "output `format`: csv, or lp for InfluxDB line protocol (post it with precision=ns)")
-	statePath := fs.String("state", "", "state `file` to read")
-	configPath := fs.String("config", "", "configuration `file`: read its state.path")
+	fs.String("from", "", "first point `time` to print (inclusive)")
+	fs.String("to", "", "end `time` of the period (exclusive)")
+	fs.String("station", "", "only points of this `station` id")
+	fs.String("measurement", "", "only the measurements in this comma-separated `list`: "+strings.Join(store.Measurements(), ", "))
+	fs.String("format", "csv", "output `format`: csv, or lp for InfluxDB line protocol (post it with precision=ns)")
+	statePath := fs.String("state", "", "state `file` to read (the gateway must not be running)")
+	configPath := fs.String("config", "", "configuration `file`: read through the running gateway on its http.listen, else its state.path")
 	if code, done := parseFlags(fs, args, exportHelp, stdout, stderr); done {
 		return code
 	}
@@ -53,31 +59,13 @@ func runExport(ctx context.Context, args []string, stdin io.Reader, stdout, stde
 	if fs.NArg() > 0 {
 		return usageErr("unexpected argument %q", fs.Arg(0))
 	}
-	var f store.Filter
-	var err error
-	if *from == "" || *to == "" {
-		return usageErr("--from and --to are required")
-	}
-	if f.From, err = store.ParseTime(*from); err != nil {
-		return usageErr("--from: %v", err)
-	}
-	if f.To, err = store.ParseTime(*to); err != nil {
-		return usageErr("--to: %v", err)
-	}
-	if !f.To.After(f.From) {
-		return usageErr("--to %s must be after --from %s", f.To.Format(time.RFC3339), f.From.Format(time.RFC3339))
-	}
-	f.Station = *station
-	if *meas != "" {
-		for _, m := range strings.Split(*meas, ",") {
-			if !slices.Contains(store.Measurements(), m) {
-				return usageErr("--measurement: unknown measurement %q (known: %s)", m, strings.Join(store.Measurements(), ", "))
-			}
-			f.Measurements = append(f.Measurements, m)
+	q, err := httpapi.ParseHistoryQuery(func(name string) string { return fs.Lookup(name).Value.String() })
+	if err != nil {
+		var pe *httpapi.ParamError
+		if errors.As(err, &pe) {
+			return usageErr("--%s: %s", pe.Param, pe.Problem)
 		}
-	}
-	if *format != "csv" && *format != "lp" {
-		return usageErr("--format must be csv or lp, got %q", *format)
+		return usageErr("%v", err)
 	}
 	path := *statePath
 	switch {
@@ -90,14 +78,39 @@ func runExport(ctx context.Context, args []string, stdin io.Reader, stdout, stde
 			return exitUsage
 		}
 		path = cfg.State.Path
+		if cfg.HTTP.Disabled {
+			fmt.Fprintf(stderr, "etpulse export: http.disabled is set: reading the state file %s\n", path)
+			break
+		}
+		base, err := httpapi.BaseURL(cfg.HTTP.Listen)
+		if err != nil {
+			fmt.Fprintf(stderr, "etpulse export: %v\n", err)
+			return exitUsage
+		}
+		n, err := httpapi.FetchHistory(ctx, base, q, stdout)
+		switch {
+		case err == nil:
+			fmt.Fprintf(stderr, "etpulse export: %s, read through the running gateway at %s\n", count(n, "point", "points"), base)
+			return exitOK
+		case errors.Is(err, httpapi.ErrNoGateway):
+			fmt.Fprintf(stderr, "etpulse export: no gateway answers at %s: reading the state file %s\n", base, path)
+		default:
+			fmt.Fprintf(stderr, "etpulse export: %v\n", err)
+			return exitError
+		}
 	case path == "":
 		return usageErr("--state FILE or --config FILE is required")
 	}
+	return exportFile(path, q, stdout, stderr)
+}
 
+// exportFile prints the history of the state file at path, which no
+// running gateway may hold.
+func exportFile(path string, q httpapi.HistoryQuery, stdout, stderr io.Writer) int {
 	db, err := bbolt.Open(path, 0o600, &bbolt.Options{ReadOnly: true, Timeout: 2 * time.Second})
 	if err != nil {
 		if errors.Is(err, bberrors.ErrTimeout) {
-			fmt.Fprintf(stderr, "etpulse export: state file %s is in use by a running gateway; stop it or export from a copy\n", path)
+			fmt.Fprintf(stderr, "etpulse export: state file %s is in use by a running gateway; export through it with --config FILE (http.listen must be on), or stop it, or export from a copy\n", path)
 		} else {
 			fmt.Fprintf(stderr, "etpulse export: open state %s: %v\n", path, err)
 		}
@@ -109,12 +122,7 @@ func runExport(ctx context.Context, args []string, stdin io.Reader, stdout, stde
 		fmt.Fprintf(stderr, "etpulse export: %s: %v\n", path, err)
 		return exitError
 	}
-	var n int
-	if *format == "lp" {
-		n, err = store.ExportLineProtocol(stdout, h, f)
-	} else {
-		n, err = store.ExportCSV(stdout, h, f)
-	}
+	n, err := httpapi.WriteHistory(stdout, h, q)
 	if err != nil {
 		fmt.Fprintf(stderr, "etpulse export: %v\n", err)
 		return exitError

@@ -1,7 +1,9 @@
-// Package httpapi serves the gateway's operational endpoints: /metrics
-// (Prometheus text exposition of the given Gatherer), /healthz (the process
-// is alive) and /readyz (every readiness check passes). It serves nothing
-// else: no profiling, no configuration, no data.
+// Package httpapi serves the gateway's endpoints: /metrics (Prometheus
+// text exposition of the given Gatherer), /healthz (the process is alive),
+// /readyz (every readiness check passes) and /api/v1/history (the local
+// history, read beside the running gateway, as `etpulse export` prints it).
+// It serves nothing else: no profiling, no configuration, no writes. It
+// also holds the client side of the history route.
 package httpapi
 
 import (
@@ -17,6 +19,8 @@ import (
 	"github.com/prometheus/client_golang/prometheus"
 	"github.com/prometheus/client_golang/prometheus/promhttp"
 	"go.etcd.io/bbolt"
+
+	"etpulse/gateway/store"
 )
 
 // Check is one readiness condition. Func returns nil when ready, or an error
@@ -36,6 +40,8 @@ type Options struct {
 	Checks []Check
 	// CheckTimeout bounds all checks of one /readyz request; 0 means 5s.
 	CheckTimeout time.Duration
+	// History is served on HistoryPath; nil answers 503 there.
+	History *store.History
 	// Logger; nil discards.
 	Logger *slog.Logger
 }
@@ -84,8 +90,9 @@ func (s *Server) Handler() http.Handler {
 		fmt.Fprintln(w, "ok")
 	})
 	mux.HandleFunc("GET /readyz", s.readyz)
+	mux.HandleFunc(HistoryPath, s.history)
 	mux.HandleFunc("/", func(w http.ResponseWriter, r *http.Request) {
-		http.Error(w, "not found; endpoints: /metrics /healthz /readyz", http.StatusNotFound)
+		http.Error(w, "not found; endpoints: /metrics /healthz /readyz "+HistoryPath, http.StatusNotFound)
 	})
 	return mux
 }
