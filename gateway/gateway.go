@@ -489,7 +489,7 @@ func (g *Gateway) publish(ctx context.Context, recs []hourly.Record) bool {
 		b, err := pipeline.MarshalRecord(rec)
 		if err == nil {
 			pctx, cancel := context.WithTimeout(ctx, 10*time.Second)
-			err = g.deps.MQTT.Publish(pctx, pipeline.ResultsTopic(g.deps.TopicPrefix, rec.Site, rec.Station), 1, false, b)
+			err = g.deps.MQTT.Publish(pctx, config.RecordTopic(g.deps.TopicPrefix, rec.Site, rec.Station), 1, false, b)
 			cancel()
 		}
 		if err != nil {

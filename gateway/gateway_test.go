@@ -153,7 +153,7 @@ func TestLiveDayAgainstMosquitto(t *testing.T) {
 	require.NoError(t, sub.Subscribe(prefix+"/+/+/hour", 1, func(m mqtt.Message) {
 		rec, err := pipeline.UnmarshalRecord(m.Payload)
 		assert.NoError(t, err)
-		assert.Equal(t, pipeline.ResultsTopic(prefix, rec.Site, rec.Station), m.Topic)
+		assert.Equal(t, config.RecordTopic(prefix, rec.Site, rec.Station), m.Topic)
 		mu.Lock()
 		recs = append(recs, rec)
 		mu.Unlock()

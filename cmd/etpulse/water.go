@@ -136,7 +136,7 @@ func runWater(ctx context.Context, args []string, _ io.Reader, stdout, stderr io
 	mo.CleanSession = true
 	mo.Workers = 1
 
-	reply, err := askWater(ctx, mo, zones.WaterTopic(cfg.Prefix(), s), req.ID, payload, *timeout)
+	reply, err := askWater(ctx, mo, config.WaterTopic(cfg.Prefix(), s), config.WaterReplyTopic(cfg.Prefix(), s), req.ID, payload, *timeout)
 	if err != nil {
 		fmt.Fprintf(stderr, "etpulse water: %v\n", err)
 		return exitError
@@ -187,8 +187,8 @@ func waterSite(cfg *config.Config, site, zone string) (string, error) {
 }
 
 // askWater publishes the request on topic and waits for the reply with id
-// on topic/reply.
-func askWater(ctx context.Context, mo mqtt.Options, topic, id string, payload []byte, timeout time.Duration) (zones.WaterReply, error) {
+// on replyTopic.
+func askWater(ctx context.Context, mo mqtt.Options, topic, replyTopic, id string, payload []byte, timeout time.Duration) (zones.WaterReply, error) {
 	ctx, cancel := context.WithTimeout(ctx, timeout)
 	defer cancel()
 	c, err := mqtt.Dial(ctx, mo)
@@ -197,7 +197,7 @@ func askWater(ctx context.Context, mo mqtt.Options, topic, id string, payload []
 	}
 	defer c.Close(time.Second)
 	replies := make(chan zones.WaterReply, 1)
-	err = c.Subscribe(topic+"/reply", 1, func(m mqtt.Message) {
+	err = c.Subscribe(replyTopic, 1, func(m mqtt.Message) {
 		var r zones.WaterReply
 		if json.Unmarshal(m.Payload, &r) == nil && r.ID == id {
 			select {
@@ -208,7 +208,7 @@ func askWater(ctx context.Context, mo mqtt.Options, topic, id string, payload []
 		m.Ack()
 	})
 	if err != nil {
-		return zones.WaterReply{}, fmt.Errorf("subscribe %s/reply: %w", topic, err)
+		return zones.WaterReply{}, fmt.Errorf("subscribe %s: %w", replyTopic, err)
 	}
 	if err := c.Publish(ctx, topic, 1, false, payload); err != nil {
 		return zones.WaterReply{}, fmt.Errorf("publish %s: %w", topic, err)
@@ -217,6 +217,6 @@ func askWater(ctx context.Context, mo mqtt.Options, topic, id string, payload []
 	case r := <-replies:
 		return r, nil
 	case <-ctx.Done():
-		return zones.WaterReply{}, fmt.Errorf("no answer on %s/reply within %s: is the gateway running for this site? (request %s may still be applied when it comes back; retry with --id %s)", topic, timeout, id, id)
+		return zones.WaterReply{}, fmt.Errorf("no answer on %s within %s: is the gateway running for this site? (request %s may still be applied when it comes back; retry with --id %s)", replyTopic, timeout, id, id)
 	}
 }

@@ -25,8 +25,10 @@ func (c *Config) Summary(w io.Writer) error {
 	ew.printf("          keepalive %s, connect timeout %s, max in-flight %d, max payload %d bytes\n",
 		fmtDur(b.KeepAlive.D()), fmtDur(b.ConnectTimeout.D()), b.MaxInflight, b.MaxPayloadBytes)
 	ew.printf("state     %s\n", c.State.Path)
-	ew.printf("topics    records %s/<site>/<station>/hour, zones %s/<site>/zones/<zone>/..., holds %s/<site>/hold, alerts %s/<site>/alerts/...\n",
-		c.Prefix(), c.Prefix(), c.Prefix(), c.Alerts.TopicPrefix)
+	p := c.Prefix()
+	ew.printf("topics    records %s, zones %s and %s, holds %s, water %s, alerts %s/...\n",
+		RecordTopic(p, "<site>", "<station>"), ZoneCommandTopic(p, "<site>", "<zone>"), ZoneReportTopic(p, "<site>", "<zone>"),
+		HoldTopic(p, "<site>"), WaterTopic(p, "<site>"), AlertRoot(c.Alerts.TopicPrefix, "<site>"))
 
 	stations, sensors := 0, 0
 	for _, s := range c.Sites {

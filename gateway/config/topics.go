@@ -14,12 +14,62 @@ const DefaultTopicPrefix = "etpulse"
 // stay well inside MQTT's 65535 bytes.
 const maxTopicPrefixLen = 1024
 
+// The topics the gateway publishes or subscribes for itself. Each kind is
+// built by one function below, used both by the collision checks of
+// validateOwnTopics and by the code that publishes or subscribes, so the two
+// cannot drift apart. prefix is topic_prefix (alerts.topic_prefix for alert
+// topics); site, station and zone are configured ids.
+
+// RecordTopic is the topic of a station's hourly records:
+// <prefix>/<site>/<station>/hour.
+func RecordTopic(prefix, site, station string) string {
+	return prefix + "/" + site + "/" + station + "/hour"
+}
+
+// HoldTopic is the topic of a site's hold requests: <prefix>/<site>/hold.
+func HoldTopic(prefix, site string) string { return prefix + "/" + site + "/hold" }
+
+// HoldReplyTopic is the topic of the answers to a site's hold requests:
+// <prefix>/<site>/hold/reply.
+func HoldReplyTopic(prefix, site string) string { return HoldTopic(prefix, site) + "/reply" }
+
+// WaterTopic is the topic of a site's water requests (water applied without
+// a command): <prefix>/<site>/water.
+func WaterTopic(prefix, site string) string { return prefix + "/" + site + "/water" }
+
+// WaterReplyTopic is the topic of the answers to a site's water requests:
+// <prefix>/<site>/water/reply.
+func WaterReplyTopic(prefix, site string) string { return WaterTopic(prefix, site) + "/reply" }
+
+// ZoneCommandTopic is the default command topic of a zone (when
+// command_topic is not set): <prefix>/<site>/zones/<zone>/command.
+func ZoneCommandTopic(prefix, site, zone string) string {
+	return prefix + "/" + site + "/zones/" + zone + "/command"
+}
+
+// ZoneReportTopic is the default report topic of a zone (when report_topic
+// is not set): <prefix>/<site>/zones/<zone>/report.
+func ZoneReportTopic(prefix, site, zone string) string {
+	return prefix + "/" + site + "/zones/" + zone + "/report"
+}
+
+// AlertRoot is the topic level under which a site's retained alerts are
+// published: <prefix>/<site>/alerts (prefix is alerts.topic_prefix).
+func AlertRoot(prefix, site string) string { return prefix + "/" + site + "/alerts" }
+
+// AlertTopic is the retained topic of one alert:
+// <prefix>/<site>/alerts/<station>/<sensor>/<quantity>/<kind>.
+func AlertTopic(prefix, site, station, sensor, quantity, kind string) string {
+	return strings.Join([]string{AlertRoot(prefix, site), station, sensor, quantity, kind}, "/")
+}
+
 // Station ids that cannot be used: the topic <prefix>/<site>/<id>/... of such
 // a station would lie inside a subtree the gateway publishes to or listens on.
 var reservedStationIDs = map[string]string{
 	"alerts": "alert topics",
 	"zones":  "zone command and report topics",
 	"hold":   "hold topics",
+	"water":  "water request topics",
 	// Not a topic subtree, but the station of gateway-wide alerts.
 	"gateway": "alerts about the gateway itself (store outbox)",
 }
@@ -89,11 +139,13 @@ func validateOwnTopics(c *Config, p *Problems) {
 					"%q is reserved: %s/%s/%s/... holds the gateway's %s", st.ID, prefix, s.ID, st.ID, what)
 				continue
 			}
-			owner[prefix+"/"+s.ID+"/"+st.ID+"/hour"] = fmt.Sprintf("the hourly records of sites[%d].stations[%d]", i, j)
+			owner[RecordTopic(prefix, s.ID, st.ID)] = fmt.Sprintf("the hourly records of sites[%d].stations[%d]", i, j)
 		}
 		if len(s.Zones) > 0 {
-			owner[prefix+"/"+s.ID+"/hold"] = fmt.Sprintf("the hold requests of sites[%d]", i)
-			owner[prefix+"/"+s.ID+"/hold/reply"] = fmt.Sprintf("the hold replies of sites[%d]", i)
+			owner[HoldTopic(prefix, s.ID)] = fmt.Sprintf("the hold requests of sites[%d]", i)
+			owner[HoldReplyTopic(prefix, s.ID)] = fmt.Sprintf("the hold replies of sites[%d]", i)
+			owner[WaterTopic(prefix, s.ID)] = fmt.Sprintf("the water requests of sites[%d]", i)
+			owner[WaterReplyTopic(prefix, s.ID)] = fmt.Sprintf("the water replies of sites[%d]", i)
 		}
 	}
 	for i := range c.Sites {
@@ -126,7 +178,7 @@ func validateOwnTopics(c *Config, p *Problems) {
 					continue
 				}
 				for _, site := range c.Sites {
-					if root := alertPrefix + "/" + site.ID + "/alerts/"; site.ID != "" && strings.HasPrefix(sn.Topic, root) {
+					if root := AlertRoot(alertPrefix, site.ID) + "/"; site.ID != "" && strings.HasPrefix(sn.Topic, root) {
 						p.Addf(path, "topic %q lies under %s, where the gateway publishes its alerts", sn.Topic, root)
 						break
 					}

@@ -1,6 +1,7 @@
 package config
 
 import (
+	"bytes"
 	"os"
 	"path/filepath"
 	"strings"
@@ -93,4 +94,47 @@ func TestTopicsPerSite(t *testing.T) {
 	assert.NotEqual(t, a.Broker.ClientID, b.Broker.ClientID)
 	z := Zone{ID: "block-1"}
 	assert.NotEqual(t, z.CommandTopicIn(a.Prefix(), a.Sites[0].ID), z.CommandTopicIn(b.Prefix(), b.Sites[0].ID))
+}
+
+// TestTopicBuilders pins each kind of topic to the form the README documents
+// for the valve controllers, dashboards and `etpulse water` that use them.
+func TestTopicBuilders(t *testing.T) {
+	for _, tc := range []struct{ got, want string }{
+		{RecordTopic("farm/etpulse", "lowfield", "mast"), "farm/etpulse/lowfield/mast/hour"},
+		{HoldTopic("etpulse", "lowfield"), "etpulse/lowfield/hold"},
+		{HoldReplyTopic("etpulse", "lowfield"), "etpulse/lowfield/hold/reply"},
+		{WaterTopic("etpulse", "lowfield"), "etpulse/lowfield/water"},
+		{WaterReplyTopic("etpulse", "lowfield"), "etpulse/lowfield/water/reply"},
+		{ZoneCommandTopic("etpulse", "lowfield", "block-1"), "etpulse/lowfield/zones/block-1/command"},
+		{ZoneReportTopic("etpulse", "lowfield", "block-1"), "etpulse/lowfield/zones/block-1/report"},
+		{AlertRoot("alarms", "lowfield"), "alarms/lowfield/alerts"},
+		{AlertTopic("alarms", "lowfield", "mast", "rh", "rel_humidity", "rh-above-100"), "alarms/lowfield/alerts/mast/rh/rel_humidity/rh-above-100"},
+	} {
+		assert.Equal(t, tc.want, tc.got)
+	}
+	z := Zone{ID: "block-1"}
+	assert.Equal(t, ZoneCommandTopic("p", "s", "block-1"), z.CommandTopicIn("p", "s"))
+	assert.Equal(t, ZoneReportTopic("p", "s", "block-1"), z.ReportTopicIn("p", "s"))
+	z.CommandTopic, z.ReportTopic = "valves/v1/in", "valves/v1/out"
+	assert.Equal(t, "valves/v1/in", z.CommandTopicIn("p", "s"))
+	assert.Equal(t, "valves/v1/out", z.ReportTopicIn("p", "s"))
+}
+
+// TestSummaryListsOwnTopics: `etpulse check` shows every kind of topic the
+// gateway owns, built by the same functions the gateway uses.
+func TestSummaryListsOwnTopics(t *testing.T) {
+	c, err := Load(filepath.Join(configDir, "minimal.yaml"))
+	require.NoError(t, err)
+	var b bytes.Buffer
+	require.NoError(t, c.Summary(&b))
+	p := c.Prefix()
+	for _, want := range []string{
+		RecordTopic(p, "<site>", "<station>"),
+		ZoneCommandTopic(p, "<site>", "<zone>"),
+		HoldTopic(p, "<site>"),
+		WaterTopic(p, "<site>"),
+		AlertRoot(c.Alerts.TopicPrefix, "<site>") + "/...",
+	} {
+		assert.Contains(t, b.String(), want)
+	}
 }

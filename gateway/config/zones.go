@@ -226,7 +226,7 @@ func (z *Zone) CommandTopicIn(prefix, site string) string {
 	if z.CommandTopic != "" {
 		return z.CommandTopic
 	}
-	return prefix + "/" + site + "/zones/" + z.ID + "/command"
+	return ZoneCommandTopic(prefix, site, z.ID)
 }
 
 // ReportTopicIn returns the zone's report topic within site: report_topic,
@@ -235,7 +235,7 @@ func (z *Zone) ReportTopicIn(prefix, site string) string {
 	if z.ReportTopic != "" {
 		return z.ReportTopic
 	}
-	return prefix + "/" + site + "/zones/" + z.ID + "/report"
+	return ZoneReportTopic(prefix, site, z.ID)
 }
 
 // RateMMH returns the application rate: given, or derived from the layout.

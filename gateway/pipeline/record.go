@@ -259,12 +259,6 @@ func UnmarshalRecord(b []byte) (hourly.Record, error) {
 	return j.record(), nil
 }
 
-// ResultsTopic is the topic a station's hourly records are published on:
-// <prefix>/<site>/<station>/hour.
-func ResultsTopic(prefix, site, station string) string {
-	return prefix + "/" + site + "/" + station + "/hour"
-}
-
 // DefaultTopicPrefix is the first level of every topic the gateway publishes
 // when the configuration names none (topic_prefix).
 const DefaultTopicPrefix = config.DefaultTopicPrefix

@@ -886,7 +886,7 @@ func (m *Monitor) prune(now time.Time) error {
 // Topic returns the retained topic of an alert:
 // <prefix>/<site>/alerts/<station>/<sensor>/<quantity>/<kind>.
 func Topic(prefix string, k Key) string {
-	return strings.Join([]string{prefix, k.Site, "alerts", k.Station, k.Sensor, string(k.Quantity), string(k.Kind)}, "/")
+	return config.AlertTopic(prefix, k.Site, k.Station, k.Sensor, string(k.Quantity), string(k.Kind))
 }
 
 // alertJSON is the retained payload of an active alert.

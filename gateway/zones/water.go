@@ -12,6 +12,7 @@ import (
 	"go.etcd.io/bbolt"
 
 	"etpulse/controllers"
+	"etpulse/gateway/config"
 	"etpulse/gateway/mqtt"
 )
 
@@ -140,11 +141,6 @@ func (r WaterRequest) Manual() controllers.ManualWater {
 	return w
 }
 
-// WaterTopic is the topic of water requests of a site; replies go to
-// WaterTopic + "/reply".
-func WaterTopic(prefix, site string) string { return prefix + "/" + site + "/water" }
-
-func (s *Service) waterTopic(site string) string { return WaterTopic(s.o.TopicPrefix, site) }
 
 // onWater applies water requests of a site and answers them.
 func (s *Service) onWater(site *siteRef) func(mqtt.Message) {
@@ -153,7 +149,7 @@ func (s *Service) onWater(site *siteRef) func(mqtt.Message) {
 		b, err := json.Marshal(reply)
 		if err == nil {
 			ctx, cancel := context.WithTimeout(context.Background(), 10*time.Second)
-			err = s.o.MQTT.Publish(ctx, s.waterTopic(site.id)+"/reply", 1, false, b)
+			err = s.o.MQTT.Publish(ctx, config.WaterReplyTopic(s.o.TopicPrefix, site.id), 1, false, b)
 			cancel()
 		}
 		if err != nil {

@@ -14,6 +14,7 @@ import (
 	"go.etcd.io/bbolt"
 
 	"etpulse/controllers"
+	"etpulse/gateway/config"
 	"etpulse/gateway/internal/testenv"
 	"etpulse/gateway/mqtt"
 	"etpulse/gateway/store"
@@ -172,7 +173,7 @@ func TestWaterOverMosquitto(t *testing.T) {
 
 	cl := dial(t, url, uniq("water-cli"))
 	replies := make(chan WaterReply, 4)
-	require.NoError(t, cl.Subscribe(WaterTopic(prefix, "fernhill")+"/reply", 1, func(m mqtt.Message) {
+	require.NoError(t, cl.Subscribe(config.WaterReplyTopic(prefix, "fernhill"), 1, func(m mqtt.Message) {
 		var r WaterReply
 		if json.Unmarshal(m.Payload, &r) == nil {
 			replies <- r
@@ -184,7 +185,7 @@ func TestWaterOverMosquitto(t *testing.T) {
 		// The service subscribes when Run starts: repeat until answered.
 		for range 50 {
 			pctx, pcancel := context.WithTimeout(context.Background(), 5*time.Second)
-			require.NoError(t, cl.Publish(pctx, WaterTopic(prefix, "fernhill"), 1, false, []byte(payload)))
+			require.NoError(t, cl.Publish(pctx, config.WaterTopic(prefix, "fernhill"), 1, false, []byte(payload)))
 			pcancel()
 			select {
 			case r := <-replies:

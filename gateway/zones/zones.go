@@ -364,11 +364,11 @@ func (s *Service) Run(ctx context.Context) error {
 				return fmt.Errorf("run zones: subscribe %s: %w", ref.reportTopic, err)
 			}
 		}
-		t := s.holdTopic(site.id)
+		t := config.HoldTopic(s.o.TopicPrefix, site.id)
 		if err := s.o.MQTT.Subscribe(t, 1, s.onHold(site)); err != nil {
 			return fmt.Errorf("run zones: subscribe %s: %w", t, err)
 		}
-		wt := s.waterTopic(site.id)
+		wt := config.WaterTopic(s.o.TopicPrefix, site.id)
 		if err := s.o.MQTT.Subscribe(wt, 1, s.onWater(site)); err != nil {
 			return fmt.Errorf("run zones: subscribe %s: %w", wt, err)
 		}
@@ -391,7 +391,6 @@ func (s *Service) Run(ctx context.Context) error {
 	}
 }
 
-func (s *Service) holdTopic(site string) string { return s.o.TopicPrefix + "/" + site + "/hold" }
 
 func (s *Service) publish(ctx context.Context, sends []outgoing) {
 	for _, o := range sends {
@@ -793,7 +792,7 @@ func (s *Service) onHold(site *siteRef) func(mqtt.Message) {
 		b, err := json.Marshal(reply)
 		if err == nil {
 			ctx, cancel := context.WithTimeout(context.Background(), 10*time.Second)
-			err = s.o.MQTT.Publish(ctx, s.holdTopic(site.id)+"/reply", 1, false, b)
+			err = s.o.MQTT.Publish(ctx, config.HoldReplyTopic(s.o.TopicPrefix, site.id), 1, false, b)
 			cancel()
 		}
 		if err != nil {
