@@ -21,7 +21,7 @@ func setupAlerts(cfg *config.Config, deps Deps, outbox *store.Outbox, comp *Comp
 	mon, err := quality.New(quality.Options{
 		Config: cfg, DB: deps.DB, Outbox: outbox, Publisher: deps.MQTT,
 		Logger: deps.Logger.With("component", "alerts"), Registerer: deps.Registerer,
-		Clock: deps.Clock, After: deps.afterFor(TimerAlerts),
+		Clock: deps.Clock,
 	})
 	if err != nil {
 		return nil, fmt.Errorf("set up alerts: %w", err)
@@ -41,7 +41,7 @@ func setupAlerts(cfg *config.Config, deps Deps, outbox *store.Outbox, comp *Comp
 		}
 		comp.Services = append(comp.Services, &outboxWatch{
 			outbox: outbox, alerts: mon, sites: sites,
-			clock: deps.Clock, after: deps.After, log: deps.Logger.With("component", "alerts"),
+			clock: deps.Clock, log: deps.Logger.With("component", "alerts"),
 		})
 	}
 	if cfg.HTTP.Disabled {
@@ -55,7 +55,7 @@ func setupAlerts(cfg *config.Config, deps Deps, outbox *store.Outbox, comp *Comp
 			gatherer = prometheus.DefaultGatherer
 		}
 	}
-	checks := []httpapi.Check{httpapi.StateWritable(deps.DB, deps.Clock)}
+	checks := []httpapi.Check{httpapi.StateWritable(deps.DB, deps.Clock.Now)}
 	if c, ok := deps.MQTT.(interface{ Connected() bool }); ok {
 		checks = append([]httpapi.Check{httpapi.BrokerConnected(c.Connected)}, checks...)
 	}

@@ -16,6 +16,7 @@ import (
 	"github.com/prometheus/client_golang/prometheus"
 	"go.etcd.io/bbolt"
 
+	"etpulse/gateway/clock"
 	"etpulse/gateway/config"
 	"etpulse/gateway/ingest"
 	"etpulse/gateway/mqtt"
@@ -46,18 +47,11 @@ type Broker interface {
 	mqtt.Subscriber
 }
 
-// The names of the background loops that Deps.AfterFor can time apart.
-const (
-	TimerAlerts = "alerts" // the alert monitor's loop
-	TimerZones  = "zones"  // the zone scheduler's loop
-)
-
-// afterFor returns the After of the named loop.
-func (d Deps) afterFor(name string) func(time.Duration) <-chan time.Time {
-	if d.AfterFor != nil {
-		return d.AfterFor(name)
-	}
-	return d.After
+// Starter is a stepped Service (a clock.Stepper) with set-up to do before
+// its first pass, e.g. subscriptions. A gateway run by RunStepped calls Start
+// instead of Run.
+type Starter interface {
+	Start(ctx context.Context) error
 }
 
 // Components are the parts that plug into the pipeline. The caller may pass
@@ -74,26 +68,13 @@ type Deps struct {
 	Logger     *slog.Logger          // nil discards
 	Registerer prometheus.Registerer // nil: metrics not registered
 	Gatherer   prometheus.Gatherer   // the registry behind Registerer, for a metrics endpoint; may be nil
-	// Clock is the gateway's time; nil means time.Now. The demo passes an
-	// accelerated clock.
-	Clock func() time.Time
-	// After returns a channel that fires once d of Clock time has passed;
-	// nil means time.After (correct for a real-time Clock only).
-	After func(d time.Duration) <-chan time.Time
-	// AfterFor, when set, gives a background loop its own After by name
-	// (TimerAlerts, TimerZones); nil means After for every loop. The demo
-	// uses it to step those loops one pass at a time.
-	AfterFor func(name string) func(d time.Duration) <-chan time.Time
-	DB       *bbolt.DB // the state file (state.Open); the caller closes it after Run
-	MQTT     Broker    // the broker connection; the caller closes it after Run
+	// Clock is the gateway's time and its waits; nil means clock.Real.
+	Clock clock.Clock
+	DB    *bbolt.DB // the state file (state.Open); the caller closes it after Run
+	MQTT  Broker    // the broker connection; the caller closes it after Run
 
 	Components
 
-	// TopicPrefix overrides the configuration's topic_prefix (tests that
-	// share a broker); "" keeps it. It applies to every topic of the
-	// gateway's own: hourly records, zone commands, reports and holds, and
-	// the alerts when alerts.topic_prefix follows topic_prefix.
-	TopicPrefix string
 	// OnRecord, when set, is called with each record after it is published.
 	OnRecord func(hourly.Record)
 	// OnZoneEvent, when set, is called with each zone event (command sent,
@@ -122,6 +103,10 @@ type Gateway struct {
 	pubMu     sync.Mutex    // one publishPending at a time: a record goes out once
 	ready     chan struct{}
 	alerts    *quality.Monitor
+	stepped   bool // RunStepped: no pass waits on the clock
+
+	progMu   sync.Mutex
+	progress chan struct{} // closed when Handled, Emitted or Published grows; nil until asked for
 }
 
 // New composes the gateway for cfg. It does not start anything.
@@ -132,13 +117,8 @@ func New(cfg *config.Config, deps Deps) (*Gateway, error) {
 	if deps.Logger == nil {
 		deps.Logger = slog.New(slog.DiscardHandler)
 	}
-	if deps.Clock == nil {
-		deps.Clock = time.Now
-	}
-	if deps.After == nil {
-		deps.After = time.After
-	}
-	cfg, deps.TopicPrefix = withTopicPrefix(cfg, deps.TopicPrefix)
+	deps.Clock = clock.Or(deps.Clock)
+	cfg = withTopicPrefix(cfg)
 	if deps.QueueSize <= 0 {
 		deps.QueueSize = 1024
 	}
@@ -162,7 +142,7 @@ func New(cfg *config.Config, deps Deps) (*Gateway, error) {
 
 	// Store: the outbox records each hour inside its closing transaction and
 	// is the Enqueuer of the other parts; the writer drains it to the server.
-	outbox, writer, err := store.Setup(deps.DB, cfg.Store, deps.Logger.With("component", "store"), deps.Registerer, deps.Clock)
+	outbox, writer, err := store.Setup(deps.DB, cfg.Store, deps.Logger.With("component", "store"), deps.Registerer, deps.Clock.Now)
 	if err != nil {
 		return nil, fmt.Errorf("new gateway: %w", err)
 	}
@@ -198,23 +178,19 @@ func New(cfg *config.Config, deps Deps) (*Gateway, error) {
 	return g, nil
 }
 
-// withTopicPrefix resolves the topic prefix: override when set, else the
-// configuration's. When it differs from the configuration's, it returns a
-// shallow copy carrying it, so every part reads the same prefix.
-func withTopicPrefix(cfg *config.Config, override string) (*config.Config, string) {
-	prefix := cfg.Prefix()
-	if override == "" || override == prefix {
-		if cfg.Alerts.TopicPrefix != "" && cfg.TopicPrefix != "" {
-			return cfg, prefix
-		}
-		override = prefix
+// withTopicPrefix resolves topic_prefix and alerts.topic_prefix of a
+// configuration that left them empty (not passed through config.Load),
+// returning a shallow copy, so every part reads the same prefix.
+func withTopicPrefix(cfg *config.Config) *config.Config {
+	if cfg.Alerts.TopicPrefix != "" && cfg.TopicPrefix != "" {
+		return cfg
 	}
 	c := *cfg
-	if c.Alerts.TopicPrefix == "" || c.Alerts.TopicPrefix == cfg.TopicPrefix {
-		c.Alerts.TopicPrefix = override
+	c.TopicPrefix = cfg.Prefix()
+	if c.Alerts.TopicPrefix == "" {
+		c.Alerts.TopicPrefix = c.TopicPrefix
 	}
-	c.TopicPrefix = override
-	return &c, override
+	return &c
 }
 
 // Pipeline returns the gateway's hour pipeline (e.g. for LastSeen).
@@ -234,12 +210,61 @@ func (g *Gateway) Emitted() uint64 { return g.emitted.Load() }
 // Published returns how many hourly records have been published.
 func (g *Gateway) Published() uint64 { return g.published.Load() }
 
+// Progress returns a channel closed the next time Handled, Emitted or
+// Published grows: a caller waiting for the gateway to catch up reads the
+// counters after taking the channel and sleeps on it.
+func (g *Gateway) Progress() <-chan struct{} {
+	g.progMu.Lock()
+	defer g.progMu.Unlock()
+	if g.progress == nil {
+		g.progress = make(chan struct{})
+	}
+	return g.progress
+}
+
+// progressed wakes the callers waiting on Progress.
+func (g *Gateway) progressed() {
+	g.progMu.Lock()
+	defer g.progMu.Unlock()
+	if g.progress != nil {
+		close(g.progress)
+		g.progress = nil
+	}
+}
+
 // Run subscribes, runs intake and every Service until ctx is cancelled, then
 // shuts down in order: stop intake (the last batch is stored, acknowledged
 // and its hours published), stop the services (no new commands), flush, and
 // return. Messages received but not stored are not acknowledged, so the
-// broker redelivers them to the next run.
-func (g *Gateway) Run(ctx context.Context) error {
+// broker redelivers them to the next run. The hour pipeline and every
+// stepped service (a clock.Stepper) run their passes on Deps.Clock.
+func (g *Gateway) Run(ctx context.Context) error { return g.run(ctx, false) }
+
+// RunStepped is Run for a caller that drives time itself (the demo, tests):
+// nothing waits on the clock; intake stores messages as they come and the
+// caller runs the passes with Step. Stepped services are started (Starter),
+// not run.
+func (g *Gateway) RunStepped(ctx context.Context) error { return g.run(ctx, true) }
+
+// Step runs the gateway's passes at now, in order, for a gateway run by
+// RunStepped: the hour pipeline closes the hours due and publishes every
+// pending record, then each stepped service runs once (RunOnce), in the
+// order they were composed (the alert monitor before the zone scheduler).
+func (g *Gateway) Step(ctx context.Context, now time.Time) error {
+	g.closeHours(now)
+	g.publishPending(ctx)
+	for _, s := range g.comp.Services {
+		if st, ok := s.(clock.Stepper); ok {
+			if _, err := st.RunOnce(ctx, now); err != nil {
+				return fmt.Errorf("step %T: %w", s, err)
+			}
+		}
+	}
+	return nil
+}
+
+func (g *Gateway) run(ctx context.Context, stepped bool) error {
+	g.stepped = stepped
 	svcCtx, stopServices := context.WithCancel(context.WithoutCancel(ctx))
 	defer stopServices()
 	intakeCtx, stopIntake := context.WithCancel(ctx)
@@ -258,9 +283,22 @@ func (g *Gateway) Run(ctx context.Context) error {
 		}
 	}
 
+	// Stepped by the caller: stepped services are only started; Step runs
+	// their passes.
+	isStepped := func(s Service) bool { _, ok := s.(clock.Stepper); return ok && stepped }
+	for _, s := range g.comp.Services {
+		if st, ok := s.(Starter); ok && isStepped(s) {
+			if err := st.Start(svcCtx); err != nil {
+				return fmt.Errorf("run gateway: start %T: %w", s, err)
+			}
+		}
+	}
 	fatal := make(chan error, len(g.comp.Services)+1)
 	var svcWG sync.WaitGroup
 	for _, s := range g.comp.Services {
+		if isStepped(s) {
+			continue
+		}
 		svcWG.Add(1)
 		go func() {
 			defer svcWG.Done()
@@ -337,8 +375,8 @@ func (g *Gateway) intake(ctx context.Context) error {
 	for {
 		batch = batch[:0]
 		var wake <-chan time.Time
-		if next := g.pipe.NextDeadline(); !next.IsZero() {
-			wake = g.deps.After(max(next.Sub(g.deps.Clock()), 0))
+		if next := g.pipe.NextDeadline(); !next.IsZero() && !g.stepped {
+			wake = g.deps.Clock.After(max(next.Sub(g.deps.Clock.Now()), 0))
 		}
 		select {
 		case <-ctx.Done():
@@ -397,7 +435,7 @@ const (
 
 // step handles one batch (possibly empty: a timer wake-up).
 func (g *Gateway) step(ctx context.Context, batch []mqtt.Message, byTime bool) error {
-	now := g.deps.Clock()
+	now := g.deps.Clock.Now()
 	var readings []ingest.Reading
 	for _, m := range batch {
 		rds, rejs := g.router.Route(m.Topic, m.Payload, now)
@@ -442,16 +480,30 @@ func (g *Gateway) step(ctx context.Context, batch []mqtt.Message, byTime bool) e
 			m.Ack()
 		}
 	}
+	g.emitted.Add(uint64(emitted))
+	g.closeHours(now)
+	if emitted > 0 {
+		g.kickPublisher()
+	}
+	g.handled.Add(uint64(len(batch)))
+	g.progressed()
+	return nil
+}
+
+// closeHours is the hour pipeline's pass at now: it closes the hours due
+// (watermark, close grace, silence) and hands their records to the
+// publisher. It returns the pipeline's next deadline.
+func (g *Gateway) closeHours(now time.Time) time.Time {
 	recs, err := g.pipe.Tick(now)
 	if err != nil {
 		g.log.Error("closing hours", "err", err)
 	}
-	if emitted += len(recs); emitted > 0 {
-		g.emitted.Add(uint64(emitted))
+	if len(recs) > 0 {
+		g.emitted.Add(uint64(len(recs)))
+		g.progressed()
 		g.kickPublisher()
 	}
-	g.handled.Add(uint64(len(batch)))
-	return nil
+	return g.pipe.NextDeadline()
 }
 
 func (g *Gateway) kickPublisher() {
@@ -489,7 +541,7 @@ func (g *Gateway) publish(ctx context.Context, recs []hourly.Record) bool {
 		b, err := pipeline.MarshalRecord(rec)
 		if err == nil {
 			pctx, cancel := context.WithTimeout(ctx, 10*time.Second)
-			err = g.deps.MQTT.Publish(pctx, config.RecordTopic(g.deps.TopicPrefix, rec.Site, rec.Station), 1, false, b)
+			err = g.deps.MQTT.Publish(pctx, config.RecordTopic(g.cfg.TopicPrefix, rec.Site, rec.Station), 1, false, b)
 			cancel()
 		}
 		if err != nil {
@@ -507,6 +559,7 @@ func (g *Gateway) publish(ctx context.Context, recs []hourly.Record) bool {
 			g.log.Error("marking records published", "err", err)
 		}
 		g.published.Add(uint64(len(done)))
+		g.progressed()
 	}
 	return ok
 }

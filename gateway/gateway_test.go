@@ -16,6 +16,7 @@ import (
 	"github.com/stretchr/testify/require"
 
 	"etpulse/gateway"
+	"etpulse/gateway/clock"
 	"etpulse/gateway/config"
 	"etpulse/gateway/demo"
 	"etpulse/gateway/ingest"
@@ -162,10 +163,10 @@ func TestLiveDayAgainstMosquitto(t *testing.T) {
 
 	reg := prometheus.NewRegistry()
 	now := dayEnd.Add(30 * time.Minute) // the clock only decides too-old/too-future here
+	cfg.TopicPrefix, cfg.Alerts.TopicPrefix = prefix, prefix
 	g, err := gateway.New(cfg, gateway.Deps{
-		Registerer: reg, DB: db, MQTT: client, TopicPrefix: prefix,
-		Clock: func() time.Time { return now },
-		After: func(time.Duration) <-chan time.Time { return nil }, // no silence closes: data decides
+		Registerer: reg, DB: db, MQTT: client,
+		Clock: clock.NewManual(now), // never moved: no silence closes, data decides
 	})
 	require.NoError(t, err)
 	runDone := make(chan error, 1)

@@ -58,7 +58,7 @@ func TestWholeRegistryScrape(t *testing.T) {
 	defer pub.Close(time.Second)
 
 	clock := demo.NewClock(sim.Start())
-	g, err := gateway.New(cfg, gateway.Deps{Registerer: reg, Gatherer: reg, DB: db, MQTT: client, Clock: clock.Now, After: clock.After})
+	g, err := gateway.New(cfg, gateway.Deps{Registerer: reg, Gatherer: reg, DB: db, MQTT: client, Clock: clock})
 	require.NoError(t, err)
 	done := make(chan error, 1)
 	go func() { done <- g.Run(ctx) }()

@@ -6,6 +6,7 @@ import (
 	"log/slog"
 	"time"
 
+	"etpulse/gateway/clock"
 	"etpulse/gateway/quality"
 	"etpulse/gateway/store"
 )
@@ -21,8 +22,7 @@ type outboxWatch struct {
 	outbox *store.Outbox
 	alerts *quality.Monitor
 	sites  []string
-	clock  func() time.Time
-	after  func(time.Duration) <-chan time.Time
+	clock  clock.Clock
 	log    *slog.Logger
 
 	// cleared: the alert is known to be inactive for every site, so a
@@ -31,20 +31,23 @@ type outboxWatch struct {
 	cleared bool
 }
 
-var _ Service = (*outboxWatch)(nil)
+var (
+	_ Service       = (*outboxWatch)(nil)
+	_ clock.Stepper = (*outboxWatch)(nil)
+)
 
 // Run checks the outbox once a minute until ctx ends.
 func (w *outboxWatch) Run(ctx context.Context) error {
-	for {
-		if err := w.check(w.clock()); err != nil {
-			w.log.Error("checking the outbox for its alert", "err", err)
-		}
-		select {
-		case <-ctx.Done():
-			return nil
-		case <-w.after(outboxCheckEvery):
-		}
+	return clock.Loop(ctx, w.clock, nil, w)
+}
+
+// RunOnce checks the outbox at now (a failed check is logged and retried at
+// the next pass) and asks for the next check a minute later.
+func (w *outboxWatch) RunOnce(_ context.Context, now time.Time) (time.Time, error) {
+	if err := w.check(now); err != nil {
+		w.log.Error("checking the outbox for its alert", "err", err)
 	}
+	return now.Add(outboxCheckEvery), nil
 }
 
 // check raises or clears the alert from the outbox's state at now. Raising an

@@ -1,16 +1,19 @@
 package gateway
 
 import (
+	"context"
 	"fmt"
 	"log/slog"
 	"path/filepath"
 	"testing"
+	"testing/synctest"
 	"time"
 
 	"github.com/stretchr/testify/assert"
 	"github.com/stretchr/testify/require"
 	"go.etcd.io/bbolt"
 
+	gwclock "etpulse/gateway/clock"
 	"etpulse/gateway/config"
 	"etpulse/gateway/quality"
 	"etpulse/gateway/state"
@@ -30,9 +33,9 @@ func TestOutboxWatchRaisesAndClears(t *testing.T) {
 
 	small, err := store.OpenOutbox(db, store.OutboxOptions{Cap: 10, Clock: clock})
 	require.NoError(t, err)
-	mon, err := quality.New(quality.Options{Config: cfg, DB: db, Clock: clock})
+	mon, err := quality.New(quality.Options{Config: cfg, DB: db, Clock: gwclock.Func(clock)})
 	require.NoError(t, err)
-	w := &outboxWatch{outbox: small, alerts: mon, sites: []string{"lowfield"}, clock: clock, log: slog.New(slog.DiscardHandler)}
+	w := &outboxWatch{outbox: small, alerts: mon, sites: []string{"lowfield"}, clock: gwclock.Func(clock), log: slog.New(slog.DiscardHandler)}
 
 	queued := 0
 	enqueue := func(n int) {
@@ -68,4 +71,51 @@ func TestOutboxWatchRaisesAndClears(t *testing.T) {
 	now = now.Add(time.Hour)
 	require.NoError(t, w.check(now))
 	assert.Empty(t, mon.Active())
+}
+
+// The watch's loop checks the outbox once a minute on its clock: inside a
+// synctest bubble (clock.Real is the bubble's clock) points that push the
+// outbox near its cap raise the alert at the next minute's check, not before.
+func TestOutboxWatchLoopChecksEveryMinute(t *testing.T) {
+	synctest.Test(t, func(t *testing.T) {
+		cfg, err := config.Load(filepath.Join("..", "testdata", "config", "minimal.yaml"))
+		require.NoError(t, err)
+		db, err := state.Open(filepath.Join(t.TempDir(), "s.db"))
+		require.NoError(t, err)
+		defer db.Close()
+		ob, err := store.OpenOutbox(db, store.OutboxOptions{Cap: 10, Clock: time.Now})
+		require.NoError(t, err)
+		mon, err := quality.New(quality.Options{Config: cfg, DB: db})
+		require.NoError(t, err)
+		w := &outboxWatch{outbox: ob, alerts: mon, sites: []string{"lowfield"}, clock: gwclock.Real, log: slog.New(slog.DiscardHandler)}
+		enqueue := func(from, n int) {
+			require.NoError(t, db.Update(func(tx *bbolt.Tx) error {
+				for i := from; i < from+n; i++ {
+					if err := ob.Enqueue(tx, store.ZonePoint("lowfield", fmt.Sprintf("z%d", i), time.Now(), map[string]any{"depletion_mm": 1.0})); err != nil {
+						return err
+					}
+				}
+				return nil
+			}))
+		}
+		enqueue(0, 7)
+		ctx, cancel := context.WithCancel(context.Background())
+		done := make(chan error, 1)
+		go func() { done <- w.Run(ctx) }()
+		synctest.Wait()
+		assert.Empty(t, mon.Active(), "7 of 10 is below the near-cap share")
+
+		time.Sleep(30 * time.Second)
+		enqueue(7, 2)
+		time.Sleep(29 * time.Second)
+		synctest.Wait()
+		assert.Empty(t, mon.Active(), "no check before the minute is up")
+
+		time.Sleep(time.Second)
+		synctest.Wait()
+		require.Len(t, mon.Active(), 1, "the check at the minute raises it")
+		assert.Equal(t, quality.OutboxKey("lowfield"), mon.Active()[0].Key)
+		cancel()
+		require.NoError(t, <-done)
+	})
 }

@@ -114,7 +114,7 @@ func TestTopicPrefixFromConfig(t *testing.T) {
 
 	clock := demo.NewClock(sim.Start())
 	recs := make(chan hourly.Record, 10)
-	g, err := gateway.New(cfg, gateway.Deps{DB: db, MQTT: rb, Clock: clock.Now, After: clock.After,
+	g, err := gateway.New(cfg, gateway.Deps{DB: db, MQTT: rb, Clock: clock,
 		OnRecord: func(r hourly.Record) { recs <- r }})
 	require.NoError(t, err)
 	done := make(chan error, 1)

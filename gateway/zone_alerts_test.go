@@ -76,7 +76,7 @@ func TestZoneAlertsWired(t *testing.T) {
 
 	reg := prometheus.NewRegistry()
 	clock := demo.NewClock(sim.Start())
-	g, err := gateway.New(cfg, gateway.Deps{DB: db, MQTT: client, Clock: clock.Now, After: clock.After,
+	g, err := gateway.New(cfg, gateway.Deps{DB: db, MQTT: client, Clock: clock,
 		Registerer: reg, Gatherer: reg})
 	require.NoError(t, err)
 	done := make(chan error, 1)

@@ -26,8 +26,7 @@ func wireZones(cfg *config.Config, deps Deps, outbox store.Enqueuer, alerts zone
 	svc, err := zones.New(zones.Options{
 		Config: cfg, DB: deps.DB, MQTT: deps.MQTT, Store: outbox, Alerts: alerts,
 		Logger: deps.Logger.With("component", "zones"), Registerer: deps.Registerer,
-		Clock: deps.Clock, After: deps.afterFor(TimerZones), OnEvent: deps.OnZoneEvent,
-		TopicPrefix: deps.TopicPrefix,
+		Clock: deps.Clock, OnEvent: deps.OnZoneEvent,
 	})
 	if err != nil {
 		return err

@@ -18,6 +18,7 @@ import (
 	"go.etcd.io/bbolt"
 
 	"etpulse/gateway"
+	"etpulse/gateway/clock"
 	"etpulse/gateway/mqtt"
 	"etpulse/gateway/state"
 	"etpulse/gateway/store"
@@ -49,7 +50,7 @@ type RunOptions struct {
 // simulated clock, the state file, the gateway and the table.
 type Env struct {
 	BrokerURL string
-	Clock     *Clock
+	Clock     *clock.Manual
 	StatePath string
 	Gateway   *gateway.Gateway
 	Table     *Table
@@ -137,41 +138,37 @@ func Run(ctx context.Context, opt RunOptions) (sum Summary, err error) {
 	}
 	defer client.Close(time.Second)
 
-	clock := NewClock(sim.Start())
-	// The alert monitor's and the zone scheduler's loops are stepped by the
-	// demo (see settle); the intake keeps sleeping on the clock.
-	clock.Park(steppedLoops...)
+	// The demo drives time: the gateway runs stepped (RunStepped) and the
+	// demo runs its passes at each simulated minute (settle).
+	clk := clock.NewManual(sim.Start())
 	tr := newTraffic()
 	table := NewTable(opt.Out)
 	reg := prometheus.NewRegistry()
 	comps := opt.Components
 	g, err := gateway.New(cfg, gateway.Deps{
 		Logger: opt.Logger, Registerer: reg, Gatherer: reg, DB: db, MQTT: tr.client("gateway", client),
-		Clock: clock.Now, After: clock.After, AfterFor: clock.AfterFor, Components: comps,
+		Clock: clk, Components: comps,
 		OnRecord: table.Record, OnZoneEvent: func(e zones.Event) { zoneEvent(table, e) },
 	})
 	if err != nil {
 		return sum, err
 	}
-	env := &Env{BrokerURL: url, Clock: clock, StatePath: statePath, Gateway: g, Table: table, Sim: sim}
+	env := &Env{BrokerURL: url, Clock: clk, StatePath: statePath, Gateway: g, Table: table, Sim: sim}
 	if opt.Setup != nil {
 		if err := opt.Setup(env); err != nil {
 			return sum, fmt.Errorf("setup: %w", err)
 		}
 	}
 	runDone := make(chan error, 1)
-	go func() { runDone <- g.Run(runCtx) }()
-	// Unparked loops see their context end; a no-op once the run has
-	// stopped them.
-	defer clock.Unpark()
+	go func() { runDone <- g.RunStepped(runCtx) }()
 	select {
 	case <-g.Ready():
 	case err := <-runDone:
 		return sum, fmt.Errorf("gateway: %w", err)
 	}
-	st := &stepper{g: g, clock: clock, traffic: tr, runDone: runDone}
+	st := &stepper{g: g, traffic: tr, runDone: runDone}
 	if hasZones(cfg) {
-		vc, v, err := serveValves(runCtx, url, cfg, clock, tr, opt.Logger)
+		vc, v, err := serveValves(runCtx, url, cfg, clk, tr, opt.Logger)
 		if err != nil {
 			return sum, err
 		}
@@ -229,7 +226,7 @@ func Run(ctx context.Context, opt RunOptions) (sum Summary, err error) {
 			return sum, err
 		}
 		table.Flush()
-		clock.Set(at.Add(step))
+		clk.Set(at.Add(step))
 		if opt.Speed > 0 {
 			simElapsed := at.Sub(sim.Start())
 			if d := time.Duration(float64(simElapsed)/opt.Speed) - time.Since(wallStart); d > 0 {
@@ -245,11 +242,10 @@ func Run(ctx context.Context, opt RunOptions) (sum Summary, err error) {
 	if err := publishUntil(msgs[len(msgs)-1].At); err != nil {
 		return sum, err
 	}
-	if err := st.settle(ctx, clock.Now()); err != nil {
+	if err := st.settle(ctx, clk.Now()); err != nil {
 		return sum, err
 	}
 	table.Flush()
-	clock.Unpark()
 	cancel()
 	if err := <-runDone; err != nil {
 		return sum, fmt.Errorf("gateway: %w", err)

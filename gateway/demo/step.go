@@ -8,13 +8,7 @@ import (
 	"etpulse/gateway"
 )
 
-// steppedLoops are the loops the demo steps (Clock.Park), in
-// the order it runs them at each simulated minute: the alert monitor
-// (silence checks, reading alerts), then the zone scheduler, which acts on
-// everything the minute brought.
-var steppedLoops = []string{gateway.TimerAlerts, gateway.TimerZones}
-
-// maxPasses bounds the scheduler passes at one simulated minute (a command
+// maxPasses bounds the gateway passes at one simulated minute (a command
 // sent, its acceptance reported, and so on); the zones settle in two or
 // three.
 const maxPasses = 8
@@ -23,7 +17,6 @@ const maxPasses = 8
 // acts at the minute it is due and the same seed prints the same table.
 type stepper struct {
 	g        *gateway.Gateway
-	clock    *Clock
 	traffic  *traffic
 	valves   *valves // nil without zones
 	runDone  <-chan error
@@ -32,9 +25,10 @@ type stepper struct {
 
 // settle runs the minute at now to rest: the gateway handles every reading
 // published so far and publishes the records it closed; the valves report
-// what starts or finishes; then the stepped loops run one pass each, in
-// order, again while a pass sent messages. Each step waits for every message
-// it caused to be handled.
+// what starts or finishes; then the gateway runs its passes at now
+// (Gateway.Step: hour closes, the alert monitor, the zone scheduler), again
+// while a pass sent messages. Each step waits for every message it caused
+// to be handled.
 func (s *stepper) settle(ctx context.Context, now time.Time) error {
 	if err := s.quiet(ctx); err != nil {
 		return err
@@ -47,10 +41,11 @@ func (s *stepper) settle(ctx context.Context, now time.Time) error {
 	}
 	for range maxPasses {
 		sent := s.traffic.Sent()
-		for _, pkg := range steppedLoops {
-			if err := s.pass(ctx, pkg); err != nil {
-				return err
-			}
+		if err := s.g.Step(ctx, now); err != nil {
+			return err
+		}
+		if err := s.quiet(ctx); err != nil {
+			return err
 		}
 		if s.traffic.Sent() == sent {
 			return nil
@@ -59,52 +54,26 @@ func (s *stepper) settle(ctx context.Context, now time.Time) error {
 	return nil
 }
 
-// pass runs one pass of the stepped loop of pkg and waits until it is
-// parked again and the messages it sent are handled. The alert monitor
-// parks only while it has a silence deadline; without one it is left
-// alone.
-func (s *stepper) pass(ctx context.Context, pkg string) error {
-	mustPark := pkg != steppedLoops[0]
-	if !mustPark && !s.clock.IsParked(pkg) {
-		return nil
-	}
-	for !s.clock.IsParked(pkg) {
-		if err := s.wait(ctx, s.clock.Parked(pkg)); err != nil {
-			return err
-		}
-	}
-	s.clock.Release(pkg)
-	var bound <-chan time.Time
-	if !mustPark {
-		bound = time.After(2 * time.Second) // it may have no deadline left
-	}
-	for !s.clock.IsParked(pkg) {
-		select {
-		case <-ctx.Done():
-			return ctx.Err()
-		case err := <-s.runDone:
-			return fmt.Errorf("gateway stopped: %w", err)
-		case <-bound:
-			return s.quiet(ctx)
-		case <-s.clock.Parked(pkg):
-		}
-	}
-	return s.quiet(ctx)
-}
-
 // quiet waits until the gateway has handled every reading published, has
-// published every record it committed, and no demo message is in flight.
+// published every record it committed, and no demo message is in flight. It
+// sleeps on the gateway's progress and the traffic's idle signal, not on a
+// timer.
 func (s *stepper) quiet(ctx context.Context) error {
 	for {
-		if s.g.Handled() >= s.readings && s.g.Published() >= s.g.Emitted() {
+		progress := s.g.Progress()
+		idle := s.traffic.Idle()
+		caughtUp := func() bool { return s.g.Handled() >= s.readings && s.g.Published() >= s.g.Emitted() }
+		var waitIdle <-chan struct{}
+		if caughtUp() {
 			select {
-			case <-s.traffic.Idle():
+			case <-idle:
 				// Handling a message may have committed records: look again.
-				if s.g.Handled() >= s.readings && s.g.Published() >= s.g.Emitted() {
+				if caughtUp() {
 					return nil
 				}
 				continue
 			default:
+				waitIdle = idle
 			}
 		}
 		select {
@@ -112,19 +81,8 @@ func (s *stepper) quiet(ctx context.Context) error {
 			return ctx.Err()
 		case err := <-s.runDone:
 			return fmt.Errorf("gateway stopped: %w", err)
-		case <-time.After(200 * time.Microsecond):
+		case <-progress:
+		case <-waitIdle:
 		}
-	}
-}
-
-// wait waits for ch, the context or the gateway's end.
-func (s *stepper) wait(ctx context.Context, ch <-chan struct{}) error {
-	select {
-	case <-ch:
-		return nil
-	case <-ctx.Done():
-		return ctx.Err()
-	case err := <-s.runDone:
-		return fmt.Errorf("gateway stopped: %w", err)
 	}
 }

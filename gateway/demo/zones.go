@@ -7,6 +7,7 @@ import (
 	"time"
 
 	"etpulse/controllers"
+	"etpulse/gateway/clock"
 	"etpulse/gateway/config"
 	"etpulse/gateway/mqtt"
 	"etpulse/gateway/zones"
@@ -79,12 +80,12 @@ func hasZones(cfg *config.Config) bool {
 // serveValves connects the simulated valve controllers (valves), which
 // the demo steps each simulated minute. The caller closes the returned
 // client.
-func serveValves(ctx context.Context, url string, cfg *config.Config, clock *Clock, tr *traffic, log *slog.Logger) (*mqtt.Client, *valves, error) {
+func serveValves(ctx context.Context, url string, cfg *config.Config, clk clock.Clock, tr *traffic, log *slog.Logger) (*mqtt.Client, *valves, error) {
 	c, err := mqtt.Dial(ctx, mqtt.Options{URL: url, ClientID: "etpulse-demo-valves", Workers: 1})
 	if err != nil {
 		return nil, nil, fmt.Errorf("valves: %w", err)
 	}
-	v := &valves{mqtt: tr.client("valves", c), clock: clock.Now, log: log}
+	v := &valves{mqtt: tr.client("valves", c), clock: clk.Now, log: log}
 	topics := map[string]string{}
 	for _, s := range cfg.Sites {
 		for i := range s.Zones {

@@ -208,7 +208,7 @@ func Run(ctx context.Context, o Options) (sum Summary, err error) {
 	clock := demo.NewClock(SimStart)
 	g, err := gateway.New(cfg, gateway.Deps{
 		Logger: o.Logger, Registerer: reg, Gatherer: reg, DB: db, MQTT: &tap{inner: client, t: tr},
-		Clock: clock.Now, After: clock.After, OnRecord: tr.record,
+		Clock: clock, OnRecord: tr.record,
 	})
 	if err != nil {
 		return sum, fmt.Errorf("load: %w", err)

@@ -18,6 +18,7 @@ import (
 	"github.com/prometheus/client_golang/prometheus"
 	"go.etcd.io/bbolt"
 
+	"etpulse/gateway/clock"
 	"etpulse/gateway/config"
 	"etpulse/gateway/mqtt"
 	"etpulse/gateway/pipeline"
@@ -59,10 +60,8 @@ type Options struct {
 	Logger *slog.Logger
 	// Registerer for the alert metrics; nil registers none.
 	Registerer prometheus.Registerer
-	// Clock is the gateway's time; nil means time.Now.
-	Clock func() time.Time
-	// After fires once d of Clock time has passed; nil means time.After.
-	After func(d time.Duration) <-chan time.Time
+	// Clock is the gateway's time and its waits; nil means clock.Real.
+	Clock clock.Clock
 	// OnEvent, when set, is called with every committed alert event (the
 	// demo prints them). It must not block.
 	OnEvent func(Event)
@@ -97,8 +96,8 @@ type Monitor struct {
 	outbox   store.Enqueuer
 	pub      mqtt.Publisher
 	log      *slog.Logger
-	clock    func() time.Time
-	after    func(time.Duration) <-chan time.Time
+	clock    clock.Clock
+	backoff  time.Duration // publish retry backoff; owned by RunOnce's caller
 	lmu      sync.Mutex
 	onEvent  []func(Event)
 	metrics  *metrics
@@ -133,15 +132,10 @@ func New(o Options) (*Monitor, error) {
 	if o.Logger == nil {
 		o.Logger = slog.New(slog.DiscardHandler)
 	}
-	if o.Clock == nil {
-		o.Clock = time.Now
-	}
-	if o.After == nil {
-		o.After = time.After
-	}
+	o.Clock = clock.Or(o.Clock)
 	m := &Monitor{
 		cfg: o.Config, alerts: &o.Config.Alerts, db: o.DB, outbox: o.Outbox, pub: o.Publisher,
-		log: o.Logger, clock: o.Clock, after: o.After,
+		log: o.Logger, clock: o.Clock,
 		notify:   make(chan struct{}, 1),
 		stations: map[stationID]*stationInfo{},
 		state:    map[Key]Alert{},
@@ -156,7 +150,7 @@ func New(o Options) (*Monitor, error) {
 	if m.metrics, err = newMetrics(o.Registerer); err != nil {
 		return nil, fmt.Errorf("new alert monitor: %w", err)
 	}
-	now := m.clock()
+	now := m.clock.Now()
 	for i := range o.Config.Sites {
 		site := &o.Config.Sites[i]
 		for j := range site.Stations {
@@ -705,7 +699,7 @@ func (m *Monitor) Raise(tx *bbolt.Tx, a Alert) error {
 	}
 	f := Finding{Key: a.Key, Status: StatusBad, Severity: a.Severity, Message: a.Message, Value: a.Value, Limit: a.Limit, At: a.Since}
 	if f.At.IsZero() {
-		f.At = m.clock()
+		f.At = m.clock.Now()
 	}
 	return m.external(tx, f)
 }
@@ -717,7 +711,7 @@ func (m *Monitor) Clear(tx *bbolt.Tx, key Key, at time.Time, message string) err
 		return fmt.Errorf("clear alert: %w", err)
 	}
 	if at.IsZero() {
-		at = m.clock()
+		at = m.clock.Now()
 	}
 	return m.external(tx, Finding{Key: key, Status: StatusGood, Message: message, At: at})
 }
@@ -739,53 +733,52 @@ func (m *Monitor) external(tx *bbolt.Tx, f Finding) error {
 	return m.db.Update(run)
 }
 
-// Run is the monitor's background loop: it persists reading-level events,
-// runs the silence check when a sensor falls due, publishes pending alert
-// messages (retrying with backoff while the broker is away) and prunes old
-// cleared alerts. It returns when ctx is cancelled.
+// Run is the monitor's background loop: RunOnce whenever a sensor falls due
+// for the silence check, a publish retry is due, or new events arrive. It
+// returns when ctx is cancelled.
 func (m *Monitor) Run(ctx context.Context) error {
-	backoff := time.Duration(0)
-	for {
-		now := m.clock()
-		m.mu.Lock()
-		due := !m.next.IsZero() && !now.Before(m.next)
-		m.mu.Unlock()
-		if due {
-			m.CheckSilence(now)
-		}
-		if err := m.Sync(); err != nil {
-			m.log.Error("persisting alerts", "err", err)
-		}
-		if err := m.prune(now); err != nil {
-			m.log.Error("pruning alerts", "err", err)
-		}
-		var retry <-chan time.Time
-		if err := m.publishPending(ctx); err != nil {
-			if ctx.Err() != nil {
-				return nil
-			}
-			backoff = min(max(2*backoff, time.Second), maxPublishBackoff)
-			m.log.Warn("alert messages not published; will retry", "err", err, "in", backoff)
-			retry = time.After(backoff)
-		} else {
-			backoff = 0
-		}
-		var silence <-chan time.Time
-		m.mu.Lock()
-		next := m.next
-		m.mu.Unlock()
-		if !next.IsZero() {
-			silence = m.after(max(next.Sub(m.clock()), 0))
-		}
-		select {
-		case <-ctx.Done():
-			return nil
-		case <-m.notify:
-		case <-retry:
-		case <-silence:
-		}
-	}
+	return clock.Loop(ctx, m.clock, m.notify, m)
 }
+
+// RunOnce does one pass at now: it runs the silence check when a sensor has
+// fallen due, persists reading-level events, prunes old cleared alerts and
+// publishes pending alert messages. It returns the next silence deadline, or
+// sooner the time to retry publishing while the broker is away (backing
+// off); zero when neither is pending.
+func (m *Monitor) RunOnce(ctx context.Context, now time.Time) (time.Time, error) {
+	m.mu.Lock()
+	due := !m.next.IsZero() && !now.Before(m.next)
+	m.mu.Unlock()
+	if due {
+		m.CheckSilence(now)
+	}
+	if err := m.Sync(); err != nil {
+		m.log.Error("persisting alerts", "err", err)
+	}
+	if err := m.prune(now); err != nil {
+		m.log.Error("pruning alerts", "err", err)
+	}
+	var retry time.Time
+	if err := m.publishPending(ctx); err != nil {
+		if ctx.Err() != nil {
+			return time.Time{}, nil
+		}
+		m.backoff = min(max(2*m.backoff, time.Second), maxPublishBackoff)
+		m.log.Warn("alert messages not published; will retry", "err", err, "in", m.backoff)
+		retry = now.Add(m.backoff)
+	} else {
+		m.backoff = 0
+	}
+	m.mu.Lock()
+	next := m.next
+	m.mu.Unlock()
+	if next.IsZero() || (!retry.IsZero() && retry.Before(next)) {
+		next = retry
+	}
+	return next, nil
+}
+
+var _ clock.Stepper = (*Monitor)(nil)
 
 // Flush persists queued events and tries once to publish what is pending;
 // the gateway calls it at shutdown.

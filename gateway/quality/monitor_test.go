@@ -13,6 +13,7 @@ import (
 	"github.com/stretchr/testify/require"
 	"go.etcd.io/bbolt"
 
+	"etpulse/gateway/clock"
 	"etpulse/gateway/config"
 	"etpulse/gateway/state"
 	"etpulse/gateway/store"
@@ -57,7 +58,7 @@ func newFixture(t testing.TB, cfg *config.Config, path string, now time.Time) *f
 	require.NoError(t, err)
 	f.mon, err = New(Options{
 		Config: cfg, DB: db, Outbox: f.ob, Registerer: f.reg,
-		Clock:   func() time.Time { return now },
+		Clock:   clock.Func(func() time.Time { return now }),
 		OnEvent: func(ev Event) { f.evs = append(f.evs, ev) },
 	})
 	require.NoError(t, err)

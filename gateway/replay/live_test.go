@@ -14,6 +14,7 @@ import (
 	"github.com/stretchr/testify/require"
 
 	"etpulse/gateway"
+	"etpulse/gateway/clock"
 	"etpulse/gateway/config"
 	"etpulse/gateway/ingest"
 	"etpulse/gateway/state"
@@ -88,7 +89,7 @@ func TestReplayMatchesLiveWithExcludedSensor(t *testing.T) {
 	require.NoError(t, err)
 	t.Cleanup(func() { _ = db.Close() })
 	now := start
-	g, err := gateway.New(cfg, gateway.Deps{DB: db, Clock: func() time.Time { return now }})
+	g, err := gateway.New(cfg, gateway.Deps{DB: db, Clock: clock.Func(func() time.Time { return now })})
 	require.NoError(t, err)
 	p := g.Pipeline()
 	var live []hourly.Record

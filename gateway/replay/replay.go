@@ -41,6 +41,7 @@ import (
 
 	"go.etcd.io/bbolt"
 
+	gwclock "etpulse/gateway/clock"
 	"etpulse/gateway/config"
 	"etpulse/gateway/ingest"
 	"etpulse/gateway/pipeline"
@@ -270,7 +271,7 @@ func Run(ctx context.Context, cfg *config.Config, in io.Reader, out io.Writer, o
 // the caller's handlers. The monitor sees each reading arrive at its own
 // time, as it would have live.
 func newLive(cfg *config.Config, db *bbolt.DB, o Options, clock func() time.Time) (*pipeline.Pipeline, *quality.Monitor, error) {
-	mon, err := quality.New(quality.Options{Config: cfg, DB: db, Logger: o.Logger.With("component", "alerts"), Clock: clock})
+	mon, err := quality.New(quality.Options{Config: cfg, DB: db, Logger: o.Logger.With("component", "alerts"), Clock: gwclock.Func(clock)})
 	if err != nil {
 		return nil, nil, err
 	}

@@ -15,6 +15,7 @@ import (
 	"go.etcd.io/bbolt"
 
 	"etpulse/controllers"
+	"etpulse/gateway/clock"
 	"etpulse/gateway/config"
 	"etpulse/gateway/internal/testenv"
 	"etpulse/gateway/mqtt"
@@ -43,10 +44,10 @@ func alertZoneConfig(t *testing.T, prefix string) *config.Config {
 
 // monitorFor builds the drift and fault monitor on the fixture's state file
 // and outbox, publishing through pub.
-func monitorFor(t *testing.T, f *fixture, cfg *config.Config, pub mqtt.Publisher, clock func() time.Time, after func(time.Duration) <-chan time.Time) *quality.Monitor {
+func monitorFor(t *testing.T, f *fixture, cfg *config.Config, pub mqtt.Publisher, clk clock.Clock) *quality.Monitor {
 	t.Helper()
 	mon, err := quality.New(quality.Options{Config: cfg, DB: f.db, Outbox: f.out, Publisher: pub,
-		Registerer: f.reg, Clock: clock, After: after})
+		Registerer: f.reg, Clock: clk})
 	require.NoError(t, err)
 	f.svc.o.Alerts = mon
 	return mon
@@ -131,8 +132,8 @@ func TestValveNoReportAlertMosquitto(t *testing.T) {
 	cfg := alertZoneConfig(t, prefix)
 	gw := dial(t, url, uniq("zones-alert-gw"))
 	f := newFixture(t, cfg, gw, clock.Now())
-	f.svc.o.Clock, f.svc.o.After = clock.Now, clock.After
-	mon := monitorFor(t, f, cfg, gw, clock.Now, clock.After)
+	f.svc.o.Clock = clock
+	mon := monitorFor(t, f, cfg, gw, clock)
 	f.hour(t, record(time.Date(2026, 7, 1, 9, 0, 0, 0, fernLoc), 0.5, 0)) // 30.5 mm
 
 	var mu sync.Mutex
@@ -221,7 +222,7 @@ func BenchmarkTickHeldWithAlerts(b *testing.B) {
 	start := time.Date(2026, 7, 1, 10, 0, 30, 0, fernLoc)
 	cfg := testConfig(b)
 	f := newFixture(b, cfg, nil, start)
-	mon, err := quality.New(quality.Options{Config: cfg, DB: f.db, Outbox: f.out, Clock: f.clock.Now})
+	mon, err := quality.New(quality.Options{Config: cfg, DB: f.db, Outbox: f.out, Clock: clock.Func(f.clock.Now)})
 	require.NoError(b, err)
 	f.svc.o.Alerts = mon
 	rec := record(time.Date(2026, 7, 1, 9, 0, 0, 0, fernLoc), 0.5, 0)

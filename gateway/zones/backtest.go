@@ -14,6 +14,7 @@ import (
 	"go.etcd.io/bbolt"
 
 	"etpulse/controllers"
+	"etpulse/gateway/clock"
 	"etpulse/gateway/config"
 	"etpulse/gateway/state"
 	"etpulse/gateway/store"
@@ -105,7 +106,7 @@ func NewBacktest(cfg *config.Config, db *bbolt.DB, pts store.Enqueuer) (*Backtes
 			b.grace[[2]string{cfg.Sites[i].ID, st.ID}] = st.CloseGrace.D()
 		}
 	}
-	svc, err := New(Options{Config: cfg, DB: db, Store: pts, Clock: b.clock.Now, OnEvent: b.event})
+	svc, err := New(Options{Config: cfg, DB: db, Store: pts, Clock: clock.Func(b.clock.Now), OnEvent: b.event})
 	if err != nil {
 		return nil, fmt.Errorf("new backtest: %w", err)
 	}

@@ -10,6 +10,7 @@ import (
 	"github.com/stretchr/testify/require"
 	"go.etcd.io/bbolt"
 
+	"etpulse/gateway/clock"
 	"etpulse/gateway/config"
 	"etpulse/gateway/state"
 	"etpulse/gateway/store"
@@ -106,7 +107,7 @@ func newFixture(t testing.TB, cfg *config.Config, broker Broker, start time.Time
 	f := &fixture{db: db, clock: &fakeClock{now: start}, reg: prometheus.NewRegistry()}
 	f.out, err = store.OpenOutbox(db, store.OutboxOptions{LocalOnly: true, Clock: f.clock.Now})
 	require.NoError(t, err)
-	f.svc, err = New(Options{Config: cfg, DB: db, MQTT: broker, Store: f.out, Registerer: f.reg, Clock: f.clock.Now,
+	f.svc, err = New(Options{Config: cfg, DB: db, MQTT: broker, Store: f.out, Registerer: f.reg, Clock: clock.Func(f.clock.Now),
 		OnEvent: func(e Event) { f.mu.Lock(); f.events = append(f.events, e); f.mu.Unlock() }})
 	require.NoError(t, err)
 	return f

@@ -64,7 +64,7 @@ func TestValveRoundTripMosquitto(t *testing.T) {
 	cfg := testConfig(t)
 	gw := dial(t, url, uniq("zones-gw"))
 	f := newFixture(t, cfg, gw, clock.Now())
-	f.svc.o.Clock, f.svc.o.After = clock.Now, clock.After
+	f.svc.o.Clock = clock
 	f.hour(t, record(time.Date(2026, 7, 1, 9, 0, 0, 0, fernLoc), 0.5, 0)) // 30.5 mm everywhere
 
 	sim := &ValveSimulator{MQTT: dial(t, url, uniq("zones-valves")), Behave: func(c CommandMessage) Behaviour {
@@ -147,7 +147,7 @@ func TestHelperGateway(t *testing.T) {
 		defer mu.Unlock()
 		fmt.Printf(format+"\n", args...)
 	}
-	svc, err := New(Options{Config: testConfig(t, "row-k"), DB: db, MQTT: gw, Clock: clock.Now, After: clock.After,
+	svc, err := New(Options{Config: testConfig(t, "row-k"), DB: db, MQTT: gw, Clock: clock,
 		OnEvent: func(e Event) {
 			if e.Command != nil {
 				say("EVENT %s %s %d", e.Kind, e.Command.ID, e.Command.Attempts)
@@ -307,7 +307,7 @@ func TestSilentControllerGetsStops(t *testing.T) {
 	cfg.Sites[0].Zones[0].Commands.FinishGrace = config.Duration(time.Minute)
 	gw := dial(t, url, uniq("zones-gw"))
 	f := newFixture(t, cfg, gw, clock.Now())
-	f.svc.o.Clock, f.svc.o.After = clock.Now, clock.After
+	f.svc.o.Clock = clock
 	f.hour(t, record(time.Date(2026, 7, 1, 9, 0, 0, 0, fernLoc), 0.5, 0))
 
 	sim := &ValveSimulator{MQTT: dial(t, url, uniq("zones-valves")), Clock: clock.Now, After: clock.After,

@@ -10,6 +10,7 @@ import (
 	"github.com/stretchr/testify/require"
 
 	"etpulse/controllers"
+	"etpulse/gateway/clock"
 )
 
 // Commands planned before a restart are checked against the configuration
@@ -28,7 +29,7 @@ func TestConfigChangedAfterRestartBeforeSend(t *testing.T) {
 	cfg := testConfig(t)
 	cfg.Sites[0].Zones[0].System.MaxMinutes = 60
 	cfg.Sites[0].Zones[1].Valve = "v9"
-	f.svc, err = New(Options{Config: cfg, DB: f.db, Store: f.out, Registerer: prometheus.NewRegistry(), Clock: f.clock.Now,
+	f.svc, err = New(Options{Config: cfg, DB: f.db, Store: f.out, Registerer: prometheus.NewRegistry(), Clock: clock.Func(f.clock.Now),
 		OnEvent: func(e Event) { f.mu.Lock(); f.events = append(f.events, e); f.mu.Unlock() }})
 	require.NoError(t, err)
 

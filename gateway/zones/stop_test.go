@@ -12,6 +12,7 @@ import (
 	"go.etcd.io/bbolt"
 
 	"etpulse/controllers"
+	gwclock "etpulse/gateway/clock"
 	"etpulse/gateway/internal/testenv"
 	"etpulse/gateway/mqtt"
 	"etpulse/gateway/quality"
@@ -29,7 +30,7 @@ func TestHoldStopsRunningValveMosquitto(t *testing.T) {
 	cfg := testConfig(t, "row-a")
 	gw := dial(t, url, uniq("zones-stop-gw"))
 	f := newFixture(t, cfg, gw, clock.Now())
-	f.svc.o.Clock, f.svc.o.After = clock.Now, clock.After
+	f.svc.o.Clock = clock
 	prefix := uniq("zstop")
 	f.svc.o.TopicPrefix = prefix
 	ref := f.svc.zones["fernhill/row-a"]
@@ -118,7 +119,7 @@ func stopFixture(t *testing.T) (*fixture, *quality.Monitor, controllers.Command,
 	start := time.Date(2026, 7, 1, 10, 0, 30, 0, fernLoc)
 	cfg := testConfig(t, "row-a")
 	f := newFixture(t, cfg, nil, start)
-	mon := monitorFor(t, f, cfg, nil, f.clock.Now, nil)
+	mon := monitorFor(t, f, cfg, nil, gwclock.Func(f.clock.Now))
 	f.hour(t, record(start.Add(-90*time.Second).Truncate(time.Hour), 0.5, 0))
 	_, _, err := f.svc.tick(start)
 	require.NoError(t, err)

@@ -141,11 +141,10 @@ func (r WaterRequest) Manual() controllers.ManualWater {
 	return w
 }
 
-
 // onWater applies water requests of a site and answers them.
 func (s *Service) onWater(site *siteRef) func(mqtt.Message) {
 	return func(m mqtt.Message) {
-		reply := s.applyWater(site, m.Payload, s.o.Clock())
+		reply := s.applyWater(site, m.Payload, s.o.Clock.Now())
 		b, err := json.Marshal(reply)
 		if err == nil {
 			ctx, cancel := context.WithTimeout(context.Background(), 10*time.Second)

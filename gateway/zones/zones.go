@@ -22,6 +22,7 @@ import (
 	"go.etcd.io/bbolt"
 
 	"etpulse/controllers"
+	"etpulse/gateway/clock"
 	"etpulse/gateway/config"
 	"etpulse/gateway/mqtt"
 	"etpulse/gateway/quality"
@@ -54,8 +55,8 @@ type Options struct {
 	Logger *slog.Logger // nil discards
 	// Registerer receives the zone metrics; nil: not registered.
 	Registerer prometheus.Registerer
-	Clock      func() time.Time                     // nil: time.Now
-	After      func(time.Duration) <-chan time.Time // nil: time.After
+	// Clock is the service's time and its waits; nil: clock.Real.
+	Clock clock.Clock
 	// TopicPrefix is the first level of <prefix>/<site>/hold,
 	// <prefix>/<site>/hold/reply and the default zone command and report
 	// topics; "" means the configuration's topic_prefix.
@@ -135,12 +136,7 @@ func New(o Options) (*Service, error) {
 	if o.Logger == nil {
 		o.Logger = slog.New(slog.DiscardHandler)
 	}
-	if o.Clock == nil {
-		o.Clock = time.Now
-	}
-	if o.After == nil {
-		o.After = time.After
-	}
+	o.Clock = clock.Or(o.Clock)
 	if o.TopicPrefix == "" {
 		o.TopicPrefix = o.Config.Prefix()
 	}
@@ -194,7 +190,7 @@ func New(o Options) (*Service, error) {
 			if err != nil {
 				return err
 			}
-			s.m.setLevels(ref, &r.State, o.Clock())
+			s.m.setLevels(ref, &r.State, o.Clock.Now())
 		}
 		return nil
 	}); err != nil {
@@ -341,22 +337,32 @@ type outgoing struct {
 	stop    bool // payload is a StopMessage
 }
 
-// Run subscribes to the report and hold topics and runs the scheduler until
-// ctx ends. It wakes at the next command deadline, window start, hold end or
-// staleness deadline, and whenever an hour, a report or a hold arrives.
+// Run subscribes to the report and hold topics (Start) and runs the
+// scheduler until ctx ends: RunOnce at the next command deadline, window
+// start, hold end or staleness deadline, and whenever an hour, a report or a
+// hold arrives.
 func (s *Service) Run(ctx context.Context) error {
+	if err := s.Start(ctx); err != nil {
+		return err
+	}
+	s.log.Info("zone scheduler running", "zones", len(s.zones))
+	return clock.Loop(ctx, s.o.Clock, s.wake, s)
+}
+
+// Start subscribes to the report, hold and water topics. Reports queued by
+// the broker while the gateway was away arrive after the subscription, so
+// commands sent by an earlier run are not re-sent for one ack timeout.
+// A caller that steps the service itself calls Start once, then RunOnce.
+func (s *Service) Start(ctx context.Context) error {
 	if s.o.MQTT == nil {
 		return errors.New("run zones: no MQTT connection")
 	}
-	// Reports queued by the broker while we were away arrive after the
-	// subscription: give them one ack timeout before re-sending anything
-	// sent by an earlier run.
 	var grace time.Duration
 	for _, ref := range s.zones {
 		grace = max(grace, ref.z.Policy.AckTimeout)
 	}
 	s.mu.Lock()
-	s.resumeAt = s.o.Clock().Add(grace)
+	s.resumeAt = s.o.Clock.Now().Add(grace)
 	s.mu.Unlock()
 	for _, site := range s.sites {
 		for _, ref := range site.zones {
@@ -373,24 +379,21 @@ func (s *Service) Run(ctx context.Context) error {
 			return fmt.Errorf("run zones: subscribe %s: %w", wt, err)
 		}
 	}
-	s.log.Info("zone scheduler running", "zones", len(s.zones))
-	for {
-		now := s.o.Clock()
-		next, sends, err := s.tick(now)
-		if err != nil {
-			return fmt.Errorf("run zones: %w", err)
-		}
-		s.publish(ctx, sends)
-		wait := max(next.Sub(s.o.Clock()), 0)
-		select {
-		case <-ctx.Done():
-			return nil
-		case <-s.wake:
-		case <-s.o.After(wait):
-		}
-	}
+	return nil
 }
 
+// RunOnce runs one scheduling pass at now (tick) and publishes the commands
+// and stops it decided; it returns when the next pass is due.
+func (s *Service) RunOnce(ctx context.Context, now time.Time) (time.Time, error) {
+	next, sends, err := s.tick(now)
+	if err != nil {
+		return next, fmt.Errorf("run zones: %w", err)
+	}
+	s.publish(ctx, sends)
+	return next, nil
+}
+
+var _ clock.Stepper = (*Service)(nil)
 
 func (s *Service) publish(ctx context.Context, sends []outgoing) {
 	for _, o := range sends {
@@ -404,7 +407,7 @@ func (s *Service) publish(ctx context.Context, sends []outgoing) {
 				continue
 			}
 			s.log.Warn("stop sent", "zone", c.Zone, "id", c.ID, "reason", c.StopReason, "attempt", c.StopAttempts)
-			s.emit(Event{Time: s.o.Clock(), Site: s.siteOf(c.Zone), Zone: c.Zone, Kind: EventStop, Command: &c, Text: c.StopReason})
+			s.emit(Event{Time: s.o.Clock.Now(), Site: s.siteOf(c.Zone), Zone: c.Zone, Kind: EventStop, Command: &c, Text: c.StopReason})
 			continue
 		}
 		if err != nil {
@@ -412,7 +415,7 @@ func (s *Service) publish(ctx context.Context, sends []outgoing) {
 			continue
 		}
 		s.log.Info("command sent", "zone", c.Zone, "id", c.ID, "minutes", c.Minutes, "start", c.Start, "attempt", c.Attempts)
-		s.emit(Event{Time: s.o.Clock(), Site: s.siteOf(c.Zone), Zone: c.Zone, Kind: EventSent, Command: &c})
+		s.emit(Event{Time: s.o.Clock.Now(), Site: s.siteOf(c.Zone), Zone: c.Zone, Kind: EventSent, Command: &c})
 	}
 }
 
@@ -661,7 +664,7 @@ func (s *Service) queue(tx *bbolt.Tx, site string, ref *zoneRef, c *controllers.
 // after the commit, or when it can never be applied (malformed, unknown).
 func (s *Service) onReport(ref *zoneRef) func(mqtt.Message) {
 	return func(m mqtt.Message) {
-		now := s.o.Clock()
+		now := s.o.Clock.Now()
 		r, err := DecodeReport(m.Payload)
 		if err != nil {
 			s.m.badReports.Inc()
@@ -787,7 +790,7 @@ func (s *Service) applyReport(ref *zoneRef, r controllers.Report, now time.Time)
 // onHold applies hold requests of a site and answers them.
 func (s *Service) onHold(site *siteRef) func(mqtt.Message) {
 	return func(m mqtt.Message) {
-		now := s.o.Clock()
+		now := s.o.Clock.Now()
 		reply := s.applyHold(site, m.Payload, now)
 		b, err := json.Marshal(reply)
 		if err == nil {
