@@ -67,6 +67,9 @@ func runDaemon(ctx context.Context, args []string, stdin io.Reader, stdout, stde
 	}
 	if err := daemon(ctx, cfg, log); err != nil {
 		log.Error("gateway failed", "err", err)
+		if errors.Is(err, state.ErrNewerVersion) || errors.Is(err, state.ErrNotStateFile) {
+			return exitUsage // the configuration points at the wrong file for this binary
+		}
 		return exitError
 	}
 	return exitOK
@@ -78,7 +81,7 @@ func daemon(ctx context.Context, cfg *config.Config, log *slog.Logger) (err erro
 	reg := prometheus.NewRegistry()
 	reg.MustRegister(collectors.NewGoCollector(), collectors.NewProcessCollector(collectors.ProcessCollectorOpts{}))
 
-	db, err := state.Open(cfg.State.Path)
+	db, err := state.OpenLogged(cfg.State.Path, log.With("component", "state"))
 	if err != nil {
 		return err
 	}

@@ -20,6 +20,7 @@ import (
 	"github.com/prometheus/client_golang/prometheus/promhttp"
 	"go.etcd.io/bbolt"
 
+	"etpulse/gateway/state"
 	"etpulse/gateway/store"
 )
 
@@ -191,7 +192,7 @@ func BrokerConnected(connected func() bool) Check {
 }
 
 // readyBucket is the bucket the state-file check writes to.
-var readyBucket = []byte("httpapi/ready")
+var readyBucket = state.BucketReady
 
 // StateWritable is a readiness check that commits a small write
 // transaction to the state file (a full disk or a read-only file fails it).

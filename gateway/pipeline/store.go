@@ -9,6 +9,7 @@ import (
 
 	"go.etcd.io/bbolt"
 
+	"etpulse/gateway/state"
 	"etpulse/hourly"
 )
 
@@ -27,8 +28,8 @@ import (
 // cursor walks hours and samples in time order. Times before 1970 are
 // refused on ingest.
 var (
-	bucketRoot     = []byte("pipeline")
-	bucketPending  = []byte("pipeline.pending")
+	bucketRoot     = state.BucketPipeline
+	bucketPending  = state.BucketPending
 	bucketSamples  = []byte("samples")
 	bucketHours    = []byte("hours")
 	bucketMeta     = []byte("meta")

@@ -22,15 +22,16 @@ import (
 	"etpulse/gateway/config"
 	"etpulse/gateway/mqtt"
 	"etpulse/gateway/pipeline"
+	"etpulse/gateway/state"
 	"etpulse/gateway/store"
 	"etpulse/hourly"
 )
 
 // Buckets of the state file owned by the monitor.
 var (
-	bucketAlerts  = []byte("alerts/state")   // Key.String() -> JSON Alert (active, and cleared ones for a while)
-	bucketHours   = []byte("alerts/hours")   // "site/station" -> hour start (8 bytes, unix s) -> JSON HourObs
-	bucketPublish = []byte("alerts/publish") // topic -> retained payload to publish (empty: clear)
+	bucketAlerts  = state.BucketAlerts       // Key.String() -> JSON Alert (active, and cleared ones for a while)
+	bucketHours   = state.BucketAlertHours   // "site/station" -> hour start (8 bytes, unix s) -> JSON HourObs
+	bucketPublish = state.BucketAlertPublish // topic -> retained payload to publish (empty: clear)
 )
 
 // Retention rules of the monitor's state (common practice, no source).

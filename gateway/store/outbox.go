@@ -9,6 +9,7 @@ import (
 	"log/slog"
 	"time"
 
+	"etpulse/gateway/state"
 	"etpulse/hourly"
 
 	"github.com/prometheus/client_golang/prometheus"
@@ -17,12 +18,12 @@ import (
 
 // Buckets of the state file owned by the store.
 var (
-	bucketOutbox     = []byte("outbox")            // seq -> enqueue time (8 bytes) + encoded point
-	bucketRaw        = []byte("outbox/raw")        // seq -> series key, for ClassRaw points only
-	bucketSeries     = []byte("outbox/series")     // series key -> seq of the pending point
-	bucketMeta       = []byte("outbox/meta")       // "count" -> pending points
-	bucketQuarantine = []byte("outbox/quarantine") // seq -> JSON QuarantinedPoint
-	bucketHistory    = []byte("history")           // time + series -> encoded point
+	bucketOutbox     = state.BucketOutbox           // seq -> enqueue time (8 bytes) + encoded point
+	bucketRaw        = state.BucketOutboxRaw        // seq -> series key, for ClassRaw points only
+	bucketSeries     = state.BucketOutboxSeries     // series key -> seq of the pending point
+	bucketMeta       = state.BucketOutboxMeta       // "count" -> pending points
+	bucketQuarantine = state.BucketOutboxQuarantine // seq -> JSON QuarantinedPoint
+	bucketHistory    = state.BucketHistory          // time + series -> encoded point
 )
 
 var keyCount = []byte("count")

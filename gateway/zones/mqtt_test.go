@@ -284,11 +284,11 @@ func TestKillBetweenCommandAndReport(t *testing.T) {
 		require.Len(t, led, 1, "one command in all three runs")
 		assert.Equal(t, controllers.Finished, led[0].State)
 		assert.Equal(t, 1, led[0].Attempts)
-		var zr zoneRecord
-		_, err = getJSON(bk.state, key("fernhill", "row-k"), &zr)
+		var zb state.ZoneBalance
+		_, err = getJSON(bk.state, key("fernhill", "row-k"), &zb)
 		require.NoError(t, err)
 		// 30.5 - 240/60 x 6 x 0.9 = 30.5 - 21.6 = 8.9 mm: credited exactly once.
-		assert.InDelta(t, 8.9, zr.State.Depletion, 1e-9)
+		assert.InDelta(t, 8.9, zb.DepletionMM, 1e-9)
 		return nil
 	}))
 	assert.Equal(t, 1, sim.Received(cmd.ID))

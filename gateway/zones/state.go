@@ -3,37 +3,36 @@ package zones
 import (
 	"encoding/json"
 	"fmt"
-	"time"
 
 	"go.etcd.io/bbolt"
 
 	"etpulse/controllers"
+	"etpulse/gateway/state"
 )
 
-// Buckets of the state file owned by this package: one top-level bucket
-// "zones" holding "state" (site/zone -> zoneRecord), "ledger" (site/command
-// id -> controllers.Command) and "holds" (site/ or site/zone -> Hold).
+// Buckets of the state file owned by this package (names and layout in
+// gateway/state and its SCHEMA.md): one top-level bucket "zones" holding
+// "state" (site/zone -> state.ZoneBalance), "ledger" (site/command id ->
+// state.LedgerEntry), "holds" (site/ or site/zone -> state.HoldEntry) and
+// "water" (applied water request ids).
 var (
-	bucketZones  = []byte("zones")
-	bucketState  = []byte("state")
-	bucketLedger = []byte("ledger")
-	bucketHolds  = []byte("holds")
+	bucketZones  = state.BucketZones
+	bucketState  = state.BucketZoneState
+	bucketLedger = state.BucketLedger
+	bucketHolds  = state.BucketHolds
 )
 
-// zoneRecord is a zone's persisted state.
+// zoneRecord is a zone's persisted state, stored as a state.ZoneBalance.
 type zoneRecord struct {
-	State controllers.State `json:"state"`
+	State controllers.State
 	// StaleAlert is true while the "no valid ET" alert is raised.
-	StaleAlert bool `json:"stale_alert"`
+	StaleAlert bool
 	// Skip is the last reason the zone got no command (for change-only logs).
-	Skip string `json:"skip,omitempty"`
+	Skip string
 }
 
-type holdRecord struct {
-	Until   time.Time `json:"until"`
-	Forever bool      `json:"forever"`
-	Reason  string    `json:"reason"`
-}
+// holdRecord is a stored hold.
+type holdRecord = state.HoldEntry
 
 type buckets struct {
 	state, ledger, holds *bbolt.Bucket
@@ -93,15 +92,35 @@ func putJSON(b *bbolt.Bucket, k []byte, v any) error {
 // loadZone returns the zone's record, or a fresh one at the configured
 // initial depletion.
 func (s *Service) loadZone(b buckets, ref *zoneRef) (zoneRecord, error) {
-	var r zoneRecord
-	ok, err := getJSON(b.state, key(ref.site, ref.id), &r)
+	var zb state.ZoneBalance
+	ok, err := getJSON(b.state, key(ref.site, ref.id), &zb)
 	if err != nil {
 		return zoneRecord{}, err
 	}
 	if !ok {
-		r.State.Depletion = ref.initial
+		return zoneRecord{State: controllers.State{Depletion: ref.initial}}, nil
 	}
-	return r, nil
+	return zoneRecord{State: zb.State(), StaleAlert: zb.StaleAlert, Skip: zb.LastSkip}, nil
+}
+
+// putZone stores a zone's record.
+func putZone(b buckets, site, zone string, zr *zoneRecord) error {
+	return putJSON(b.state, key(site, zone), state.ZoneBalanceOf(zr.State, zr.StaleAlert, zr.Skip))
+}
+
+// putCommand stores a ledger entry.
+func putCommand(b buckets, site string, c *controllers.Command) error {
+	return putJSON(b.ledger, key(site, c.ID), state.LedgerEntryOf(*c))
+}
+
+// getCommand reads the ledger entry of command id of site.
+func getCommand(b buckets, site, id string) (controllers.Command, bool, error) {
+	var e state.LedgerEntry
+	ok, err := getJSON(b.ledger, key(site, id), &e)
+	if err != nil || !ok {
+		return controllers.Command{}, false, err
+	}
+	return e.Command(), true, nil
 }
 
 // loadLedger returns every command of site, ordered by key.
@@ -113,9 +132,9 @@ func loadLedger(b buckets, site string) ([]controllers.Command, error) {
 	prefix := []byte(site + "/")
 	c := b.ledger.Cursor()
 	for k, v := c.Seek(prefix); k != nil && len(k) >= len(prefix) && string(k[:len(prefix)]) == string(prefix); k, v = c.Next() {
-		var cmd controllers.Command
-		if err := json.Unmarshal(v, &cmd); err != nil {
-			return nil, fmt.Errorf("decode command %s: %w", k, err)
+		cmd, err := state.DecodeCommand(v)
+		if err != nil {
+			return nil, fmt.Errorf("%s: %w", k, err)
 		}
 		out = append(out, cmd)
 	}

@@ -238,7 +238,7 @@ func TestValveFailedAlertLifecycle(t *testing.T) {
 		if err != nil {
 			return err
 		}
-		return putJSON(b.ledger, key("fernhill", next.ID), next)
+		return putCommand(b, "fernhill", &next)
 	}))
 	require.NoError(t, f.svc.applyReport(ref, controllers.Report{ID: next.ID, State: controllers.ReportFinished,
 		MinutesRun: 60, HasMinutes: true}, now.Add(25*time.Hour)))

@@ -14,6 +14,7 @@ import (
 	"etpulse/controllers"
 	"etpulse/gateway/config"
 	"etpulse/gateway/mqtt"
+	"etpulse/gateway/state"
 )
 
 // EventWater is water the gateway did not command (or a depletion reset)
@@ -210,7 +211,7 @@ func (s *Service) applyWater(site *siteRef, payload []byte, now time.Time) Water
 		if err != nil {
 			return fmt.Errorf("%w: %w", errRefused, err)
 		}
-		if err := putJSON(b.state, key(ref.site, ref.id), zr); err != nil {
+		if err := putZone(b, ref.site, ref.id, &zr); err != nil {
 			return err
 		}
 		p := stepPoint(ref.site, step)
@@ -277,7 +278,7 @@ func resetConflict(b buckets, site, zone string, at time.Time) error {
 
 // bucketWater (inside "zones") keeps the ids of applied water requests,
 // site/zone/id -> RFC 3339 time applied, for ManualPast plus a day.
-var bucketWater = []byte("water")
+var bucketWater = state.BucketWater
 
 // waterSeen reports whether req was applied before; if not, it records its
 // id in tx (undone with tx when the request is refused) and forgets ids

@@ -133,11 +133,11 @@ func TestApplyWaterResetAfterCredit(t *testing.T) {
 		if err != nil {
 			return err
 		}
-		if err := putJSON(b.ledger, key("fernhill", "row-a-1"), controllers.Command{ID: "row-a-1", Zone: "row-a",
+		if err := putCommand(b, "fernhill", &controllers.Command{ID: "row-a-1", Zone: "row-a",
 			State: controllers.Finished, Credited: true, EndedAt: now.Add(-10 * time.Minute)}); err != nil {
 			return err
 		}
-		return putJSON(b.ledger, key("fernhill", "row-b-1"), controllers.Command{ID: "row-b-1", Zone: "row-b", State: controllers.Started})
+		return putCommand(b, "fernhill", &controllers.Command{ID: "row-b-1", Zone: "row-b", State: controllers.Started})
 	}))
 	r := f.water(t, `{"id":"x1","zone":"row-a","kind":"depletion_reset","depletion_mm":10,"who":"a","why":"b","time":"2026-07-01T10:00:00-08:00"}`)
 	assert.False(t, r.OK)

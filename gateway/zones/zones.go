@@ -261,7 +261,7 @@ func (s *Service) HandleHour(tx *bbolt.Tx, rec hourly.Record) error {
 		if !ok {
 			continue
 		}
-		if err := putJSON(b.state, key(ref.site, ref.id), zr); err != nil {
+		if err := putZone(b, ref.site, ref.id, &zr); err != nil {
 			return fmt.Errorf("zones handle hour: %w", err)
 		}
 		if err := s.enqueue(tx, stepPoint(ref.site, step)); err != nil {
@@ -525,7 +525,7 @@ func (s *Service) carryOut(tx *bbolt.Tx, b buckets, site string, a controllers.A
 	c := a.Command
 	ref := s.zones[site+"/"+c.Zone]
 	ev := Event{Time: now, Site: site, Zone: c.Zone, Command: &c, Text: a.Reason}
-	if err := putJSON(b.ledger, key(site, c.ID), c); err != nil {
+	if err := putCommand(b, site, &c); err != nil {
 		return nil, ev, err
 	}
 	var out *outgoing
@@ -631,7 +631,7 @@ func (s *Service) noteZones(tx *bbolt.Tx, b buckets, site *siteRef, recs map[str
 			events = append(events, Event{Time: now, Site: site.id, Zone: ref.id, Kind: EventAlert, Text: text})
 		}
 		if changed {
-			if err := putJSON(b.state, key(site.id, ref.id), zr); err != nil {
+			if err := putZone(b, site.id, ref.id, zr); err != nil {
 				return nil, err
 			}
 		}
@@ -694,8 +694,7 @@ func (s *Service) applyReport(ref *zoneRef, r controllers.Report, now time.Time)
 		if err != nil {
 			return err
 		}
-		var c controllers.Command
-		ok, err := getJSON(b.ledger, key(ref.site, r.ID), &c)
+		c, ok, err := getCommand(b, ref.site, r.ID)
 		if err != nil {
 			return err
 		}
@@ -749,7 +748,7 @@ func (s *Service) applyReport(ref *zoneRef, r controllers.Report, now time.Time)
 			}
 		}
 		if out.Changed {
-			if err := putJSON(b.ledger, key(ref.site, c.ID), c); err != nil {
+			if err := putCommand(b, ref.site, &c); err != nil {
 				return err
 			}
 		}
@@ -764,7 +763,7 @@ func (s *Service) applyReport(ref *zoneRef, r controllers.Report, now time.Time)
 		if err != nil {
 			return err
 		}
-		if err := putJSON(b.state, key(ref.site, ref.id), zr); err != nil {
+		if err := putZone(b, ref.site, ref.id, &zr); err != nil {
 			return err
 		}
 		if err := s.enqueue(tx, stepPoint(ref.site, step)); err != nil {
@@ -871,7 +870,7 @@ func (s *Service) applyHold(site *siteRef, payload []byte, now time.Time) HoldRe
 					return err
 				}
 				if ok {
-					if err := putJSON(b.ledger, key(site.id, c.ID), c); err != nil {
+					if err := putCommand(b, site.id, c); err != nil {
 						return err
 					}
 					s.log.Warn("stop requested for a sent command", "site", site.id, "zone", c.Zone, "id", c.ID, "state", c.State, "reason", rec.Reason)
@@ -882,7 +881,7 @@ func (s *Service) applyHold(site *siteRef, payload []byte, now time.Time) HoldRe
 				return err
 			}
 			s.m.command(site.id, c.Zone, "cancelled")
-			if err := putJSON(b.ledger, key(site.id, c.ID), c); err != nil {
+			if err := putCommand(b, site.id, c); err != nil {
 				return err
 			}
 			if err := s.enqueue(tx, commandPoint(site.id, c, "cancelled", now)); err != nil {

@@ -1,0 +1,199 @@
+package state
+
+import (
+	"bytes"
+	"encoding/json"
+	"errors"
+	"io"
+	"os"
+	"path/filepath"
+	"strings"
+	"testing"
+
+	"github.com/stretchr/testify/assert"
+	"github.com/stretchr/testify/require"
+	"go.etcd.io/bbolt"
+
+	"etpulse/controllers"
+)
+
+// v1File is a state file written by the release before the file carried a
+// version (made by testdata/state/gen/gen.sh): two days of the demo farm and
+// a few points pending in the outbox.
+const v1File = "../../testdata/state/v1-tallowwood.db"
+
+func copyTo(t *testing.T, src string) string {
+	t.Helper()
+	dst := filepath.Join(t.TempDir(), "etpulse.db")
+	in, err := os.Open(src)
+	require.NoError(t, err)
+	defer in.Close()
+	out, err := os.Create(dst)
+	require.NoError(t, err)
+	_, err = io.Copy(out, in)
+	require.NoError(t, err)
+	require.NoError(t, out.Close())
+	return dst
+}
+
+// dump returns every key and value of the file, by bucket path.
+func dump(t *testing.T, path string) map[string]map[string][]byte {
+	t.Helper()
+	db, err := bbolt.Open(path, 0o600, &bbolt.Options{ReadOnly: true})
+	require.NoError(t, err)
+	defer db.Close()
+	out := map[string]map[string][]byte{}
+	var walk func(name string, b *bbolt.Bucket)
+	walk = func(name string, b *bbolt.Bucket) {
+		m := map[string][]byte{}
+		out[name] = m
+		require.NoError(t, b.ForEach(func(k, v []byte) error {
+			if v == nil {
+				walk(name+"/"+string(k), b.Bucket(k))
+				return nil
+			}
+			m[string(k)] = append([]byte(nil), v...)
+			return nil
+		}))
+	}
+	require.NoError(t, db.View(func(tx *bbolt.Tx) error {
+		return tx.ForEach(func(name []byte, b *bbolt.Bucket) error { walk(string(name), b); return nil })
+	}))
+	return out
+}
+
+// TestMigrateV1: the committed version-1 file opens at Version. Every
+// bucket but the zone balances and the ledger is byte for byte what it was
+// (records, carries, hour bins, outbox entries, history, alerts, holds);
+// every ledger row and zone balance reads back field by field as the domain
+// types the version-1 release wrote; a backup of the original is kept next
+// to the file until the next start.
+func TestMigrateV1(t *testing.T) {
+	path := copyTo(t, v1File)
+	before := dump(t, path)
+	require.Empty(t, before[string(BucketMeta)], "a version-1 file has no version")
+	require.NotEmpty(t, before["zones/ledger"])
+	require.NotEmpty(t, before["zones/state"])
+	require.NotEmpty(t, before["outbox"])
+	require.NotEmpty(t, before["alerts/state"])
+	require.NotEmpty(t, before["history"])
+
+	db, err := Open(path)
+	require.NoError(t, err)
+	v, err := FileVersion(db)
+	require.NoError(t, err)
+	assert.Equal(t, Version, v)
+	require.NoError(t, db.Close())
+	after := dump(t, path)
+
+	migrated := map[string]bool{"zones/ledger": true, "zones/state": true, string(BucketMeta): true}
+	for name, kv := range before {
+		if migrated[name] {
+			continue
+		}
+		assert.Equal(t, kv, after[name], "bucket %s changed", name)
+	}
+	for name := range after {
+		_, was := before[name]
+		assert.True(t, was || name == string(BucketMeta), "new bucket %s", name)
+	}
+
+	// Ledger rows: the version-1 bytes are the JSON of controllers.Command
+	// (whose tags have not changed since); the version-2 entry must give
+	// back the same command.
+	require.Len(t, after["zones/ledger"], len(before["zones/ledger"]))
+	for k, raw := range before["zones/ledger"] {
+		var want controllers.Command
+		require.NoError(t, json.Unmarshal(raw, &want))
+		got, err := DecodeCommand(after["zones/ledger"][k])
+		require.NoError(t, err)
+		assert.Equal(t, want, got, k)
+		assert.False(t, bytes.Equal(raw, after["zones/ledger"][k]), "%s was rewritten in the new format", k)
+	}
+	for k, raw := range before["zones/state"] {
+		var want struct {
+			State      controllers.State `json:"state"`
+			StaleAlert bool              `json:"stale_alert"`
+			Skip       string            `json:"skip"`
+		}
+		require.NoError(t, json.Unmarshal(raw, &want))
+		var got ZoneBalance
+		require.NoError(t, json.Unmarshal(after["zones/state"][k], &got))
+		assert.Equal(t, want.State, got.State(), k)
+		assert.Equal(t, want.StaleAlert, got.StaleAlert, k)
+		assert.Equal(t, want.Skip, got.LastSkip, k)
+		assert.NotEmpty(t, want.State.Hours, k)
+	}
+
+	// The backup is the untouched original, kept until the next start.
+	backup := BackupPath(path, 1)
+	assert.Equal(t, before, dump(t, backup))
+	db, err = Open(path)
+	require.NoError(t, err)
+	require.NoError(t, db.Close())
+	_, err = os.Stat(backup)
+	assert.True(t, os.IsNotExist(err), "the backup is removed after a start without migration")
+}
+
+// TestNewFileGetsVersion: a new file carries the version from creation.
+func TestNewFileGetsVersion(t *testing.T) {
+	path := filepath.Join(t.TempDir(), "new.db")
+	db, err := Open(path)
+	require.NoError(t, err)
+	v, err := FileVersion(db)
+	require.NoError(t, err)
+	assert.Equal(t, Version, v)
+	require.NoError(t, db.Close())
+	_, err = os.Stat(BackupPath(path, 1))
+	assert.True(t, os.IsNotExist(err), "nothing to back up")
+}
+
+// TestNewerVersionRefused: a file from a newer etpulse is refused, naming
+// both versions, and left as it was.
+func TestNewerVersionRefused(t *testing.T) {
+	path := filepath.Join(t.TempDir(), "newer.db")
+	db, err := Open(path)
+	require.NoError(t, err)
+	require.NoError(t, db.Update(func(tx *bbolt.Tx) error { return setVersion(tx, Version+3) }))
+	require.NoError(t, db.Close())
+	_, err = Open(path)
+	require.ErrorIs(t, err, ErrNewerVersion)
+	assert.Contains(t, err.Error(), "schema version 5, this etpulse reads up to 2")
+	assert.Equal(t, map[string][]byte{string(keyVersion): {0, 0, 0, 0, 0, 0, 0, 5}}, dump(t, path)[string(BucketMeta)])
+}
+
+// TestNotAStateFileRefused: a file that is not a bbolt database, and a
+// bbolt database of another program, are refused and left alone.
+func TestNotAStateFileRefused(t *testing.T) {
+	dir := t.TempDir()
+	text := filepath.Join(dir, "farm.yaml")
+	require.NoError(t, os.WriteFile(text, bytes.Repeat([]byte("sites: []\n"), 1000), 0o600))
+	_, err := Open(text)
+	require.ErrorIs(t, err, ErrNotStateFile)
+	assert.Contains(t, err.Error(), "check state.path")
+	b, err := os.ReadFile(text)
+	require.NoError(t, err)
+	assert.True(t, strings.HasPrefix(string(b), "sites: []"))
+
+	other := filepath.Join(dir, "other.db")
+	odb, err := bbolt.Open(other, 0o600, nil)
+	require.NoError(t, err)
+	require.NoError(t, odb.Update(func(tx *bbolt.Tx) error { _, err := tx.CreateBucket([]byte("invoices")); return err }))
+	require.NoError(t, odb.Close())
+	_, err = Open(other)
+	require.ErrorIs(t, err, ErrNotStateFile)
+	assert.Contains(t, err.Error(), `"invoices"`)
+}
+
+// TestLockedFile: a second opener gets ErrLocked instead of waiting forever.
+func TestLockedFile(t *testing.T) {
+	if testing.Short() {
+		t.Skip("waits for the lock timeout")
+	}
+	path := filepath.Join(t.TempDir(), "held.db")
+	db, err := Open(path)
+	require.NoError(t, err)
+	defer db.Close()
+	_, err = Open(path)
+	assert.True(t, errors.Is(err, ErrLocked), "%v", err)
+}
