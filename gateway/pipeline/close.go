@@ -10,6 +10,7 @@ import (
 
 	"go.etcd.io/bbolt"
 
+	"etpulse/gateway/state"
 	"etpulse/hourly"
 )
 
@@ -97,11 +98,11 @@ func (p *Pipeline) closeHour(st *station, hour time.Time, silent bool) (hourly.R
 		if err != nil {
 			return err
 		}
-		var cj carryJSON
+		var cj state.Carry
 		if _, err := getJSON(sb.meta, keyCarry, &cj); err != nil {
 			return err
 		}
-		carryIn := cj.carry()
+		carryIn := cj.Hourly()
 		var tmin, tmax *float64
 		rec, tmin, tmax, err = p.build(sb, st, hour, carryIn, gate)
 		if err != nil {
@@ -110,7 +111,7 @@ func (p *Pipeline) closeHour(st *station, hour time.Time, silent bool) (hourly.R
 		if silent {
 			rec.Flags = append(rec.Flags, FlagSilenceClose)
 		}
-		hs := hourState{CarryIn: carryToJSON(carryIn)}
+		hs := hourState{CarryIn: state.CarryOf(carryIn)}
 		if err := p.commitHour(tx, sb, st, rec, hs, tmin, tmax, true); err != nil {
 			return err
 		}
@@ -160,7 +161,7 @@ func (p *Pipeline) revise(st *station) ([]hourly.Record, error) {
 				return err
 			}
 			var tmin, tmax *float64
-			rec, tmin, tmax, err = p.build(sb, st, hour, hs.CarryIn.carry(), gate)
+			rec, tmin, tmax, err = p.build(sb, st, hour, hs.CarryIn.Hourly(), gate)
 			if err != nil {
 				return err
 			}
@@ -191,13 +192,13 @@ func (p *Pipeline) commitHour(tx *bbolt.Tx, sb stationBuckets, st *station, rec 
 			return fmt.Errorf("hour handler: %w", err)
 		}
 	}
-	j := toJSON(rec)
+	j := state.RecordOf(rec)
 	hs.Revision, hs.Dirty, hs.TMin, hs.TMax, hs.Record = rec.Revision, false, tmin, tmax, &j
 	if err := putJSON(sb.hours, hourKey(rec.Start), hs); err != nil {
 		return err
 	}
 	if passCarry {
-		if err := putJSON(sb.meta, keyCarry, carryToJSON(rec.Carry)); err != nil {
+		if err := putJSON(sb.meta, keyCarry, state.CarryOf(rec.Carry)); err != nil {
 			return err
 		}
 	}
@@ -382,7 +383,7 @@ func deleteBefore(b *bbolt.Bucket, limit time.Time) error {
 }
 
 func putPending(tx *bbolt.Tx, st *station, rec hourly.Record) error {
-	b, err := MarshalRecord(rec)
+	b, err := state.EncodeRecord(rec)
 	if err != nil {
 		return err
 	}

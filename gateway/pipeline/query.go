@@ -10,6 +10,7 @@ import (
 	"go.etcd.io/bbolt"
 
 	"etpulse/gateway/ingest"
+	"etpulse/gateway/state"
 	"etpulse/hourly"
 )
 
@@ -31,7 +32,7 @@ func (p *Pipeline) Pending() ([]hourly.Record, error) {
 			return nil
 		}
 		return b.ForEach(func(k, v []byte) error {
-			rec, err := UnmarshalRecord(v)
+			rec, err := state.DecodeRecord(v)
 			if err != nil {
 				return err
 			}
@@ -130,7 +131,7 @@ func (p *Pipeline) Record(site, stationID string, hourStart time.Time) (hourly.R
 		if err != nil || !ok || hs.Record == nil {
 			return err
 		}
-		rec, found = hs.Record.record(), true
+		rec, found = hs.Record.Hourly(), true
 		return nil
 	})
 	if err != nil {

@@ -43,12 +43,12 @@ var (
 
 // hourState is what the pipeline keeps for a closed hour.
 type hourState struct {
-	Revision int         `json:"revision"`
-	CarryIn  carryJSON   `json:"carry_in"` // night carry the hour was computed with
-	Dirty    bool        `json:"dirty"`    // a late reading arrived; recompute on the next tick
-	TMin     *float64    `json:"t_min,omitempty"`
-	TMax     *float64    `json:"t_max,omitempty"`
-	Record   *recordJSON `json:"record,omitempty"`
+	Revision int           `json:"revision"`
+	CarryIn  state.Carry   `json:"carry_in"` // night carry the hour was computed with
+	Dirty    bool          `json:"dirty"`    // a late reading arrived; recompute on the next tick
+	TMin     *float64      `json:"t_min,omitempty"`
+	TMax     *float64      `json:"t_max,omitempty"`
+	Record   *state.Record `json:"record,omitempty"`
 }
 
 // counterState is the previous value of a cumulative rain counter.

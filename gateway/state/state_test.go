@@ -4,6 +4,7 @@ import (
 	"bytes"
 	"encoding/json"
 	"errors"
+	"fmt"
 	"io"
 	"os"
 	"path/filepath"
@@ -125,6 +126,39 @@ func TestMigrateV1(t *testing.T) {
 		assert.NotEmpty(t, want.State.Hours, k)
 	}
 
+	// Closed hours: version 1 kept the record as the JSON of that release's
+	// MQTT record, which is the shape of Record: every stored record reads
+	// into the persistence struct and writes back every value it had
+	// (fields added since, e.g. the wind floor mark, come out at their zero
+	// value).
+	records := 0
+	for name, kv := range after {
+		if !strings.HasPrefix(name, "pipeline/") || !strings.HasSuffix(name, "/hours") {
+			continue
+		}
+		for k, raw := range kv {
+			var hs struct {
+				CarryIn Carry           `json:"carry_in"`
+				Record  json.RawMessage `json:"record"`
+			}
+			require.NoError(t, json.Unmarshal(raw, &hs))
+			if hs.Record == nil {
+				continue
+			}
+			rec, err := DecodeRecord(hs.Record)
+			require.NoError(t, err, "%s %x", name, k)
+			require.False(t, rec.Start.IsZero())
+			again, err := EncodeRecord(rec)
+			require.NoError(t, err)
+			var want, got any
+			require.NoError(t, json.Unmarshal(hs.Record, &want))
+			require.NoError(t, json.Unmarshal(again, &got))
+			assertSubset(t, want, got, fmt.Sprintf("%s %x", name, k))
+			records++
+		}
+	}
+	assert.Greater(t, records, 50, "the file holds the closed hours of two days of three stations")
+
 	// The backup is the untouched original, kept until the next start.
 	backup := BackupPath(path, 1)
 	assert.Equal(t, before, dump(t, backup))
@@ -196,4 +230,21 @@ func TestLockedFile(t *testing.T) {
 	defer db.Close()
 	_, err = Open(path)
 	assert.True(t, errors.Is(err, ErrLocked), "%v", err)
+}
+
+// assertSubset checks that every value of want (decoded JSON) is in got.
+func assertSubset(t *testing.T, want, got any, where string) {
+	t.Helper()
+	wm, ok := want.(map[string]any)
+	if !ok {
+		assert.Equal(t, want, got, where)
+		return
+	}
+	gm, ok := got.(map[string]any)
+	if !assert.True(t, ok, "%s: not an object", where) {
+		return
+	}
+	for k, v := range wm {
+		assertSubset(t, v, gm[k], where+"."+k)
+	}
 }
