@@ -7,13 +7,10 @@ import (
 	"fmt"
 	"io"
 	"strings"
-	"time"
-
-	"go.etcd.io/bbolt"
-	bberrors "go.etcd.io/bbolt/errors"
 
 	"etpulse/gateway/config"
 	"etpulse/gateway/httpapi"
+	"etpulse/gateway/state"
 	"etpulse/gateway/store"
 )
 
@@ -107,9 +104,9 @@ func runExport(ctx context.Context, args []string, stdin io.Reader, stdout, stde
 // exportFile prints the history of the state file at path, which no
 // running gateway may hold.
 func exportFile(path string, q httpapi.HistoryQuery, stdout, stderr io.Writer) int {
-	db, err := bbolt.Open(path, 0o600, &bbolt.Options{ReadOnly: true, Timeout: 2 * time.Second})
+	db, err := state.OpenReadOnly(path)
 	if err != nil {
-		if errors.Is(err, bberrors.ErrTimeout) {
+		if errors.Is(err, state.ErrLocked) {
 			fmt.Fprintf(stderr, "etpulse export: state file %s is in use by a running gateway; export through it with --config FILE (http.listen must be on), or stop it, or export from a copy\n", path)
 		} else {
 			fmt.Fprintf(stderr, "etpulse export: open state %s: %v\n", path, err)

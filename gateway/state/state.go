@@ -95,8 +95,36 @@ func OpenLogged(path string, log *slog.Logger) (*bbolt.DB, error) {
 	return db, nil
 }
 
+// OpenReadOnly opens the state file at path for reading only, for tools
+// that read history beside a stopped gateway: it never creates, migrates or
+// writes the file. Files of this Version and of older versions whose
+// buckets read the same are opened; a newer file is refused with
+// ErrNewerVersion, a missing one with an error naming it.
+func OpenReadOnly(path string) (*bbolt.DB, error) {
+	if _, err := os.Stat(path); err != nil {
+		return nil, fmt.Errorf("open state %s: %w", path, err)
+	}
+	db, err := openBoltWith(path, &bbolt.Options{ReadOnly: true, Timeout: 2 * time.Second})
+	if err != nil {
+		return nil, err
+	}
+	v, err := FileVersion(db)
+	if err == nil && v > Version {
+		err = fmt.Errorf("schema version %d, this etpulse reads up to %d: use a newer etpulse: %w", v, Version, ErrNewerVersion)
+	}
+	if err != nil {
+		_ = db.Close()
+		return nil, fmt.Errorf("open state %s: %w", path, err)
+	}
+	return db, nil
+}
+
 func openBolt(path string) (*bbolt.DB, error) {
-	db, err := bbolt.Open(path, 0o600, &bbolt.Options{Timeout: lockWait})
+	return openBoltWith(path, &bbolt.Options{Timeout: lockWait})
+}
+
+func openBoltWith(path string, opt *bbolt.Options) (*bbolt.DB, error) {
+	db, err := bbolt.Open(path, 0o600, opt)
 	switch {
 	case err == nil:
 		return db, nil
@@ -162,7 +190,11 @@ func FileVersion(db *bbolt.DB) (int, error) {
 			v = 1
 			return nil
 		}
-		v = int(binary.BigEndian.Uint64(m.Get(keyVersion)))
+		raw := m.Get(keyVersion)
+		if len(raw) != 8 {
+			return fmt.Errorf("schema version: %d bytes, want 8: %w", len(raw), ErrNotStateFile)
+		}
+		v = int(binary.BigEndian.Uint64(raw))
 		return nil
 	})
 	return v, err

@@ -248,3 +248,30 @@ func assertSubset(t *testing.T, want, got any, where string) {
 		assertSubset(t, v, gm[k], where+"."+k)
 	}
 }
+
+// TestOpenReadOnly: a reader opens the version-1 file as it is (no version
+// written, no backup), refuses a newer file, and says when a file is missing.
+func TestOpenReadOnly(t *testing.T) {
+	path := copyTo(t, v1File)
+	before := dump(t, path)
+	db, err := OpenReadOnly(path)
+	require.NoError(t, err)
+	v, err := FileVersion(db)
+	require.NoError(t, err)
+	assert.Equal(t, 1, v)
+	require.NoError(t, db.Close())
+	assert.Equal(t, before, dump(t, path))
+	_, err = os.Stat(BackupPath(path, 1))
+	assert.True(t, os.IsNotExist(err))
+
+	newer := filepath.Join(t.TempDir(), "newer.db")
+	db, err = Open(newer)
+	require.NoError(t, err)
+	require.NoError(t, db.Update(func(tx *bbolt.Tx) error { return setVersion(tx, Version+1) }))
+	require.NoError(t, db.Close())
+	_, err = OpenReadOnly(newer)
+	assert.ErrorIs(t, err, ErrNewerVersion)
+
+	_, err = OpenReadOnly(filepath.Join(t.TempDir(), "absent.db"))
+	assert.ErrorIs(t, err, os.ErrNotExist)
+}
