@@ -37,10 +37,22 @@ func ExportLineProtocol(w io.Writer, h *History, f Filter) (int, error) {
 // ExportCSV writes the history points matching f as CSV: one row per point,
 // columns time (RFC 3339, UTC), measurement, then every tag, field and note
 // key found (tags first, each group sorted); a cell is empty when the point
-// has no such key. It returns the number of rows written.
+// has no such key. Header and rows come from one read transaction, so a
+// point written meanwhile cannot bring a column the header lacks. It
+// returns the number of rows written.
 func ExportCSV(w io.Writer, h *History, f Filter) (int, error) {
+	n := 0
+	err := h.View(func(rng RangeFunc) error {
+		var err error
+		n, err = exportCSV(w, rng, f)
+		return err
+	})
+	return n, err
+}
+
+func exportCSV(w io.Writer, rng RangeFunc, f Filter) (int, error) {
 	tagKeys, fieldKeys, noteKeys := map[string]bool{}, map[string]bool{}, map[string]bool{}
-	err := h.Range(f, func(p Point) error {
+	err := rng(f, func(p Point) error {
 		for k := range p.Tags {
 			tagKeys[k] = true
 		}
@@ -71,7 +83,7 @@ func ExportCSV(w io.Writer, h *History, f Filter) (int, error) {
 	}
 	n := 0
 	row := make([]string, len(cols))
-	err = h.Range(f, func(p Point) error {
+	err = rng(f, func(p Point) error {
 		row[0] = p.Time.UTC().Format(time.RFC3339)
 		row[1] = p.Measurement
 		for i, k := range cols[2:] {

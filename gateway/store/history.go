@@ -79,36 +79,51 @@ func (f Filter) match(p Point) bool {
 // Range calls fn for every point matching f in time order (points of the
 // same time in series order). Returning an error from fn stops the scan.
 func (h *History) Range(f Filter, fn func(Point) error) error {
+	return h.View(func(rng RangeFunc) error { return rng(f, fn) })
+}
+
+// RangeFunc scans the points matching a filter, like History.Range.
+type RangeFunc func(f Filter, fn func(Point) error) error
+
+// View runs fn with a RangeFunc over one read transaction, so that several
+// passes (a CSV header, then its rows) see the same points while the
+// gateway writes. Keep it short: a long read transaction delays a writer
+// that must grow the file.
+func (h *History) View(fn func(rng RangeFunc) error) error {
 	err := h.db.View(func(tx *bbolt.Tx) error {
-		b := tx.Bucket(bucketHistory)
-		if b == nil {
-			return nil
-		}
-		c := b.Cursor()
-		start := appendTimeKey(nil, f.From)
-		var end []byte
-		if !f.To.IsZero() {
-			end = appendTimeKey(nil, f.To)
-		}
-		for k, v := c.Seek(start); k != nil; k, v = c.Next() {
-			if end != nil && string(k[:8]) >= string(end) {
-				break
-			}
-			p, err := decodePoint(v)
-			if err != nil {
-				return fmt.Errorf("key %x: %w", k, err)
-			}
-			if !f.match(p) {
-				continue
-			}
-			if err := fn(p); err != nil {
-				return err
-			}
-		}
-		return nil
+		return fn(func(f Filter, each func(Point) error) error { return rangeTx(tx, f, each) })
 	})
 	if err != nil {
 		return fmt.Errorf("history range: %w", err)
+	}
+	return nil
+}
+
+func rangeTx(tx *bbolt.Tx, f Filter, fn func(Point) error) error {
+	b := tx.Bucket(bucketHistory)
+	if b == nil {
+		return nil
+	}
+	c := b.Cursor()
+	start := appendTimeKey(nil, f.From)
+	var end []byte
+	if !f.To.IsZero() {
+		end = appendTimeKey(nil, f.To)
+	}
+	for k, v := c.Seek(start); k != nil; k, v = c.Next() {
+		if end != nil && string(k[:8]) >= string(end) {
+			break
+		}
+		p, err := decodePoint(v)
+		if err != nil {
+			return fmt.Errorf("key %x: %w", k, err)
+		}
+		if !f.match(p) {
+			continue
+		}
+		if err := fn(p); err != nil {
+			return err
+		}
 	}
 	return nil
 }
