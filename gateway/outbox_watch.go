@@ -6,6 +6,7 @@ import (
 	"log/slog"
 	"time"
 
+	"etpulse/gateway/alert"
 	"etpulse/gateway/clock"
 	"etpulse/gateway/quality"
 	"etpulse/gateway/store"
@@ -60,11 +61,11 @@ func (w *outboxWatch) check(now time.Time) error {
 		return nil
 	}
 	for _, site := range w.sites {
-		key := quality.OutboxKey(site)
+		key := alert.OutboxKey(site)
 		var err error
 		if near {
-			err = w.alerts.Raise(nil, quality.Alert{
-				Key: key, Severity: quality.SeverityWarning, Since: now,
+			err = w.alerts.Raise(nil, alert.Alert{
+				Key: key, Severity: alert.SeverityWarning, Since: now,
 				Value: float64(depth), Limit: float64(capacity),
 				Message: fmt.Sprintf("store outbox holds %d points of its cap %d, the oldest waiting %s: is the store reachable?",
 					depth, capacity, oldest.Round(time.Second)),

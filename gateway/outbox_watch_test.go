@@ -13,6 +13,7 @@ import (
 	"github.com/stretchr/testify/require"
 	"go.etcd.io/bbolt"
 
+	"etpulse/gateway/alert"
 	gwclock "etpulse/gateway/clock"
 	"etpulse/gateway/config"
 	"etpulse/gateway/quality"
@@ -60,7 +61,7 @@ func TestOutboxWatchRaisesAndClears(t *testing.T) {
 	require.NoError(t, w.check(now))
 	active := mon.Active()
 	require.Len(t, active, 1)
-	assert.Equal(t, quality.OutboxKey("lowfield"), active[0].Key)
+	assert.Equal(t, alert.OutboxKey("lowfield"), active[0].Key)
 	assert.Contains(t, active[0].Message, "store outbox holds 9 points of its cap 10")
 	assert.Equal(t, "x/lowfield/alerts/gateway/outbox/points/outbox-near-cap", quality.Topic("x", active[0].Key))
 
@@ -114,7 +115,7 @@ func TestOutboxWatchLoopChecksEveryMinute(t *testing.T) {
 		time.Sleep(time.Second)
 		synctest.Wait()
 		require.Len(t, mon.Active(), 1, "the check at the minute raises it")
-		assert.Equal(t, quality.OutboxKey("lowfield"), mon.Active()[0].Key)
+		assert.Equal(t, alert.OutboxKey("lowfield"), mon.Active()[0].Key)
 		cancel()
 		require.NoError(t, <-done)
 	})

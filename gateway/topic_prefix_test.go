@@ -13,6 +13,7 @@ import (
 	"github.com/stretchr/testify/require"
 
 	"etpulse/gateway"
+	"etpulse/gateway/alert"
 	"etpulse/gateway/config"
 	"etpulse/gateway/demo"
 	"etpulse/gateway/internal/testenv"
@@ -144,11 +145,11 @@ func TestTopicPrefixFromConfig(t *testing.T) {
 		[]byte(`{"id": "h-1", "zone": "wheat-east", "action": "hold", "hours": 2, "reason": "pump service"}`)))
 	waitTopic(prefix + "/" + demo.Site + "/hold/reply")
 
-	require.NoError(t, g.Alerts().Raise(nil, quality.Alert{
-		Key:      quality.Key{Site: demo.Site, Station: demo.Paddock, Sensor: quality.HourSubject, Quantity: hourly.Wind, Kind: quality.KindCalm},
-		Severity: quality.SeverityWarning, Message: "test alert", Since: clock.Now(),
+	require.NoError(t, g.Alerts().Raise(nil, alert.Alert{
+		Key:      alert.Key{Site: demo.Site, Station: demo.Paddock, Sensor: alert.HourSubject, Quantity: hourly.Wind, Kind: alert.KindCalm},
+		Severity: alert.SeverityWarning, Message: "test alert", Since: clock.Now(),
 	}))
-	waitTopic(quality.Topic(prefix, quality.Key{Site: demo.Site, Station: demo.Paddock, Sensor: quality.HourSubject, Quantity: hourly.Wind, Kind: quality.KindCalm}))
+	waitTopic(quality.Topic(prefix, alert.Key{Site: demo.Site, Station: demo.Paddock, Sensor: alert.HourSubject, Quantity: hourly.Wind, Kind: alert.KindCalm}))
 
 	cancel()
 	require.NoError(t, <-done)

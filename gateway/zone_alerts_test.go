@@ -13,6 +13,7 @@ import (
 	"github.com/stretchr/testify/require"
 
 	"etpulse/gateway"
+	"etpulse/gateway/alert"
 	"etpulse/gateway/config"
 	"etpulse/gateway/demo"
 	"etpulse/gateway/internal/testenv"
@@ -52,7 +53,7 @@ func TestZoneAlertsWired(t *testing.T) {
 	require.NoError(t, err)
 	t.Cleanup(func() { client.Close(time.Second) })
 
-	key := quality.ZoneKey(demo.Site, zone, quality.KindZoneETStale)
+	key := alert.ZoneKey(demo.Site, zone, alert.KindZoneETStale)
 	topic := quality.Topic(prefix, key)
 	require.Equal(t, prefix+"/"+demo.Site+"/alerts/zones/"+zone+"/et/zone-et-stale", topic)
 	watch, err := mqtt.Dial(ctx, mqtt.Options{URL: url, ClientID: prefix + "-watch", CleanSession: true})

@@ -1,6 +1,7 @@
 package gateway
 
 import (
+	"etpulse/gateway/alert"
 	"etpulse/gateway/config"
 	"etpulse/gateway/pipeline"
 	"etpulse/gateway/store"
@@ -10,7 +11,7 @@ import (
 // wireZones adds the zone balance and command scheduler when the
 // configuration has zones and the caller did not supply its own. Its alerts
 // (stale ET, valve without report, failed valve) go through alerts.
-func wireZones(cfg *config.Config, deps Deps, outbox store.Enqueuer, alerts zones.Alerter, comp *Components) error {
+func wireZones(cfg *config.Config, deps Deps, outbox store.Enqueuer, alerts alert.Raiser, comp *Components) error {
 	n := 0
 	for i := range cfg.Sites {
 		n += len(cfg.Sites[i].Zones)

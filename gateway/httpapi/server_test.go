@@ -24,6 +24,7 @@ import (
 	"github.com/stretchr/testify/require"
 	"go.etcd.io/bbolt"
 
+	"etpulse/gateway/alert"
 	"etpulse/gateway/config"
 	"etpulse/gateway/quality"
 	"etpulse/gateway/state"
@@ -135,8 +136,8 @@ func TestMetricsScrapeIsClean(t *testing.T) {
 	cfg.Alerts.ApplyDefaults()
 	mon, err := quality.New(quality.Options{Config: cfg, DB: db, Outbox: ob, Registerer: reg})
 	require.NoError(t, err)
-	key := quality.Key{Site: "brackenfold", Station: "orchard", Sensor: "valve-3", Quantity: "command", Kind: "command-expired"}
-	require.NoError(t, mon.Raise(nil, quality.Alert{Key: key, Message: "command expired after 3 tries", Since: time.Now()}))
+	key := alert.Key{Site: "brackenfold", Station: "orchard", Sensor: "valve-3", Quantity: "command", Kind: "command-expired"}
+	require.NoError(t, mon.Raise(nil, alert.Alert{Key: key, Message: "command expired after 3 tries", Since: time.Now()}))
 
 	base := start(t, Options{Gatherer: reg})
 	code, body := get(t, base+"/metrics")

@@ -13,145 +13,10 @@
 package quality
 
 import (
-	"fmt"
-	"strings"
 	"time"
 
-	"etpulse/hourly"
+	"etpulse/gateway/alert"
 )
-
-// Kind names a check. Kinds are used as metric labels and as the last level
-// of the alert topic, so they are few and fixed (plus the kinds other
-// components raise through Monitor.Raise).
-type Kind string
-
-// The kinds raised by this package.
-const (
-	KindRange         Kind = "range"           // reading outside the plausible range
-	KindSpike         Kind = "spike"           // change per minute beyond the limit
-	KindRHHigh        Kind = "rh-above-100"    // relative humidity above 100 % beyond tolerance
-	KindDewAboveAir   Kind = "dew-above-air"   // dew point above air temperature beyond tolerance
-	KindSilence       Kind = "silence"         // no reading for too long
-	KindStuck         Kind = "stuck"           // no change over too many hours
-	KindNightSolar    Kind = "night-solar"     // radiation well above zero in dark hours
-	KindSolarLow      Kind = "solar-low"       // clear-day radiation well below the clear-sky envelope
-	KindSolarHigh     Kind = "solar-high"      // radiation above the clear-sky envelope
-	KindHumidityDrift Kind = "humidity-drift"  // nights no longer reach saturation
-	KindCalm          Kind = "calm-run"        // long daytime run of calm readings
-	KindNeighbours    Kind = "station-departs" // station departs from the others' median
-)
-
-// The kinds the zone scheduler raises through Monitor.Raise (keys from
-// ZoneKey).
-const (
-	KindZoneETStale   Kind = "zone-et-stale"   // no valid ET for the zone for too long
-	KindValveNoReport Kind = "valve-no-report" // a command (or its stop) got no final report
-	KindValveFailed   Kind = "valve-failed"    // the valve controller reported a failed run
-	KindValveOpen     Kind = "valve-open"      // a valve may be open: its stop is not confirmed
-	KindValveOverrun  Kind = "valve-overrun"   // a report claims more minutes or water than commanded
-	KindValveStopped  Kind = "valve-stopped"   // the controller stopped a run on its own (flow alarm, stop in the field)
-	KindOutboxNearCap Kind = "outbox-near-cap" // the store outbox is close to its size cap
-)
-
-// ZoneStation is the Station of alerts about an irrigation zone rather than
-// a weather station; their Sensor is the zone id. The configuration refuses
-// "zones" as a station id, so a zone alert never gates a station's hours.
-const ZoneStation = "zones"
-
-// The Quantity of zone alerts: the zone's ET, or its valve.
-const (
-	ZoneET    hourly.Quantity = "et"
-	ZoneValve hourly.Quantity = "valve"
-)
-
-// ZoneKey returns the key of a zone alert of the given kind: Station
-// ZoneStation, Sensor the zone id, Quantity ZoneET for KindZoneETStale and
-// ZoneValve otherwise. Its topic is <prefix>/<site>/alerts/zones/<zone>/<et|valve>/<kind>.
-func ZoneKey(site, zone string, kind Kind) Key {
-	q := ZoneValve
-	if kind == KindZoneETStale {
-		q = ZoneET
-	}
-	return Key{Site: site, Station: ZoneStation, Sensor: zone, Quantity: q, Kind: kind}
-}
-
-// Zone returns the zone id of a zone alert's key, or "" for a station alert.
-func (k Key) Zone() string {
-	if k.Station == ZoneStation {
-		return k.Sensor
-	}
-	return ""
-}
-
-// GatewayStation is the Station of alerts about the gateway itself rather
-// than a weather station or a zone (e.g. its store outbox). The
-// configuration refuses it as a station id.
-const GatewayStation = "gateway"
-
-// OutboxKey returns the key of a site's outbox alert:
-// <prefix>/<site>/alerts/gateway/outbox/points/outbox-near-cap.
-func OutboxKey(site string) Key {
-	return Key{Site: site, Station: GatewayStation, Sensor: "outbox", Quantity: "points", Kind: KindOutboxNearCap}
-}
-
-// HourSubject is the Sensor of alerts derived from a station's hourly
-// records rather than from one sensor's readings.
-const HourSubject = "hourly"
-
-// Severity grades an alert.
-type Severity string
-
-// The severities.
-const (
-	SeverityWarning  Severity = "warning"  // data suspect; hours are flagged
-	SeverityCritical Severity = "critical" // data wrong; the configured response applies
-)
-
-// Key identifies one alert: one check on one sensor quantity of one station.
-type Key struct {
-	Site     string          `json:"site"`
-	Station  string          `json:"station"`
-	Sensor   string          `json:"sensor"`   // sensor id, or HourSubject
-	Quantity hourly.Quantity `json:"quantity"` // the measured quantity concerned
-	Kind     Kind            `json:"kind"`
-}
-
-// String returns the key as "site/station/sensor/quantity/kind".
-func (k Key) String() string {
-	return strings.Join([]string{k.Site, k.Station, k.Sensor, string(k.Quantity), string(k.Kind)}, "/")
-}
-
-// Validate reports whether every part of the key is a usable topic level.
-func (k Key) Validate() error {
-	for _, p := range [][2]string{
-		{"site", k.Site}, {"station", k.Station}, {"sensor", k.Sensor},
-		{"quantity", string(k.Quantity)}, {"kind", string(k.Kind)},
-	} {
-		if p[1] == "" || strings.ContainsAny(p[1], "/+#\x00") {
-			return fmt.Errorf("alert key: %s must be a non-empty topic level without '/', '+' or '#', got %q", p[0], p[1])
-		}
-	}
-	return nil
-}
-
-// Alert is the state of one alert. An alert is active until Cleared is set.
-type Alert struct {
-	Key
-	Severity Severity  `json:"severity"`
-	Message  string    `json:"message"`          // the evidence, e.g. "max Rs/Rso over the last 7 days 0.78, expected >= 0.85"
-	Value    float64   `json:"value"`            // the measured value the message names (silence: unix time of the last reading)
-	Limit    float64   `json:"limit"`            // the limit it was compared with
-	Since    time.Time `json:"since"`            // when it was raised
-	Updated  time.Time `json:"updated"`          // when its evidence was last published
-	Cleared  time.Time `json:"cleared,omitzero"` // when it cleared; zero while active
-	// GoodSince is when the fault was first seen absent while the alert was
-	// active; the alert clears once it has stayed absent for the finding's
-	// ClearAfter.
-	GoodSince time.Time `json:"good_since,omitzero"`
-}
-
-// Active reports whether the alert has not cleared.
-func (a Alert) Active() bool { return a.Cleared.IsZero() }
 
 // Status is a check's verdict at one moment.
 type Status int
@@ -178,9 +43,9 @@ func (s Status) String() string {
 
 // Finding is one check's verdict on one sensor quantity at time At.
 type Finding struct {
-	Key
+	alert.Key
 	Status   Status
-	Severity Severity
+	Severity alert.Severity
 	Message  string
 	Value    float64
 	Limit    float64
@@ -203,7 +68,7 @@ const (
 // Event is one change of an alert that is persisted, published and counted.
 type Event struct {
 	Type  EventType
-	Alert Alert
+	Alert alert.Alert
 }
 
 // Step applies a finding to the alert's previous state (has=false when no
@@ -216,12 +81,12 @@ type Event struct {
 // once. A good verdict starts the clearing clock; the alert clears
 // when good verdicts have lasted ClearAfter with no bad one in between. A hold
 // verdict changes nothing.
-func Step(prev Alert, has bool, f Finding, updateEvery time.Duration) (next Alert, changed bool, ev *Event) {
+func Step(prev alert.Alert, has bool, f Finding, updateEvery time.Duration) (next alert.Alert, changed bool, ev *Event) {
 	if !has || !prev.Active() {
 		if f.Status != StatusBad {
 			return prev, false, nil
 		}
-		a := Alert{
+		a := alert.Alert{
 			Key: f.Key, Severity: f.Severity, Message: f.Message, Value: f.Value, Limit: f.Limit,
 			Since: f.At, Updated: f.At,
 		}

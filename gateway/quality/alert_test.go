@@ -8,20 +8,21 @@ import (
 	"github.com/stretchr/testify/assert"
 	"github.com/stretchr/testify/require"
 
+	"etpulse/gateway/alert"
 	"etpulse/hourly"
 )
 
-var stepKey = Key{Site: "brackenfold", Station: "orchard", Sensor: "t1", Quantity: hourly.AirTemp, Kind: KindRange}
+var stepKey = alert.Key{Site: "brackenfold", Station: "orchard", Sensor: "t1", Quantity: hourly.AirTemp, Kind: alert.KindRange}
 
 func finding(st Status, minute int, msg string) Finding {
 	var v float64
 	fmt.Sscan(msg, &v) // the value leads the message in these tests
-	return Finding{Key: stepKey, Status: st, Severity: SeverityCritical, Message: msg, Value: v, At: t0.Add(time.Duration(minute) * time.Minute), ClearAfter: 30 * time.Minute}
+	return Finding{Key: stepKey, Status: st, Severity: alert.SeverityCritical, Message: msg, Value: v, At: t0.Add(time.Duration(minute) * time.Minute), ClearAfter: 30 * time.Minute}
 }
 
 func TestStepLifecycle(t *testing.T) {
 	const every = 15 * time.Minute
-	var a Alert
+	var a alert.Alert
 	has := false
 	apply := func(f Finding) *Event {
 		next, changed, ev := Step(a, has, f, every)
@@ -66,13 +67,13 @@ func TestStepLifecycle(t *testing.T) {
 }
 
 func TestStepSeverityChangePublishesAtOnce(t *testing.T) {
-	a, _, _ := Step(Alert{}, false, finding(StatusBad, 0, "x"), time.Hour)
+	a, _, _ := Step(alert.Alert{}, false, finding(StatusBad, 0, "x"), time.Hour)
 	f := finding(StatusBad, 1, "y")
-	f.Severity = SeverityWarning
+	f.Severity = alert.SeverityWarning
 	_, changed, ev := Step(a, true, f, time.Hour)
 	assert.True(t, changed)
 	require.NotNil(t, ev)
-	assert.Equal(t, SeverityWarning, ev.Alert.Severity)
+	assert.Equal(t, alert.SeverityWarning, ev.Alert.Severity)
 }
 
 func TestKeyValidate(t *testing.T) {

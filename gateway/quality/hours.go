@@ -7,6 +7,7 @@ import (
 	"strings"
 	"time"
 
+	"etpulse/gateway/alert"
 	"etpulse/gateway/config"
 	"etpulse/hourly"
 )
@@ -101,8 +102,8 @@ func HourChecks(site, station string, cfg *config.Alerts, choices config.Station
 	return out
 }
 
-func hourKey(site, station string, q hourly.Quantity, k Kind) Key {
-	return Key{Site: site, Station: station, Sensor: HourSubject, Quantity: q, Kind: k}
+func hourKey(site, station string, q hourly.Quantity, k alert.Kind) alert.Key {
+	return alert.Key{Site: site, Station: station, Sensor: alert.HourSubject, Quantity: q, Kind: k}
 }
 
 func stuckFindings(site, station string, cfg *config.Alerts, w []HourObs) []Finding {
@@ -135,7 +136,7 @@ func stuckFindings(site, station string, cfg *config.Alerts, w []HourObs) []Find
 			run++
 			since = o.Start
 		}
-		f := Finding{Key: hourKey(site, station, q, KindStuck), Severity: SeverityCritical, Value: float64(run), Limit: float64(lim.StuckHours), At: last.Start.Add(time.Hour)}
+		f := Finding{Key: hourKey(site, station, q, alert.KindStuck), Severity: alert.SeverityCritical, Value: float64(run), Limit: float64(lim.StuckHours), At: last.Start.Add(time.Hour)}
 		what := "hours"
 		if dayOnly {
 			what = "daytime hours"
@@ -173,7 +174,7 @@ func nightSolarFinding(site, station string, cfg *config.Alerts, w []HourObs) (F
 		}
 		means = append(means, s.Mean)
 	}
-	f := Finding{Key: hourKey(site, station, hourly.Solar, KindNightSolar), Severity: SeverityWarning, Value: lastS.Mean, Limit: limit, At: last.Start.Add(time.Hour)}
+	f := Finding{Key: hourKey(site, station, hourly.Solar, alert.KindNightSolar), Severity: alert.SeverityWarning, Value: lastS.Mean, Limit: limit, At: last.Start.Add(time.Hour)}
 	lowest := slices.Min(means)
 	switch {
 	case len(means) == n && lowest > limit:
@@ -266,7 +267,7 @@ func envelopeFindings(site, station string, cfg *config.Alerts, w []HourObs) []F
 			clear++
 		}
 	}
-	lf := Finding{Key: hourKey(site, station, hourly.Solar, KindSolarLow), Severity: SeverityCritical, Value: best.ratio, Limit: low, At: at}
+	lf := Finding{Key: hourKey(site, station, hourly.Solar, alert.KindSolarLow), Severity: alert.SeverityCritical, Value: best.ratio, Limit: low, At: at}
 	switch {
 	case best.ratio < low && clear >= e.MinClearDays:
 		lf.Status = StatusBad
@@ -278,7 +279,7 @@ func envelopeFindings(site, station string, cfg *config.Alerts, w []HourObs) []F
 		lf.Status = StatusHold
 	}
 	latest := days[len(days)-1]
-	hf := Finding{Key: hourKey(site, station, hourly.Solar, KindSolarHigh), Severity: SeverityCritical, Value: latest.ratio, Limit: high, At: at}
+	hf := Finding{Key: hourKey(site, station, hourly.Solar, alert.KindSolarHigh), Severity: alert.SeverityCritical, Value: latest.ratio, Limit: high, At: at}
 	switch {
 	case latest.ratio > high:
 		hf.Status = StatusBad
@@ -312,7 +313,7 @@ func calmFinding(site, station string, cfg *config.Alerts, w []HourObs) (Finding
 		}
 		run++
 	}
-	f := Finding{Key: hourKey(site, station, hourly.Wind, KindCalm), Severity: SeverityWarning, Value: float64(run), Limit: float64(n), At: last.Start.Add(time.Hour)}
+	f := Finding{Key: hourKey(site, station, hourly.Wind, alert.KindCalm), Severity: alert.SeverityWarning, Value: float64(run), Limit: float64(n), At: last.Start.Add(time.Hour)}
 	switch {
 	case run >= n:
 		f.Status = StatusBad
@@ -416,7 +417,7 @@ func humidityDriftFinding(site, station string, cfg *config.Alerts, w []HourObs)
 	}
 	below, gapLimit := *h.RHBelow, *h.DewGap
 	latest := ns[len(ns)-1]
-	f := Finding{Key: hourKey(site, station, q, KindHumidityDrift), Severity: SeverityWarning, Value: latest.maxRH, Limit: below, At: last.Start.Add(time.Hour)}
+	f := Finding{Key: hourKey(site, station, q, alert.KindHumidityDrift), Severity: alert.SeverityWarning, Value: latest.maxRH, Limit: below, At: last.Start.Add(time.Hour)}
 	fails := func(n nightSummary) bool {
 		return n.maxRH < below || (gapLimit > 0 && !math.IsNaN(n.minGap) && n.minGap > gapLimit)
 	}
@@ -499,7 +500,7 @@ func NeighbourChecks(site, station string, cfg *config.Alerts, windows map[strin
 		if len(deps) == 0 {
 			continue
 		}
-		f := Finding{Key: hourKey(site, station, q, KindNeighbours), Severity: SeverityWarning, Limit: tol, At: at, Value: deps[len(deps)-1]}
+		f := Finding{Key: hourKey(site, station, q, alert.KindNeighbours), Severity: alert.SeverityWarning, Limit: tol, At: at, Value: deps[len(deps)-1]}
 		unit := map[hourly.Quantity]string{hourly.AirTemp: " °C", hourly.RelHumidity: " %", hourly.Wind: " m/s", hourly.Solar: ""}[q]
 		what := "daily mean " + string(q)
 		if q == hourly.Solar {

@@ -8,12 +8,13 @@ import (
 	"github.com/stretchr/testify/assert"
 	"github.com/stretchr/testify/require"
 
+	"etpulse/gateway/alert"
 	"etpulse/gateway/config"
 	"etpulse/hourly"
 )
 
 // find returns the finding of kind on quantity q, and whether there is one.
-func find(fs []Finding, k Kind, q hourly.Quantity) (Finding, bool) {
+func find(fs []Finding, k alert.Kind, q hourly.Quantity) (Finding, bool) {
 	for _, f := range fs {
 		if f.Kind == k && f.Quantity == q {
 			return f, true
@@ -24,7 +25,7 @@ func find(fs []Finding, k Kind, q hourly.Quantity) (Finding, bool) {
 
 // runWindow evaluates the checks after every hour of w, as the monitor does,
 // and returns for each hour the findings of kind k on q.
-func runWindow(cfg *config.Alerts, choices config.StationAlerts, w []HourObs, k Kind, q hourly.Quantity) []Finding {
+func runWindow(cfg *config.Alerts, choices config.StationAlerts, w []HourObs, k alert.Kind, q hourly.Quantity) []Finding {
 	var out []Finding
 	for i := 1; i <= len(w); i++ {
 		if f, ok := find(HourChecks("brackenfold", "orchard", cfg, choices, w[:i]), k, q); ok {
@@ -50,7 +51,7 @@ func TestSolarEnvelopeLowSensor(t *testing.T) {
 	cfg := testAlerts()
 	// A dome losing a quarter of its signal: clear days reach Rs/Rso ≈ 0.98 x 0.75.
 	w := weather{solarScale: 0.75}.hours(8 * 24)
-	fs := runWindow(cfg, config.StationAlerts{}, w, KindSolarLow, hourly.Solar)
+	fs := runWindow(cfg, config.StationAlerts{}, w, alert.KindSolarLow, hourly.Solar)
 	last := fs[len(fs)-1]
 	require.Equal(t, StatusBad, last.Status, last.Message)
 	assert.InDelta(t, 0.735, last.Value, 0.02)
@@ -59,7 +60,7 @@ func TestSolarEnvelopeLowSensor(t *testing.T) {
 
 	// The same sky seen by a clean sensor: no alarm at any hour.
 	w = weather{}.hours(8 * 24)
-	bad, good := statuses(runWindow(cfg, config.StationAlerts{}, w, KindSolarLow, hourly.Solar))
+	bad, good := statuses(runWindow(cfg, config.StationAlerts{}, w, alert.KindSolarLow, hourly.Solar))
 	assert.Zero(t, bad)
 	assert.Positive(t, good)
 }
@@ -70,14 +71,14 @@ func TestSolarEnvelopeNoFalseAlarmOnCloudyWeek(t *testing.T) {
 	// far below 0.85 but no day looks clear, so there is no evidence.
 	for seed := uint64(1); seed <= 5; seed++ {
 		w := weather{clearness: cloudyWeek(seed)}.hours(8 * 24)
-		fs := runWindow(cfg, config.StationAlerts{}, w, KindSolarLow, hourly.Solar)
+		fs := runWindow(cfg, config.StationAlerts{}, w, alert.KindSolarLow, hourly.Solar)
 		bad, _ := statuses(fs)
 		assert.Zero(t, bad, "seed %d", seed)
 		assert.Less(t, fs[len(fs)-1].Value, 0.85, "the week is really cloudy")
 	}
 	// Uniform overcast all week: steady hourly ratio but too low to look clear.
 	w := weather{clearness: func(int, int) float64 { return 0.3 }}.hours(8 * 24)
-	bad, _ := statuses(runWindow(cfg, config.StationAlerts{}, w, KindSolarLow, hourly.Solar))
+	bad, _ := statuses(runWindow(cfg, config.StationAlerts{}, w, alert.KindSolarLow, hourly.Solar))
 	assert.Zero(t, bad)
 }
 
@@ -86,7 +87,7 @@ func TestSolarEnvelopeClearsWithHysteresis(t *testing.T) {
 	w := weather{solarScale: 0.75}.hours(8 * 24)
 	// The dome is cleaned: from day 8 the sensor reads right again.
 	w = append(w, weather{}.hours(10 * 24)[8*24:]...)
-	fs := runWindow(cfg, config.StationAlerts{}, w, KindSolarLow, hourly.Solar)
+	fs := runWindow(cfg, config.StationAlerts{}, w, alert.KindSolarLow, hourly.Solar)
 	var seenBad bool
 	var lastStatus Status
 	for _, f := range fs {
@@ -102,20 +103,20 @@ func TestSolarEnvelopeClearsWithHysteresis(t *testing.T) {
 func TestSolarEnvelopeHighSensor(t *testing.T) {
 	cfg := testAlerts()
 	w := weather{solarScale: 1.35}.hours(3 * 24)
-	fs := runWindow(cfg, config.StationAlerts{}, w, KindSolarHigh, hourly.Solar)
+	fs := runWindow(cfg, config.StationAlerts{}, w, alert.KindSolarHigh, hourly.Solar)
 	last := fs[len(fs)-1]
 	require.Equal(t, StatusBad, last.Status)
 	assert.Contains(t, last.Message, "expected <= 1.10")
 	assert.InDelta(t, 1.32, last.Value, 0.03)
 
-	bad, good := statuses(runWindow(cfg, config.StationAlerts{}, weather{}.hours(3*24), KindSolarHigh, hourly.Solar))
+	bad, good := statuses(runWindow(cfg, config.StationAlerts{}, weather{}.hours(3*24), alert.KindSolarHigh, hourly.Solar))
 	assert.Zero(t, bad)
 	assert.Positive(t, good)
 }
 
 func TestNightSolarOffset(t *testing.T) {
 	cfg := testAlerts()
-	fs := runWindow(cfg, config.StationAlerts{}, weather{nightSolar: 35}.hours(2*24), KindNightSolar, hourly.Solar)
+	fs := runWindow(cfg, config.StationAlerts{}, weather{nightSolar: 35}.hours(2*24), alert.KindNightSolar, hourly.Solar)
 	bad, _ := statuses(fs)
 	require.Positive(t, bad)
 	for _, f := range fs {
@@ -124,7 +125,7 @@ func TestNightSolarOffset(t *testing.T) {
 		}
 	}
 	// A normal thermopile offset of a few W m-2 below zero is no fault.
-	bad, good := statuses(runWindow(cfg, config.StationAlerts{}, weather{nightSolar: -4}.hours(2*24), KindNightSolar, hourly.Solar))
+	bad, good := statuses(runWindow(cfg, config.StationAlerts{}, weather{nightSolar: -4}.hours(2*24), alert.KindNightSolar, hourly.Solar))
 	assert.Zero(t, bad)
 	assert.Positive(t, good)
 }
@@ -132,7 +133,7 @@ func TestNightSolarOffset(t *testing.T) {
 func TestStuckAirTemperature(t *testing.T) {
 	cfg := testAlerts()
 	w := weather{tempStuck: ptr(21.3), stuckFrom: 30}.hours(40)
-	fs := runWindow(cfg, config.StationAlerts{}, w, KindStuck, hourly.AirTemp)
+	fs := runWindow(cfg, config.StationAlerts{}, w, alert.KindStuck, hourly.AirTemp)
 	last := fs[len(fs)-1]
 	require.Equal(t, StatusBad, last.Status)
 	assert.Equal(t, 10.0, last.Value)
@@ -144,29 +145,29 @@ func TestStuckAirTemperature(t *testing.T) {
 			break
 		}
 	}
-	bad, _ := statuses(runWindow(cfg, config.StationAlerts{}, weather{}.hours(3*24), KindStuck, hourly.AirTemp))
+	bad, _ := statuses(runWindow(cfg, config.StationAlerts{}, weather{}.hours(3*24), alert.KindStuck, hourly.AirTemp))
 	assert.Zero(t, bad)
 }
 
 func TestStuckWindCountsDaytimeOnly(t *testing.T) {
 	cfg := testAlerts()
 	// Calm nights (exactly 0 m/s all night) are no fault.
-	bad, _ := statuses(runWindow(cfg, config.StationAlerts{}, weather{windNight: 0}.hours(3*24), KindStuck, hourly.Wind))
+	bad, _ := statuses(runWindow(cfg, config.StationAlerts{}, weather{windNight: 0}.hours(3*24), alert.KindStuck, hourly.Wind))
 	assert.Zero(t, bad)
 	// A cup stuck at 1.2 m/s all day is.
-	fs := runWindow(cfg, config.StationAlerts{}, weather{windStuck: ptr(1.2)}.hours(2*24), KindStuck, hourly.Wind)
+	fs := runWindow(cfg, config.StationAlerts{}, weather{windStuck: ptr(1.2)}.hours(2*24), alert.KindStuck, hourly.Wind)
 	bad, _ = statuses(fs)
 	assert.Positive(t, bad)
 }
 
 func TestCalmRun(t *testing.T) {
 	cfg := testAlerts()
-	fs := runWindow(cfg, config.StationAlerts{}, weather{windStuck: ptr(0.0)}.hours(3*24), KindCalm, hourly.Wind)
+	fs := runWindow(cfg, config.StationAlerts{}, weather{windStuck: ptr(0.0)}.hours(3*24), alert.KindCalm, hourly.Wind)
 	last := fs[len(fs)-1]
 	require.Equal(t, StatusBad, last.Status)
 	assert.Contains(t, last.Message, "consecutive daytime hours, limit 12")
 	// Calm nights between windy days: no alarm.
-	bad, good := statuses(runWindow(cfg, config.StationAlerts{}, weather{windNight: 0}.hours(4*24), KindCalm, hourly.Wind))
+	bad, good := statuses(runWindow(cfg, config.StationAlerts{}, weather{windNight: 0}.hours(4*24), alert.KindCalm, hourly.Wind))
 	assert.Zero(t, bad)
 	assert.Positive(t, good)
 }
@@ -175,20 +176,20 @@ func TestHumidityDrift(t *testing.T) {
 	cfg := testAlerts()
 	optIn := config.StationAlerts{HumidityDrift: true}
 	// A sensor that no longer reads above 84 % in a climate whose nights saturate.
-	fs := runWindow(cfg, optIn, weather{rhCap: 84}.hours(8*24), KindHumidityDrift, hourly.RelHumidity)
+	fs := runWindow(cfg, optIn, weather{rhCap: 84}.hours(8*24), alert.KindHumidityDrift, hourly.RelHumidity)
 	last := fs[len(fs)-1]
 	require.Equal(t, StatusBad, last.Status, last.Message)
 	assert.Contains(t, last.Message, "nightly max RH over the last 5 nights")
 	assert.Contains(t, last.Message, "expected >= 90 %")
 
 	// Humid nights that saturate: no alarm, and the verdict is good.
-	bad, good := statuses(runWindow(cfg, optIn, weather{}.hours(8*24), KindHumidityDrift, hourly.RelHumidity))
+	bad, good := statuses(runWindow(cfg, optIn, weather{}.hours(8*24), alert.KindHumidityDrift, hourly.RelHumidity))
 	assert.Zero(t, bad)
 	assert.Positive(t, good)
 
 	// An arid site never saturates: without the opt-in the check does not run.
 	arid := weather{nightRHMax: 40, dayRHMin: 12}.hours(8 * 24)
-	assert.Empty(t, runWindow(cfg, config.StationAlerts{}, arid, KindHumidityDrift, hourly.RelHumidity))
+	assert.Empty(t, runWindow(cfg, config.StationAlerts{}, arid, alert.KindHumidityDrift, hourly.RelHumidity))
 }
 
 func TestHumidityDriftDewGap(t *testing.T) {
@@ -196,7 +197,7 @@ func TestHumidityDriftDewGap(t *testing.T) {
 	cfg.HumidityDrift.RHBelow = ptr(50.0) // rely on the dew point gap alone
 	cfg.HumidityDrift.DewGap = ptr(3.0)
 	optIn := config.StationAlerts{HumidityDrift: true}
-	fs := runWindow(cfg, optIn, weather{rhCap: 70}.hours(8*24), KindHumidityDrift, hourly.RelHumidity)
+	fs := runWindow(cfg, optIn, weather{rhCap: 70}.hours(8*24), alert.KindHumidityDrift, hourly.RelHumidity)
 	last := fs[len(fs)-1]
 	require.Equal(t, StatusBad, last.Status)
 	assert.Contains(t, last.Message, "above the dew point")
@@ -211,17 +212,17 @@ func TestNeighbours(t *testing.T) {
 		"hill":  weather{tOffset: 3.2}.hours(5 * 24), // radiation shield lost its fan?
 	}
 	fs := NeighbourChecks("brackenfold", "hill", cfg, windows)
-	f, ok := find(fs, KindNeighbours, hourly.AirTemp)
+	f, ok := find(fs, alert.KindNeighbours, hourly.AirTemp)
 	require.True(t, ok)
 	require.Equal(t, StatusBad, f.Status)
 	assert.InDelta(t, 3.2, f.Value, 0.05)
 	assert.Contains(t, f.Message, "median of 3 other stations")
-	f, ok = find(fs, KindNeighbours, hourly.Solar)
+	f, ok = find(fs, alert.KindNeighbours, hourly.Solar)
 	require.True(t, ok)
 	assert.Equal(t, StatusGood, f.Status)
 
 	for _, id := range []string{"north", "south", "west"} {
-		f, ok := find(NeighbourChecks("brackenfold", id, cfg, windows), KindNeighbours, hourly.AirTemp)
+		f, ok := find(NeighbourChecks("brackenfold", id, cfg, windows), alert.KindNeighbours, hourly.AirTemp)
 		require.True(t, ok)
 		assert.NotEqual(t, StatusBad, f.Status, id)
 	}

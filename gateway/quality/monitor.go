@@ -18,6 +18,7 @@ import (
 	"github.com/prometheus/client_golang/prometheus"
 	"go.etcd.io/bbolt"
 
+	"etpulse/gateway/alert"
 	"etpulse/gateway/clock"
 	"etpulse/gateway/config"
 	"etpulse/gateway/mqtt"
@@ -112,8 +113,8 @@ type Monitor struct {
 	txWin   map[stationID][]HourObs // changed in transaction txID, not yet committed
 
 	mu      sync.Mutex
-	state   map[Key]Alert // committed state: active alerts and recently cleared ones
-	pending []Event       // reading-level events not yet persisted
+	state   map[alert.Key]alert.Alert // committed state: active alerts and recently cleared ones
+	pending []Event                   // reading-level events not yet persisted
 	acc     map[accKey]map[hourly.Quantity]*QStats
 	next    time.Time // earliest silence deadline
 }
@@ -139,7 +140,7 @@ func New(o Options) (*Monitor, error) {
 		log: o.Logger, clock: o.Clock,
 		notify:   make(chan struct{}, 1),
 		stations: map[stationID]*stationInfo{},
-		state:    map[Key]Alert{},
+		state:    map[alert.Key]alert.Alert{},
 		acc:      map[accKey]map[hourly.Quantity]*QStats{},
 		windows:  map[stationID][]HourObs{},
 		txWin:    map[stationID][]HourObs{},
@@ -177,7 +178,7 @@ func New(o Options) (*Monitor, error) {
 			}
 		}
 		return tx.Bucket(bucketAlerts).ForEach(func(k, v []byte) error {
-			var a Alert
+			var a alert.Alert
 			if err := json.Unmarshal(v, &a); err != nil {
 				m.log.Warn("alert state unreadable; dropped", "key", string(k), "err", err)
 				return nil
@@ -196,7 +197,7 @@ func New(o Options) (*Monitor, error) {
 		m.metrics.active.WithLabelValues(string(a.Kind)).Inc()
 		// A sensor silent before the restart stays silent since its last
 		// reading (the alert's value), instead of clearing and raising again.
-		if info := m.stations[stationID{a.Site, a.Station}]; info != nil && a.Kind == KindSilence && a.Value > 0 {
+		if info := m.stations[stationID{a.Site, a.Station}]; info != nil && a.Kind == alert.KindSilence && a.Value > 0 {
 			info.readings.LastSeen(a.Sensor, a.Quantity, time.Unix(int64(a.Value), 0))
 		}
 	}
@@ -222,16 +223,16 @@ func (m *Monitor) listeners() []func(Event) {
 func (m *Monitor) Config() *config.Alerts { return m.alerts }
 
 // Active returns the active alerts, ordered by key.
-func (m *Monitor) Active() []Alert {
+func (m *Monitor) Active() []alert.Alert {
 	m.mu.Lock()
 	defer m.mu.Unlock()
-	var out []Alert
+	var out []alert.Alert
 	for _, a := range m.state {
 		if a.Active() {
 			out = append(out, a)
 		}
 	}
-	slices.SortFunc(out, func(a, b Alert) int { return strings.Compare(a.Key.String(), b.Key.String()) })
+	slices.SortFunc(out, func(a, b alert.Alert) int { return strings.Compare(a.Key.String(), b.Key.String()) })
 	return out
 }
 
@@ -395,7 +396,7 @@ func (m *Monitor) Sync() error {
 
 // persist writes one alert's state, and for an event its retained message
 // and store point, in tx.
-func (m *Monitor) persist(tx *bbolt.Tx, a Alert, ev *Event) error {
+func (m *Monitor) persist(tx *bbolt.Tx, a alert.Alert, ev *Event) error {
 	b, err := json.Marshal(a)
 	if err != nil {
 		return err
@@ -425,7 +426,7 @@ func (m *Monitor) persist(tx *bbolt.Tx, a Alert, ev *Event) error {
 // changes made inside a transaction (fromTx: hour-level and external
 // alerts), to the in-memory state. Reading-level changes are in memory
 // before they are persisted. states holds states changed without an event.
-func (m *Monitor) committed(evs []Event, states []Alert, fromTx bool) {
+func (m *Monitor) committed(evs []Event, states []alert.Alert, fromTx bool) {
 	m.mu.Lock()
 	for _, a := range states {
 		m.state[a.Key] = a
@@ -521,12 +522,12 @@ func (m *Monitor) HandleHour(tx *bbolt.Tx, rec hourly.Record) error {
 
 // applyTx steps each finding against the alert state stored in tx and
 // writes the changes.
-func (m *Monitor) applyTx(tx *bbolt.Tx, findings []Finding) ([]Event, []Alert, error) {
+func (m *Monitor) applyTx(tx *bbolt.Tx, findings []Finding) ([]Event, []alert.Alert, error) {
 	ab := tx.Bucket(bucketAlerts)
 	var evs []Event
-	var states []Alert
+	var states []alert.Alert
 	for _, f := range findings {
-		var prev Alert
+		var prev alert.Alert
 		has := false
 		if v := ab.Get([]byte(f.Key.String())); v != nil {
 			if err := json.Unmarshal(v, &prev); err == nil {
@@ -672,7 +673,7 @@ func (m *Monitor) Gate(site, station string, hourStart time.Time) pipeline.Gate 
 			continue
 		}
 		flags["alert:"+string(a.Kind)+":"+string(a.Quantity)] = true
-		if a.Severity != SeverityCritical || a.Kind == KindSilence || !slices.Contains(hourly.Quantities, a.Quantity) {
+		if a.Severity != alert.SeverityCritical || a.Kind == alert.KindSilence || !slices.Contains(hourly.Quantities, a.Quantity) {
 			continue
 		}
 		switch m.alerts.ResponseFor(site, station, a.Quantity) {
@@ -687,16 +688,18 @@ func (m *Monitor) Gate(site, station string, hourStart time.Time) pipeline.Gate 
 	return g
 }
 
+var _ alert.Raiser = (*Monitor)(nil)
+
 // Raise raises (or updates) an alert on behalf of another component, e.g.
-// the zone scheduler (KindZoneETStale, KindValveNoReport, KindValveFailed
-// with a ZoneKey). With a nil tx it runs its own transaction. a.Since is the
-// time of the event.
-func (m *Monitor) Raise(tx *bbolt.Tx, a Alert) error {
+// the zone scheduler (alert.KindZoneETStale, alert.KindValveNoReport,
+// alert.KindValveFailed with an alert.ZoneKey). With a nil tx it runs its own
+// transaction. a.Since is the time of the event.
+func (m *Monitor) Raise(tx *bbolt.Tx, a alert.Alert) error {
 	if err := a.Key.Validate(); err != nil {
 		return fmt.Errorf("raise alert: %w", err)
 	}
 	if a.Severity == "" {
-		a.Severity = SeverityWarning
+		a.Severity = alert.SeverityWarning
 	}
 	f := Finding{Key: a.Key, Status: StatusBad, Severity: a.Severity, Message: a.Message, Value: a.Value, Limit: a.Limit, At: a.Since}
 	if f.At.IsZero() {
@@ -707,7 +710,7 @@ func (m *Monitor) Raise(tx *bbolt.Tx, a Alert) error {
 
 // Clear clears an alert raised with Raise; message says why. Clearing an
 // alert that is not active does nothing.
-func (m *Monitor) Clear(tx *bbolt.Tx, key Key, at time.Time, message string) error {
+func (m *Monitor) Clear(tx *bbolt.Tx, key alert.Key, at time.Time, message string) error {
 	if err := key.Validate(); err != nil {
 		return fmt.Errorf("clear alert: %w", err)
 	}
@@ -840,7 +843,7 @@ func (m *Monitor) publishPending(ctx context.Context) error {
 // prune forgets alerts cleared longer than keepCleared ago.
 func (m *Monitor) prune(now time.Time) error {
 	m.mu.Lock()
-	var old []Key
+	var old []alert.Key
 	for k, a := range m.state {
 		if !a.Active() && now.Sub(a.Cleared) > keepCleared {
 			old = append(old, k)
@@ -854,7 +857,7 @@ func (m *Monitor) prune(now time.Time) error {
 		b := tx.Bucket(bucketAlerts)
 		for _, k := range old {
 			v := b.Get([]byte(k.String()))
-			var a Alert
+			var a alert.Alert
 			if v == nil || json.Unmarshal(v, &a) != nil || a.Active() {
 				continue // raised again meanwhile
 			}
@@ -879,7 +882,7 @@ func (m *Monitor) prune(now time.Time) error {
 
 // Topic returns the retained topic of an alert:
 // <prefix>/<site>/alerts/<station>/<sensor>/<quantity>/<kind>.
-func Topic(prefix string, k Key) string {
+func Topic(prefix string, k alert.Key) string {
 	return config.AlertTopic(prefix, k.Site, k.Station, k.Sensor, string(k.Quantity), string(k.Kind))
 }
 
@@ -910,7 +913,7 @@ func finite(v float64) *float64 {
 // MarshalAlert returns the retained payload of an alert: its JSON while
 // active, empty once cleared (an empty retained message removes the topic's
 // retained state at the broker).
-func MarshalAlert(a Alert) ([]byte, error) {
+func MarshalAlert(a alert.Alert) ([]byte, error) {
 	if !a.Active() {
 		return []byte{}, nil
 	}
@@ -927,7 +930,7 @@ func MarshalAlert(a Alert) ([]byte, error) {
 // history only) event, severity, message; time = the event time.
 func AlertPoint(ev Event) store.Point {
 	a := ev.Alert
-	fields := map[string]any{"active": a.Active(), "critical": a.Severity == SeverityCritical}
+	fields := map[string]any{"active": a.Active(), "critical": a.Severity == alert.SeverityCritical}
 	if v := finite(a.Value); v != nil {
 		fields["value"] = *v
 	}

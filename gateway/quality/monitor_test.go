@@ -13,6 +13,7 @@ import (
 	"github.com/stretchr/testify/require"
 	"go.etcd.io/bbolt"
 
+	"etpulse/gateway/alert"
 	"etpulse/gateway/clock"
 	"etpulse/gateway/config"
 	"etpulse/gateway/state"
@@ -103,7 +104,7 @@ func (f *fixture) alertPoints(t *testing.T) []store.Point {
 	t.Helper()
 	var pts []store.Point
 	require.NoError(t, f.ob.History().Range(store.Filter{Measurements: []string{store.MeasurementAlert}}, func(p store.Point) error {
-		if p.Tags["kind"] == string(KindSolarLow) {
+		if p.Tags["kind"] == string(alert.KindSolarLow) {
 			pts = append(pts, p)
 		}
 		return nil
@@ -122,7 +123,7 @@ func TestMonitorSoiledPyranometerLifecycle(t *testing.T) {
 	// Raised once, with its evidence.
 	var raised []Event
 	for _, ev := range f.evs {
-		if ev.Alert.Kind == KindSolarLow {
+		if ev.Alert.Kind == alert.KindSolarLow {
 			raised = append(raised, ev)
 		}
 	}
@@ -131,7 +132,7 @@ func TestMonitorSoiledPyranometerLifecycle(t *testing.T) {
 	assert.Contains(t, raised[0].Alert.Message, "max daily Rs/Rso over the last")
 	active := f.mon.Active()
 	require.Len(t, active, 1)
-	assert.Equal(t, Key{Site: "brackenfold", Station: "orchard", Sensor: HourSubject, Quantity: hourly.Solar, Kind: KindSolarLow}, active[0].Key)
+	assert.Equal(t, alert.Key{Site: "brackenfold", Station: "orchard", Sensor: alert.HourSubject, Quantity: hourly.Solar, Kind: alert.KindSolarLow}, active[0].Key)
 
 	// Counted in metrics.
 	assert.Equal(t, 1.0, testutil.ToFloat64(f.mon.metrics.active.WithLabelValues("solar-low")))
@@ -180,9 +181,9 @@ func TestMonitorSoiledPyranometerLifecycle(t *testing.T) {
 	}
 	require.NoError(t, f2.mon.Sync())
 	for _, a := range f2.mon.Active() {
-		assert.NotEqual(t, KindSolarLow, a.Kind, "cleared after the cleaning")
+		assert.NotEqual(t, alert.KindSolarLow, a.Kind, "cleared after the cleaning")
 		// Only solar reported in this part of the test: the others are silent.
-		assert.Equal(t, KindSilence, a.Kind)
+		assert.Equal(t, alert.KindSilence, a.Kind)
 	}
 	assert.Equal(t, 3.0, testutil.ToFloat64(f2.mon.metrics.raised.WithLabelValues("silence")), "raised once each, not updated")
 	assert.Equal(t, 0.0, testutil.ToFloat64(f2.mon.metrics.active.WithLabelValues("solar-low")))
@@ -252,8 +253,8 @@ func TestMonitorReadingFaultsAndSilence(t *testing.T) {
 	obs("h1", hourly.RelHumidity, 10, 108)
 	require.NoError(t, f.mon.Sync())
 	require.Len(t, f.evs, 2, "the jump from 60 to 108 % is also a spike")
-	assert.Equal(t, Key{Site: "brackenfold", Station: "orchard", Sensor: "h1", Quantity: hourly.RelHumidity, Kind: KindSpike}, f.evs[0].Alert.Key)
-	assert.Equal(t, Key{Site: "brackenfold", Station: "orchard", Sensor: "h1", Quantity: hourly.RelHumidity, Kind: KindRHHigh}, f.evs[1].Alert.Key)
+	assert.Equal(t, alert.Key{Site: "brackenfold", Station: "orchard", Sensor: "h1", Quantity: hourly.RelHumidity, Kind: alert.KindSpike}, f.evs[0].Alert.Key)
+	assert.Equal(t, alert.Key{Site: "brackenfold", Station: "orchard", Sensor: "h1", Quantity: hourly.RelHumidity, Kind: alert.KindRHHigh}, f.evs[1].Alert.Key)
 	assert.Contains(t, f.pendingPublish(t), "etpulse/brackenfold/alerts/orchard/h1/rel_humidity/rh-above-100")
 
 	// The wind sensor goes silent; the others keep reporting.
@@ -265,7 +266,7 @@ func TestMonitorReadingFaultsAndSilence(t *testing.T) {
 	require.NoError(t, f.mon.Sync())
 	var silent []Event
 	for _, ev := range f.evs {
-		if ev.Alert.Kind == KindSilence {
+		if ev.Alert.Kind == alert.KindSilence {
 			silent = append(silent, ev)
 		}
 	}
@@ -290,9 +291,9 @@ func TestMonitorReadingFaultsAndSilence(t *testing.T) {
 
 func TestMonitorExternalRaiseAndClear(t *testing.T) {
 	f := newFixture(t, testConfig(config.RespondKeep), filepath.Join(t.TempDir(), "e.db"), t0)
-	key := Key{Site: "brackenfold", Station: "orchard", Sensor: "block-4", Quantity: "et", Kind: "stale-et"}
+	key := alert.Key{Site: "brackenfold", Station: "orchard", Sensor: "block-4", Quantity: "et", Kind: "stale-et"}
 	require.NoError(t, f.db.Update(func(tx *bbolt.Tx) error {
-		return f.mon.Raise(tx, Alert{Key: key, Message: "no valid ET for 6 hours", Since: t0})
+		return f.mon.Raise(tx, alert.Alert{Key: key, Message: "no valid ET for 6 hours", Since: t0})
 	}))
 	require.Len(t, f.mon.Active(), 1)
 	assert.Equal(t, []string{"alert:stale-et:et"}, f.mon.Gate("brackenfold", "orchard", t0).Flags)
@@ -300,7 +301,7 @@ func TestMonitorExternalRaiseAndClear(t *testing.T) {
 	assert.Empty(t, f.mon.Active())
 	bad := key
 	bad.Sensor = "a/b"
-	assert.Error(t, f.mon.Raise(nil, Alert{Key: bad}))
+	assert.Error(t, f.mon.Raise(nil, alert.Alert{Key: bad}))
 }
 
 func TestMonitorRolledBackHourIsForgotten(t *testing.T) {

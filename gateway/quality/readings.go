@@ -7,6 +7,7 @@ import (
 	"strings"
 	"time"
 
+	"etpulse/gateway/alert"
 	"etpulse/gateway/config"
 	"etpulse/hourly"
 )
@@ -52,8 +53,8 @@ func NewReadingChecks(site, station string, cfg *config.Alerts) *ReadingChecks {
 	}
 }
 
-func (c *ReadingChecks) key(sensor string, q hourly.Quantity, k Kind) Key {
-	return Key{Site: c.site, Station: c.station, Sensor: sensor, Quantity: q, Kind: k}
+func (c *ReadingChecks) key(sensor string, q hourly.Quantity, k alert.Kind) alert.Key {
+	return alert.Key{Site: c.site, Station: c.station, Sensor: sensor, Quantity: q, Kind: k}
 }
 
 // Expect registers a sensor quantity that should report, as if it had last
@@ -84,13 +85,13 @@ func (c *ReadingChecks) Observe(s hourly.Sample, now time.Time) []Finding {
 		c.seen[id] = now
 	}
 	out = append(out, Finding{
-		Key: c.key(s.Sensor, s.Quantity, KindSilence), Status: StatusGood, Severity: SeverityCritical,
+		Key: c.key(s.Sensor, s.Quantity, alert.KindSilence), Status: StatusGood, Severity: alert.SeverityCritical,
 		Message: fmt.Sprintf("%s reading received at %s", s.Quantity, now.UTC().Format(time.RFC3339)),
 		At:      now,
 	})
 
 	// Plausible range.
-	f := Finding{Key: c.key(s.Sensor, s.Quantity, KindRange), Severity: SeverityCritical, Value: s.Value, At: s.Time, ClearAfter: clearAfter}
+	f := Finding{Key: c.key(s.Sensor, s.Quantity, alert.KindRange), Severity: alert.SeverityCritical, Value: s.Value, At: s.Time, ClearAfter: clearAfter}
 	switch {
 	case s.Value < lim.Min:
 		f.Status, f.Limit = StatusBad, lim.Min
@@ -111,7 +112,7 @@ func (c *ReadingChecks) Observe(s hourly.Sample, now time.Time) []Finding {
 	if lim.SpikePerMinute > 0 && hasPrev && s.Time.After(prev.t) && s.Time.Sub(prev.t) <= spikeMaxGap {
 		minutes := math.Max(s.Time.Sub(prev.t).Minutes(), 1)
 		rate := math.Abs(s.Value-prev.v) / minutes
-		f := Finding{Key: c.key(s.Sensor, s.Quantity, KindSpike), Severity: SeverityWarning, Value: rate, Limit: lim.SpikePerMinute, At: s.Time, ClearAfter: clearAfter}
+		f := Finding{Key: c.key(s.Sensor, s.Quantity, alert.KindSpike), Severity: alert.SeverityWarning, Value: rate, Limit: lim.SpikePerMinute, At: s.Time, ClearAfter: clearAfter}
 		if rate > lim.SpikePerMinute {
 			f.Status = StatusBad
 			f.Message = fmt.Sprintf("%s changed %s -> %s in %s (%s per minute), limit %s per minute",
@@ -129,7 +130,7 @@ func (c *ReadingChecks) Observe(s hourly.Sample, now time.Time) []Finding {
 	switch s.Quantity {
 	case hourly.RelHumidity:
 		tol := *c.cfg.RHTolerance
-		f := Finding{Key: c.key(s.Sensor, s.Quantity, KindRHHigh), Severity: SeverityWarning, Value: s.Value, Limit: 100 + tol, At: s.Time, ClearAfter: clearAfter}
+		f := Finding{Key: c.key(s.Sensor, s.Quantity, alert.KindRHHigh), Severity: alert.SeverityWarning, Value: s.Value, Limit: 100 + tol, At: s.Time, ClearAfter: clearAfter}
 		if s.Value > 100+tol {
 			f.Status = StatusBad
 			f.Message = fmt.Sprintf("relative humidity %s %%, more than %s %% above saturation", num(s.Value), num(tol))
@@ -158,7 +159,7 @@ func (c *ReadingChecks) Observe(s hourly.Sample, now time.Time) []Finding {
 
 func (c *ReadingChecks) dewFinding(dew lastReading, air float64, at time.Time) Finding {
 	tol := *c.cfg.DewTolerance
-	f := Finding{Key: c.key(dew.sensor, hourly.DewPoint, KindDewAboveAir), Severity: SeverityWarning, Value: dew.v - air, Limit: tol, At: at, ClearAfter: c.cfg.ClearAfter.D()}
+	f := Finding{Key: c.key(dew.sensor, hourly.DewPoint, alert.KindDewAboveAir), Severity: alert.SeverityWarning, Value: dew.v - air, Limit: tol, At: at, ClearAfter: c.cfg.ClearAfter.D()}
 	if dew.v > air+tol {
 		f.Status = StatusBad
 		f.Message = fmt.Sprintf("dew point %s °C above air temperature %s °C by %s °C, tolerance %s °C", num(dew.v), num(air), num(dew.v-air), num(tol))
@@ -180,7 +181,7 @@ func (c *ReadingChecks) Silence(now time.Time) []Finding {
 		}
 		// Value is the time of the last reading (unix seconds), so the
 		// evidence stays the same while the sensor stays silent.
-		f := Finding{Key: c.key(id.sensor, id.quantity, KindSilence), Severity: SeverityCritical, Value: float64(t.Unix()), Limit: lim.Seconds(), At: now}
+		f := Finding{Key: c.key(id.sensor, id.quantity, alert.KindSilence), Severity: alert.SeverityCritical, Value: float64(t.Unix()), Limit: lim.Seconds(), At: now}
 		if now.Sub(t) > lim {
 			f.Status = StatusBad
 			f.Message = fmt.Sprintf("no %s reading since %s, limit %s", id.quantity, t.UTC().Format(time.RFC3339), lim)

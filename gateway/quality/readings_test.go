@@ -7,6 +7,7 @@ import (
 	"github.com/stretchr/testify/assert"
 	"github.com/stretchr/testify/require"
 
+	"etpulse/gateway/alert"
 	"etpulse/hourly"
 )
 
@@ -18,7 +19,7 @@ func sample(sensor string, q hourly.Quantity, minute int, v float64) hourly.Samp
 
 // observe feeds samples (arriving at their own time) and returns every
 // finding of kind k.
-func observe(c *ReadingChecks, k Kind, ss ...hourly.Sample) []Finding {
+func observe(c *ReadingChecks, k alert.Kind, ss ...hourly.Sample) []Finding {
 	var out []Finding
 	for _, s := range ss {
 		for _, f := range c.Observe(s, s.Time) {
@@ -32,7 +33,7 @@ func observe(c *ReadingChecks, k Kind, ss ...hourly.Sample) []Finding {
 
 func TestRangeCheck(t *testing.T) {
 	c := NewReadingChecks("brackenfold", "orchard", testAlerts())
-	fs := observe(c, KindRange, sample("t1", hourly.AirTemp, 0, 21.4), sample("t1", hourly.AirTemp, 1, 61.0), sample("t1", hourly.AirTemp, 2, -45))
+	fs := observe(c, alert.KindRange, sample("t1", hourly.AirTemp, 0, 21.4), sample("t1", hourly.AirTemp, 1, 61.0), sample("t1", hourly.AirTemp, 2, -45))
 	require.Len(t, fs, 3)
 	assert.Equal(t, StatusGood, fs[0].Status)
 	assert.Equal(t, StatusBad, fs[1].Status)
@@ -44,7 +45,7 @@ func TestRangeCheck(t *testing.T) {
 func TestSpikeCheck(t *testing.T) {
 	c := NewReadingChecks("brackenfold", "orchard", testAlerts())
 	// Normal minute-by-minute warming, then a 9 °C jump in one minute.
-	fs := observe(c, KindSpike,
+	fs := observe(c, alert.KindSpike,
 		sample("t1", hourly.AirTemp, 0, 20.0), sample("t1", hourly.AirTemp, 1, 20.2),
 		sample("t1", hourly.AirTemp, 2, 20.3), sample("t1", hourly.AirTemp, 3, 29.3))
 	require.Len(t, fs, 3)
@@ -59,24 +60,24 @@ func TestSpikeCheck(t *testing.T) {
 	s1 := sample("t1", hourly.AirTemp, 0, 20.0)
 	s2 := s1
 	s2.Time, s2.Value = s1.Time.Add(10*time.Second), 20.4
-	fs = observe(c, KindSpike, s1, s2)
+	fs = observe(c, alert.KindSpike, s1, s2)
 	require.Len(t, fs, 1)
 	assert.Equal(t, StatusGood, fs[0].Status)
 
 	// A gap is not a jump.
 	c = NewReadingChecks("brackenfold", "orchard", testAlerts())
-	fs = observe(c, KindSpike, sample("t1", hourly.AirTemp, 0, 12), sample("t1", hourly.AirTemp, 45, 25))
+	fs = observe(c, alert.KindSpike, sample("t1", hourly.AirTemp, 0, 12), sample("t1", hourly.AirTemp, 45, 25))
 	assert.Empty(t, fs)
 
 	// Solar has no spike limit by default: clouds.
 	c = NewReadingChecks("brackenfold", "orchard", testAlerts())
-	fs = observe(c, KindSpike, sample("p1", hourly.Solar, 0, 900), sample("p1", hourly.Solar, 1, 150))
+	fs = observe(c, alert.KindSpike, sample("p1", hourly.Solar, 0, 900), sample("p1", hourly.Solar, 1, 150))
 	assert.Empty(t, fs)
 }
 
 func TestRHAboveSaturation(t *testing.T) {
 	c := NewReadingChecks("brackenfold", "orchard", testAlerts())
-	fs := observe(c, KindRHHigh, sample("h1", hourly.RelHumidity, 0, 101.5), sample("h1", hourly.RelHumidity, 1, 102.6))
+	fs := observe(c, alert.KindRHHigh, sample("h1", hourly.RelHumidity, 0, 101.5), sample("h1", hourly.RelHumidity, 1, 102.6))
 	require.Len(t, fs, 2)
 	assert.Equal(t, StatusGood, fs[0].Status, "within the 2 % tolerance")
 	assert.Equal(t, StatusBad, fs[1].Status)
@@ -85,7 +86,7 @@ func TestRHAboveSaturation(t *testing.T) {
 
 func TestDewPointAboveAir(t *testing.T) {
 	c := NewReadingChecks("brackenfold", "orchard", testAlerts())
-	fs := observe(c, KindDewAboveAir,
+	fs := observe(c, alert.KindDewAboveAir,
 		sample("t1", hourly.AirTemp, 0, 14.0),
 		sample("d1", hourly.DewPoint, 1, 13.6), // normal near-saturated night
 		sample("d1", hourly.DewPoint, 2, 16.2), // 2.2 °C above the air
@@ -116,7 +117,7 @@ func TestSilence(t *testing.T) {
 	assert.Equal(t, "no air_temp reading since 2026-06-03T18:00:00Z, limit 15m0s", fs[0].Message)
 
 	// A reading arrives: the silence verdict is good at once.
-	got := observe(c, KindSilence, sample("t1", hourly.AirTemp, 21, 18.5))
+	got := observe(c, alert.KindSilence, sample("t1", hourly.AirTemp, 21, 18.5))
 	require.Len(t, got, 1)
 	assert.Equal(t, StatusGood, got[0].Status)
 	assert.Equal(t, t0.Add(36*time.Minute), c.NextSilence())

@@ -10,6 +10,7 @@ import (
 	"github.com/stretchr/testify/assert"
 	"github.com/stretchr/testify/require"
 
+	"etpulse/gateway/alert"
 	"etpulse/hourly"
 )
 
@@ -41,7 +42,7 @@ func TestMonitorRunOnceNextPass(t *testing.T) {
 	require.False(t, silence.IsZero(), "every configured sensor has a silence deadline from the start")
 	require.True(t, silence.After(now.Add(3*time.Second)))
 
-	require.NoError(t, f.mon.Raise(nil, Alert{Key: Key{Site: "brackenfold", Station: "orchard", Sensor: HourSubject, Quantity: hourly.Wind, Kind: KindCalm},
+	require.NoError(t, f.mon.Raise(nil, alert.Alert{Key: alert.Key{Site: "brackenfold", Station: "orchard", Sensor: alert.HourSubject, Quantity: hourly.Wind, Kind: alert.KindCalm},
 		Message: "test alert", Since: now}))
 	ctx := context.Background()
 	next, err := f.mon.RunOnce(ctx, now)

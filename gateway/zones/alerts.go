@@ -8,39 +8,27 @@ import (
 	"go.etcd.io/bbolt"
 
 	"etpulse/controllers"
-	"etpulse/gateway/quality"
+	"etpulse/gateway/alert"
 	"etpulse/gateway/store"
 )
 
-// Alerter raises and clears alerts inside the caller's transaction, so an
-// alert commits (or rolls back) with the zone change that caused it. The
-// gateway's drift and fault monitor is one: through it, zone alerts get the
-// retained alert topics, the alert metrics and the raise/update/clear
-// lifecycle of every other alert.
-type Alerter interface {
-	Raise(tx *bbolt.Tx, a quality.Alert) error
-	Clear(tx *bbolt.Tx, key quality.Key, at time.Time, message string) error
-}
-
-var _ Alerter = (*quality.Monitor)(nil)
-
 // zoneAlert is one zone alert to raise.
 type zoneAlert struct {
-	kind     quality.Kind
-	severity quality.Severity
+	kind     alert.Kind
+	severity alert.Severity
 	message  string
 	value    float64
 	limit    float64
 }
 
-// raise raises a zone alert at now inside tx: through the Alerter when one
+// raise raises a zone alert at now inside tx: through the alert.Raiser when one
 // is configured, else (replay, backtest) as a store point as before.
 func (s *Service) raise(tx *bbolt.Tx, site, zone string, a zoneAlert, now time.Time) error {
 	if s.o.Alerts == nil {
 		return s.enqueue(tx, alertPoint(site, zone, string(a.kind), true, now, a.message))
 	}
-	err := s.o.Alerts.Raise(tx, quality.Alert{
-		Key: quality.ZoneKey(site, zone, a.kind), Severity: a.severity, Message: a.message,
+	err := s.o.Alerts.Raise(tx, alert.Alert{
+		Key: alert.ZoneKey(site, zone, a.kind), Severity: a.severity, Message: a.message,
 		Value: finiteOr0(a.value), Limit: finiteOr0(a.limit), Since: now,
 	})
 	if err != nil {
@@ -49,17 +37,17 @@ func (s *Service) raise(tx *bbolt.Tx, site, zone string, a zoneAlert, now time.T
 	return nil
 }
 
-// clear clears a zone alert at now inside tx. Without an Alerter only the
+// clear clears a zone alert at now inside tx. Without an alert.Raiser only the
 // stale-ET alert, whose state the zone record keeps, writes a store point
 // (pointOnly); clearing an alert that is not active does nothing.
-func (s *Service) clear(tx *bbolt.Tx, site, zone string, kind quality.Kind, now time.Time, message string, pointOnly bool) error {
+func (s *Service) clear(tx *bbolt.Tx, site, zone string, kind alert.Kind, now time.Time, message string, pointOnly bool) error {
 	if s.o.Alerts == nil {
 		if !pointOnly {
 			return nil
 		}
 		return s.enqueue(tx, alertPoint(site, zone, string(kind), false, now, message))
 	}
-	if err := s.o.Alerts.Clear(tx, quality.ZoneKey(site, zone, kind), now, message); err != nil {
+	if err := s.o.Alerts.Clear(tx, alert.ZoneKey(site, zone, kind), now, message); err != nil {
 		return fmt.Errorf("clear %s alert of zone %s: %w", kind, zone, err)
 	}
 	return nil
@@ -67,7 +55,7 @@ func (s *Service) clear(tx *bbolt.Tx, site, zone string, kind quality.Kind, now 
 
 // staleAlert describes the stale-ET alert of a zone at now.
 func staleAlert(z *controllers.Zone, st *controllers.State, now time.Time) zoneAlert {
-	a := zoneAlert{kind: quality.KindZoneETStale, severity: quality.SeverityCritical,
+	a := zoneAlert{kind: alert.KindZoneETStale, severity: alert.SeverityCritical,
 		limit: float64(z.FailSafe.MaxMissingHours)}
 	if st.LastValid.IsZero() {
 		a.message = "no valid ET yet"
@@ -78,7 +66,7 @@ func staleAlert(z *controllers.Zone, st *controllers.State, now time.Time) zoneA
 	}
 	if z.FailSafe.Fallback {
 		a.message += "; using fallback ET"
-		a.severity = quality.SeverityWarning
+		a.severity = alert.SeverityWarning
 	} else {
 		a.message += "; zone holds"
 	}
@@ -87,7 +75,7 @@ func staleAlert(z *controllers.Zone, st *controllers.State, now time.Time) zoneA
 
 // noReportAlert describes a command that expired without a final report.
 func noReportAlert(c *controllers.Command, note string, p controllers.CommandPolicy) zoneAlert {
-	a := zoneAlert{kind: quality.KindValveNoReport, severity: quality.SeverityCritical,
+	a := zoneAlert{kind: alert.KindValveNoReport, severity: alert.SeverityCritical,
 		message: fmt.Sprintf("command %s (%d min from %s): %s", c.ID, c.Minutes, c.Start.UTC().Format(time.RFC3339), note),
 		value:   float64(c.Attempts), limit: float64(p.MaxAttempts)}
 	if c.StopAttempts > 0 {
@@ -98,12 +86,12 @@ func noReportAlert(c *controllers.Command, note string, p controllers.CommandPol
 
 // failedAlert describes a failed run report.
 func failedAlert(c *controllers.Command, r controllers.Report) zoneAlert {
-	return runEndAlert(quality.KindValveFailed, quality.SeverityCritical, "failed", "no reason given", c, r)
+	return runEndAlert(alert.KindValveFailed, alert.SeverityCritical, "failed", "no reason given", c, r)
 }
 
 // runEndAlert describes a run that ended early: verb says how, the report
 // gives the cause (or dflt) and the minutes run.
-func runEndAlert(kind quality.Kind, sev quality.Severity, verb, dflt string, c *controllers.Command, r controllers.Report) zoneAlert {
+func runEndAlert(kind alert.Kind, sev alert.Severity, verb, dflt string, c *controllers.Command, r controllers.Report) zoneAlert {
 	why := r.Reason
 	if why == "" {
 		why = dflt
@@ -117,7 +105,7 @@ func runEndAlert(kind quality.Kind, sev quality.Severity, verb, dflt string, c *
 // run's latest possible end passed without a final report, or its stops go
 // unanswered.
 func valveOpenAlert(c *controllers.Command, reason string) zoneAlert {
-	return zoneAlert{kind: quality.KindValveOpen, severity: quality.SeverityCritical,
+	return zoneAlert{kind: alert.KindValveOpen, severity: alert.SeverityCritical,
 		message: fmt.Sprintf("command %s (valve %s, %d min from %s): %s; stop %d sent, the zone waits for the controller's final report",
 			c.ID, c.Valve, c.Minutes, c.Start.UTC().Format(time.RFC3339), reason, c.StopAttempts),
 		value: float64(c.StopAttempts)}
@@ -125,14 +113,14 @@ func valveOpenAlert(c *controllers.Command, reason string) zoneAlert {
 
 // overrunAlert describes a report that claims more than the command.
 func overrunAlert(c *controllers.Command, out controllers.Outcome) zoneAlert {
-	return zoneAlert{kind: quality.KindValveOverrun, severity: quality.SeverityWarning,
+	return zoneAlert{kind: alert.KindValveOverrun, severity: alert.SeverityWarning,
 		message: fmt.Sprintf("command %s: %s; credited %.2f mm", c.ID, out.Overrun, out.CreditMM),
 		value:   c.MinutesRun, limit: float64(c.Minutes)}
 }
 
 // stoppedAlert describes a run the controller closed on its own.
 func stoppedAlert(c *controllers.Command, r controllers.Report) zoneAlert {
-	return runEndAlert(quality.KindValveStopped, quality.SeverityWarning, "stopped at the controller", "no cause given", c, r)
+	return runEndAlert(alert.KindValveStopped, alert.SeverityWarning, "stopped at the controller", "no cause given", c, r)
 }
 
 // clearAfterReport clears the valve alerts a final report answers: any
@@ -141,9 +129,9 @@ func stoppedAlert(c *controllers.Command, r controllers.Report) zoneAlert {
 // stopped in the field, overrun).
 func (s *Service) clearAfterReport(tx *bbolt.Tx, ref *zoneRef, c *controllers.Command, r controllers.Report, out controllers.Outcome, now time.Time) error {
 	text := fmt.Sprintf("command %s reported %s", c.ID, r.State)
-	kinds := []quality.Kind{quality.KindValveNoReport, quality.KindValveOpen}
+	kinds := []alert.Kind{alert.KindValveNoReport, alert.KindValveOpen}
 	if r.State == controllers.ReportFinished && out.Overrun == "" {
-		kinds = append(kinds, quality.KindValveFailed, quality.KindValveStopped, quality.KindValveOverrun)
+		kinds = append(kinds, alert.KindValveFailed, alert.KindValveStopped, alert.KindValveOverrun)
 	}
 	for _, k := range kinds {
 		if err := s.clear(tx, ref.site, ref.id, k, now, text, false); err != nil {
@@ -160,7 +148,7 @@ func finiteOr0(v float64) float64 {
 	return v
 }
 
-// alertPoint is the store point of a zone alert when no Alerter is
+// alertPoint is the store point of a zone alert when no alert.Raiser is
 // configured: measurement sensor_alert with a zone tag and the text in notes.
 func alertPoint(site, zone, kind string, raised bool, t time.Time, text string) store.Point {
 	p := store.AlertPoint(site, "", "", kind, t, map[string]any{"raised": raised})

@@ -12,6 +12,7 @@ import (
 	"go.etcd.io/bbolt"
 
 	"etpulse/controllers"
+	"etpulse/gateway/alert"
 	gwclock "etpulse/gateway/clock"
 	"etpulse/gateway/internal/testenv"
 	"etpulse/gateway/mqtt"
@@ -173,9 +174,9 @@ func TestStopRepeatedThenAlerted(t *testing.T) {
 	assert.True(t, led[0].Stopping(), "still waiting for the controller")
 	active := mon.Active()
 	require.Len(t, active, 1)
-	assert.Equal(t, quality.ZoneKey("fernhill", "row-a", quality.KindValveOpen), active[0].Key)
+	assert.Equal(t, alert.ZoneKey("fernhill", "row-a", alert.KindValveOpen), active[0].Key)
 	assert.Contains(t, active[0].Message, "the valve may still be open")
-	assert.Equal(t, quality.SeverityCritical, active[0].Severity)
+	assert.Equal(t, alert.SeverityCritical, active[0].Severity)
 
 	// The controller comes back and reports: 4.5 minutes ran.
 	late := f.clock.Now().Add(time.Hour)
@@ -224,7 +225,7 @@ func TestValveFailedAlertLifecycle(t *testing.T) {
 		MinutesRun: 12, HasMinutes: true, Reason: "pressure low"}, now.Add(13*time.Minute)))
 	active := mon.Active()
 	require.Len(t, active, 1)
-	assert.Equal(t, quality.KindValveFailed, active[0].Kind)
+	assert.Equal(t, alert.KindValveFailed, active[0].Kind)
 	assert.Equal(t, "command "+cmd.ID+" failed after 12.0 of 240 min: pressure low", active[0].Message)
 	assert.Equal(t, 12.0, active[0].Value)
 	assert.Equal(t, 240.0, active[0].Limit)
@@ -251,9 +252,9 @@ func TestValveFailedAlertLifecycle(t *testing.T) {
 	require.NoError(t, err)
 	active = mon.Active()
 	require.Len(t, active, 1)
-	assert.Equal(t, quality.ZoneKey("fernhill", "row-a", quality.KindZoneETStale), active[0].Key)
-	assert.Equal(t, quality.ZoneET, active[0].Quantity)
-	assert.Equal(t, quality.SeverityCritical, active[0].Severity)
+	assert.Equal(t, alert.ZoneKey("fernhill", "row-a", alert.KindZoneETStale), active[0].Key)
+	assert.Equal(t, alert.ZoneET, active[0].Quantity)
+	assert.Equal(t, alert.SeverityCritical, active[0].Severity)
 	assert.Contains(t, active[0].Message, "zone holds")
 	f.hour(t, record(late.Truncate(time.Hour).Add(-time.Hour), 0.1, 0))
 	_, _, err = f.svc.tick(late.Add(time.Second))

@@ -22,10 +22,10 @@ import (
 	"go.etcd.io/bbolt"
 
 	"etpulse/controllers"
+	"etpulse/gateway/alert"
 	"etpulse/gateway/clock"
 	"etpulse/gateway/config"
 	"etpulse/gateway/mqtt"
-	"etpulse/gateway/quality"
 	"etpulse/gateway/store"
 	"etpulse/hourly"
 )
@@ -51,7 +51,7 @@ type Options struct {
 	// Alerts receives the zone alerts (stale ET, valve without report,
 	// failed valve) inside the zone's own transactions; nil: they are only
 	// written to the store as points (replay, backtest).
-	Alerts Alerter
+	Alerts alert.Raiser
 	Logger *slog.Logger // nil discards
 	// Registerer receives the zone metrics; nil: not registered.
 	Registerer prometheus.Registerer
@@ -623,7 +623,7 @@ func (s *Service) noteZones(tx *bbolt.Tx, b buckets, site *siteRef, recs map[str
 			if stale {
 				err = s.raise(tx, site.id, ref.id, a, now)
 			} else {
-				err = s.clear(tx, site.id, ref.id, quality.KindZoneETStale, now, text, true)
+				err = s.clear(tx, site.id, ref.id, alert.KindZoneETStale, now, text, true)
 			}
 			if err != nil {
 				return nil, err
