@@ -68,8 +68,8 @@ func (z *Zone) Validate() error {
 		if err := z.Crop.Season.Validate(); err != nil {
 			return fmt.Errorf("zone %s: %w", z.ID, err)
 		}
-	} else if !(z.Crop.Kc >= 0 && z.Crop.Kc <= 2) {
-		return fmt.Errorf("zone %s: kc: must be within 0-2, got %v: %w", z.ID, z.Crop.Kc, ErrInput)
+	} else if !(z.Crop.Kc >= MinKc && z.Crop.Kc <= MaxKc) {
+		return fmt.Errorf("zone %s: kc: must be within %g-%g, got %v: %w", z.ID, MinKc, MaxKc, z.Crop.Kc, ErrInput)
 	}
 	for _, err := range []error{z.Soil.Validate(), z.Rain.Validate(), z.System.Validate()} {
 		if err != nil {
@@ -79,12 +79,12 @@ func (z *Zone) Validate() error {
 	if len(z.Windows) == 0 {
 		return fmt.Errorf("zone %s: windows: at least one is required: %w", z.ID, ErrInput)
 	}
-	if z.FailSafe.MaxMissingHours < 1 || z.FailSafe.MaxMissingHours > KeepHours/2 {
-		return fmt.Errorf("zone %s: max missing hours: must be 1-%d, got %d: %w", z.ID, KeepHours/2, z.FailSafe.MaxMissingHours, ErrInput)
+	if z.FailSafe.MaxMissingHours < MinMissingHours || z.FailSafe.MaxMissingHours > MaxMissingHoursCap {
+		return fmt.Errorf("zone %s: max missing hours: must be %d-%d, got %d: %w", z.ID, MinMissingHours, MaxMissingHoursCap, z.FailSafe.MaxMissingHours, ErrInput)
 	}
 	for i, v := range z.FailSafe.FallbackET {
-		if !(v >= 0 && v <= 20) || (z.FailSafe.Fallback && v == 0) {
-			return fmt.Errorf("zone %s: fallback ET for month %d: must be within 0-20 mm/day (and > 0 when fallback is on), got %v: %w", z.ID, i+1, v, ErrInput)
+		if !(v >= 0 && v <= MaxFallbackET) || (z.FailSafe.Fallback && v == 0) {
+			return fmt.Errorf("zone %s: fallback ET for month %d: must be within 0-%g mm/day (and > 0 when fallback is on), got %v: %w", z.ID, i+1, MaxFallbackET, v, ErrInput)
 		}
 	}
 	return z.Policy.Validate()

@@ -74,12 +74,12 @@ func (s Season) Validate() error {
 	case s.Initial < 1 || s.Development < 1 || s.Mid < 1 || s.Late < 1:
 		return fmt.Errorf("season stage lengths: each must be >= 1 day, got %d/%d/%d/%d: %w",
 			s.Initial, s.Development, s.Mid, s.Late, ErrInput)
-	case s.Length() > 366:
-		return fmt.Errorf("season length: must be <= 366 days, got %d: %w", s.Length(), ErrInput)
+	case s.Length() > MaxSeasonDays:
+		return fmt.Errorf("season length: must be <= %d days, got %d: %w", MaxSeasonDays, s.Length(), ErrInput)
 	}
 	for _, k := range []float64{s.KcIni, s.KcMid, s.KcEnd, s.OffSeason} {
-		if !(k >= 0 && k <= 2) {
-			return fmt.Errorf("season kc: must be within 0-2, got %v: %w", k, ErrInput)
+		if !(k >= MinKc && k <= MaxKc) {
+			return fmt.Errorf("season kc: must be within %g-%g, got %v: %w", MinKc, MaxKc, k, ErrInput)
 		}
 	}
 	return nil

@@ -58,9 +58,9 @@ var DefaultPolicy = CommandPolicy{
 
 // Validate reports an impossible policy.
 func (p CommandPolicy) Validate() error {
-	if p.SendLead < 0 || p.AckTimeout <= 0 || p.MaxAttempts < 1 || p.MaxAttempts > 10 || p.StartTolerance <= 0 || p.FinishGrace < 0 ||
-		!(p.OverrunMargin >= 0 && p.OverrunMargin <= 1) {
-		return fmt.Errorf("command policy: need send lead >= 0, ack timeout > 0, 1-10 attempts, start tolerance > 0, finish grace >= 0, overrun margin 0-1, got %+v: %w", p, ErrInput)
+	if p.SendLead < 0 || p.AckTimeout <= 0 || p.MaxAttempts < 1 || p.MaxAttempts > MaxCommandAttempts || p.StartTolerance <= 0 || p.FinishGrace < 0 ||
+		!(p.OverrunMargin >= 0 && p.OverrunMargin <= MaxOverrunMargin) {
+		return fmt.Errorf("command policy: need send lead >= 0, ack timeout > 0, 1-%d attempts, start tolerance > 0, finish grace >= 0, overrun margin 0-%g, got %+v: %w", MaxCommandAttempts, MaxOverrunMargin, p, ErrInput)
 	}
 	return nil
 }

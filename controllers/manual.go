@@ -84,8 +84,8 @@ func (z *Zone) NetMM(amount float64, unit AmountUnit) (float64, error) {
 	case UnitNetMM:
 		return amount, nil
 	case UnitMinutes:
-		if amount > 24*60 {
-			return 0, fmt.Errorf("manual water zone %s: minutes: must be <= 1440 (one day), got %v; record each day's run separately: %w", z.ID, amount, ErrInput)
+		if amount > MaxRunMinutes {
+			return 0, fmt.Errorf("manual water zone %s: minutes: must be <= %d (one day), got %v; record each day's run separately: %w", z.ID, MaxRunMinutes, amount, ErrInput)
 		}
 		return NetMM(amount, z.System.Rate, z.System.Efficiency), nil
 	case UnitVolumeL:

@@ -43,18 +43,18 @@ func (s System) Validate() error {
 		return fmt.Errorf("system type: unknown %q: %w", s.Kind, ErrInput)
 	}
 	switch {
-	case !(s.Rate > 0 && s.Rate <= 200):
-		return fmt.Errorf("system rate: must be within (0, 200] mm/h, got %v: %w", s.Rate, ErrInput)
-	case !(s.Efficiency > 0 && s.Efficiency <= 1):
-		return fmt.Errorf("system efficiency: must be within (0, 1], got %v: %w", s.Efficiency, ErrInput)
+	case !(s.Rate > 0 && s.Rate <= MaxRate):
+		return fmt.Errorf("system rate: must be within (0, %g] mm/h, got %v: %w", MaxRate, s.Rate, ErrInput)
+	case !(s.Efficiency > 0 && s.Efficiency <= MaxEfficiency):
+		return fmt.Errorf("system efficiency: must be within (0, %g], got %v: %w", MaxEfficiency, s.Efficiency, ErrInput)
 	case !(s.Flow >= 0) || math.IsInf(s.Flow, 0):
 		return fmt.Errorf("system flow: must be >= 0 L/min, got %v: %w", s.Flow, ErrInput)
-	case s.MinMinutes < 1:
-		return fmt.Errorf("system min minutes: must be >= 1, got %d: %w", s.MinMinutes, ErrInput)
-	case s.MaxMinutes < s.MinMinutes || s.MaxMinutes > 24*60:
-		return fmt.Errorf("system max minutes: must be within min minutes (%d) and 1440, got %d: %w", s.MinMinutes, s.MaxMinutes, ErrInput)
-	case s.MaxPerDay < s.MinMinutes || s.MaxPerDay > 24*60:
-		return fmt.Errorf("system max minutes per day: must be within min minutes (%d) and 1440, got %d: %w", s.MinMinutes, s.MaxPerDay, ErrInput)
+	case s.MinMinutes < MinRunMinutes:
+		return fmt.Errorf("system min minutes: must be >= %d, got %d: %w", MinRunMinutes, s.MinMinutes, ErrInput)
+	case s.MaxMinutes < s.MinMinutes || s.MaxMinutes > MaxRunMinutes:
+		return fmt.Errorf("system max minutes: must be within min minutes (%d) and %d, got %d: %w", s.MinMinutes, MaxRunMinutes, s.MaxMinutes, ErrInput)
+	case s.MaxPerDay < s.MinMinutes || s.MaxPerDay > MaxRunMinutes:
+		return fmt.Errorf("system max minutes per day: must be within min minutes (%d) and %d, got %d: %w", s.MinMinutes, MaxRunMinutes, s.MaxPerDay, ErrInput)
 	case s.CycleMinutes < 0 || s.SoakMinutes < 0:
 		return fmt.Errorf("system cycle/soak minutes: must be >= 0, got %d/%d: %w", s.CycleMinutes, s.SoakMinutes, ErrInput)
 	case s.CycleMinutes > 0 && s.MinMinutes > s.CycleMinutes/2:
@@ -99,8 +99,8 @@ func GrossMinutes(net, efficiency, rate float64) int {
 		return 0
 	}
 	m := net / efficiency / rate * 60
-	if m > 24*60 {
-		return 24 * 60
+	if m > MaxRunMinutes {
+		return MaxRunMinutes
 	}
 	return int(math.Ceil(m - 1e-9))
 }

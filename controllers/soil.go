@@ -35,20 +35,20 @@ type Soil struct {
 
 // Validate reports the first impossible value.
 func (s Soil) Validate() error {
-	if s.AvailableWater < 0 || s.AvailableWater > 400 {
-		return fmt.Errorf("available water: must be within 0-400 mm/m, got %v: %w", s.AvailableWater, ErrInput)
+	if !(s.AvailableWater >= 0 && s.AvailableWater <= MaxAvailableWater) {
+		return fmt.Errorf("available water: must be within 0-%g mm/m, got %v: %w", MaxAvailableWater, s.AvailableWater, ErrInput)
 	}
 	if s.AvailableWater == 0 {
-		if !(s.FieldCapacity > 0 && s.FieldCapacity <= 0.6) || !(s.WiltingPoint >= 0 && s.WiltingPoint < s.FieldCapacity) {
-			return fmt.Errorf("field capacity/wilting point: need 0 <= θWP < θFC <= 0.6, got %v/%v: %w",
-				s.FieldCapacity, s.WiltingPoint, ErrInput)
+		if !(s.FieldCapacity > 0 && s.FieldCapacity <= MaxFieldCapacity) || !(s.WiltingPoint >= 0 && s.WiltingPoint < s.FieldCapacity) {
+			return fmt.Errorf("field capacity/wilting point: need 0 <= θWP < θFC <= %g, got %v/%v: %w",
+				MaxFieldCapacity, s.FieldCapacity, s.WiltingPoint, ErrInput)
 		}
 	}
-	if !(s.RootMax > 0 && s.RootMax <= 10) || s.RootMin < 0 || s.RootMin > s.RootMax {
-		return fmt.Errorf("root depth: need 0 <= min <= max, 0 < max <= 10 m, got %v/%v: %w", s.RootMin, s.RootMax, ErrInput)
+	if !(s.RootMax > 0 && s.RootMax <= MaxRootDepth) || !(s.RootMin >= 0 && s.RootMin <= s.RootMax) {
+		return fmt.Errorf("root depth: need 0 <= min <= max, 0 < max <= %g m, got %v/%v: %w", MaxRootDepth, s.RootMin, s.RootMax, ErrInput)
 	}
-	if !(s.P >= 0.1 && s.P <= 0.8) {
-		return fmt.Errorf("p: must be within 0.1-0.8, got %v: %w", s.P, ErrInput)
+	if !(s.P >= MinP && s.P <= MaxP) {
+		return fmt.Errorf("p: must be within %g-%g, got %v: %w", MinP, MaxP, s.P, ErrInput)
 	}
 	if s.TriggerMM < 0 || !(s.RefillFraction >= 0 && s.RefillFraction < 1) {
 		return fmt.Errorf("trigger/refill: need trigger >= 0 and 0 <= refill < 1, got %v/%v: %w", s.TriggerMM, s.RefillFraction, ErrInput)
@@ -91,7 +91,7 @@ func (s Soil) PFor(etcDay float64) float64 {
 	if !s.AdjustP || etcDay < 0 {
 		return s.P
 	}
-	return clamp(s.P+0.04*(5-etcDay), 0.1, 0.8)
+	return clamp(s.P+0.04*(5-etcDay), MinP, MaxP)
 }
 
 // RAW returns the readily available water, mm: RAW = p TAW (FAO-56 eq. 83).

@@ -97,30 +97,35 @@ func ParseClearSky(s string) (ClearSky, error) {
 
 func finite(v float64) bool { return !math.IsNaN(v) && !math.IsInf(v, 0) }
 
-// Validate checks a station description: finite latitude -90..90, longitude
-// -180..180, elevation -500..9000 m, UTC offset -14..14 h, a known clear-sky
-// form, turbidity 0..1, night Rs/Rso 0 or 0.3..1, a given pressure 0 or
-// 30..110 kPa, a minimum wind 0..MaxMinWind2 and an aerodynamic resistance
-// 0 or MinAeroResistance..MaxAeroResistance. Errors wrap ErrConfig.
+// within reports whether v lies in lo..hi (NaN does not).
+func within(v, lo, hi float64) bool { return v >= lo && v <= hi }
+
+// Validate checks a station description: finite latitude, longitude,
+// elevation and UTC offset within their bounds (MinLatitude..MaxLatitude
+// and so on), a known clear-sky form, turbidity 0 (default) or
+// MinTurbidity..MaxTurbidity, night Rs/Rso 0 or 0.3..1, a given pressure 0
+// or MinPressure..MaxPressure, a minimum wind 0..MaxMinWind2 and an
+// aerodynamic resistance 0 or MinAeroResistance..MaxAeroResistance. Errors
+// wrap ErrConfig.
 func (st Station) Validate() error {
 	switch {
-	case !finite(st.Latitude) || st.Latitude < -90 || st.Latitude > 90:
-		return fmt.Errorf("station latitude: %v degrees outside -90..90: %w", st.Latitude, ErrConfig)
-	case !finite(st.Longitude) || st.Longitude < -180 || st.Longitude > 180:
-		return fmt.Errorf("station longitude: %v degrees outside -180..180 (east positive): %w", st.Longitude, ErrConfig)
-	case !finite(st.Elevation) || st.Elevation < -500 || st.Elevation > 9000:
-		return fmt.Errorf("station elevation: %v m outside -500..9000: %w", st.Elevation, ErrConfig)
-	case !finite(st.UTCOffset) || st.UTCOffset < -14 || st.UTCOffset > 14:
-		return fmt.Errorf("station utc offset: %v h outside -14..14: %w", st.UTCOffset, ErrConfig)
+	case !within(st.Latitude, MinLatitude, MaxLatitude):
+		return fmt.Errorf("station latitude: %v degrees outside %g..%g: %w", st.Latitude, MinLatitude, MaxLatitude, ErrConfig)
+	case !within(st.Longitude, MinLongitude, MaxLongitude):
+		return fmt.Errorf("station longitude: %v degrees outside %g..%g (east positive): %w", st.Longitude, MinLongitude, MaxLongitude, ErrConfig)
+	case !within(st.Elevation, MinElevation, MaxElevation):
+		return fmt.Errorf("station elevation: %v m outside %g..%g: %w", st.Elevation, MinElevation, MaxElevation, ErrConfig)
+	case !within(st.UTCOffset, MinUTCOffset, MaxUTCOffset):
+		return fmt.Errorf("station utc offset: %v h outside %g..%g: %w", st.UTCOffset, MinUTCOffset, MaxUTCOffset, ErrConfig)
 	case st.ClearSky != "" && st.ClearSky != ClearSkySimple && st.ClearSky != ClearSkyFull:
 		return fmt.Errorf("station clear-sky form: %q is not one of simple, full: %w", st.ClearSky, ErrConfig)
-	case !finite(st.Turbidity) || st.Turbidity < 0 || st.Turbidity > 1:
-		return fmt.Errorf("station turbidity: %v outside 0..1: %w", st.Turbidity, ErrConfig)
+	case st.Turbidity != 0 && !within(st.Turbidity, MinTurbidity, MaxTurbidity):
+		return fmt.Errorf("station turbidity: %v outside %g..%g (0 for the default 1): %w", st.Turbidity, MinTurbidity, MaxTurbidity, ErrConfig)
 	case !finite(st.NightRsRso) || (st.NightRsRso != 0 && (st.NightRsRso < 0.3 || st.NightRsRso > 1)):
 		return fmt.Errorf("station night Rs/Rso: %v outside 0.3..1: %w", st.NightRsRso, ErrConfig)
 	case !finite(st.Pressure) || (st.Pressure != 0 && (st.Pressure < MinPressure || st.Pressure > MaxPressure)):
 		return fmt.Errorf("station pressure: %v kPa outside %g..%g: %w", st.Pressure, MinPressure, MaxPressure, ErrConfig)
-	case !finite(st.MinWind2) || st.MinWind2 < 0 || st.MinWind2 > MaxMinWind2:
+	case !within(st.MinWind2, 0, MaxMinWind2):
 		return fmt.Errorf("station minimum wind: %v m/s outside 0..%g (FAO-56 advises 0.5): %w", st.MinWind2, MaxMinWind2, ErrConfig)
 	case !finite(st.AeroResistance) || (st.AeroResistance != 0 && (st.AeroResistance < MinAeroResistance || st.AeroResistance > MaxAeroResistance)):
 		return fmt.Errorf("station aerodynamic resistance: %v s/m outside %g..%g (0 for none): %w", st.AeroResistance, MinAeroResistance, MaxAeroResistance, ErrConfig)

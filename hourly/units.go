@@ -140,11 +140,11 @@ func CheckUnit(q Quantity, unit string) error {
 // above the ground into the speed at 2 m (FAO-56 eq. 47):
 // u2 = uz 4.87 / ln(67.8 z - 5.42). A sensor at exactly 2 m gets factor 1
 // (the fit gives 1.0002 there, and no adjustment is the intent). Heights
-// below 0.5 m or above 100 m are outside the logarithmic profile the
+// outside MinWindHeight..MaxWindHeight are outside the logarithmic profile the
 // equation assumes and are an error wrapping ErrInput.
 func WindFactor(z float64) (float64, error) {
-	if math.IsNaN(z) || z < 0.5 || z > 100 {
-		return 0, fmt.Errorf("wind height: %v m outside 0.5..100: %w", z, ErrInput)
+	if !within(z, MinWindHeight, MaxWindHeight) {
+		return 0, fmt.Errorf("wind height: %v m outside %g..%g: %w", z, MinWindHeight, MaxWindHeight, ErrInput)
 	}
 	if z == 2 {
 		return 1, nil
