@@ -16,30 +16,33 @@ import (
 	"etpulse/hourly"
 )
 
-const calcHelp = `usage: etpulse calc --lat DEG --lon DEG --elevation M --utc-offset H [flags] [--in FILE]
+// calcHelp is the text of 'etpulse calc --help'; the flag bounds are
+// hourly's, filled in by calcHelpBounds.
+var calcHelp = calcHelpBounds.Replace(`usage: etpulse calc --lat DEG --lon DEG --elevation M --utc-offset H [flags] [--in FILE]
 
 Computes hourly Penman-Monteith reference ET from an hourly weather CSV
 (stdin, or --in FILE) and writes a results CSV to stdout. Messages about gaps
 and skipped rows go to stderr.
 
 Station (all four required):
-  --lat DEG          latitude, degrees, north positive (-90..90)
-  --lon DEG          longitude, degrees, EAST positive (-180..180); 16.25 W is -16.25
-  --elevation M      elevation above sea level, m (-500..9000)
-  --utc-offset H     UTC offset of the station's STANDARD time, hours (e.g. -8;
-                     no daylight-saving time: solar geometry uses standard time)
+  --lat DEG          latitude, degrees, north positive ({lat})
+  --lon DEG          longitude, degrees, EAST positive ({lon}); 16.25 W is -16.25
+  --elevation M      elevation above sea level, m ({elevation})
+  --utc-offset H     UTC offset of the station's STANDARD time, hours ({utc-offset},
+                     e.g. -8; no daylight-saving time: solar geometry uses
+                     standard time)
 
 Method:
   --reference REF    short (ASCE-EWRI 2005 standardized ETos, default),
                      tall (ASCE-EWRI 2005 ETrs) or fao56 (FAO-56 hourly grass)
   --wind-height M    height of the wind sensor, m (default 2; other heights
-                     are adjusted to 2 m by FAO-56 eq. 47; 0.5..100)
+                     are adjusted to 2 m by FAO-56 eq. 47; {wind-height})
   --clear-sky FORM   clear-sky radiation: simple (FAO-56 eq. 37, default) or
                      full (ASCE-EWRI 2005 Appendix D, with precipitable water)
-  --turbidity KT     turbidity for --clear-sky full: 1 clean air (default),
-                     0.5 extremely turbid
+  --turbidity KT     turbidity for --clear-sky full ({turbidity}): 1 clean air
+                     (default), 0.5 extremely turbid
   --min-wind U       lower limit of the 2 m wind speed in the equation, m/s
-                     (default 0.5, as FAO-56 advises for calm air; 0 turns
+                     ({min-wind}; default 0.5, as FAO-56 advises for calm air; 0 turns
                      it off); hours where it applied are flagged wind:floor
   --inside-greenhouse
                      the station stands inside a greenhouse: the reference
@@ -105,7 +108,21 @@ Exit status: 0 success (also when --skip-bad skipped some rows), 1 bad data
 Example (the bundled demo orchard, invented data; wind measured at 3 m):
   etpulse calc --in testdata/calc/halcyon-terrace.csv \
     --lat 37.48 --lon 14.06 --elevation 310 --utc-offset 1 --wind-height 3
-`
+`)
+
+// calcHelpBounds puts hourly's station bounds into the help text.
+var calcHelpBounds = strings.NewReplacer(
+	"{lat}", span(hourly.MinLatitude, hourly.MaxLatitude),
+	"{lon}", span(hourly.MinLongitude, hourly.MaxLongitude),
+	"{elevation}", span(hourly.MinElevation, hourly.MaxElevation),
+	"{utc-offset}", span(hourly.MinUTCOffset, hourly.MaxUTCOffset),
+	"{wind-height}", span(hourly.MinWindHeight, hourly.MaxWindHeight),
+	"{turbidity}", span(hourly.MinTurbidity, hourly.MaxTurbidity),
+	"{min-wind}", span(0, hourly.MaxMinWind2),
+)
+
+// span prints a closed range as the messages and the help write it: "lo..hi".
+func span(lo, hi float64) string { return fmt.Sprintf("%g..%g", lo, hi) }
 
 func runCalc(ctx context.Context, args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 	fs := flag.NewFlagSet("calc", flag.ContinueOnError)
@@ -163,14 +180,14 @@ func runCalc(ctx context.Context, args []string, stdin io.Reader, stdout, stderr
 	if set["turbidity"] && cs != hourly.ClearSkyFull {
 		return usageErr("--turbidity applies only with --clear-sky full")
 	}
-	if !(*turbidity >= 0.5 && *turbidity <= 1) {
-		return usageErr("--turbidity: %v outside 0.5..1", *turbidity)
+	if !(*turbidity >= hourly.MinTurbidity && *turbidity <= hourly.MaxTurbidity) {
+		return usageErr("--turbidity: %v outside %s", *turbidity, span(hourly.MinTurbidity, hourly.MaxTurbidity))
 	}
 	if _, err := hourly.WindFactor(*windHeight); err != nil {
-		return usageErr("--wind-height: %v m outside 0.5..100", *windHeight)
+		return usageErr("--wind-height: %v m outside %s", *windHeight, span(hourly.MinWindHeight, hourly.MaxWindHeight))
 	}
 	if !(*minWind >= 0 && *minWind <= hourly.MaxMinWind2) {
-		return usageErr("--min-wind: %v m/s outside 0..%g (FAO-56 advises 0.5; 0 turns it off)", *minWind, hourly.MaxMinWind2)
+		return usageErr("--min-wind: %v m/s outside %s (FAO-56 advises 0.5; 0 turns it off)", *minWind, span(0, hourly.MaxMinWind2))
 	}
 	st := hourly.Station{Latitude: *lat, Longitude: *lon, Elevation: *elevation, UTCOffset: *utcOffset, ClearSky: cs, Turbidity: *turbidity, MinWind2: *minWind}
 	if *greenhouse {
@@ -185,13 +202,13 @@ func runCalc(ctx context.Context, args []string, stdin io.Reader, stdout, stderr
 		lo, hi float64
 		unit   string
 	}{
-		{"lat", st.Latitude, -90, 90, "degrees"},
-		{"lon", st.Longitude, -180, 180, "degrees (east positive)"},
-		{"elevation", st.Elevation, -500, 9000, "m"},
-		{"utc-offset", st.UTCOffset, -14, 14, "hours"},
+		{"lat", st.Latitude, hourly.MinLatitude, hourly.MaxLatitude, "degrees"},
+		{"lon", st.Longitude, hourly.MinLongitude, hourly.MaxLongitude, "degrees (east positive)"},
+		{"elevation", st.Elevation, hourly.MinElevation, hourly.MaxElevation, "m"},
+		{"utc-offset", st.UTCOffset, hourly.MinUTCOffset, hourly.MaxUTCOffset, "hours"},
 	} {
 		if !(c.v >= c.lo && c.v <= c.hi) {
-			return usageErr("--%s: %v outside %g..%g %s", c.name, c.v, c.lo, c.hi, c.unit)
+			return usageErr("--%s: %v outside %s %s", c.name, c.v, span(c.lo, c.hi), c.unit)
 		}
 	}
 	if _, err := hourcsv.StandardZone(st.UTCOffset); err != nil {

@@ -5,6 +5,8 @@ import (
 	"context"
 	"encoding/csv"
 	"flag"
+	"fmt"
+	"math"
 	"os"
 	"path/filepath"
 	"strconv"
@@ -16,6 +18,7 @@ import (
 
 	"etpulse/gateway/hourcsv"
 	"etpulse/gateway/loadgen"
+	"etpulse/hourly"
 )
 
 var update = flag.Bool("update", false, "rewrite the golden files of the calc tests")
@@ -226,7 +229,8 @@ func TestCalcUsageErrors(t *testing.T) {
 		{"lat range", append(station, "--lat", "91"), "etpulse calc: --lat: 91 outside -90..90 degrees"},
 		{"lon range", append(station, "--lon", "-200"), "etpulse calc: --lon: -200 outside -180..180 degrees (east positive)"},
 		{"elevation range", append(station, "--elevation", "12000"), "etpulse calc: --elevation: 12000 outside -500..9000 m"},
-		{"utc offset range", append(station, "--utc-offset", "15"), "etpulse calc: --utc-offset: 15 outside -14..14 hours"},
+		{"utc offset range", append(station, "--utc-offset", "15"), "etpulse calc: --utc-offset: 15 outside -12..14 hours"},
+		{"utc offset below civil range", append(station, "--utc-offset", "-13"), "etpulse calc: --utc-offset: -13 outside -12..14 hours"},
 		{"utc offset quarter", append(station, "--utc-offset", "5.1"), "etpulse calc: --utc-offset: 5.1 is not a whole number of quarter hours"},
 		{"lat not a number", append(station, "--lat", "north"), `etpulse calc: invalid value "north" for flag -lat: parse error`},
 		{"reference", append(station, "--reference", "grass"), `etpulse calc: --reference: "grass" is not one of short, tall, fao56`},
@@ -482,4 +486,47 @@ func TestCalcMinWindAndGreenhouse(t *testing.T) {
 	code, _, errOut = calc(t, in, append(station, "--inside-greenhouse", "--reference", "tall")...)
 	assert.Equal(t, exitUsage, code)
 	assert.Contains(t, errOut, "--inside-greenhouse: the fixed-resistance form is for the grass references")
+}
+
+// TestCalcFlagLimits: each station flag accepts exactly the bounds hourly
+// declares and refuses the next value outside them, and the help states
+// the same bounds, so the flags cannot drift from the equations' limits.
+func TestCalcFlagLimits(t *testing.T) {
+	station := map[string]string{"--lat": "37.48", "--lon": "14.06", "--elevation": "310", "--utc-offset": "1"}
+	args := func(flag string, v float64) []string {
+		out := []string{flag, strconv.FormatFloat(v, 'g', -1, 64)}
+		for f, d := range station {
+			if f != flag {
+				out = append(out, f, d)
+			}
+		}
+		if flag == "--turbidity" {
+			out = append(out, "--clear-sky", "full")
+		}
+		return out
+	}
+	_, help, _ := calc(t, "", "--help")
+	for _, c := range []struct {
+		flag   string
+		lo, hi float64
+	}{
+		{"--lat", hourly.MinLatitude, hourly.MaxLatitude},
+		{"--lon", hourly.MinLongitude, hourly.MaxLongitude},
+		{"--elevation", hourly.MinElevation, hourly.MaxElevation},
+		{"--utc-offset", hourly.MinUTCOffset, hourly.MaxUTCOffset},
+		{"--wind-height", hourly.MinWindHeight, hourly.MaxWindHeight},
+		{"--turbidity", hourly.MinTurbidity, hourly.MaxTurbidity},
+		{"--min-wind", 0, hourly.MaxMinWind2},
+	} {
+		for _, v := range []float64{c.lo, c.hi} {
+			code, _, errOut := calc(t, "", args(c.flag, v)...)
+			assert.NotEqual(t, exitUsage, code, "%s %v is a bound: %s", c.flag, v, errOut)
+		}
+		for _, v := range []float64{math.Nextafter(c.lo, math.Inf(-1)), math.Nextafter(c.hi, math.Inf(1))} {
+			code, _, errOut := calc(t, "", args(c.flag, v)...)
+			assert.Equal(t, exitUsage, code, "%s %v is outside", c.flag, v)
+			assert.Contains(t, errOut, "etpulse calc: "+c.flag+": ", "the message names the flag")
+		}
+		assert.Contains(t, help, fmt.Sprintf("%g..%g", c.lo, c.hi), "help states the %s bounds", c.flag)
+	}
 }
