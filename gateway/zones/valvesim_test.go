@@ -36,7 +36,7 @@ type Behaviour struct {
 }
 
 // ValveSimulator answers commands the way a valve controller does, for the
-// demo and the tests: accepted, started, then finished (or failed) at once,
+// tests of this package: accepted, started, then finished (or failed) at once,
 // and a repeated command id answered with its last report, never run twice.
 // It honours stops: a running valve is closed and reported stopped with the
 // minutes it ran; a run not yet started never starts (stopped, 0 minutes).
