@@ -241,30 +241,22 @@ func (c *Channel) setDefaults() {
 	}
 }
 
-// Validation limits of a station (common practice, no source: they catch
-// typos such as a longitude with the wrong sign convention or an elevation in
-// feet, not physical impossibilities).
-const (
-	minElevation, maxElevation   = -500.0, 9000.0
-	minUTCOffset, maxUTCOffset   = -12.0, 14.0
-	minWindHeight, maxWindHeight = 0.5, 100.0 // the heights hourly.WindFactor (FAO-56 eq. 47) accepts
-)
-
 func (s *Station) validate(path string, p *Problems) {
 	if !validID(s.ID) {
 		p.Addf(path+".id", "must be 1-64 characters of a-z, 0-9, '-' or '_', got %q", s.ID)
 	}
-	if !(s.Latitude >= -90 && s.Latitude <= 90) {
-		p.Addf(path+".latitude", "must be between -90 and 90 degrees, got %g", s.Latitude)
+	// The bounds are hourly's (hourly/limits.go); here they only get field paths.
+	if !(s.Latitude >= hourly.MinLatitude && s.Latitude <= hourly.MaxLatitude) {
+		p.Addf(path+".latitude", "must be between %g and %g degrees, got %g", hourly.MinLatitude, hourly.MaxLatitude, s.Latitude)
 	}
-	if !(s.Longitude >= -180 && s.Longitude <= 180) {
-		p.Addf(path+".longitude", "must be between -180 and 180 degrees (east positive), got %g", s.Longitude)
+	if !(s.Longitude >= hourly.MinLongitude && s.Longitude <= hourly.MaxLongitude) {
+		p.Addf(path+".longitude", "must be between %g and %g degrees (east positive), got %g", hourly.MinLongitude, hourly.MaxLongitude, s.Longitude)
 	}
-	if !(s.Elevation >= minElevation && s.Elevation <= maxElevation) {
-		p.Addf(path+".elevation_m", "must be between %g and %g m, got %g", minElevation, maxElevation, s.Elevation)
+	if !(s.Elevation >= hourly.MinElevation && s.Elevation <= hourly.MaxElevation) {
+		p.Addf(path+".elevation_m", "must be between %g and %g m, got %g", hourly.MinElevation, hourly.MaxElevation, s.Elevation)
 	}
-	if !(s.UTCOffset >= minUTCOffset && s.UTCOffset <= maxUTCOffset) {
-		p.Addf(path+".utc_offset_hours", "must be between %g and %g hours, got %g", minUTCOffset, maxUTCOffset, s.UTCOffset)
+	if !(s.UTCOffset >= hourly.MinUTCOffset && s.UTCOffset <= hourly.MaxUTCOffset) {
+		p.Addf(path+".utc_offset_hours", "must be between %g and %g hours, got %g", hourly.MinUTCOffset, hourly.MaxUTCOffset, s.UTCOffset)
 	} else if q := s.UTCOffset * 4; q != float64(int(q)) {
 		p.Addf(path+".utc_offset_hours", "must be a whole number of quarter hours, got %g", s.UTCOffset)
 	}
@@ -278,8 +270,8 @@ func (s *Station) validate(path string, p *Problems) {
 	default:
 		p.Addf(path+".clear_sky", "must be simple or full, got %q", s.ClearSky)
 	}
-	if !(s.WindHeight >= minWindHeight && s.WindHeight <= maxWindHeight) {
-		p.Addf(path+".wind_height_m", "must be between %g and %g m, got %g", minWindHeight, maxWindHeight, s.WindHeight)
+	if !(s.WindHeight >= hourly.MinWindHeight && s.WindHeight <= hourly.MaxWindHeight) {
+		p.Addf(path+".wind_height_m", "must be between %g and %g m, got %g", hourly.MinWindHeight, hourly.MaxWindHeight, s.WindHeight)
 	}
 	if !(s.MinCoverage > 0 && s.MinCoverage <= 1) {
 		p.Addf(path+".min_coverage", "must be a fraction above 0 and at most 1, got %g", s.MinCoverage)

@@ -380,8 +380,8 @@ func (z *Zone) validate(path string, p *Problems, site *Site) {
 		p.Addf(path+".weather_holds.rain_lookback", "must be within 0-%dh, got %s", controllers.KeepHours, h.RainLookback)
 	}
 	f := z.FailSafe
-	if f.MaxMissingHours < 1 || f.MaxMissingHours > controllers.KeepHours/2 {
-		p.Addf(path+".fail_safe.max_missing_hours", "must be within 1-%d, got %d", controllers.KeepHours/2, f.MaxMissingHours)
+	if f.MaxMissingHours < controllers.MinMissingHours || f.MaxMissingHours > controllers.MaxMissingHoursCap {
+		p.Addf(path+".fail_safe.max_missing_hours", "must be within %d-%d, got %d", controllers.MinMissingHours, controllers.MaxMissingHoursCap, f.MaxMissingHours)
 	}
 	switch f.Mode {
 	case "hold":
@@ -393,8 +393,8 @@ func (z *Zone) validate(path string, p *Problems, site *Site) {
 			p.Addf(path+".fail_safe.fallback_et_mm_day", "mode fallback needs 12 monthly values (mm/day, January first), got %d", len(f.FallbackETMMDay))
 		}
 		for i, v := range f.FallbackETMMDay {
-			if !(v > 0 && v <= 20) {
-				p.Addf(fmt.Sprintf("%s.fail_safe.fallback_et_mm_day[%d]", path, i), "must be within (0, 20] mm/day, got %s", fmtF(v))
+			if !(v > 0 && v <= controllers.MaxFallbackET) {
+				p.Addf(fmt.Sprintf("%s.fail_safe.fallback_et_mm_day[%d]", path, i), "must be within (0, %s] mm/day, got %s", fmtF(controllers.MaxFallbackET), fmtF(v))
 			}
 		}
 	default:
@@ -407,8 +407,8 @@ func (z *Zone) validate(path string, p *Problems, site *Site) {
 	if c.AckTimeout.D() < 10*time.Second || c.AckTimeout.D() > time.Hour {
 		p.Addf(path+".commands.ack_timeout", "must be within 10s-1h, got %s", c.AckTimeout)
 	}
-	if c.MaxAttempts < 1 || c.MaxAttempts > 10 {
-		p.Addf(path+".commands.max_attempts", "must be within 1-10, got %d", c.MaxAttempts)
+	if c.MaxAttempts < 1 || c.MaxAttempts > controllers.MaxCommandAttempts {
+		p.Addf(path+".commands.max_attempts", "must be within 1-%d, got %d", controllers.MaxCommandAttempts, c.MaxAttempts)
 	}
 	if c.StartTolerance.D() < time.Minute || c.StartTolerance.D() > 2*time.Hour {
 		p.Addf(path+".commands.start_tolerance", "must be within 1m-2h, got %s", c.StartTolerance)
@@ -416,8 +416,8 @@ func (z *Zone) validate(path string, p *Problems, site *Site) {
 	if c.FinishGrace.D() < 0 || c.FinishGrace.D() > 6*time.Hour {
 		p.Addf(path+".commands.finish_grace", "must be within 0-6h, got %s", c.FinishGrace)
 	}
-	if m := c.OverrunMarginPct; m != nil && !(*m >= 0 && *m <= 100) {
-		p.Addf(path+".commands.overrun_margin_pct", "must be within 0-100 (%% over the commanded minutes or volume), got %s", fmtF(*m))
+	if m := c.OverrunMarginPct; m != nil && !(*m >= 0 && *m <= controllers.MaxOverrunMargin*100) {
+		p.Addf(path+".commands.overrun_margin_pct", "must be within 0-%s (%% over the commanded minutes or volume), got %s", fmtF(controllers.MaxOverrunMargin*100), fmtF(*m))
 	}
 	for _, t := range []struct{ field, topic string }{{"command_topic", z.CommandTopic}, {"report_topic", z.ReportTopic}} {
 		if t.topic == "" {
@@ -438,6 +438,10 @@ func (z *Zone) validate(path string, p *Problems, site *Site) {
 	}
 }
 
+// kcRange is the crop coefficient range of controllers as the messages
+// write it, "0-2".
+var kcRange = fmtF(controllers.MinKc) + "-" + fmtF(controllers.MaxKc)
+
 func (z *Zone) validateCrop(path string, p *Problems) {
 	c := &z.Crop
 	if c.Reference != "grass" && c.Reference != "alfalfa" {
@@ -449,8 +453,8 @@ func (z *Zone) validateCrop(path string, p *Problems) {
 	case c.Kc == nil && c.Season == nil:
 		p.Add(path, "set kc (constant) or season (stage curve)")
 	case c.Kc != nil:
-		if !(*c.Kc >= 0 && *c.Kc <= 2) {
-			p.Addf(path+".kc", "must be within 0-2, got %s", fmtF(*c.Kc))
+		if !(*c.Kc >= controllers.MinKc && *c.Kc <= controllers.MaxKc) {
+			p.Addf(path+".kc", "must be within %s, got %s", kcRange, fmtF(*c.Kc))
 		}
 		if c.Climate != nil {
 			p.Add(path+".climate", "applies to a season curve only")
@@ -465,19 +469,19 @@ func (z *Zone) validateCrop(path string, p *Problems) {
 			name string
 			v    int
 		}{{"initial_days", s.InitialDays}, {"development_days", s.DevelopmentDays}, {"mid_days", s.MidDays}, {"late_days", s.LateDays}} {
-			if d.v < 1 || d.v > 366 {
-				p.Addf(sp+"."+d.name, "must be within 1-366, got %d", d.v)
+			if d.v < 1 || d.v > controllers.MaxSeasonDays {
+				p.Addf(sp+"."+d.name, "must be within 1-%d, got %d", controllers.MaxSeasonDays, d.v)
 			}
 		}
-		if n := s.InitialDays + s.DevelopmentDays + s.MidDays + s.LateDays; n > 366 {
-			p.Addf(sp, "season length must be <= 366 days, got %d", n)
+		if n := s.InitialDays + s.DevelopmentDays + s.MidDays + s.LateDays; n > controllers.MaxSeasonDays {
+			p.Addf(sp, "season length must be <= %d days, got %d", controllers.MaxSeasonDays, n)
 		}
 		for _, k := range []struct {
 			name string
 			v    float64
 		}{{"kc_ini", s.KcIni}, {"kc_mid", s.KcMid}, {"kc_end", s.KcEnd}, {"off_season_kc", *s.OffSeasonKc}} {
-			if !(k.v >= 0 && k.v <= 2) {
-				p.Addf(sp+"."+k.name, "must be within 0-2, got %s", fmtF(k.v))
+			if !(k.v >= controllers.MinKc && k.v <= controllers.MaxKc) {
+				p.Addf(sp+"."+k.name, "must be within %s, got %s", kcRange, fmtF(k.v))
 			}
 		}
 		if cl := c.Climate; cl != nil {
@@ -501,30 +505,30 @@ func (z *Zone) validateSoil(path string, p *Problems) {
 	s := &z.Soil
 	before := len(p.list)
 	if s.AvailableWaterMMPerM != 0 {
-		if !(s.AvailableWaterMMPerM > 0 && s.AvailableWaterMMPerM <= 400) {
-			p.Addf(path+".available_water_mm_per_m", "must be within (0, 400], got %s", fmtF(s.AvailableWaterMMPerM))
+		if !(s.AvailableWaterMMPerM > 0 && s.AvailableWaterMMPerM <= controllers.MaxAvailableWater) {
+			p.Addf(path+".available_water_mm_per_m", "must be within (0, %s], got %s", fmtF(controllers.MaxAvailableWater), fmtF(s.AvailableWaterMMPerM))
 		}
 		if s.FieldCapacity != 0 || s.WiltingPoint != 0 {
 			p.Add(path, "set either available_water_mm_per_m or field_capacity and wilting_point, not both")
 		}
 	} else {
-		if !(s.FieldCapacity > 0 && s.FieldCapacity <= 0.6) {
-			p.Addf(path+".field_capacity", "must be within (0, 0.6] m3/m3, got %s", fmtF(s.FieldCapacity))
+		if !(s.FieldCapacity > 0 && s.FieldCapacity <= controllers.MaxFieldCapacity) {
+			p.Addf(path+".field_capacity", "must be within (0, %s] m3/m3, got %s", fmtF(controllers.MaxFieldCapacity), fmtF(s.FieldCapacity))
 		}
 		if !(s.WiltingPoint >= 0 && s.WiltingPoint < s.FieldCapacity) {
 			p.Addf(path+".wilting_point", "must be >= 0 and below field_capacity (%s), got %s", fmtF(s.FieldCapacity), fmtF(s.WiltingPoint))
 		}
 	}
-	if !(s.RootDepthM > 0 && s.RootDepthM <= 10) {
-		p.Addf(path+".root_depth_m", "must be within (0, 10] m, got %s", fmtF(s.RootDepthM))
+	if !(s.RootDepthM > 0 && s.RootDepthM <= controllers.MaxRootDepth) {
+		p.Addf(path+".root_depth_m", "must be within (0, %s] m, got %s", fmtF(controllers.MaxRootDepth), fmtF(s.RootDepthM))
 	}
 	if !(s.RootDepthMinM >= 0 && s.RootDepthMinM <= s.RootDepthM) {
 		p.Addf(path+".root_depth_min_m", "must be within 0 and root_depth_m (%s), got %s", fmtF(s.RootDepthM), fmtF(s.RootDepthMinM))
 	} else if s.RootDepthMinM > 0 && z.Crop.Season == nil {
 		p.Add(path+".root_depth_min_m", "root growth needs a crop season")
 	}
-	if !(s.P >= 0.1 && s.P <= 0.8) {
-		p.Addf(path+".p", "must be within 0.1-0.8 (FAO-56 Table 22), got %s", fmtF(s.P))
+	if !(s.P >= controllers.MinP && s.P <= controllers.MaxP) {
+		p.Addf(path+".p", "must be within %s-%s (FAO-56 Table 22), got %s", fmtF(controllers.MinP), fmtF(controllers.MaxP), fmtF(s.P))
 	}
 	if !(s.TriggerMM >= 0) {
 		p.Addf(path+".trigger_mm", "must be >= 0, got %s", fmtF(s.TriggerMM))
@@ -567,7 +571,7 @@ func (z *Zone) validateTrigger(path string, p *Problems) {
 	}
 	pmax := s.P
 	if s.AdjustP {
-		pmax = math.Min(0.8, s.P+0.04*5) // FAO-56 Table 22 footnote at ETc 0
+		pmax = math.Min(controllers.MaxP, s.P+0.04*5) // FAO-56 Table 22 footnote at ETc 0
 	}
 	raw := controllers.RAW(pmax, hi) // FAO-56 eq. 83
 	if target := s.RefillFraction * raw; target >= s.TriggerMM {
@@ -599,35 +603,36 @@ func (z *Zone) validateSystem(path string, p *Problems, site *Site) {
 	switch {
 	case err != nil:
 		p.Addf(path, "%v", err)
-	case n == 1 && !(rate > 0 && rate <= 200):
-		p.Addf(path+".rate_mm_h", "must be within (0, 200], got %s", fmtF(rate))
+	case n == 1 && !(rate > 0 && rate <= controllers.MaxRate):
+		p.Addf(path+".rate_mm_h", "must be within (0, %s], got %s", fmtF(controllers.MaxRate), fmtF(rate))
 	}
 	switch e := *s.Efficiency; {
 	case e == 0 && DefaultEfficiency[s.Type] > 0:
-		p.Addf(path+".efficiency", "must be within (0, 1], got 0: 0 would mean no water ever reaches the roots; remove the key to use the %s default %s, or set the measured efficiency",
-			s.Type, fmtF(DefaultEfficiency[s.Type]))
-	case !(e > 0 && e <= 1):
-		p.Addf(path+".efficiency", "must be within (0, 1], got %s", fmtF(e))
+		p.Addf(path+".efficiency", "must be within (0, %s], got 0: 0 would mean no water ever reaches the roots; remove the key to use the %s default %s, or set the measured efficiency",
+			fmtF(controllers.MaxEfficiency), s.Type, fmtF(DefaultEfficiency[s.Type]))
+	case !(e > 0 && e <= controllers.MaxEfficiency):
+		p.Addf(path+".efficiency", "must be within (0, %s], got %s", fmtF(controllers.MaxEfficiency), fmtF(e))
 	}
 	if !(s.FlowLMin >= 0) || math.IsInf(s.FlowLMin, 0) {
 		p.Addf(path+".flow_l_min", "must be >= 0, got %s", fmtF(s.FlowLMin))
 	}
-	if s.MinMinutes < 1 || s.MinMinutes > 1440 {
-		p.Addf(path+".min_minutes", "must be within 1-1440, got %d", s.MinMinutes)
+	const lo, hi = controllers.MinRunMinutes, controllers.MaxRunMinutes
+	if s.MinMinutes < lo || s.MinMinutes > hi {
+		p.Addf(path+".min_minutes", "must be within %d-%d, got %d", lo, hi, s.MinMinutes)
 	}
-	if s.MaxMinutes < s.MinMinutes || s.MaxMinutes > 1440 {
-		p.Addf(path+".max_minutes", "required hard cap: must be within min_minutes (%d) and 1440, got %d", s.MinMinutes, s.MaxMinutes)
+	if s.MaxMinutes < s.MinMinutes || s.MaxMinutes > hi {
+		p.Addf(path+".max_minutes", "required hard cap: must be within min_minutes (%d) and %d, got %d", s.MinMinutes, hi, s.MaxMinutes)
 	}
-	if s.MaxMinutesPerDay < s.MinMinutes || s.MaxMinutesPerDay > 1440 {
-		p.Addf(path+".max_minutes_per_day", "required hard cap: must be within min_minutes (%d) and 1440, got %d", s.MinMinutes, s.MaxMinutesPerDay)
+	if s.MaxMinutesPerDay < s.MinMinutes || s.MaxMinutesPerDay > hi {
+		p.Addf(path+".max_minutes_per_day", "required hard cap: must be within min_minutes (%d) and %d, got %d", s.MinMinutes, hi, s.MaxMinutesPerDay)
 	}
-	if s.CycleMinutes < 0 || s.CycleMinutes > 1440 {
-		p.Addf(path+".cycle_minutes", "must be within 0-1440, got %d", s.CycleMinutes)
+	if s.CycleMinutes < 0 || s.CycleMinutes > hi {
+		p.Addf(path+".cycle_minutes", "must be within 0-%d, got %d", hi, s.CycleMinutes)
 	} else if s.CycleMinutes > 0 && s.MinMinutes > s.CycleMinutes/2 {
 		p.Addf(path+".cycle_minutes", "must be at least twice min_minutes (%d) so no cycle falls below it, got %d", s.MinMinutes, s.CycleMinutes)
 	}
-	if s.SoakMinutes < 0 || s.SoakMinutes > 1440 {
-		p.Addf(path+".soak_minutes", "must be within 0-1440, got %d", s.SoakMinutes)
+	if s.SoakMinutes < 0 || s.SoakMinutes > hi {
+		p.Addf(path+".soak_minutes", "must be within 0-%d, got %d", hi, s.SoakMinutes)
 	} else if s.CycleMinutes > 0 && s.SoakMinutes == 0 {
 		p.Add(path+".soak_minutes", "required (>= 1) with cycle_minutes")
 	}
