@@ -63,6 +63,29 @@ func AlertTopic(prefix, site, station, sensor, quantity, kind string) string {
 	return strings.Join([]string{AlertRoot(prefix, site), station, sensor, quantity, kind}, "/")
 }
 
+// StationStateTopic is the retained topic of a station's state (a summary
+// of its last hourly record): <prefix>/<site>/<station>/state.
+func StationStateTopic(prefix, site, station string) string {
+	return prefix + "/" + site + "/" + station + "/state"
+}
+
+// ZoneStateTopic is the retained topic of a zone's state (depletion, RAW,
+// TAW, hold, next run): <prefix>/<site>/zones/<zone>/state.
+func ZoneStateTopic(prefix, site, zone string) string {
+	return prefix + "/" + site + "/zones/" + zone + "/state"
+}
+
+// ReportTopic is the retained topic of a site's daily report:
+// <prefix>/<site>/report/daily.
+func ReportTopic(prefix, site string) string { return prefix + "/" + site + "/report/daily" }
+
+// AvailabilityTopic is the retained topic on which a gateway says "online"
+// after it connects and the broker says "offline" (its last will) when the
+// connection dies: <prefix>/gateway/<client id>/availability.
+func AvailabilityTopic(prefix, clientID string) string {
+	return prefix + "/gateway/" + clientID + "/availability"
+}
+
 // Station ids that cannot be used: the topic <prefix>/<site>/<id>/... of such
 // a station would lie inside a subtree the gateway publishes to or listens on.
 var reservedStationIDs = map[string]string{
@@ -70,6 +93,7 @@ var reservedStationIDs = map[string]string{
 	"zones":  "zone command and report topics",
 	"hold":   "hold topics",
 	"water":  "water request topics",
+	"report": "the daily report topic",
 	// Not a topic subtree, but the station of gateway-wide alerts.
 	"gateway": "alerts about the gateway itself (store outbox)",
 }
@@ -127,6 +151,7 @@ func validateOwnTopics(c *Config, p *Problems) {
 		alertPrefix = prefix
 	}
 	owner := map[string]string{} // topic -> what the gateway uses it for
+	owner[AvailabilityTopic(prefix, c.Broker.ClientID)] = "the gateway's availability (online, or its last will offline)"
 	for i := range c.Sites {
 		s := &c.Sites[i]
 		if !validID(s.ID) {
@@ -140,6 +165,11 @@ func validateOwnTopics(c *Config, p *Problems) {
 				continue
 			}
 			owner[RecordTopic(prefix, s.ID, st.ID)] = fmt.Sprintf("the hourly records of sites[%d].stations[%d]", i, j)
+			owner[StationStateTopic(prefix, s.ID, st.ID)] = fmt.Sprintf("the retained state of sites[%d].stations[%d]", i, j)
+		}
+		owner[ReportTopic(prefix, s.ID)] = fmt.Sprintf("the daily report of sites[%d]", i)
+		for j := range s.Zones {
+			owner[ZoneStateTopic(prefix, s.ID, s.Zones[j].ID)] = fmt.Sprintf("the retained state of sites[%d].zones[%d]", i, j)
 		}
 		if len(s.Zones) > 0 {
 			owner[HoldTopic(prefix, s.ID)] = fmt.Sprintf("the hold requests of sites[%d]", i)
