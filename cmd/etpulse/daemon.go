@@ -100,6 +100,7 @@ func daemon(ctx context.Context, cfg *config.Config, log *slog.Logger) (err erro
 	// The gateway's handler only queues the message; one worker keeps the
 	// broker's order, which decides what counts as a late reading.
 	mo.Workers = 1
+	mo.Availability = config.AvailabilityTopic(cfg.Prefix(), cfg.Broker.ClientID)
 	// The gateway is composed before the connection exists, so that Run
 	// subscribes right after the session resumes.
 	broker := &lateBroker{}

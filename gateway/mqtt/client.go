@@ -41,12 +41,25 @@ type Options struct {
 	// Workers is the number of goroutines running handlers. Default 4.
 	Workers int
 
+	// Availability, when set, is a retained topic that tells automations
+	// whether this client is alive: the broker publishes AvailabilityOffline
+	// there when the connection dies without a DISCONNECT (the last will,
+	// QoS 1, retained), the client publishes AvailabilityOnline (retained)
+	// after every connect and AvailabilityOffline on Close.
+	Availability string
+
 	Logger     *slog.Logger          // nil: discard; the caller adds its own attributes (e.g. component)
 	Registerer prometheus.Registerer // nil: metrics are not registered
 	// OnConnectionChange, when set, is called with true on every (re)connect
 	// and false on every connection loss. It must not block.
 	OnConnectionChange func(up bool)
 }
+
+// The payloads of the availability topic (Options.Availability).
+const (
+	AvailabilityOnline  = "online"
+	AvailabilityOffline = "offline"
+)
 
 // Defaults applied by Dial to unset Options.
 const (
@@ -175,6 +188,9 @@ func Dial(ctx context.Context, o Options) (*Client, error) {
 	if o.TLS != nil {
 		po.SetTLSConfig(o.TLS)
 	}
+	if o.Availability != "" {
+		po.SetWill(o.Availability, AvailabilityOffline, 1, true)
+	}
 	c.c = paho.NewClient(po)
 
 	for i := 0; i < o.Workers; i++ {
@@ -252,6 +268,17 @@ func untrusted(err error) bool {
 func (c *Client) onConnect(pc paho.Client) {
 	n := c.connects.Add(1)
 	c.m.connected.Set(1)
+	if c.opts.Availability != "" {
+		// The birth message; paho's connect handler must not wait on a token.
+		tok := pc.Publish(c.opts.Availability, 1, true, AvailabilityOnline)
+		go func() {
+			if !tok.WaitTimeout(c.opts.ConnectTimeout) {
+				c.log.Warn("availability: online not acknowledged in time", "topic", c.opts.Availability)
+			} else if err := tok.Error(); err != nil {
+				c.log.Warn("availability: online not published", "topic", c.opts.Availability, "err", err)
+			}
+		}()
+	}
 	if n > 1 {
 		c.m.reconnects.Inc()
 		c.log.Info("reconnected", "connects", n)
@@ -470,8 +497,9 @@ func (c *Client) Connected() bool { return c.c.IsConnectionOpen() }
 // Inflight returns the number of received messages queued or being handled.
 func (c *Client) Inflight() int { return int(c.inflight.Load()) }
 
-// Close disconnects, giving in-progress work up to quiesce to complete,
-// stops the workers (messages still queued are left unacknowledged, so the
+// Close disconnects, giving in-progress work up to quiesce to complete
+// (with Options.Availability set, it first publishes AvailabilityOffline,
+// waiting up to quiesce for the broker's acknowledgement), stops the workers (messages still queued are left unacknowledged, so the
 // broker redelivers them to the next session) and waits for running
 // handlers to return. Close is idempotent.
 func (c *Client) Close(quiesce time.Duration) {
@@ -479,6 +507,12 @@ func (c *Client) Close(quiesce time.Duration) {
 		ms := quiesce.Milliseconds()
 		if ms < 0 {
 			ms = 0
+		}
+		if c.opts.Availability != "" && c.c.IsConnectionOpen() {
+			tok := c.c.Publish(c.opts.Availability, 1, true, AvailabilityOffline)
+			if !tok.WaitTimeout(quiesce) || tok.Error() != nil {
+				c.log.Warn("availability: offline not acknowledged; the broker's last will says it", "topic", c.opts.Availability)
+			}
 		}
 		c.c.Disconnect(uint(ms))
 		c.stopWorkers()
