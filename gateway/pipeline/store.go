@@ -19,9 +19,10 @@ import (
 //	  <site>/<station>/           one bucket per station
 //	    samples/   hour(8) | time(8) | sensor  -> value(8) | quantity
 //	    hours/     hour(8)                     -> JSON hourState (closed hours)
-//	    meta/      "cursor", "watermark", "carry"
+//	    meta/      "cursor", "watermark", "carry", "closed_through"
 //	    counters/  sensor                      -> JSON counterState
 //	    seen/      sensor                      -> JSON seenState
+//	    held/      time(8) | sensor            -> JSON heldReading (ahead of the gateway clock)
 //	pipeline.pending/  <site>/<station>/hour(8)/revision(8) -> record JSON
 //
 // hour and time are big-endian unsigned Unix seconds and nanoseconds, so a
@@ -35,20 +36,28 @@ var (
 	bucketMeta     = []byte("meta")
 	bucketCounters = []byte("counters")
 	bucketSeen     = []byte("seen")
+	bucketHeld     = []byte("held")
 
 	keyCursor    = []byte("cursor")
 	keyWatermark = []byte("watermark")
 	keyCarry     = []byte("carry")
+	// keyClosedThrough is the end of the latest hour the station closed.
+	// Pruning never removes it: readings before it are late or too old,
+	// never the start of a new hour.
+	keyClosedThrough = []byte("closed_through")
 )
 
 // hourState is what the pipeline keeps for a closed hour.
 type hourState struct {
-	Revision int           `json:"revision"`
-	CarryIn  state.Carry   `json:"carry_in"` // night carry the hour was computed with
-	Dirty    bool          `json:"dirty"`    // a late reading arrived; recompute on the next tick
-	TMin     *float64      `json:"t_min,omitempty"`
-	TMax     *float64      `json:"t_max,omitempty"`
-	Record   *state.Record `json:"record,omitempty"`
+	Revision int         `json:"revision"`
+	CarryIn  state.Carry `json:"carry_in"` // night carry the hour was computed with
+	Dirty    bool        `json:"dirty"`    // a late reading arrived; recompute on a tick once it has been quiet for the close grace
+	// LateAt is the pipeline clock when the latest late reading of the hour
+	// was accepted (zero: none since the last emission).
+	LateAt time.Time     `json:"late_at,omitzero"`
+	TMin   *float64      `json:"t_min,omitempty"`
+	TMax   *float64      `json:"t_max,omitempty"`
+	Record *state.Record `json:"record,omitempty"`
 }
 
 // counterState is the previous value of a cumulative rain counter.
@@ -61,6 +70,19 @@ type counterState struct {
 type seenState struct {
 	Arrival time.Time `json:"arrival"` // pipeline clock when the reading was accepted
 	Reading time.Time `json:"reading"` // the reading's own timestamp (latest seen)
+	// Stamped: the sensor's latest reading carried its own time (not the
+	// arrival time).
+	Stamped bool `json:"stamped,omitempty"`
+}
+
+// heldReading is a reading further ahead of the gateway clock than the
+// station's max_future, kept until the clock reaches it. Its key holds its
+// time and sensor.
+type heldReading struct {
+	Quantity hourly.Quantity `json:"quantity"`
+	Value    float64         `json:"value"`
+	Counter  bool            `json:"counter,omitempty"`
+	Rollover float64         `json:"rollover,omitempty"`
 }
 
 func u64(v uint64) []byte {
@@ -102,7 +124,7 @@ func decodeSample(k, v []byte) (hourly.Sample, error) {
 
 // stationBuckets are one station's buckets inside a transaction.
 type stationBuckets struct {
-	samples, hours, meta, counters, seen *bbolt.Bucket
+	samples, hours, meta, counters, seen, held *bbolt.Bucket
 }
 
 // buckets returns the station's buckets, creating them in a writable tx.
@@ -127,7 +149,7 @@ func (st *station) buckets(tx *bbolt.Tx) (stationBuckets, error) {
 		if b, err = root.CreateBucket(st.key); err != nil {
 			return sb, fmt.Errorf("create station bucket: %w", err)
 		}
-		for _, name := range [][]byte{bucketSamples, bucketHours, bucketMeta, bucketCounters, bucketSeen} {
+		for _, name := range [][]byte{bucketSamples, bucketHours, bucketMeta, bucketCounters, bucketSeen, bucketHeld} {
 			if _, err := b.CreateBucket(name); err != nil {
 				return sb, fmt.Errorf("create station bucket: %w", err)
 			}
@@ -138,7 +160,8 @@ func (st *station) buckets(tx *bbolt.Tx) (stationBuckets, error) {
 	sb.meta = b.Bucket(bucketMeta)
 	sb.counters = b.Bucket(bucketCounters)
 	sb.seen = b.Bucket(bucketSeen)
-	if sb.samples == nil || sb.hours == nil || sb.meta == nil || sb.counters == nil || sb.seen == nil {
+	sb.held = b.Bucket(bucketHeld)
+	if sb.samples == nil || sb.hours == nil || sb.meta == nil || sb.counters == nil || sb.seen == nil || sb.held == nil {
 		return sb, fmt.Errorf("station %s: state file is missing a bucket", st.key)
 	}
 	return sb, nil

@@ -1,6 +1,8 @@
 package state
 
 import (
+	"bytes"
+	"encoding/binary"
 	"encoding/json"
 	"fmt"
 	"time"
@@ -12,6 +14,7 @@ import (
 // transaction Open gives it.
 var migrations = map[int]func(*bbolt.Tx) error{
 	1: migrate1to2,
+	2: migrate2to3,
 }
 
 // migrate runs the migrations from version from up to Version and records
@@ -191,6 +194,81 @@ func rewrite(b *bbolt.Bucket, conv func([]byte) (any, error)) error {
 	for _, p := range out {
 		if err := b.Put(p.k, p.v); err != nil {
 			return err
+		}
+	}
+	return nil
+}
+
+// Names inside a station's pipeline bucket as version 3 lays them out,
+// frozen here for migrate2to3.
+var (
+	v3Hours         = []byte("hours")
+	v3Meta          = []byte("meta")
+	v3Held          = []byte("held")
+	v3Cursor        = []byte("cursor")
+	v3Watermark     = []byte("watermark")
+	v3ClosedThrough = []byte("closed_through")
+)
+
+// migrate2to3 gives every station bucket of the pipeline an empty "held"
+// bucket (readings ahead of the gateway clock, kept until it reaches them)
+// and the "closed_through" mark in its meta bucket: the end of the latest
+// hour the station closed, which pruning never removes. A version-2 station
+// has closed an hour when its hours bucket holds one, when a record of it is
+// pending, or when its cursor is past its watermark's hour (the wall clock
+// closed hours without readings); then the mark is its cursor (hours close
+// in sequence, so the cursor is the end of the latest). A station whose
+// hours were all pruned and nothing of it is pending stays unmarked: it
+// behaves as in version 2.
+func migrate2to3(tx *bbolt.Tx) error {
+	root := tx.Bucket(BucketPipeline)
+	if root == nil {
+		return nil
+	}
+	pending := tx.Bucket(BucketPending)
+	var stations [][]byte
+	if err := root.ForEach(func(k, v []byte) error {
+		if v == nil {
+			stations = append(stations, append([]byte(nil), k...))
+		}
+		return nil
+	}); err != nil {
+		return err
+	}
+	for _, key := range stations {
+		sb := root.Bucket(key)
+		if _, err := sb.CreateBucketIfNotExists(v3Held); err != nil {
+			return fmt.Errorf("pipeline/%s: %w", key, err)
+		}
+		meta, hours := sb.Bucket(v3Meta), sb.Bucket(v3Hours)
+		if meta == nil || hours == nil {
+			return fmt.Errorf("pipeline/%s: no meta or hours bucket", key)
+		}
+		cursor := meta.Get(v3Cursor)
+		if len(cursor) != 8 {
+			continue // no reading yet
+		}
+		closed := false
+		if k, _ := hours.Cursor().First(); k != nil {
+			closed = true
+		}
+		if pending != nil {
+			prefix := append(append([]byte(nil), key...), '/')
+			if k, _ := pending.Cursor().Seek(prefix); k != nil && bytes.HasPrefix(k, prefix) {
+				closed = true
+			}
+		}
+		if wm := meta.Get(v3Watermark); len(wm) == 8 {
+			c := time.Unix(0, int64(binary.BigEndian.Uint64(cursor)))
+			w := time.Unix(0, int64(binary.BigEndian.Uint64(wm)))
+			if c.After(w) {
+				closed = true
+			}
+		}
+		if closed {
+			if err := meta.Put(v3ClosedThrough, append([]byte(nil), cursor...)); err != nil {
+				return fmt.Errorf("pipeline/%s: %w", key, err)
+			}
 		}
 	}
 	return nil

@@ -27,7 +27,7 @@ import (
 
 // Version is the schema version this build writes, and the newest it reads.
 // Every change to what the file stores bumps it and adds a migration.
-const Version = 2
+const Version = 3
 
 // Errors of Open that callers branch on.
 var (

@@ -2,14 +2,17 @@ package state
 
 import (
 	"bytes"
+	"encoding/binary"
 	"encoding/json"
 	"errors"
 	"fmt"
 	"io"
+	"maps"
 	"os"
 	"path/filepath"
 	"strings"
 	"testing"
+	"time"
 
 	"github.com/stretchr/testify/assert"
 	"github.com/stretchr/testify/require"
@@ -79,24 +82,23 @@ func TestMigrateV1(t *testing.T) {
 	require.NotEmpty(t, before["alerts/state"])
 	require.NotEmpty(t, before["history"])
 
-	db, err := Open(path)
-	require.NoError(t, err)
-	v, err := FileVersion(db)
-	require.NoError(t, err)
-	assert.Equal(t, Version, v)
-	require.NoError(t, db.Close())
-	after := dump(t, path)
+	after := openDump(t, path)
 
 	migrated := map[string]bool{"zones/ledger": true, "zones/state": true, string(BucketMeta): true}
 	for name, kv := range before {
 		if migrated[name] {
 			continue
 		}
+		if isStationMeta(name) {
+			// Version 3 adds the closed-through mark; the rest is untouched.
+			kv = maps.Clone(kv)
+			kv["closed_through"] = kv["cursor"]
+		}
 		assert.Equal(t, kv, after[name], "bucket %s changed", name)
 	}
 	for name := range after {
 		_, was := before[name]
-		assert.True(t, was || name == string(BucketMeta), "new bucket %s", name)
+		assert.True(t, was || name == string(BucketMeta) || isStationHeld(name), "new bucket %s", name)
 	}
 
 	// Ledger rows: the version-1 bytes are the JSON of controllers.Command
@@ -162,11 +164,112 @@ func TestMigrateV1(t *testing.T) {
 	// The backup is the untouched original, kept until the next start.
 	backup := BackupPath(path, 1)
 	assert.Equal(t, before, dump(t, backup))
-	db, err = Open(path)
+	db, err := Open(path)
 	require.NoError(t, err)
 	require.NoError(t, db.Close())
 	_, err = os.Stat(backup)
 	assert.True(t, os.IsNotExist(err), "the backup is removed after a start without migration")
+}
+
+// openDump opens the file at path (migrating it), checks it is at Version,
+// and returns its dump.
+func openDump(t *testing.T, path string) map[string]map[string][]byte {
+	t.Helper()
+	db, err := Open(path)
+	require.NoError(t, err)
+	v, err := FileVersion(db)
+	require.NoError(t, err)
+	assert.Equal(t, Version, v)
+	require.NoError(t, db.Close())
+	return dump(t, path)
+}
+
+// isStationMeta and isStationHeld name a station's meta bucket and the
+// bucket of readings held for the future (new in version 3) in a dump.
+func isStationMeta(name string) bool {
+	return strings.HasPrefix(name, "pipeline/") && strings.HasSuffix(name, "/meta")
+}
+
+func isStationHeld(name string) bool {
+	return strings.HasPrefix(name, "pipeline/") && strings.HasSuffix(name, "/held")
+}
+
+// v2File is a state file written by the release of schema version 2 (made by
+// testdata/state/gen/gen.sh v2): two days of the demo farm and a few points
+// pending in the outbox.
+const v2File = "../../testdata/state/v2-tallowwood.db"
+
+// TestMigrateV2: the committed version-2 file opens at Version. Every
+// station that closed hours gets the closed-through mark equal to its cursor
+// (the end of its latest closed hour) and an empty bucket of held readings;
+// every other row is byte for byte what it was.
+func TestMigrateV2(t *testing.T) {
+	path := copyTo(t, v2File)
+	before := dump(t, path)
+	require.Equal(t, []byte{0, 0, 0, 0, 0, 0, 0, 2}, before[string(BucketMeta)]["schema_version"])
+
+	after := openDump(t, path)
+
+	stations := 0
+	for name, kv := range before {
+		switch {
+		case name == string(BucketMeta):
+			assert.Equal(t, []byte{0, 0, 0, 0, 0, 0, 0, 3}, after[name]["schema_version"])
+		case isStationMeta(name):
+			stations++
+			require.Len(t, kv["cursor"], 8, name)
+			hours := before[strings.TrimSuffix(name, "/meta")+"/hours"]
+			require.NotEmpty(t, hours, "%s: two days of the demo close hours", name)
+			want := maps.Clone(kv)
+			want["closed_through"] = kv["cursor"]
+			assert.Equal(t, want, after[name], name)
+			held := strings.TrimSuffix(name, "/meta") + "/held"
+			m, ok := after[held]
+			assert.True(t, ok && len(m) == 0, "%s: an empty bucket", held)
+		default:
+			assert.Equal(t, kv, after[name], "bucket %s changed", name)
+		}
+	}
+	assert.Equal(t, 3, stations, "the demo farm has three stations")
+	for name := range after {
+		_, was := before[name]
+		assert.True(t, was || isStationHeld(name), "new bucket %s", name)
+	}
+	assert.Equal(t, before, dump(t, BackupPath(path, 2)), "the backup is the untouched original")
+}
+
+// TestMigrate2to3Unmarked: a version-2 station that has a cursor but never
+// closed an hour (its first hour is open, nothing pending) gets no mark; one
+// whose hours were all pruned but whose cursor is past its watermark (the
+// wall clock closed its hours) gets the mark.
+func TestMigrate2to3Unmarked(t *testing.T) {
+	path := filepath.Join(t.TempDir(), "v2.db")
+	db, err := bbolt.Open(path, 0o600, nil)
+	require.NoError(t, err)
+	be := func(t time.Time) []byte { return binary.BigEndian.AppendUint64(nil, uint64(t.UnixNano())) }
+	h := time.Date(2026, 3, 1, 10, 0, 0, 0, time.UTC)
+	require.NoError(t, db.Update(func(tx *bbolt.Tx) error {
+		m, _ := tx.CreateBucket(BucketMeta)
+		_ = m.Put(keyVersion, binary.BigEndian.AppendUint64(nil, 2))
+		root, _ := tx.CreateBucket(BucketPipeline)
+		for name, wm := range map[string]time.Time{"s/open": h.Add(20 * time.Minute), "s/quiet": h.Add(-3 * time.Hour)} {
+			sb, _ := root.CreateBucket([]byte(name))
+			for _, b := range []string{"samples", "hours", "meta", "counters", "seen"} {
+				_, _ = sb.CreateBucket([]byte(b))
+			}
+			_ = sb.Bucket([]byte("meta")).Put([]byte("cursor"), be(h))
+			_ = sb.Bucket([]byte("meta")).Put([]byte("watermark"), be(wm))
+		}
+		return nil
+	}))
+	require.NoError(t, db.Close())
+	db, err = Open(path)
+	require.NoError(t, err)
+	require.NoError(t, db.Close())
+	after := dump(t, path)
+	assert.NotContains(t, after["pipeline/s/open/meta"], "closed_through")
+	assert.Equal(t, be(h), after["pipeline/s/quiet/meta"]["closed_through"])
+	assert.Contains(t, after, "pipeline/s/open/held")
 }
 
 // TestNewFileGetsVersion: a new file carries the version from creation.
@@ -192,8 +295,8 @@ func TestNewerVersionRefused(t *testing.T) {
 	require.NoError(t, db.Close())
 	_, err = Open(path)
 	require.ErrorIs(t, err, ErrNewerVersion)
-	assert.Contains(t, err.Error(), "schema version 5, this etpulse reads up to 2")
-	assert.Equal(t, map[string][]byte{string(keyVersion): {0, 0, 0, 0, 0, 0, 0, 5}}, dump(t, path)[string(BucketMeta)])
+	assert.Contains(t, err.Error(), fmt.Sprintf("schema version %d, this etpulse reads up to %d", Version+3, Version))
+	assert.Equal(t, map[string][]byte{string(keyVersion): binary.BigEndian.AppendUint64(nil, uint64(Version+3))}, dump(t, path)[string(BucketMeta)])
 }
 
 // TestNotAStateFileRefused: a file that is not a bbolt database, and a

@@ -1,17 +1,25 @@
 #!/usr/bin/env bash
-# Makes testdata/state/v1-tallowwood.db, a state file of schema version 1 (the
-# format before the file carried a version), with the code of the release
+# Makes a state file of an older schema version with the code of the release
 # that wrote that format: two simulated days of the demo farm (hour bins,
 # records, night cloudiness carries, alerts, zone balances and a command
 # ledger, the local history) plus a few store points pending in the outbox.
-# The migration test in gateway/state reads the file; run this only to make
-# it again, and commit the result.
+# The migration tests in gateway/state read the files; run this only to make
+# one again, and commit the result.
 #
-#   bash testdata/state/gen/gen.sh [REV]    # REV: default ca207a8
+#   bash testdata/state/gen/gen.sh [VERSION [REV]]
+#
+# VERSION v1 (default): testdata/state/v1-tallowwood.db, the format before
+# the file carried a version, from ca207a8. VERSION v2:
+# testdata/state/v2-tallowwood.db, from 9412b9e.
 set -euo pipefail
-rev=${1:-ca207a8}
+ver=${1:-v1}
+case $ver in
+v1) rev=${2:-ca207a8} ;;
+v2) rev=${2:-9412b9e} ;;
+*) echo "gen.sh: unknown version $ver (want v1 or v2)" >&2; exit 2 ;;
+esac
 top=$(git rev-parse --show-toplevel)
-out="$top/testdata/state/v1-tallowwood.db"
+out="$top/testdata/state/$ver-tallowwood.db"
 wt=$(mktemp -d)
 git -C "$top" worktree add -q --detach "$wt" "$rev"
 trap 'git -C "$top" worktree remove --force "$wt"' EXIT
