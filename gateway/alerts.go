@@ -17,7 +17,7 @@ import (
 // gates the hours of alerted sensors, and runs as a Service that persists,
 // publishes and checks for silence; an outbox watch raises outbox-near-cap;
 // the HTTP server runs as a Service unless disabled.
-func setupAlerts(cfg *config.Config, deps Deps, outbox *store.Outbox, comp *Components) (*quality.Monitor, error) {
+func setupAlerts(cfg *config.Config, deps Deps, outbox *store.Outbox, pause *intakePause, comp *Components) (*quality.Monitor, error) {
 	mon, err := quality.New(quality.Options{
 		Config: cfg, DB: deps.DB, Outbox: outbox, Publisher: deps.MQTT,
 		Logger: deps.Logger.With("component", "alerts"), Registerer: deps.Registerer,
@@ -35,12 +35,8 @@ func setupAlerts(cfg *config.Config, deps Deps, outbox *store.Outbox, comp *Comp
 	}
 	comp.Services = append(comp.Services, mon)
 	if outbox != nil && cfg.Store.URL != "" { // local history only: nothing ever waits
-		sites := make([]string, len(cfg.Sites))
-		for i := range cfg.Sites {
-			sites[i] = cfg.Sites[i].ID
-		}
 		comp.Services = append(comp.Services, &outboxWatch{
-			outbox: outbox, alerts: mon, sites: sites,
+			outbox: outbox, alerts: mon, sites: siteIDs(cfg),
 			clock: deps.Clock, log: deps.Logger.With("component", "alerts"),
 		})
 	}
@@ -55,7 +51,9 @@ func setupAlerts(cfg *config.Config, deps Deps, outbox *store.Outbox, comp *Comp
 			gatherer = prometheus.DefaultGatherer
 		}
 	}
-	checks := []httpapi.Check{httpapi.StateWritable(deps.DB, deps.Clock.Now)}
+	// The intake check first: while intake is paused on an unwritable state
+	// file, a small test write may still succeed (freed pages are reused).
+	checks := []httpapi.Check{{Name: "intake", Func: pause.check}, httpapi.StateWritable(deps.DB, deps.Clock.Now)}
 	if c, ok := deps.MQTT.(interface{ Connected() bool }); ok {
 		checks = append([]httpapi.Check{httpapi.BrokerConnected(c.Connected)}, checks...)
 	}
@@ -71,6 +69,15 @@ func setupAlerts(cfg *config.Config, deps Deps, outbox *store.Outbox, comp *Comp
 		Logger: deps.Logger.With("component", "http"),
 	}))
 	return mon, nil
+}
+
+// siteIDs returns the configured sites' ids, in order.
+func siteIDs(cfg *config.Config) []string {
+	sites := make([]string, len(cfg.Sites))
+	for i := range cfg.Sites {
+		sites[i] = cfg.Sites[i].ID
+	}
+	return sites
 }
 
 // Alerts returns the gateway's drift and fault monitor, e.g. to follow its

@@ -103,7 +103,8 @@ type Gateway struct {
 	pubMu     sync.Mutex    // one publishPending at a time: a record goes out once
 	ready     chan struct{}
 	alerts    *quality.Monitor
-	stepped   bool // RunStepped: no pass waits on the clock
+	pause     *intakePause // intake held on an unwritable state file
+	stepped   bool         // RunStepped: no pass waits on the clock
 
 	progMu   sync.Mutex
 	progress chan struct{} // closed when Handled, Emitted or Published grows; nil until asked for
@@ -153,10 +154,16 @@ func New(cfg *config.Config, deps Deps) (*Gateway, error) {
 	}
 
 	// Alerts: drift and fault checks on samples and closed hours, the quality
-	// gate, and the metrics and health server (gateway/alerts.go).
-	if g.alerts, err = setupAlerts(cfg, deps, outbox, &comp); err != nil {
+	// gate, and the metrics and health server (gateway/alerts.go); the
+	// intake pause on an unwritable state file alerts through the monitor.
+	if g.pause, err = newIntakePause(deps.Logger.With("component", "intake"), deps.Registerer, deps.DB.Path(),
+		cfg.Alerts.TopicPrefix, siteIDs(cfg), deps.MQTT); err != nil {
 		return nil, fmt.Errorf("new gateway: %w", err)
 	}
+	if g.alerts, err = setupAlerts(cfg, deps, outbox, g.pause, &comp); err != nil {
+		return nil, fmt.Errorf("new gateway: %w", err)
+	}
+	g.pause.alerts = g.alerts
 
 	// Zones: the balance steps inside each closing hour's transaction; the
 	// scheduler sends valve commands and raises its alerts through the
@@ -173,6 +180,9 @@ func New(cfg *config.Config, deps Deps) (*Gateway, error) {
 		Handlers: comp.Handlers, Observers: comp.Observers, Gate: comp.Gate,
 	})
 	if err != nil {
+		return nil, fmt.Errorf("new gateway: %w", err)
+	}
+	if err := g.attachStatus(); err != nil { // status pages (status_wiring.go)
 		return nil, fmt.Errorf("new gateway: %w", err)
 	}
 	return g, nil
@@ -454,26 +464,10 @@ func (g *Gateway) step(ctx context.Context, batch []mqtt.Message, byTime bool) e
 	if byTime {
 		slices.SortStableFunc(readings, func(a, b ingest.Reading) int { return a.Sample.Time.Compare(b.Sample.Time) })
 	}
-	emitted := 0
-	if len(readings) > 0 {
-		for attempt := 0; ; attempt++ {
-			res, err := g.pipe.Ingest(now, readings)
-			emitted += len(res.Records)
-			if err == nil {
-				break
-			}
-			if attempt == 2 {
-				g.emitted.Add(uint64(emitted))
-				return fmt.Errorf("intake: store readings: %w", err)
-			}
-			g.log.Error("storing readings failed; retrying", "err", err)
-			select {
-			case <-time.After(time.Duration(attempt+1) * 200 * time.Millisecond):
-			case <-ctx.Done():
-				g.emitted.Add(uint64(emitted))
-				return nil // not acknowledged: redelivered next run
-			}
-		}
+	emitted, stored, err := g.store(ctx, now, readings, len(batch))
+	g.emitted.Add(uint64(emitted))
+	if err != nil || !stored {
+		return err // not acknowledged: redelivered next run
 	}
 	for _, m := range batch {
 		if m.Ack != nil {
@@ -488,6 +482,45 @@ func (g *Gateway) step(ctx context.Context, batch []mqtt.Message, byTime bool) e
 	g.handled.Add(uint64(len(batch)))
 	g.progressed()
 	return nil
+}
+
+// store stores readings (from held messages) in the state file. A write the
+// disk refuses (full, quota, I/O error: stateDiskFault) pauses intake: the
+// messages stay unacknowledged, the pause is alerted and reported by
+// /readyz and a metric, and the store is retried with a growing wait until
+// it succeeds, which resumes intake. Another error is retried twice, then
+// returned. stored is false when ctx ended first.
+func (g *Gateway) store(ctx context.Context, now time.Time, readings []ingest.Reading, held int) (emitted int, stored bool, err error) {
+	if len(readings) == 0 {
+		return 0, true, nil
+	}
+	failures, wait := 0, pauseFirstRetry
+	for {
+		res, err := g.pipe.Ingest(now, readings)
+		emitted += len(res.Records)
+		if err == nil {
+			g.pause.resume(g.deps.Clock.Now())
+			return emitted, true, nil
+		}
+		var pause time.Duration
+		if kind, ok := stateDiskFault(err); ok {
+			pause, wait = wait, min(2*wait, pauseMaxRetry)
+			g.pause.hold(now, kind, err, held, pause)
+		} else {
+			if failures == 2 {
+				return emitted, false, fmt.Errorf("intake: store readings: %w", err)
+			}
+			failures++
+			pause = time.Duration(failures) * 200 * time.Millisecond
+			g.log.Error("storing readings failed; retrying", "err", err)
+		}
+		select {
+		case <-time.After(pause):
+		case <-ctx.Done():
+			return emitted, false, nil
+		}
+		now = g.deps.Clock.Now()
+	}
 }
 
 // closeHours is the hour pipeline's pass at now: it closes the hours due

@@ -49,6 +49,13 @@ const (
 	KindOutboxNearCap Kind = "outbox-near-cap" // the store outbox is close to its size cap
 )
 
+// The kinds the gateway's intake raises (key from StateKey) while it holds
+// messages unacknowledged because the state file cannot be written.
+const (
+	KindStateDiskFull   Kind = "state-disk-full"   // the state file's disk is full (or its quota used up)
+	KindStateWriteError Kind = "state-write-error" // the state file's disk fails writes (I/O error, read-only)
+)
+
 // ZoneStation is the Station of alerts about an irrigation zone rather than
 // a weather station; their Sensor is the zone id. The configuration refuses
 // "zones" as a station id, so a zone alert never gates a station's hours.
@@ -88,6 +95,12 @@ const GatewayStation = "gateway"
 // <prefix>/<site>/alerts/gateway/outbox/points/outbox-near-cap.
 func OutboxKey(site string) Key {
 	return Key{Site: site, Station: GatewayStation, Sensor: "outbox", Quantity: "points", Kind: KindOutboxNearCap}
+}
+
+// StateKey returns the key of a site's state-file alert of the given kind:
+// <prefix>/<site>/alerts/gateway/state/file/<kind>.
+func StateKey(site string, kind Kind) Key {
+	return Key{Site: site, Station: GatewayStation, Sensor: "state", Quantity: "file", Kind: kind}
 }
 
 // HourSubject is the Sensor of alerts derived from a station's hourly
