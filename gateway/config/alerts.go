@@ -529,6 +529,10 @@ type HTTP struct {
 	Listen string `yaml:"listen"`
 	// Disabled turns the listener off.
 	Disabled bool `yaml:"disabled"`
+	// TokenFile, when set, names a file holding the access token the status
+	// pages and their JSON API require (/metrics, /healthz and /readyz stay
+	// open). Empty: no token (keep the listener on loopback then).
+	TokenFile string `yaml:"token_file"`
 }
 
 // DefaultHTTPListen is the default metrics and health address.

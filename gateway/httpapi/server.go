@@ -14,6 +14,7 @@ import (
 	"net"
 	"net/http"
 	"strings"
+	"sync/atomic"
 	"time"
 
 	"github.com/prometheus/client_golang/prometheus"
@@ -45,6 +46,10 @@ type Options struct {
 	History *store.History
 	// Logger; nil discards.
 	Logger *slog.Logger
+	// Status, when set, enables the status pages and their JSON API (see
+	// SetStatus); Token, when not empty, is then required on them.
+	Status StatusReader
+	Token  string
 }
 
 // Server is the operational HTTP server; it is a gateway Service.
@@ -54,6 +59,8 @@ type Server struct {
 	ln    net.Listener
 	srv   *http.Server
 	ready chan struct{}
+
+	status atomic.Pointer[statusSetup] // nil: no status pages
 }
 
 // New returns a server for opt. It does not listen yet (see Listen and Run).
@@ -68,6 +75,9 @@ func New(opt Options) *Server {
 		opt.Logger = slog.New(slog.DiscardHandler)
 	}
 	s := &Server{opt: opt, log: opt.Logger, ready: make(chan struct{})}
+	if opt.Status != nil {
+		s.SetStatus(opt.Status, opt.Token)
+	}
 	s.srv = &http.Server{
 		Handler:           s.Handler(),
 		ReadHeaderTimeout: 5 * time.Second,
@@ -92,6 +102,7 @@ func (s *Server) Handler() http.Handler {
 	})
 	mux.HandleFunc("GET /readyz", s.readyz)
 	mux.HandleFunc(HistoryPath, s.history)
+	s.statusRoutes(mux)
 	mux.HandleFunc("/", func(w http.ResponseWriter, r *http.Request) {
 		http.Error(w, "not found; endpoints: /metrics /healthz /readyz "+HistoryPath, http.StatusNotFound)
 	})
