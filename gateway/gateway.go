@@ -104,6 +104,7 @@ type Gateway struct {
 	ready     chan struct{}
 	alerts    *quality.Monitor
 	pause     *intakePause // intake held on an unwritable state file
+	alive     atomic.Int64 // real time (unix ns) the intake loop last went round
 	stepped   bool         // RunStepped: no pass waits on the clock
 
 	progMu   sync.Mutex
@@ -382,7 +383,11 @@ func (g *Gateway) intake(ctx context.Context) error {
 		return err
 	}
 	batch := make([]mqtt.Message, 0, maxBatch)
+	idle := time.NewTimer(aliveEvery)
+	defer idle.Stop()
 	for {
+		g.beat()
+		idle.Reset(aliveEvery)
 		batch = batch[:0]
 		var wake <-chan time.Time
 		if next := g.pipe.NextDeadline(); !next.IsZero() && !g.stepped {
@@ -403,11 +408,30 @@ func (g *Gateway) intake(ctx context.Context) error {
 				}
 			}
 		case <-wake:
+		case <-idle.C:
+			continue // a beat for Alive
 		}
 		if err := g.step(ctx, batch, false); err != nil {
 			return err
 		}
 	}
+}
+
+// aliveEvery is the longest an idle intake loop goes without a beat.
+const aliveEvery = 10 * time.Second
+
+// beat records that the intake loop is going round (Alive).
+func (g *Gateway) beat() { g.alive.Store(time.Now().UnixNano()) }
+
+// Alive returns the real time the intake loop last went round: at least
+// every 10 s while idle, after every batch, and before every retry while
+// paused (at most 30 s apart). Zero before Run. A systemd watchdog pings
+// only while it is recent.
+func (g *Gateway) Alive() time.Time {
+	if ns := g.alive.Load(); ns != 0 {
+		return time.Unix(0, ns)
+	}
+	return time.Time{}
 }
 
 // startup takes the messages the broker delivers as the session resumes (the
@@ -514,6 +538,7 @@ func (g *Gateway) store(ctx context.Context, now time.Time, readings []ingest.Re
 			pause = time.Duration(failures) * 200 * time.Millisecond
 			g.log.Error("storing readings failed; retrying", "err", err)
 		}
+		g.beat() // paused is alive
 		select {
 		case <-time.After(pause):
 		case <-ctx.Done():

@@ -17,6 +17,7 @@ import (
 	"etpulse/gateway"
 	"etpulse/gateway/config"
 	"etpulse/gateway/mqtt"
+	"etpulse/gateway/sdnotify"
 	"etpulse/gateway/state"
 )
 
@@ -121,7 +122,43 @@ func daemon(ctx context.Context, cfg *config.Config, log *slog.Logger) (err erro
 	}
 	defer client.Close(2 * time.Second)
 	broker.set(client)
+	stopNotify := notifySystemd(ctx, g, log)
+	defer stopNotify()
 	return g.Run(ctx)
+}
+
+// notifySystemd tells systemd (a unit of Type=notify, $NOTIFY_SOCKET) that
+// the gateway is ready once it has subscribed, pings the watchdog
+// (WatchdogSec=) while the intake loop is alive, and says it is stopping
+// when ctx ends. The returned func stops it and waits for it.
+func notifySystemd(ctx context.Context, g *gateway.Gateway, log *slog.Logger) (stop func()) {
+	sd := sdnotify.FromEnv()
+	if !sd.Enabled() {
+		return func() {}
+	}
+	log = log.With("component", "systemd")
+	nctx, cancel := context.WithCancel(ctx)
+	var wg sync.WaitGroup
+	wg.Go(func() {
+		select {
+		case <-g.Ready():
+		case <-nctx.Done():
+			return
+		}
+		if err := sd.Notify(sdnotify.Ready); err != nil {
+			log.Warn("telling systemd the gateway is ready", "err", err)
+		}
+		var dog sync.WaitGroup
+		dog.Go(func() { sd.RunWatchdog(nctx, sdnotify.WatchdogInterval(), g.Alive, time.Now, log) })
+		<-nctx.Done()
+		dog.Wait()
+		if ctx.Err() != nil { // a signal: the ordered shutdown starts
+			if err := sd.Notify(sdnotify.Stopping); err != nil {
+				log.Warn("telling systemd the gateway is stopping", "err", err)
+			}
+		}
+	})
+	return func() { cancel(); wg.Wait() }
 }
 
 // lateBroker forwards to the MQTT client once it is connected.
