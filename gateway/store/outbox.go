@@ -7,6 +7,7 @@ import (
 	"errors"
 	"fmt"
 	"log/slog"
+	"sync"
 	"time"
 
 	"etpulse/gateway/state"
@@ -71,6 +72,12 @@ type Outbox struct {
 	history *History
 	metrics *outboxMetrics
 	notify  chan struct{}
+
+	// capMu guards the cap episode: the log says when dropping starts and
+	// when the outbox is below its cap again, not at every enqueue.
+	capMu      sync.Mutex
+	dropping   bool
+	dropsSince int // raw summaries dropped in the current episode
 }
 
 var _ Enqueuer = (*Outbox)(nil)
@@ -147,6 +154,7 @@ type enqueueResult struct {
 	queued      int
 	quarantined []string // reasons
 	dropped     int      // ClassRaw points dropped by the cap
+	depth       uint64   // points pending after the enqueue
 }
 
 // Enqueue commits points to the outbox inside the caller's write transaction
@@ -208,6 +216,7 @@ func (o *Outbox) Enqueue(tx *bbolt.Tx, pts ...Point) error {
 	if err := q.saveCount(); err != nil {
 		return fmt.Errorf("enqueue: %w", err)
 	}
+	res.depth = q.count
 	tx.OnCommit(func() { o.committed(res) })
 	return nil
 }
@@ -225,13 +234,32 @@ func (o *Outbox) committed(res enqueueResult) {
 	}
 	if res.dropped > 0 {
 		o.metrics.dropped.WithLabelValues(string(ClassRaw)).Add(float64(res.dropped))
-		o.log.Warn("outbox: cap reached, oldest raw summaries dropped", "count", res.dropped, "cap", o.opt.Cap)
 	}
+	o.capEpisode(res)
 	if res.queued > 0 {
 		select {
 		case o.notify <- struct{}{}:
 		default:
 		}
+	}
+}
+
+// capEpisode logs the start of dropping at the cap once, and its end (the
+// first enqueue that leaves the outbox below its cap) with the count
+// dropped meanwhile; the drops in between are counted by the metric only.
+func (o *Outbox) capEpisode(res enqueueResult) {
+	o.capMu.Lock()
+	defer o.capMu.Unlock()
+	switch {
+	case res.dropped > 0 && !o.dropping:
+		o.dropping, o.dropsSince = true, res.dropped
+		o.log.Warn("outbox: cap reached, oldest raw summaries dropped until the store catches up (logged again when below the cap)",
+			"cap", o.opt.Cap, "dropped", res.dropped)
+	case res.dropped > 0:
+		o.dropsSince += res.dropped
+	case o.dropping && res.depth < uint64(o.opt.Cap):
+		o.log.Info("outbox: below its cap again", "cap", o.opt.Cap, "depth", res.depth, "dropped", o.dropsSince)
+		o.dropping, o.dropsSince = false, 0
 	}
 }
 
