@@ -245,16 +245,21 @@ func TestOverrunCreditCapped(t *testing.T) {
 	assert.Contains(t, o.Overrun, "2 min")
 	assert.InDelta(t, 60, c.MinutesRun, 0, "the reported figure is kept")
 
-	// A broken (or forged) meter: 1e15 litres credits the cap, no more.
+	// A broken (or forged) meter: 1e15 litres is more than the valve can
+	// pass since the start and is refused (TestReportMinutesBeyondElapsedRefused);
+	// 4000 L an hour after the start (the flow of 66.7 L/min could pass it)
+	// credits the cap, no more.
 	c = testCommand()
 	c.Minutes = 2
 	c.Flow = c.Rate * c.Area / 60
 	c.MarkSent(c.Start)
-	o, err = c.Apply(Report{ID: c.ID, State: ReportFinished, VolumeL: 1e15, HasVolume: true}, c.Start.Add(3*time.Minute), p)
+	_, err = c.Apply(Report{ID: c.ID, State: ReportFinished, VolumeL: 1e15, HasVolume: true}, c.Start.Add(3*time.Minute), p)
+	require.Error(t, err)
+	o, err = c.Apply(Report{ID: c.ID, State: ReportFinished, VolumeL: 4000, HasVolume: true}, c.Start.Add(60*time.Minute), p)
 	require.NoError(t, err)
 	assert.InDelta(t, NetMM(2.2, 0.8, 0.9), o.CreditMM, 1e-12)
 	assert.Contains(t, o.Overrun, "volume")
-	assert.Equal(t, 1e15, c.VolumeL)
+	assert.Equal(t, 4000.0, c.VolumeL)
 
 	// Within the margin nothing is said and all of it counts.
 	c = testCommand()

@@ -27,6 +27,13 @@ const (
 	Stopped   CommandState = "stopped"
 )
 
+// ReportClockSkew is how far a valve controller's clock may differ from the
+// gateway's: a report up to this long before a command's start is taken as
+// at the start, and a reported run may exceed the time since the start by
+// this much. Common practice, no source (controllers on NTP stay within
+// seconds; two minutes covers one that resynchronises rarely).
+const ReportClockSkew = 2 * time.Minute
+
 // Open reports whether the command may still run or report (not yet
 // finished, failed, expired, cancelled or stopped).
 func (s CommandState) Open() bool {
@@ -245,6 +252,67 @@ func (c *Command) overrun(r Report, m float64) string {
 	return strings.Join(out, "; ")
 }
 
+// checkTiming refuses a report that cannot be true at now under policy p.
+// A controller runs a command from its start, so: a started report comes no
+// earlier than the start less ReportClockSkew; a finished report, or a
+// failed or stopped one that claims water, no earlier than the start; a
+// stopped report before the start only answers a stop the gateway asked for;
+// and the run a final report claims (minutes_run; else volume_l at the
+// commanded flow plus p.OverrunMargin; else, when finished, the commanded
+// minutes) fits in the time since the start plus ReportClockSkew. The
+// refusal changes nothing, so the true report that comes later is applied.
+func (c *Command) checkTiming(r Report, now time.Time, p CommandPolicy) error {
+	refuse := func(why string) error {
+		return fmt.Errorf("report %s: state %s arrived at %s, %s (command start %s); check the controller's clock, and who else may publish on its report topic: %w",
+			r.ID, r.State, now.UTC().Format(time.RFC3339), why, c.Start.UTC().Format(time.RFC3339), ErrInput)
+	}
+	claims := r.HasMinutes && r.MinutesRun > 0 || r.HasVolume && r.VolumeL > 0
+	early := now.Before(c.Start)
+	switch r.State {
+	case ReportAccepted:
+		return nil
+	case ReportStarted:
+		if now.Before(c.Start.Add(-ReportClockSkew)) {
+			return refuse("before the command's start: a controller runs a command from its start")
+		}
+		return nil
+	case ReportFinished:
+		if early {
+			return refuse("before the command's start: no run can have finished")
+		}
+	case ReportFailed:
+		if early && claims {
+			return refuse("before the command's start, claiming water no run can have given")
+		}
+	case ReportStopped:
+		switch {
+		case early && c.StopAt.IsZero():
+			return refuse("before the command's start, and no stop was asked for")
+		case early && claims:
+			return refuse("before the command's start, claiming water no run can have given")
+		}
+	}
+	elapsed := max(0, now.Sub(c.Start.Add(-ReportClockSkew)).Minutes())
+	switch {
+	case r.HasMinutes:
+		if r.MinutesRun > elapsed+1e-9 {
+			return refuse(fmt.Sprintf("minutes_run %.1f longer than the %.1f min since the command's start (%s allowed for clock differences)",
+				r.MinutesRun, elapsed, ReportClockSkew))
+		}
+	case r.HasVolume:
+		if most := c.commandedFlow() * (1 + p.OverrunMargin) * elapsed; r.VolumeL > most+1e-9 {
+			return refuse(fmt.Sprintf("volume_l %.0f more than the commanded flow plus margin gives in the %.1f min since the command's start (%.0f L)",
+				r.VolumeL, elapsed, most))
+		}
+	case r.State == ReportFinished:
+		if float64(c.Minutes) > elapsed+1e-9 {
+			return refuse(fmt.Sprintf("finished without minutes_run or volume_l (taken as the commanded %d min), but only %.1f min since the command's start",
+				c.Minutes, elapsed))
+		}
+	}
+	return nil
+}
+
 // Apply applies a report received at now under policy p. Reports are
 // idempotent: a duplicate, or one older than the known state, changes
 // nothing; water is credited once, on the first finished, failed or stopped
@@ -254,7 +322,8 @@ func (c *Command) overrun(r Report, m float64) string {
 // claims more than the command plus p.OverrunMargin is an overrun: its
 // figures are kept and named in the outcome, and the credit is capped at
 // the commanded water plus the margin (a broken or forged meter must not
-// empty the balance).
+// empty the balance). A report that cannot be true at now (see checkTiming)
+// is refused without changing the command.
 func (c *Command) Apply(r Report, now time.Time, p CommandPolicy) (Outcome, error) {
 	if err := r.Validate(); err != nil {
 		return Outcome{}, err
@@ -271,6 +340,9 @@ func (c *Command) Apply(r Report, now time.Time, p CommandPolicy) (Outcome, erro
 	if c.Attempts == 0 {
 		// Planned, or expired unsent: no controller can know of this run.
 		return Outcome{}, fmt.Errorf("report %s: command was never sent: %w", r.ID, ErrInput)
+	}
+	if err := c.checkTiming(r, now, p); err != nil {
+		return Outcome{}, err
 	}
 	rank := map[CommandState]int{Planned: 0, Sent: 1, Accepted: 2, Started: 3}
 	switch r.State {

@@ -53,7 +53,7 @@ func TestLedgerVolumeCredit(t *testing.T) {
 	c := testCommand()
 	c.MarkSent(c.Start)
 	// A meter reading of 4000 L on 5000 m2 = 0.8 mm gross; x 0.9 = 0.72 mm net.
-	o, err := c.Apply(Report{ID: c.ID, State: ReportFinished, MinutesRun: 55, HasMinutes: true, VolumeL: 4000, HasVolume: true}, c.Start, DefaultPolicy)
+	o, err := c.Apply(Report{ID: c.ID, State: ReportFinished, MinutesRun: 55, HasMinutes: true, VolumeL: 4000, HasVolume: true}, c.Start.Add(55*time.Minute), DefaultPolicy)
 	require.NoError(t, err)
 	assert.InDelta(t, 0.72, o.CreditMM, 1e-12)
 }

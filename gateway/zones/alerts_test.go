@@ -6,6 +6,7 @@ import (
 	"fmt"
 	"os"
 	"sync"
+	"sync/atomic"
 	"testing"
 	"time"
 
@@ -128,7 +129,7 @@ func (r *retained) count(topic string) int {
 func TestValveNoReportAlertMosquitto(t *testing.T) {
 	url := testenv.MQTT(t)
 	prefix := fmt.Sprintf("zatest-%d-%d", os.Getpid(), time.Now().UnixNano()%1e9)
-	clock := fastClock{base: time.Date(2026, 7, 1, 10, 0, 30, 0, fernLoc), real0: time.Now()}
+	clock := fastClock{base: time.Date(2026, 7, 1, 10, 0, 30, 0, fernLoc), real0: time.Now(), ahead: new(atomic.Int64)}
 	cfg := alertZoneConfig(t, prefix)
 	gw := dial(t, url, uniq("zones-alert-gw"))
 	f := newFixture(t, cfg, gw, clock.Now())
@@ -146,7 +147,7 @@ func TestValveNoReportAlertMosquitto(t *testing.T) {
 			return Behaviour{Lose: true} // the radio link is down for the first command
 		}
 		return Behaviour{}
-	}}
+	}, RunEnd: clock.reach} // the answered run's minutes pass at once
 	ref := f.svc.zones["fernhill/row-c"]
 	require.Equal(t, prefix+"/fernhill/zones/row-c/command", ref.cmdTopic)
 	require.NoError(t, sim.Serve(map[string]string{ref.cmdTopic: ref.reportTopic}))

@@ -99,6 +99,8 @@ type fakeClock struct {
 
 func (c *fakeClock) Now() time.Time { c.mu.Lock(); defer c.mu.Unlock(); return c.now }
 
+func (c *fakeClock) set(t time.Time) { c.mu.Lock(); defer c.mu.Unlock(); c.now = t }
+
 func newFixture(t testing.TB, cfg *config.Config, broker Broker, start time.Time) *fixture {
 	t.Helper()
 	db, err := state.Open(filepath.Join(t.TempDir(), "state.db"))

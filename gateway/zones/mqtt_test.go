@@ -10,6 +10,7 @@ import (
 	"strconv"
 	"strings"
 	"sync"
+	"sync/atomic"
 	"syscall"
 	"testing"
 	"time"
@@ -29,16 +30,38 @@ import (
 // broker tests: one real second is one minute.
 const speed = 60
 
-// fastClock runs at speed x real time from base.
+// fastClock runs at speed x real time from base (x times when x is set),
+// plus the jumps reach made (ahead, when set).
 type fastClock struct {
 	base, real0 time.Time
+	x           time.Duration
+	ahead       *atomic.Int64
+}
+
+func (c fastClock) rate() time.Duration {
+	if c.x > 0 {
+		return c.x
+	}
+	return speed
 }
 
 func (c fastClock) Now() time.Time {
-	return c.base.Add(time.Since(c.real0) * speed)
+	t := c.base.Add(time.Since(c.real0) * c.rate())
+	if c.ahead != nil {
+		t = t.Add(time.Duration(c.ahead.Load()))
+	}
+	return t
 }
 
-func (c fastClock) After(d time.Duration) <-chan time.Time { return time.After(d / speed) }
+func (c fastClock) After(d time.Duration) <-chan time.Time { return time.After(d / c.rate()) }
+
+// reach moves the clock forward to t when it is behind (ahead must be set):
+// the time a simulated valve run takes passes at once.
+func (c fastClock) reach(t time.Time) {
+	if d := t.Sub(c.Now()); d > 0 {
+		c.ahead.Add(int64(d))
+	}
+}
 
 func dial(t *testing.T, url, id string) *mqtt.Client {
 	t.Helper()
@@ -60,14 +83,17 @@ func uniq(prefix string) string {
 // answers (three attempts, expired, never credited).
 func TestValveRoundTripMosquitto(t *testing.T) {
 	url := testenv.MQTT(t)
-	clock := fastClock{base: time.Date(2026, 7, 1, 10, 0, 30, 0, fernLoc), real0: time.Now()}
+	// One real second is ten minutes: the valves report paced, and row-a's
+	// 240-minute run takes 24 s (a run reported before it can have ended is
+	// refused).
+	clock := fastClock{base: time.Date(2026, 7, 1, 10, 0, 30, 0, fernLoc), real0: time.Now(), x: 600}
 	cfg := testConfig(t)
 	gw := dial(t, url, uniq("zones-gw"))
 	f := newFixture(t, cfg, gw, clock.Now())
 	f.svc.o.Clock = clock
 	f.hour(t, record(time.Date(2026, 7, 1, 9, 0, 0, 0, fernLoc), 0.5, 0)) // 30.5 mm everywhere
 
-	sim := &ValveSimulator{MQTT: dial(t, url, uniq("zones-valves")), Behave: func(c CommandMessage) Behaviour {
+	sim := &ValveSimulator{MQTT: dial(t, url, uniq("zones-valves")), Clock: clock.Now, After: clock.After, Behave: func(c CommandMessage) Behaviour {
 		switch c.Zone {
 		case "row-a":
 			return Behaviour{Duplicate: true}
@@ -78,7 +104,8 @@ func TestValveRoundTripMosquitto(t *testing.T) {
 	}}
 	serveAndRun(t, f, sim)
 
-	// row-c expires 15 minutes after its 10:02 start: 10:17, ~17 s real.
+	// row-c expires 15 minutes after its 10:02 start (10:17, ~2 s real);
+	// row-a finishes at 14:02 (~24 s real).
 	require.Eventually(t, func() bool {
 		led, err := f.svc.Ledger("fernhill")
 		require.NoError(t, err)
@@ -234,6 +261,12 @@ func TestKillBetweenCommandAndReport(t *testing.T) {
 		"ETPULSE_ZONES_BASE=" + strconv.FormatInt(time.Date(2026, 7, 1, 10, 0, 30, 0, fernLoc).UnixNano(), 10),
 		"ETPULSE_ZONES_REAL0=" + strconv.FormatInt(real0.UnixNano(), 10),
 	}
+	// The valve reports its whole run at once (while the gateway is down);
+	// the gateway comes back four hours later, after the 240-minute run
+	// could have ended (a report of a run longer than the time since its
+	// start is refused).
+	later := append([]string{}, env...)
+	later[len(later)-2] = "ETPULSE_ZONES_BASE=" + strconv.FormatInt(time.Date(2026, 7, 1, 14, 0, 30, 0, fernLoc).UnixNano(), 10)
 	release := make(chan struct{})
 	reached := make(chan CommandMessage, 1)
 	sim := &ValveSimulator{MQTT: dial(t, url, uniq("zones-kill-valves")), Behave: func(c CommandMessage) Behaviour {
@@ -257,7 +290,7 @@ func TestKillBetweenCommandAndReport(t *testing.T) {
 	// for a retry, but the queued reports must win.
 	time.Sleep(3 * time.Second)
 
-	b := startHelper(t, env)
+	b := startHelper(t, later)
 	b.await(t, "EVENT credited "+cmd.ID)
 	// Past the retry window (ack timeout 2 min = 2 s real): nothing re-sent.
 	time.Sleep(3 * time.Second)
@@ -265,7 +298,7 @@ func TestKillBetweenCommandAndReport(t *testing.T) {
 	assert.Equal(t, 1, sim.Received(cmd.ID), "the command was not sent again after the restart")
 
 	// Restart once more and repeat the finished report: a duplicate.
-	c := startHelper(t, env)
+	c := startHelper(t, later)
 	ctx, cancel := context.WithTimeout(context.Background(), 5*time.Second)
 	defer cancel()
 	require.NoError(t, sim.Republish(ctx, reportTopic, cmd.ID))

@@ -145,6 +145,9 @@ func (r WaterRequest) Manual() controllers.ManualWater {
 // onWater applies water requests of a site and answers them.
 func (s *Service) onWater(site *siteRef) func(mqtt.Message) {
 	return func(m mqtt.Message) {
+		if !s.fromTopic(m, config.WaterTopic(s.o.TopicPrefix, site.id), "water request", site.id) {
+			return
+		}
 		reply := s.applyWater(site, m.Payload, s.o.Clock.Now())
 		b, err := json.Marshal(reply)
 		if err == nil {

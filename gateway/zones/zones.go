@@ -664,6 +664,10 @@ func (s *Service) queue(tx *bbolt.Tx, site string, ref *zoneRef, c *controllers.
 // after the commit, or when it can never be applied (malformed, unknown).
 func (s *Service) onReport(ref *zoneRef) func(mqtt.Message) {
 	return func(m mqtt.Message) {
+		if !s.fromTopic(m, ref.reportTopic, "valve report", ref.site) {
+			s.m.badReports.Inc()
+			return
+		}
 		now := s.o.Clock.Now()
 		r, err := DecodeReport(m.Payload)
 		if err != nil {
@@ -680,6 +684,20 @@ func (s *Service) onReport(ref *zoneRef) func(mqtt.Message) {
 		m.Ack()
 		s.poke()
 	}
+}
+
+// fromTopic reports whether m arrived on want, the one topic the
+// configuration names for it. A broker delivers only what a subscription
+// matches, but the handlers must not depend on how subscriptions are routed:
+// a message from any other topic is logged, acknowledged (it can never
+// apply) and dropped.
+func (s *Service) fromTopic(m mqtt.Message, want, what, site string) bool {
+	if m.Topic == want {
+		return true
+	}
+	s.log.Warn(what+" refused: not on its configured topic", "site", site, "topic", m.Topic, "want", want)
+	m.Ack()
+	return false
 }
 
 // applyReport applies one decoded report at now in one transaction. Reports
@@ -789,6 +807,9 @@ func (s *Service) applyReport(ref *zoneRef, r controllers.Report, now time.Time)
 // onHold applies hold requests of a site and answers them.
 func (s *Service) onHold(site *siteRef) func(mqtt.Message) {
 	return func(m mqtt.Message) {
+		if !s.fromTopic(m, config.HoldTopic(s.o.TopicPrefix, site.id), "hold request", site.id) {
+			return
+		}
 		now := s.o.Clock.Now()
 		reply := s.applyHold(site, m.Payload, now)
 		b, err := json.Marshal(reply)

@@ -59,7 +59,8 @@ func TestHandleHourStepsZones(t *testing.T) {
 func driveReport(f *fixture, zone string, r ReportMessage) bool {
 	b, _ := json.Marshal(r)
 	acked := false
-	f.svc.onReport(f.svc.zones["fernhill/"+zone])(mqtt.Message{Topic: "x", Payload: b, Ack: func() { acked = true }})
+	ref := f.svc.zones["fernhill/"+zone]
+	f.svc.onReport(ref)(mqtt.Message{Topic: ref.reportTopic, Payload: b, Ack: func() { acked = true }})
 	return acked
 }
 
@@ -101,8 +102,12 @@ func TestTickPlansSendsExpiresAndCredits(t *testing.T) {
 
 	// row-a: accepted, finished with a meter reading, the finished report again.
 	// Credit: 3240 L / 1000 m2 x 0.9 = 2.916 mm.
+	// The reports arrive after the runs they describe (a report of a run
+	// longer than the time since the start is refused); the scheduler's
+	// passes below keep their own times.
 	idA := "row-a-20260701T1802Z-c1"
 	require.True(t, driveReport(f, "row-a", ReportMessage{ID: idA, State: "accepted"}))
+	f.clock.set(time.Date(2026, 7, 1, 14, 2, 0, 0, fernLoc))
 	require.True(t, driveReport(f, "row-a", ReportMessage{ID: idA, State: "finished", MinutesRun: fp(240), VolumeL: fp(3240)}))
 	require.True(t, driveReport(f, "row-a", ReportMessage{ID: idA, State: "finished", MinutesRun: fp(240), VolumeL: fp(3240)}))
 	assert.InDelta(t, 30.5-2.916, f.status(t, "row-a").State.Depletion, 1e-9)
@@ -113,11 +118,12 @@ func TestTickPlansSendsExpiresAndCredits(t *testing.T) {
 	idB := "row-b-20260701T1802Z-c1"
 	require.True(t, driveReport(f, "row-b", ReportMessage{ID: idB, State: "failed", MinutesRun: fp(30), Reason: "pressure low"}))
 	assert.InDelta(t, 30.5-2.7, f.status(t, "row-b").State.Depletion, 1e-9)
+	f.clock.set(start)
 
 	// Malformed and unknown reports are acknowledged and change nothing.
 	b := []byte(`{"id": "row-a-x", "state": "finished", "minutes": 3}`)
 	acked := false
-	f.svc.onReport(f.svc.zones["fernhill/row-a"])(mqtt.Message{Payload: b, Ack: func() { acked = true }})
+	f.svc.onReport(f.svc.zones["fernhill/row-a"])(mqtt.Message{Topic: reportTopic("row-a"), Payload: b, Ack: func() { acked = true }})
 	assert.True(t, acked)
 	require.True(t, driveReport(f, "row-a", ReportMessage{ID: "row-a-unknown", State: "finished"}))
 	require.True(t, driveReport(f, "row-a", ReportMessage{ID: idB, State: "finished"}), "another zone's id")
