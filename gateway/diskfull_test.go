@@ -23,6 +23,7 @@ import (
 	"etpulse/gateway"
 	"etpulse/gateway/alert"
 	"etpulse/gateway/demo"
+	"etpulse/gateway/internal/testenv"
 	"etpulse/gateway/mqtt"
 	"etpulse/gateway/quality"
 	"etpulse/gateway/state"
@@ -108,12 +109,37 @@ func TestDiskFullPausesIntake(t *testing.T) {
 	srv, url, err := demo.StartBroker(true)
 	require.NoError(t, err)
 	t.Cleanup(func() { _ = srv.Close() })
+	diskFull(t, disk, url, "diskfull", 0, 0, 0)
+}
+
+// The same against mosquitto with a 2 s keep-alive, a queue of 8 messages
+// and a full disk for 10 s: the broker stops sending once its window of
+// unacknowledged QoS 1 messages is full and keeps the rest; the connection
+// stays up (keep-alives still flow), the held messages are acknowledged
+// after the resume, the broker sends the rest, and nothing is lost. (Had
+// the connection dropped, the broker would redeliver the unacknowledged
+// messages and the stored copies would be dropped as duplicates.)
+func TestDiskFullPausesIntakeMosquitto(t *testing.T) {
+	url := testenv.MQTT(t)
+	disk := smallDisk(t, "3m")
+	diskFull(t, disk, url, fmt.Sprintf("diskfullmq%d", time.Now().UnixNano()%1e9), 2*time.Second, 10*time.Second, 8)
+}
+
+// diskFull runs the disk-full scenario on the broker at url with topics
+// under root: the gateway's client uses keepAlive (0: the default), and the
+// disk stays full for at least hold after intake reports the pause; the
+// gateway's queue holds queue messages (0: the default).
+func diskFull(t *testing.T, disk, url, root string, keepAlive, hold time.Duration, queue int) {
 	ctx, cancel := context.WithTimeout(context.Background(), 2*time.Minute)
 	defer cancel()
 
-	sim := demo.New(demo.Options{Seed: 7, TopicRoot: "diskfull", Stations: []string{demo.Orchard, demo.Paddock},
+	sim := demo.New(demo.Options{Seed: 7, TopicRoot: root, Stations: []string{demo.Orchard, demo.Paddock},
 		DupRate: -1, LateRate: -1, BadRate: -1, ShuffleRate: -1})
-	cfg, err := sim.Config(demo.ConfigOptions{BrokerURL: url, ClientID: "diskfull-gw", StatePath: filepath.Join(disk, "s.db")})
+	// The test's clock jumps three hours at once: with the default
+	// silence_close a station whose readings are still on their way would
+	// be closed as silent, which is not what this test is about.
+	cfg, err := sim.Config(demo.ConfigOptions{BrokerURL: url, ClientID: root + "-gw", StatePath: filepath.Join(disk, "s.db"),
+		SilenceClose: 24 * time.Hour})
 	require.NoError(t, err)
 	httpAddr := freePort(t)
 	cfg.HTTP.Disabled = false
@@ -121,12 +147,13 @@ func TestDiskFullPausesIntake(t *testing.T) {
 	db, err := state.Open(cfg.State.Path)
 	require.NoError(t, err)
 	t.Cleanup(func() { _ = db.Close() })
-	client, err := mqtt.Dial(ctx, mqtt.Options{URL: url, ClientID: "diskfull-gw", Workers: 1})
+	reg := prometheus.NewRegistry()
+	client, err := mqtt.Dial(ctx, mqtt.Options{URL: url, ClientID: root + "-gw", Workers: 1, KeepAlive: keepAlive, Registerer: reg})
 	require.NoError(t, err)
 	t.Cleanup(func() { client.Close(time.Second) })
 
 	// Alert topics as a farm's operator sees them.
-	watch, err := mqtt.Dial(ctx, mqtt.Options{URL: url, ClientID: "diskfull-watch", CleanSession: true})
+	watch, err := mqtt.Dial(ctx, mqtt.Options{URL: url, ClientID: root + "-watch", CleanSession: true})
 	require.NoError(t, err)
 	t.Cleanup(func() { watch.Close(time.Second) })
 	key := alert.StateKey(demo.Site, alert.KindStateDiskFull)
@@ -148,11 +175,10 @@ func TestDiskFullPausesIntake(t *testing.T) {
 		return payloads[len(payloads)-1], len(payloads)
 	}
 
-	reg := prometheus.NewRegistry()
 	clk := demo.NewClock(sim.Start())
 	var rmu sync.Mutex
 	recs := map[string]hourly.Record{} // latest revision per station and hour
-	g, err := gateway.New(cfg, gateway.Deps{DB: db, MQTT: client, Clock: clk, Registerer: reg, Gatherer: reg,
+	g, err := gateway.New(cfg, gateway.Deps{DB: db, MQTT: client, Clock: clk, Registerer: reg, Gatherer: reg, QueueSize: queue,
 		OnRecord: func(r hourly.Record) {
 			rmu.Lock()
 			recs[r.Station+" "+r.Start.Format(time.RFC3339)] = r
@@ -166,11 +192,7 @@ func TestDiskFullPausesIntake(t *testing.T) {
 	case err := <-done:
 		t.Fatalf("gateway stopped: %v", err)
 	}
-	publish := func(msgs []demo.Message) {
-		for _, m := range msgs {
-			require.NoError(t, srv.Publish(m.Topic, m.Payload, false, 1))
-		}
-	}
+	publish := func(msgs []demo.Message) { publishAll(t, url, root+"-pub", msgs) }
 	waitHandled := func(n int) {
 		t.Helper()
 		require.Eventually(t, func() bool { return g.Handled() == uint64(n) }, 30*time.Second, 5*time.Millisecond,
@@ -217,6 +239,7 @@ func TestDiskFullPausesIntake(t *testing.T) {
 		assert.Contains(t, body, "no space left")
 		time.Sleep(100 * time.Millisecond)
 	}
+	time.Sleep(hold)
 	handledPaused := g.Handled()
 	assert.Less(t, handledPaused, uint64(len(first)+len(rest)), "every message acknowledged on a full disk")
 	select {
@@ -259,4 +282,6 @@ func TestDiskFullPausesIntake(t *testing.T) {
 	cancel()
 	require.NoError(t, <-done)
 	assert.Equal(t, uint64(len(first)+len(rest)), g.Handled(), fmt.Sprintf("handled while paused: %d", handledPaused))
+	t.Logf("messages %d, handled while paused %d, reconnects %g, duplicates dropped %g", len(first)+len(rest), handledPaused,
+		sumMetric(t, reg, "etpulse_mqtt_reconnects_total"), sumMetric(t, reg, "etpulse_readings_duplicate_total"))
 }
