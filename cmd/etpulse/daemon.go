@@ -33,7 +33,12 @@ stderr.
 
 The first SIGINT or SIGTERM stops taking messages, finishes the batch in
 hand, publishes the hours it closed, flushes the store and exits 0; a second
-one forces exit. Start from deploy/etpulse.example.yaml.`,
+one forces exit. A state file whose disk is full (or fails writes) pauses
+intake instead: messages stay unacknowledged, a critical alert is raised,
+/readyz answers 503, and intake resumes by itself once a write succeeds.
+Under systemd (Type=notify) it reports ready, pings the watchdog while its
+intake loop goes round, and reports stopping. Start from
+deploy/etpulse.example.yaml.`,
 	outro: `Exit status: 0 stopped by a signal, 1 failure at run time (e.g. the state
 file is locked by another gateway), 2 bad command line or configuration.`,
 }
