@@ -137,3 +137,19 @@ log "mosquitto on $ETPULSE_TEST_MQTT (pid ${pids[0]}), victoria-metrics on $ETPU
 go vet ./...
 staticcheck_bin ./...
 go test -count=1 -timeout 45m "$@" ./...
+
+# The fault suite (gateway/faults): the real binary under SIGKILL, broker
+# restarts, store outages and other faults, one summary line per fault.
+# Skipped when arguments were given (a targeted run).
+if [ $# -eq 0 ]; then
+	log "fault suite (about 4 minutes)"
+	faults_rc=0
+	ETPULSE_FAULTS=1 ETPULSE_FAULTS_SUMMARY="$work/faults.txt" \
+		go test -count=1 -v -timeout 8m -run '^TestFaults$' ./gateway/faults/ >"$work/faults.log" 2>&1 || faults_rc=$?
+	[ -f "$work/faults.txt" ] && cat "$work/faults.txt"
+	if [ "$faults_rc" != 0 ]; then
+		grep -vE '^(=== (RUN|PAUSE|CONT)|fault )' "$work/faults.log" | tail -n 80 >&2
+		log "fault suite failed (details above)"
+		exit "$faults_rc"
+	fi
+fi

@@ -33,10 +33,7 @@ import (
 // stay in the suite and print "fault <name>: SKIPPED (defect open: ...)";
 // ETPULSE_FAULTS_OPEN=1 runs them anyway. Remove an entry when its fix lands.
 var openDefects = map[string]string{
-	"backlog-restart": "issue 15 item 1, a restart during a backlog upload closes the rest empty",
-	"disk-full":       "issue 15 item 6, disk full is a crash loop without an alert",
-	"time-readings":   "issue 15 items 2, 4 and 7, far-past, time-less and far-future readings",
-	"forged-reports":  "issue 15 item 3, reports credited beyond the command and before its start",
+	"time-readings": "issue 15 items 2, 4 and 7, far-past, time-less and far-future readings",
 }
 
 // result is one fault's summary line.

@@ -68,15 +68,17 @@ func (s *script) config(o cfgOptions) string {
 		LateWindow: 12 * time.Hour, SilenceClose: o.silenceClose})
 	y = strings.Replace(y, `listen: "127.0.0.1:0"`, fmt.Sprintf(`listen: "127.0.0.1:%d"`, o.httpPort), 1)
 	if o.storeURL != "" {
-		y = strings.Replace(y, "\nsites:\n", fmt.Sprintf("\nstore:\n  url: %q\n  org: farm\n  bucket: etpulse\n  flush_interval: 100ms\n  max_backoff: 500ms\nsites:\n", o.storeURL), 1)
+		y = strings.Replace(y, "\nsites:\n", fmt.Sprintf("\nstore:\n  url: %q\n  org: farm\n  bucket: etpulse\n  flush_interval: 100ms\n  max_backoff: 1s\nsites:\n", o.storeURL), 1)
 	}
 	for _, r := range [][2]string{
 		{`windows: ["20:00-06:00"]`, `windows: ["00:00-24:00"]`},
 		{`windows: ["21:00-05:00"]`, `windows: ["00:00-24:00"]`},
 		{"initial_depletion_mm: 4}", "initial_depletion_mm: 30}"},
 		{"initial_depletion_mm: 16}", "initial_depletion_mm: 40}"},
-		{"          max_minutes: 180\n", "          max_minutes: 20\n"},
-		{"          max_minutes: 120\n", "          max_minutes: 15\n"},
+		// Two-minute runs: a finished report may claim no more minutes
+		// than have passed since the start plus the 2 min clock allowance.
+		{"          min_minutes: 15\n          max_minutes: 180\n", "          min_minutes: 1\n          max_minutes: 2\n"},
+		{"          min_minutes: 10\n          max_minutes: 120\n", "          min_minutes: 1\n          max_minutes: 2\n"},
 		{"          cycle_minutes: 40\n          soak_minutes: 20\n", ""},
 		{"        weather_holds: {frost_below_c: 1}\n", ""},
 		{"        weather_holds: {wind_max_m_s: 8, frost_below_c: 1}\n", ""},
