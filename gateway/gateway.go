@@ -498,7 +498,6 @@ func (g *Gateway) step(ctx context.Context, batch []mqtt.Message, byTime bool) e
 			m.Ack()
 		}
 	}
-	g.emitted.Add(uint64(emitted))
 	g.closeHours(now)
 	if emitted > 0 {
 		g.kickPublisher()
