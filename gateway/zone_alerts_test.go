@@ -24,8 +24,9 @@ import (
 
 // TestZoneAlertsWired runs the composed gateway on the invented farm
 // against mosquitto: before any hour has closed its zones have no valid ET,
-// so each raises zone-et-stale through the alert monitor (retained topic,
-// metric); the first closed hour with ET clears the orchard's zone.
+// so once max_missing_hours have passed since start each raises
+// zone-et-stale through the alert monitor (retained topic, metric); the
+// first closed hour with ET clears the orchard's zone.
 func TestZoneAlertsWired(t *testing.T) {
 	url := testenv.MQTT(t)
 	prefix := fmt.Sprintf("itzone%d", time.Now().UnixNano())
@@ -43,6 +44,9 @@ func TestZoneAlertsWired(t *testing.T) {
 		}
 	}
 	require.NotEmpty(t, zone, "a zone driven by the orchard station")
+	for i := range cfg.Sites[0].Zones {
+		cfg.Sites[0].Zones[i].FailSafe.MaxMissingHours = 1 // the alert waits this long after start
+	}
 
 	db, err := state.Open(cfg.State.Path)
 	require.NoError(t, err)
@@ -92,10 +96,12 @@ func TestZoneAlertsWired(t *testing.T) {
 		t.Fatalf("gateway stopped: %v", err)
 	}
 
+	// No alert at start; one once max_missing_hours have passed without ET.
+	clock.Set(sim.Start().Add(61 * time.Minute))
 	raised := next()
 	assert.Contains(t, raised, `"zone":"`+zone+`"`)
 	assert.Contains(t, raised, `"kind":"zone-et-stale"`)
-	assert.Contains(t, raised, `"message":"no valid ET yet; zone holds"`)
+	assert.Contains(t, raised, `"message":"no valid ET since the gateway started 1.0 h ago, limit 1 h; zone holds"`)
 	stale := func() float64 {
 		mfs, err := reg.Gather()
 		require.NoError(t, err)

@@ -53,12 +53,40 @@ func (s *Service) clear(tx *bbolt.Tx, site, zone string, kind alert.Kind, now ti
 	return nil
 }
 
-// staleAlert describes the stale-ET alert of a zone at now.
-func staleAlert(z *controllers.Zone, st *controllers.State, now time.Time) zoneAlert {
+// startedAt returns when this service started: its clock at New, or the
+// earliest tick when ticks run before that (a backtest of past days).
+func (s *Service) startedAt(now time.Time) time.Time {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	if s.started.IsZero() || now.Before(s.started) {
+		s.started = now
+	}
+	return s.started
+}
+
+// staleDue reports whether the stale-ET alert of a zone should be raised at
+// now. A zone that never had valid ET waits for max_missing_hours after the
+// service started before the alert is raised (a fresh start is not an
+// outage); once raised, the alert stays until valid ET arrives. A zone whose
+// state holds a valid ET goes stale max_missing_hours after that ET.
+func (s *Service) staleDue(z *controllers.Zone, zr *zoneRecord, now time.Time) bool {
+	if !z.Stale(&zr.State, now) {
+		return false
+	}
+	if zr.StaleAlert || !zr.State.LastValid.IsZero() {
+		return true
+	}
+	return now.Sub(s.startedAt(now)) > time.Duration(z.FailSafe.MaxMissingHours)*time.Hour
+}
+
+// staleAlert describes the stale-ET alert of a zone at now; started is when
+// the service started, named when the zone never had valid ET.
+func staleAlert(z *controllers.Zone, st *controllers.State, now, started time.Time) zoneAlert {
 	a := zoneAlert{kind: alert.KindZoneETStale, severity: alert.SeverityCritical,
 		limit: float64(z.FailSafe.MaxMissingHours)}
 	if st.LastValid.IsZero() {
-		a.message = "no valid ET yet"
+		a.value = math.Round(now.Sub(started).Hours()*10) / 10
+		a.message = fmt.Sprintf("no valid ET since the gateway started %.1f h ago, limit %d h", a.value, z.FailSafe.MaxMissingHours)
 	} else {
 		a.value = math.Round(now.Sub(st.LastValid).Hours()*10) / 10
 		a.message = fmt.Sprintf("no valid ET for %.1f h (since %s), limit %d h",

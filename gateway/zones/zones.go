@@ -126,6 +126,7 @@ type Service struct {
 
 	mu       sync.Mutex
 	resumeAt time.Time // retries of commands sent before this run wait until then
+	started  time.Time // when this service started: the stale-ET alert's grace starts here
 }
 
 // New builds the service for every zone of cfg.
@@ -143,7 +144,7 @@ func New(o Options) (*Service, error) {
 	if o.LedgerRetention <= 0 {
 		o.LedgerRetention = 30 * 24 * time.Hour
 	}
-	s := &Service{o: o, log: o.Logger, zones: map[string]*zoneRef{}, byStation: map[[2]string][]*zoneRef{}, wake: make(chan struct{}, 1)}
+	s := &Service{o: o, log: o.Logger, zones: map[string]*zoneRef{}, byStation: map[[2]string][]*zoneRef{}, wake: make(chan struct{}, 1), started: o.Clock.Now()}
 	for i := range o.Config.Sites {
 		site := &o.Config.Sites[i]
 		sr := &siteRef{id: site.ID}
@@ -611,9 +612,9 @@ func (s *Service) noteZones(tx *bbolt.Tx, b buckets, site *siteRef, recs map[str
 				events = append(events, Event{Time: now, Site: site.id, Zone: ref.id, Kind: EventSkip, Text: sk.Reason})
 			}
 		}
-		if stale := ref.z.Stale(&zr.State, now); stale != zr.StaleAlert {
+		if stale := s.staleDue(ref.z, zr, now); stale != zr.StaleAlert {
 			zr.StaleAlert, changed = stale, true
-			a := staleAlert(ref.z, &zr.State, now)
+			a := staleAlert(ref.z, &zr.State, now, s.startedAt(now))
 			text := a.message
 			if !stale {
 				text = "valid ET; zone active"

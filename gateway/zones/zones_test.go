@@ -221,8 +221,14 @@ func TestHoldsCancelPlannedCommands(t *testing.T) {
 func TestStaleETAlert(t *testing.T) {
 	start := time.Date(2026, 7, 1, 10, 0, 0, 0, fernLoc)
 	f := newFixture(t, testConfig(t), nil, start)
-	// Never had valid ET: stale from the start, no commands.
+	// Never had valid ET: no commands from the start, the alert after
+	// max_missing_hours (6 h) of running without valid ET.
 	_, sends, err := f.svc.tick(start)
+	require.NoError(t, err)
+	assert.Empty(t, sends)
+	assert.Empty(t, f.eventsOf(EventAlert), "a fresh start is not an outage")
+	late := start.Add(6*time.Hour + time.Minute)
+	_, sends, err = f.svc.tick(late)
 	require.NoError(t, err)
 	assert.Empty(t, sends)
 	led, _ := f.svc.Ledger("fernhill")
@@ -236,8 +242,8 @@ func TestStaleETAlert(t *testing.T) {
 	}))
 	assert.Equal(t, 3, alerts)
 	// Valid ET clears it.
-	f.hour(t, record(start.Add(-time.Hour), 0.5, 0))
-	_, _, err = f.svc.tick(start.Add(time.Second))
+	f.hour(t, record(late.Truncate(time.Hour).Add(-time.Hour), 0.5, 0))
+	_, _, err = f.svc.tick(late.Add(time.Second))
 	require.NoError(t, err)
 	assert.Len(t, f.eventsOf(EventAlert), 6)
 }
