@@ -56,8 +56,8 @@ func TestCheckValid(t *testing.T) {
 	// one line per channel: every sensor topic with its quantity and unit
 	assert.Regexp(t, `air-temp\s+saltbush/orchard/terrace/air-temp\s+number\s+-\s+air_temp\s+degC`, out)
 	assert.Regexp(t, `humidity\s+saltbush/orchard/terrace/humidity\s+json\s+rh\s+rel_humidity\s+%\s+time key ts`, out)
-	assert.Regexp(t, `combo\s+saltbush/orchard/creek/obs\s+fields\s+dewptf\s+dew_point\s+degF`, out)
-	assert.Regexp(t, `\n\s+windmph\s+wind\s+mph`, out)
+	assert.Regexp(t, `combo\s+saltbush/orchard/creek/obs\s+fields\s+dewpt_f\s+dew_point\s+degF`, out)
+	assert.Regexp(t, `\n\s+wind_mph\s+wind\s+mph`, out)
 	assert.NotContains(t, out, "warning")
 }
 

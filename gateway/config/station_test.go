@@ -75,7 +75,7 @@ func TestFarmExample(t *testing.T) {
 	assert.Equal(t, hourly.ClearSkyFull, creek.ClearSky)
 	combo := creek.Sensors[0]
 	assert.Equal(t, "epoch_ms", combo.TimeKey)
-	assert.Equal(t, []string{"dewptf", "rain_total_in", "solar_wm2", "tempf", "windmph"}, SortedKeys(combo.Fields))
+	assert.Equal(t, []string{"dewpt_f", "rain_total_in", "solar_wm2", "temp_f", "wind_mph"}, SortedKeys(combo.Fields))
 	assert.Equal(t, Channel{Quantity: hourly.Rain, Unit: "in", RainMode: RainCounter, RolloverAt: 655.35}, combo.Fields["rain_total_in"])
 	assert.Equal(t, []string{"battery_v", "rssi"}, combo.Ignore)
 
