@@ -1,7 +1,8 @@
 #!/usr/bin/env bash
 # Runs the whole test suite against real servers on loopback.
 #
-# Installs mosquitto, victoria-metrics and promtool (package prometheus) from
+# Installs mosquitto, victoria-metrics, promtool (package prometheus) and
+# chromium (for the status pages' browser test) from
 # the distribution's packages when they are missing, starts one private
 # instance of mosquitto and of victoria-metrics on free loopback ports with
 # temporary data directories, exports their addresses to the tests, runs
@@ -22,6 +23,8 @@ need_pkgs=()
 command -v victoria-metrics >/dev/null 2>&1 || need_pkgs+=(victoria-metrics)
 # promtool checks the metrics exposition (the server itself is not started).
 command -v promtool >/dev/null 2>&1 || need_pkgs+=(prometheus)
+# chromium runs the browser test of the status pages (headless).
+command -v chromium >/dev/null 2>&1 || need_pkgs+=(chromium)
 if [ ${#need_pkgs[@]} -gt 0 ]; then
 	if [ "$(id -u)" != 0 ]; then
 		log "missing ${need_pkgs[*]}; install them (as root: apt-get install -y ${need_pkgs[*]})"
@@ -34,6 +37,7 @@ fi
 MOSQUITTO=/usr/sbin/mosquitto
 [ -x "$MOSQUITTO" ] || MOSQUITTO=$(command -v mosquitto)
 VM=$(command -v victoria-metrics)
+CHROMIUM=$(command -v chromium)
 
 work=$(mktemp -d)
 pids=()
@@ -132,6 +136,7 @@ export ETPULSE_TEST_MQTT="tcp://127.0.0.1:$mqtt_port"
 export ETPULSE_TEST_MOSQUITTO="$MOSQUITTO"
 export ETPULSE_TEST_INFLUX="http://127.0.0.1:$vm_port"
 export ETPULSE_TEST_VICTORIA="$VM"
+export ETPULSE_TEST_CHROMIUM="$CHROMIUM"
 log "mosquitto on $ETPULSE_TEST_MQTT (pid ${pids[0]}), victoria-metrics on $ETPULSE_TEST_INFLUX (pid ${pids[1]})"
 
 go vet ./...

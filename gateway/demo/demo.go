@@ -40,6 +40,19 @@ type RunOptions struct {
 	// removed when Run returns.
 	StatePath string
 
+	// StatusAddr is where the status pages are served while the demo runs
+	// (host:port, loopback); empty picks a free port on 127.0.0.1. Serve
+	// keeps them up after the simulated days, until ctx is cancelled.
+	StatusAddr string
+	Serve      bool
+	// Notes receives the status pages' address (a line that differs from
+	// run to run, so kept apart from the table); nil means Out.
+	Notes io.Writer
+	// Served, when set, is called with the status pages' base URL once the
+	// simulated days are over and the pages show all of them (before
+	// Serve's wait).
+	Served func(url string)
+
 	// Hooks for other parts of the product to join the demo.
 	Faults     map[string]Fault     // sensor faults, keyed "<station>/<sensor>"
 	Components gateway.Components   // extra handlers, observers, gate, services
@@ -145,6 +158,9 @@ func Run(ctx context.Context, opt RunOptions) (sum Summary, err error) {
 	table := NewTable(opt.Out)
 	reg := prometheus.NewRegistry()
 	comps := opt.Components
+	// The status pages get a listener of their own (below), which outlives
+	// the gateway's run when opt.Serve asks for it.
+	cfg.HTTP.Disabled = true
 	g, err := gateway.New(cfg, gateway.Deps{
 		Logger: opt.Logger, Registerer: reg, Gatherer: reg, DB: db, MQTT: tr.client("gateway", client),
 		Clock: clk, Components: comps,
@@ -153,6 +169,15 @@ func Run(ctx context.Context, opt RunOptions) (sum Summary, err error) {
 	if err != nil {
 		return sum, err
 	}
+	pages, err := serveStatus(ctx, g, reg, opt)
+	if err != nil {
+		return sum, err
+	}
+	defer pages.stop()
+	if opt.Notes == nil {
+		opt.Notes = opt.Out
+	}
+	fmt.Fprintf(opt.Notes, "etpulse demo: status pages at %s (on the simulated farm's clock)\n", pages.url)
 	env := &Env{BrokerURL: url, Clock: clk, StatePath: statePath, Gateway: g, Table: table, Sim: sim}
 	if opt.Setup != nil {
 		if err := opt.Setup(env); err != nil {
@@ -262,6 +287,19 @@ func Run(ctx context.Context, opt RunOptions) (sum Summary, err error) {
 	sum.To = end.UTC().Truncate(24 * time.Hour).Add(24 * time.Hour)
 	sum.Wall = time.Since(began)
 	table.Footer(sum)
+	if opt.Served != nil {
+		opt.Served(pages.url)
+	}
+	if opt.Serve {
+		fmt.Fprintf(opt.Notes, "etpulse demo: the simulated days are over; status pages still at %s until Ctrl-C\n", pages.url)
+		select {
+		case <-ctx.Done():
+		case <-pages.done:
+			if pages.err != nil {
+				return sum, fmt.Errorf("status pages: %w", pages.err)
+			}
+		}
+	}
 	return sum, nil
 }
 

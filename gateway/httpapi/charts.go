@@ -50,8 +50,8 @@ type text struct {
 }
 
 const (
-	plotLeft   = 36.0 // room for the axis labels
-	plotRight  = 36.0
+	plotLeft   = 44.0 // room for the axis labels
+	plotRight  = 50.0
 	plotTop    = 10.0
 	plotBottom = 18.0
 )
@@ -113,9 +113,16 @@ func dayTicks(c *chart, a hourAxis, offset float64) {
 	}
 }
 
+// nightShades shades the hours without sun: clear-sky Rso of zero (sun
+// geometry alone, so a faulty pyranometer cannot move the night), or the
+// record's own day flag when Rso is absent.
 func nightShades(c *chart, a hourAxis, hours []status.HourView) {
 	for _, h := range hours {
-		if !h.Day {
+		night := !h.Day
+		if h.Rso != nil {
+			night = *h.Rso <= 0
+		}
+		if night {
 			c.Shades = append(c.Shades, shape{X: a.x(h.Start), Y: plotTop, W: a.step(), H: c.H - plotTop - plotBottom, Class: "night"})
 		}
 	}
@@ -303,7 +310,7 @@ func depletionChart(pg status.ZonePage) chart {
 	c.Rules = append(c.Rules, rule{X1: plotLeft, Y1: s.y(0), X2: right, Y2: s.y(0), Class: "base"})
 	c.Texts = append(c.Texts,
 		text{X: plotLeft - 3, Y: s.y(0) + 8, Text: "0", Anchor: "end", Class: "axis"},
-		text{X: plotLeft - 3, Y: s.y(s.top), Text: trimNum(s.top) + " mm", Anchor: "end", Class: "axis"})
+		text{X: plotLeft - 3, Y: s.y(s.top), Text: trimNum(s.top), Anchor: "end", Class: "axis"})
 	return c
 }
 

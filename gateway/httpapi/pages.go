@@ -18,6 +18,7 @@ import (
 const layoutHTML = `{{define "layout"}}<!doctype html>
 <html lang="en"><head><meta charset="utf-8">
 <meta name="viewport" content="width=device-width, initial-scale=1">
+<link rel="icon" href="data:,">
 <title>{{.Title}} · etpulse</title>
 <style>
 :root{--ink:#1d2327;--muted:#5f6b73;--line:#d5dadd;--bg:#f7f8f6;--card:#fff;--water:#1769aa;--water2:#8dbbe0;--alert:#c2410c;--soil:#7a6a58}
@@ -31,7 +32,7 @@ h1{font-size:1.25rem;margin:1rem 0 .3rem}h2{font-size:1.05rem;margin:1.2rem 0 .4
 .alert{color:var(--alert);font-weight:600}.due{color:var(--alert)}
 table{border-collapse:collapse;width:100%;background:var(--card)}th,td{text-align:left;padding:.3rem .4rem;border-bottom:1px solid var(--line);vertical-align:top}
 th{font-weight:600;color:var(--muted);font-size:.85rem}.scroll{overflow-x:auto}
-svg{width:100%;height:auto;display:block;background:var(--card)}svg text{font-size:11px;fill:var(--muted)}
+svg{width:100%;height:auto;display:block;background:var(--card)}svg.mini{max-width:320px;background:none}svg text{font-size:11px;fill:var(--muted)}
 .night{fill:#e9ecef}.et{fill:#4b5a63}.tick{stroke:var(--line)}.base{stroke:var(--muted)}
 .rs{fill:none;stroke:#d99a00;stroke-width:1.6}.rso{fill:none;stroke:var(--muted);stroke-width:1.2;stroke-dasharray:4 3}
 .temp{fill:none;stroke:#8b3a62;stroke-width:1.6}.rh{fill:none;stroke:var(--water2);stroke-width:1.6}
@@ -45,7 +46,7 @@ text.trigger{fill:var(--alert);stroke:none}text.target{fill:var(--water);stroke:
 </style></head><body>
 <header><b>etpulse</b><nav><a href="/">overview</a><a href="/alerts">alerts</a><a href="/report">report</a></nav><span class="muted">{{.Now}}</span></header>
 <main>{{template "body" .}}</main></body></html>{{end}}
-{{define "svg"}}<svg viewBox="0 0 {{.W}} {{.H}}" role="img" aria-label="{{.Title}}"><title>{{.Title}}</title>
+{{define "svg"}}<svg viewBox="0 0 {{.W}} {{.H}}"{{if lt .W 400.0}} class="mini"{{end}} role="img" aria-label="{{.Title}}"><title>{{.Title}}</title>
 {{range .Shades}}<rect class="{{.Class}}" x="{{f2 .X}}" y="{{f2 .Y}}" width="{{f2 .W}}" height="{{f2 .H}}"/>{{end}}
 {{range .Rules}}<line class="{{.Class}}" x1="{{f2 .X1}}" y1="{{f2 .Y1}}" x2="{{f2 .X2}}" y2="{{f2 .Y2}}"/>{{end}}
 {{range .Bars}}<rect class="bar {{.Class}}" x="{{f2 .X}}" y="{{f2 .Y}}" width="{{f2 .W}}" height="{{f2 .H}}"><title>{{.Title}}</title></rect>{{end}}
@@ -192,7 +193,7 @@ func (s *Server) render(w http.ResponseWriter, name, title string, gen time.Time
 	}
 	w.Header().Set("Content-Type", "text/html; charset=utf-8")
 	w.Header().Set("Cache-Control", "no-store")
-	w.Header().Set("Content-Security-Policy", "default-src 'none'; style-src 'unsafe-inline'; img-src 'self'; form-action 'none'; frame-ancestors 'none'")
+	w.Header().Set("Content-Security-Policy", "default-src 'none'; style-src 'unsafe-inline'; img-src 'self' data:; form-action 'none'; frame-ancestors 'none'")
 	w.Header().Set("X-Content-Type-Options", "nosniff")
 	w.Write(buf.Bytes())
 }
