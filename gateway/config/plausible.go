@@ -81,6 +81,7 @@ func (z *Zone) RateSource() string {
 // configuration; `etpulse check` prints them and still exits 0.
 func (c *Config) Warnings() []string {
 	var p Problems
+	c.placeTimeWarnings(&p)
 	for i := range c.Sites {
 		s := &c.Sites[i]
 		for j := range s.Zones {
