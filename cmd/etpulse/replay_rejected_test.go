@@ -16,18 +16,20 @@ import (
 // TestReplaySummaryCountsRejected: a reading the pipeline refuses (here one
 // that arrives after its hour closed and the late window passed, as rows out
 // of time order do) is counted by reason in the summary line, not only
-// logged row by row.
+// logged row by row. (The 01:05 row closes the station's first hour: a
+// station that has closed nothing keeps at most the late window open.)
 func TestReplaySummaryCountsRejected(t *testing.T) {
 	in := filepath.Join(t.TempDir(), "readings.csv")
 	require.NoError(t, os.WriteFile(in, []byte("time,station,quantity,value,unit\n"+
 		"2026-07-14T00:00:00Z,mast,air_temp,20,degC\n"+
+		"2026-07-14T01:05:00Z,mast,air_temp,20,degC\n"+
 		"2026-07-15T12:00:00Z,mast,air_temp,21,degC\n"+
 		"2026-07-14T00:05:00Z,mast,air_temp,20,degC\n"), 0o644))
 	var out, errOut bytes.Buffer
 	code := run(context.Background(), []string{"replay", "--config", "../../testdata/config/minimal.yaml", "--in", in}, nil, &out, &errOut)
 	require.Equal(t, exitOK, code, errOut.String())
 	assert.Regexp(t, `level=WARN msg="reading rejected" station=mast .*reason=too_old err=".*air_temp reading at 2026-07-14T00:05:00Z`, errOut.String())
-	assert.Contains(t, errOut.String(), "3 rows (0 bad, 0 duplicate), 2 readings stored")
+	assert.Contains(t, errOut.String(), "4 rows (0 bad, 0 duplicate), 3 readings stored")
 	assert.Contains(t, errOut.String(), "; 1 reading rejected (too_old 1)\n")
 }
 
@@ -38,6 +40,7 @@ func TestReplayRejectedLogRateLimited(t *testing.T) {
 	var rows strings.Builder
 	rows.WriteString("time,station,quantity,value,unit\n")
 	rows.WriteString("2026-07-14T00:00:00Z,mast,air_temp,20,degC\n")
+	rows.WriteString("2026-07-14T01:05:00Z,mast,air_temp,20,degC\n")
 	rows.WriteString("2026-07-15T12:00:00Z,mast,air_temp,21,degC\n")
 	for i := range 12 {
 		fmt.Fprintf(&rows, "2026-07-14T00:%02d:00Z,mast,air_temp,20,degC\n", i+1)

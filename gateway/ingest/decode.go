@@ -23,7 +23,7 @@ func (d *decoding) number(payload []byte) {
 		d.rejectAll(ReasonUnparseable, fmt.Errorf("payload: %w", err))
 		return
 	}
-	d.emit("", d.b.sensor.Channel, d.b.sensor.Unit, v, d.arrival)
+	d.emit("", d.b.sensor.Channel, d.b.sensor.Unit, v, stamp{d.arrival, true})
 }
 
 // json decodes {"<value_key>": 21.4, "<time_key>": ...}; other keys are
@@ -203,21 +203,22 @@ func (d *decoding) senml(payload []byte) {
 	}
 }
 
-func (d *decoding) senmlTime(bt float64, t *float64) (time.Time, error) {
+func (d *decoding) senmlTime(bt float64, t *float64) (stamp, error) {
 	rt := bt
 	if t != nil {
 		rt += *t
 	}
 	if math.IsNaN(rt) || math.IsInf(rt, 0) {
-		return time.Time{}, fmt.Errorf("time %v is not finite", rt)
+		return stamp{}, fmt.Errorf("time %v is not finite", rt)
 	}
 	if rt < senmlRelativeLimit {
 		if math.Abs(rt) > 10*365*24*3600 {
-			return time.Time{}, fmt.Errorf("relative time %v s is out of range", rt)
+			return stamp{}, fmt.Errorf("relative time %v s is out of range", rt)
 		}
-		return d.arrival.Add(time.Duration(rt * float64(time.Second))), nil
+		return stamp{d.arrival.Add(time.Duration(rt * float64(time.Second))), true}, nil
 	}
-	return unixSeconds(rt)
+	at, err := unixSeconds(rt)
+	return stamp{at, false}, err
 }
 
 // senmlUnits maps SenML unit names (RFC 8428 section 12.1 registry, from
@@ -262,16 +263,16 @@ func mustUnderstand(raw json.RawMessage) string {
 
 // timedObject decodes a JSON object payload and its reading time; on
 // failure it rejects the whole message and reports false.
-func (d *decoding) timedObject(payload []byte) (map[string]json.RawMessage, time.Time, bool) {
+func (d *decoding) timedObject(payload []byte) (map[string]json.RawMessage, stamp, bool) {
 	obj, err := decodeObject(payload)
 	if err == nil {
-		var at time.Time
+		var at stamp
 		if at, err = d.objectTime(obj); err == nil {
 			return obj, at, true
 		}
 	}
 	d.rejectAll(ReasonUnparseable, err)
-	return nil, time.Time{}, false
+	return nil, stamp{}, false
 }
 
 // decodeObject decodes a JSON object into its raw members.
@@ -295,17 +296,17 @@ func jsonErr(err error) error {
 }
 
 // objectTime reads the optional timestamp of a json or fields payload.
-func (d *decoding) objectTime(obj map[string]json.RawMessage) (time.Time, error) {
+func (d *decoding) objectTime(obj map[string]json.RawMessage) (stamp, error) {
 	key := d.b.sensor.TimeKey
 	raw, ok := obj[key]
 	if !ok || isNull(raw) {
-		return d.arrival, nil
+		return stamp{d.arrival, true}, nil
 	}
 	t, err := parseTime(raw)
 	if err != nil {
-		return time.Time{}, fmt.Errorf("payload: %s: %w", key, err)
+		return stamp{}, fmt.Errorf("payload: %s: %w", key, err)
 	}
-	return t, nil
+	return stamp{t, false}, nil
 }
 
 func isNull(raw json.RawMessage) bool { return bytes.Equal(bytes.TrimSpace(raw), []byte("null")) }

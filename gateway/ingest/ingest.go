@@ -27,6 +27,11 @@ type Reading struct {
 	// Rollover is, for Counter readings, the counter value (in mm, like
 	// Sample.Value) at which the counter wraps to zero; 0 when it never wraps.
 	Rollover float64
+	// ArrivalStamped marks a reading whose message carried no time of its
+	// own (a number payload, a JSON payload without its time key, a SenML
+	// record with a relative or no time): Sample.Time is the arrival time,
+	// not the station's clock.
+	ArrivalStamped bool
 }
 
 // Reason classifies why (part of) a message was not used. The values are
@@ -173,7 +178,14 @@ func (d *decoding) rejectKey(key string, reason Reason, err error) {
 
 // emit converts v (in unit) for the channel under key and appends the
 // reading, or a rejection.
-func (d *decoding) emit(key string, ch config.Channel, unit string, v float64, at time.Time) {
+// stamp is a reading's time and whether it is the arrival time (or relative
+// to it) rather than one the message carried.
+type stamp struct {
+	t         time.Time
+	byArrival bool
+}
+
+func (d *decoding) emit(key string, ch config.Channel, unit string, v float64, at stamp) {
 	rd, reason, err := normalise(ch, unit, v)
 	if err != nil {
 		if key != "" {
@@ -184,7 +196,7 @@ func (d *decoding) emit(key string, ch config.Channel, unit string, v float64, a
 	}
 	rd.Site, rd.Station = d.b.site, d.b.station
 	rd.Sample.Sensor = d.b.sampleName(key)
-	rd.Sample.Time = at
+	rd.Sample.Time, rd.ArrivalStamped = at.t, at.byArrival
 	d.readings = append(d.readings, rd)
 }
 

@@ -110,7 +110,7 @@ func TestFilters(t *testing.T) {
 func TestNumber(t *testing.T) {
 	r := newTestRouter(t)
 	rd := one(t, route(t, r, "bh/west/t", " 21.5\n"))
-	assert.Equal(t, Reading{Site: "brackenholm", Station: "west",
+	assert.Equal(t, Reading{Site: "brackenholm", Station: "west", ArrivalStamped: true,
 		Sample: hourly.Sample{Sensor: "t", Quantity: hourly.AirTemp, Time: arrival, Value: 21.5}}, rd)
 
 	// 70.7 degF = (70.7 - 32) x 5/9 = 21.5 degC (definition of the scale).
@@ -390,4 +390,28 @@ func TestSenMLMustUnderstandEscaped(t *testing.T) {
 	// "x\u005f" is the label "x_" with its underscore escaped.
 	rejected(t, route(t, r, "bh/east/senml", `[{"n": "east:temp", "v": 1, "x\u005f": 2}]`), ReasonUnparseable,
 		`senml record 0: unsupported must-understand label "x_"`)
+}
+
+// A reading whose message carries no time of its own is marked: the
+// pipeline does not let it drive the station's clock while the station's
+// timestamped readings flow.
+func TestArrivalStampedMarked(t *testing.T) {
+	r := newTestRouter(t)
+	for _, c := range []struct {
+		topic, payload string
+		want           bool
+	}{
+		{"bh/west/t", "21.5", true},
+		{"bh/west/rh", `{"rh": 64.5}`, true},
+		{"bh/west/rh", `{"rh": 64.5, "ts": null}`, true},
+		{"bh/west/rh", `{"rh": 64.5, "ts": "2026-06-01T09:59:30+01:00"}`, false},
+		{"bh/east/senml", `[{"n": "east:temp", "v": 11}]`, true},
+		{"bh/east/senml", `[{"n": "east:temp", "v": 11, "t": -30}]`, true},
+		{"bh/east/senml", `[{"bt": 1780308000, "n": "east:temp", "v": 11}]`, false},
+	} {
+		rds, rjs := split(route(t, r, c.topic, c.payload))
+		require.Empty(t, rjs, c.payload)
+		require.Len(t, rds, 1, c.payload)
+		assert.Equal(t, c.want, rds[0].ArrivalStamped, c.payload)
+	}
 }

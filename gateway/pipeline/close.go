@@ -1,6 +1,7 @@
 package pipeline
 
 import (
+	"encoding/binary"
 	"errors"
 	"fmt"
 	"math"
@@ -10,6 +11,7 @@ import (
 
 	"go.etcd.io/bbolt"
 
+	"etpulse/gateway/ingest"
 	"etpulse/gateway/state"
 	"etpulse/hourly"
 )
@@ -35,8 +37,14 @@ const hourStatsKeep = 25 * time.Hour
 func (p *Pipeline) Tick(now time.Time) ([]hourly.Record, error) {
 	p.mu.Lock()
 	defer p.mu.Unlock()
+	p.startClock(now)
 	var out []hourly.Record
 	var errs []error
+	recs, err := p.admitHeld(now)
+	out = append(out, recs...)
+	if err != nil {
+		errs = append(errs, err)
+	}
 	for _, st := range p.order {
 		recs, err := p.tickStation(st, now)
 		out = append(out, recs...)
@@ -48,17 +56,20 @@ func (p *Pipeline) Tick(now time.Time) ([]hourly.Record, error) {
 }
 
 func (p *Pipeline) tickStation(st *station, now time.Time) ([]hourly.Record, error) {
+	if err := p.trimQuiet(st, now); err != nil {
+		return nil, err
+	}
 	out, err := p.closeDue(st, st.watermark, now)
 	if err != nil {
 		return out, err
 	}
 	if st.dirty {
-		recs, err := p.revise(st)
+		recs, waiting, err := p.revise(st, now)
 		out = append(out, recs...)
 		if err != nil {
 			return out, err
 		}
-		st.dirty = false
+		st.dirty = waiting
 	}
 	if err := p.prune(st, now); err != nil {
 		return out, err
@@ -76,7 +87,7 @@ func (p *Pipeline) closeDue(st *station, watermark, now time.Time) ([]hourly.Rec
 	for st.hasCursor {
 		end := st.cursor.Add(time.Hour)
 		byData := !watermark.Before(end.Add(grace))
-		bySilence := !now.IsZero() && !now.Before(st.silenceDeadline(end))
+		bySilence := !now.IsZero() && st.silent(end, now)
 		if !byData && !bySilence {
 			break
 		}
@@ -115,20 +126,28 @@ func (p *Pipeline) closeHour(st *station, hour time.Time, silent bool) (hourly.R
 		if err := p.commitHour(tx, sb, st, rec, hs, tmin, tmax, true); err != nil {
 			return err
 		}
+		if err := putTime(sb.meta, keyClosedThrough, hour.Add(time.Hour)); err != nil {
+			return err
+		}
 		return putTime(sb.meta, keyCursor, hour.Add(time.Hour))
 	})
 	if err != nil {
 		return hourly.Record{}, fmt.Errorf("close hour %s: %w", hour.Format(time.RFC3339), err)
 	}
-	st.cursor = hour.Add(time.Hour)
+	st.cursor, st.closed = hour.Add(time.Hour), true
 	p.m.closed.WithLabelValues(st.id, strconv.FormatBool(rec.Complete)).Inc()
 	p.observeRecord(st, rec)
 	return rec, nil
 }
 
-// revise re-emits every closed hour of the station marked dirty.
-func (p *Pipeline) revise(st *station) ([]hourly.Record, error) {
+// revise re-emits every closed hour of the station marked dirty. When now
+// is not zero, an hour whose latest late reading came less than the close
+// grace before now waits (waiting reports that one did): a burst of late
+// readings, e.g. from a station clock that jumped back, gives one revision,
+// not one per message.
+func (p *Pipeline) revise(st *station, now time.Time) ([]hourly.Record, bool, error) {
 	var hours []time.Time
+	waiting := false
 	if err := p.db.View(func(tx *bbolt.Tx) error {
 		sb, err := st.buckets(tx)
 		if err != nil {
@@ -139,13 +158,17 @@ func (p *Pipeline) revise(st *station) ([]hourly.Record, error) {
 			if _, err := getJSON(sb.hours, k, &hs); err != nil {
 				return err
 			}
-			if hs.Dirty {
+			switch {
+			case !hs.Dirty:
+			case !now.IsZero() && now.Sub(hs.LateAt) < st.cfg.CloseGrace.D():
+				waiting = true
+			default:
 				hours = append(hours, hourFromKey(k))
 			}
 			return nil
 		})
 	}); err != nil {
-		return nil, err
+		return nil, true, err
 	}
 	var out []hourly.Record
 	for _, hour := range hours {
@@ -174,11 +197,133 @@ func (p *Pipeline) revise(st *station) ([]hourly.Record, error) {
 			return p.commitHour(tx, sb, st, rec, hs, tmin, tmax, hour.Add(time.Hour).Equal(st.cursor))
 		})
 		if err != nil {
-			return out, fmt.Errorf("revise hour %s: %w", hour.Format(time.RFC3339), err)
+			return out, true, fmt.Errorf("revise hour %s: %w", hour.Format(time.RFC3339), err)
 		}
 		p.m.revisions.WithLabelValues(st.id).Inc()
 		p.observeRecord(st, rec)
 		out = append(out, rec)
+	}
+	return out, waiting, nil
+}
+
+// trimQuiet bounds, by the wall clock, the open hours of a quiet station
+// that has closed nothing yet: when it has been silent (see station.silent)
+// its readings of hours that ended more than the late window before now are
+// dropped (counted too_old) and its first hour becomes the earliest kept
+// reading's; when none is kept it has no first hour until its next reading.
+// So a lone reading stamped decades ago (a device with an unset clock) is
+// dropped instead of starting decades of empty hours.
+func (p *Pipeline) trimQuiet(st *station, now time.Time) error {
+	lw := st.cfg.LateWindow.D()
+	end := st.cursor.Add(time.Hour)
+	if st.closed || !st.hasCursor || now.Sub(end) <= lw || !st.silent(end, now) {
+		return nil
+	}
+	var rejs []ingest.Rejection
+	var cursor time.Time
+	if err := p.db.Update(func(tx *bbolt.Tx) error {
+		sb, err := st.buckets(tx)
+		if err != nil {
+			return err
+		}
+		if rejs, err = dropBefore(sb, st, st.hourStart(now.Add(-lw)), lw, "the gateway clock "+now.UTC().Format(time.RFC3339)); err != nil {
+			return err
+		}
+		k, _ := sb.samples.Cursor().First()
+		if k == nil {
+			return sb.meta.Delete(keyCursor)
+		}
+		cursor = hourFromKey(k)
+		return putTime(sb.meta, keyCursor, cursor)
+	}); err != nil {
+		return fmt.Errorf("drop readings older than the late window: %w", err)
+	}
+	st.cursor, st.hasCursor = cursor, !cursor.IsZero()
+	for _, r := range rejs {
+		p.m.rejected.WithLabelValues(stationLabel(st.id), string(r.Reason)).Inc()
+		p.rejects.note(now, stationLabel(st.id), r)
+	}
+	return nil
+}
+
+// latestOf returns the later of a and b.
+func latestOf(a, b time.Time) time.Time {
+	if b.After(a) {
+		return b
+	}
+	return a
+}
+
+// admitHeld takes the held readings that the gateway clock has reached
+// (within max_future of now) through Ingest and removes them from the held
+// bucket. A crash between the two takes them again at the next start: they
+// are then duplicates, dropped.
+func (p *Pipeline) admitHeld(now time.Time) ([]hourly.Record, error) {
+	var out []hourly.Record
+	for _, st := range p.order {
+		if st.held == 0 {
+			continue
+		}
+		lim := now.Add(st.cfg.MaxFuture.D())
+		var rds []ingest.Reading
+		var keys [][]byte
+		var next, arrived time.Time
+		if err := p.db.View(func(tx *bbolt.Tx) error {
+			sb, err := st.buckets(tx)
+			if err != nil {
+				return err
+			}
+			c := sb.held.Cursor()
+			for k, v := c.First(); k != nil && len(k) >= 8; k, v = c.Next() {
+				at := time.Unix(0, int64(binary.BigEndian.Uint64(k[:8]))).UTC()
+				if at.After(lim) {
+					next = at
+					break
+				}
+				var h heldReading
+				if err := jsonUnmarshal(v, &h); err != nil {
+					return fmt.Errorf("held reading: %w", err)
+				}
+				rds = append(rds, ingest.Reading{Site: st.site, Station: st.id, Counter: h.Counter, Rollover: h.Rollover,
+					Sample: hourly.Sample{Sensor: string(k[8:]), Quantity: h.Quantity, Time: at, Value: h.Value}})
+				if h.Arrival.After(arrived) {
+					arrived = h.Arrival
+				}
+				keys = append(keys, append([]byte(nil), k...))
+			}
+			return nil
+		}); err != nil {
+			return out, fmt.Errorf("station %s/%s: held readings: %w", st.site, st.id, err)
+		}
+		if len(rds) == 0 {
+			continue
+		}
+		// They arrived when they were held: the station is as quiet as it
+		// was, and they were stamped by the station's clock then.
+		prevArrival, prevStamped := st.arrival, st.stampedArrival
+		res, err := p.ingest(now, rds)
+		st.arrival, st.stampedArrival = latestOf(prevArrival, arrived), latestOf(prevStamped, arrived)
+		out = append(out, res.Records...)
+		if err != nil {
+			return out, fmt.Errorf("station %s/%s: admit held readings: %w", st.site, st.id, err)
+		}
+		if err := p.db.Update(func(tx *bbolt.Tx) error {
+			sb, err := st.buckets(tx)
+			if err != nil {
+				return err
+			}
+			for _, k := range keys {
+				if err := sb.held.Delete(k); err != nil {
+					return err
+				}
+			}
+			return nil
+		}); err != nil {
+			return out, fmt.Errorf("station %s/%s: remove admitted held readings: %w", st.site, st.id, err)
+		}
+		st.held, st.heldFirst = st.held-len(keys), next
+		p.m.held.WithLabelValues(stationLabel(st.id)).Set(float64(st.held))
+		p.log.Info("held readings admitted", "station", st.id, "count", len(keys))
 	}
 	return out, nil
 }

@@ -20,6 +20,7 @@ type metrics struct {
 	revisions  *prometheus.CounterVec // station
 	lastET     *prometheus.GaugeVec   // station, reference
 	lastClosed *prometheus.GaugeVec   // station
+	held       *prometheus.GaugeVec   // station
 }
 
 func newMetrics(reg prometheus.Registerer) (*metrics, error) {
@@ -52,8 +53,12 @@ func newMetrics(reg prometheus.Registerer) (*metrics, error) {
 			Name: "etpulse_last_hour_closed_timestamp_seconds",
 			Help: "End of the station's most recently closed hour, Unix seconds.",
 		}, []string{"station"}),
+		held: prometheus.NewGaugeVec(prometheus.GaugeOpts{
+			Name: "etpulse_readings_held",
+			Help: "Readings further ahead of the gateway clock than the station's max_future, held until the clock reaches them.",
+		}, []string{"station"}),
 	}
-	if err := promreg.Register(reg, "pipeline", m.received, m.rejected, m.duplicates, m.closed, m.revisions, m.lastET, m.lastClosed); err != nil {
+	if err := promreg.Register(reg, "pipeline", m.received, m.rejected, m.duplicates, m.closed, m.revisions, m.lastET, m.lastClosed, m.held); err != nil {
 		return nil, err
 	}
 	return m, nil

@@ -1,6 +1,7 @@
 package pipeline
 
 import (
+	"encoding/binary"
 	"errors"
 	"fmt"
 	"log/slog"
@@ -45,7 +46,15 @@ type Options struct {
 	Handlers   []HourHandler         // called inside each closing transaction, in order
 	Observers  []SampleObserver      // called for each accepted sample after commit
 	Gate       QualityGate           // optional
+	// HeldLimit is how many readings ahead of the gateway clock each
+	// station holds at most (0: DefaultHeldLimit).
+	HeldLimit int
 }
+
+// DefaultHeldLimit is how many readings further ahead of the gateway clock
+// than max_future a station holds by default: a day of ten sensors every
+// minute and then some. Common practice, no source.
+const DefaultHeldLimit = 20000
 
 // Pipeline keeps the durable hour bins of every configured station and closes
 // hours into records. Its methods are safe for concurrent use, but Ingest and
@@ -60,9 +69,12 @@ type Pipeline struct {
 	observers []SampleObserver
 	gate      QualityGate
 
+	heldLimit int
+
 	mu       sync.Mutex // serialises Ingest/Tick and guards the station mirrors
 	stations map[stationID]*station
 	order    []*station // configuration order, for stable output
+	started  bool       // the clock has been read once since New (see startClock)
 }
 
 type stationID struct{ site, station string }
@@ -81,11 +93,30 @@ type station struct {
 	cursor    time.Time // start of the earliest hour not yet closed
 	watermark time.Time // latest reading time accepted
 	dirty     bool      // a closed hour may need a revision
+	// closed: the station has closed an hour (the closed_through mark is in
+	// its meta bucket; pruning never removes it).
+	closed bool
 	// arrival is the pipeline clock when the station's latest reading was
-	// accepted (memory only). A station is quiet, and its hour may close by
-	// the wall clock, only when nothing has arrived for SilenceClose: a
-	// logger uploading a backlog closes its hours by their own clock.
+	// accepted. A station is quiet, and its hour may close by the wall
+	// clock, only when nothing has arrived for SilenceClose: a logger
+	// uploading a backlog closes its hours by their own clock. After a
+	// restart it is the latest persisted arrival of its sensors or the
+	// process start (the first clock reading of the pipeline), whichever is
+	// later: a station uploading a backlog when the gateway stopped is not
+	// taken for a quiet one by the first pass, and a station that was
+	// quiet gets SilenceClose after the start to say something.
 	arrival time.Time
+	// stampedArrival is the pipeline clock when the station's latest reading
+	// carrying its own time was accepted (restored like arrival). While it
+	// is within SilenceClose, readings stamped by their arrival do not move
+	// the station's watermark: its hours close by its own clock.
+	stampedArrival time.Time
+	// lateAt is the pipeline clock when the latest late reading (for an
+	// already closed hour) was accepted; a revision waits until the hour has
+	// had no late reading for CloseGrace.
+	lateAt    time.Time
+	held      int       // readings in the held bucket
+	heldFirst time.Time // time of the earliest held reading (zero: none known)
 }
 
 // silenceDeadline is when the wall clock may close the station's hour that
@@ -97,6 +128,33 @@ func (st *station) silenceDeadline(end time.Time) time.Time {
 		d = a
 	}
 	return d
+}
+
+// silent reports whether the wall clock may close the station's hour that
+// ends at end. The two conditions are compared separately so that, when
+// now and arrival both come from time.Now in this process, the silence is
+// measured on the monotonic clock: a step of the wall clock (a fast clock
+// set right, or set wrong) is not a silence.
+func (st *station) silent(end, now time.Time) bool {
+	silence := st.cfg.SilenceClose.D()
+	return !now.Before(end.Add(silence)) && now.Sub(st.arrival) >= silence
+}
+
+// startClock is called with the pipeline clock by Ingest and Tick: the
+// first call after New is the process start (see station.arrival).
+func (p *Pipeline) startClock(now time.Time) {
+	if p.started {
+		return
+	}
+	p.started = true
+	for _, st := range p.order {
+		if now.After(st.arrival) {
+			st.arrival = now
+		}
+		if !st.stampedArrival.IsZero() && now.After(st.stampedArrival) {
+			st.stampedArrival = now
+		}
+	}
 }
 
 // New builds a pipeline for every station of cfg and loads their state.
@@ -111,10 +169,14 @@ func New(cfg *config.Config, o Options) (*Pipeline, error) {
 	if err != nil {
 		return nil, err
 	}
+	if o.HeldLimit <= 0 {
+		o.HeldLimit = DefaultHeldLimit
+	}
 	p := &Pipeline{
 		db: o.DB, log: o.Logger, m: m, rejects: newRejectLog(o.Logger),
 		handlers: o.Handlers, observers: o.Observers, gate: o.Gate,
-		stations: map[stationID]*station{},
+		heldLimit: o.HeldLimit,
+		stations:  map[stationID]*station{},
 	}
 	for _, site := range cfg.Sites {
 		for _, sc := range site.Stations {
@@ -134,7 +196,28 @@ func New(cfg *config.Config, o Options) (*Pipeline, error) {
 			}
 			st.cursor, st.hasCursor = getTime(sb.meta, keyCursor)
 			st.watermark, _ = getTime(sb.meta, keyWatermark)
+			_, st.closed = getTime(sb.meta, keyClosedThrough)
 			st.dirty = true // look for revisions left pending by a crash
+			if err := sb.seen.ForEach(func(k, v []byte) error {
+				var ss seenState
+				if err := jsonUnmarshal(v, &ss); err != nil {
+					return fmt.Errorf("seen %s: %w", k, err)
+				}
+				if ss.Arrival.After(st.arrival) {
+					st.arrival = ss.Arrival
+				}
+				if ss.Stamped && ss.Arrival.After(st.stampedArrival) {
+					st.stampedArrival = ss.Arrival
+				}
+				return nil
+			}); err != nil {
+				return err
+			}
+			st.held = sb.held.Stats().KeyN
+			if k, _ := sb.held.Cursor().First(); len(k) >= 8 {
+				st.heldFirst = time.Unix(0, int64(binary.BigEndian.Uint64(k[:8]))).UTC()
+			}
+			p.m.held.WithLabelValues(stationLabel(st.id)).Set(float64(st.held))
 		}
 		return nil
 	}); err != nil {
@@ -172,6 +255,7 @@ type IngestResult struct {
 	Accepted   int                // readings stored (including late ones)
 	Late       int                // of Accepted, readings for an already closed hour (a revision follows on Tick)
 	Duplicates int                // readings already stored (same sensor and timestamp)
+	Held       int                // readings ahead of the gateway clock, held until it reaches them
 	Rejected   []ingest.Rejection // readings refused, each with its reason
 	// Records are the hours the readings' own clock closed during the call
 	// (first emissions), in order; they are also pending until MarkPublished.
@@ -193,6 +277,12 @@ type IngestResult struct {
 func (p *Pipeline) Ingest(now time.Time, readings []ingest.Reading) (IngestResult, error) {
 	p.mu.Lock()
 	defer p.mu.Unlock()
+	p.startClock(now)
+	return p.ingest(now, readings)
+}
+
+// ingest is Ingest with p.mu held.
+func (p *Pipeline) ingest(now time.Time, readings []ingest.Reading) (IngestResult, error) {
 	var res IngestResult
 	noStop := map[*station]bool{}
 	for len(readings) > 0 {
@@ -230,6 +320,7 @@ func (p *Pipeline) ingestTx(now time.Time, readings []ingest.Reading, noStop map
 		consumed int
 		stop     *station
 		late     int
+		held     int
 	)
 	err := p.db.Update(func(tx *bbolt.Tx) error {
 		seen := map[*station]map[string]seenState{}
@@ -243,7 +334,7 @@ func (p *Pipeline) ingestTx(now time.Time, readings []ingest.Reading, noStop map
 			}
 			mu := updates[st]
 			if mu == nil {
-				mu = &mirror{cursor: st.cursor, hasCursor: st.hasCursor, watermark: st.watermark}
+				mu = &mirror{cursor: st.cursor, hasCursor: st.hasCursor, watermark: st.watermark, stampedArrival: st.stampedArrival}
 				updates[st] = mu
 			}
 			sb, err := st.buckets(tx)
@@ -260,11 +351,60 @@ func (p *Pipeline) ingestTx(now time.Time, readings []ingest.Reading, noStop map
 				continue
 			}
 			if lim := now.Add(st.cfg.MaxFuture.D()); s.Time.After(lim) {
-				reject(ingest.ReasonTooFuture, fmt.Errorf("%s reading time %s is more than %s ahead of the gateway clock %s",
-					s.Quantity, s.Time.Format(time.RFC3339), st.cfg.MaxFuture, now.UTC().Format(time.RFC3339)))
+				// The gateway clock may be behind (a box booted before its
+				// clock was set): hold the reading until the clock reaches
+				// it, up to the holding limit.
+				if st.held+mu.held >= p.heldLimit {
+					reject(ingest.ReasonTooFuture, fmt.Errorf("%s reading time %s is more than %s ahead of the gateway clock %s and the station already holds %d readings ahead of the clock (the limit): check the gateway's and the station's clocks",
+						s.Quantity, s.Time.Format(time.RFC3339), st.cfg.MaxFuture, now.UTC().Format(time.RFC3339), p.heldLimit))
+					continue
+				}
+				fresh, err := putHeld(sb.held, rd, now)
+				if err != nil {
+					return err
+				}
+				if fresh {
+					mu.held++
+					held++
+					if st.heldFirst.IsZero() || s.Time.Before(st.heldFirst) {
+						st.heldFirst = s.Time
+					}
+				} else {
+					dups = append(dups, st.id)
+				}
 				continue
 			}
 			hour := st.hourStart(s.Time)
+			end := hour.Add(time.Hour)
+			lw := st.cfg.LateWindow.D()
+			// A station that has closed nothing yet keeps at most the late
+			// window open, by its own clock: a reading whose hour ended more
+			// than the late window before its latest reading does not move
+			// its first hour back (a device with an unset clock must not
+			// start decades of hours); trimQuiet bounds it by the wall clock.
+			if !st.closed && mu.hasCursor && mu.watermark.Sub(end) > lw {
+				reject(ingest.ReasonTooOld, fmt.Errorf("%s reading time %s: its hour ended more than the late window of %s before the station's latest reading at %s, and no hour of the station has closed yet; check the device clock",
+					s.Quantity, s.Time.Format(time.RFC3339), st.cfg.LateWindow, mu.watermark.Format(time.RFC3339)))
+				continue
+			}
+			// A reading stamped by its arrival drives the station's clock
+			// only while no reading with a time of its own has come for
+			// SilenceClose: otherwise it would close the hours of a backlog
+			// or of a logger that publishes a few minutes late.
+			drives := !rd.ArrivalStamped || mu.stampedArrival.IsZero() || now.Sub(mu.stampedArrival) >= st.cfg.SilenceClose.D()
+			if drives && !st.closed && mu.hasCursor && s.Time.Sub(mu.cursor.Add(time.Hour)) > lw {
+				dropped, err := dropBefore(sb, st, st.hourStart(s.Time.Add(-lw)), lw, "the station's reading at "+s.Time.Format(time.RFC3339))
+				if err != nil {
+					return err
+				}
+				rejs = append(rejs, dropped...)
+				// The first hour is now the earliest kept reading's, or this
+				// one's: no empty hours are closed for the dropped ones.
+				mu.cursor = hour
+				if k, _ := sb.samples.Cursor().First(); k != nil && hourFromKey(k).Before(hour) {
+					mu.cursor = hourFromKey(k)
+				}
+			}
 			isLate := false
 			if mu.hasCursor && hour.Before(mu.cursor) {
 				var hs hourState
@@ -272,9 +412,8 @@ func (p *Pipeline) ingestTx(now time.Time, readings []ingest.Reading, noStop map
 				if err != nil {
 					return err
 				}
-				end := hour.Add(time.Hour)
 				switch {
-				case !ok && noneClosed(sb):
+				case !ok && !st.closed:
 					// Nothing closed yet: move the cursor back.
 					mu.cursor = hour
 				case !ok || now.Sub(end) > st.cfg.LateWindow.D():
@@ -290,7 +429,7 @@ func (p *Pipeline) ingestTx(now time.Time, readings []ingest.Reading, noStop map
 				dups = append(dups, st.id)
 				continue
 			}
-			if mu.hasCursor && !noStop[st] && !s.Time.Before(mu.cursor.Add(time.Hour+st.cfg.CloseGrace.D())) {
+			if drives && mu.hasCursor && !noStop[st] && !s.Time.Before(mu.cursor.Add(time.Hour+st.cfg.CloseGrace.D())) {
 				stop = st // close the due hours before taking this reading
 				return p.commitIngest(tx, updates, seen)
 			}
@@ -314,11 +453,9 @@ func (p *Pipeline) ingestTx(now time.Time, readings []ingest.Reading, noStop map
 				if _, err := getJSON(sb.hours, hourKey(hour), &hs); err != nil {
 					return err
 				}
-				if !hs.Dirty {
-					hs.Dirty = true
-					if err := putJSON(sb.hours, hourKey(hour), hs); err != nil {
-						return err
-					}
+				hs.Dirty, hs.LateAt = true, now.UTC()
+				if err := putJSON(sb.hours, hourKey(hour), hs); err != nil {
+					return err
 				}
 				mu.dirty = true
 				late++
@@ -326,14 +463,17 @@ func (p *Pipeline) ingestTx(now time.Time, readings []ingest.Reading, noStop map
 			if !mu.hasCursor {
 				mu.cursor, mu.hasCursor = hour, true
 			}
-			if s.Time.After(mu.watermark) {
+			if drives && s.Time.After(mu.watermark) {
 				mu.watermark = s.Time
+			}
+			if !rd.ArrivalStamped {
+				mu.stampedArrival = now
 			}
 			if seen[st] == nil {
 				seen[st] = map[string]seenState{}
 			}
 			ss := seen[st][s.Sensor]
-			ss.Arrival = now.UTC()
+			ss.Arrival, ss.Stamped = now.UTC(), !rd.ArrivalStamped
 			if s.Time.After(ss.Reading) {
 				ss.Reading = s.Time
 			}
@@ -349,6 +489,16 @@ func (p *Pipeline) ingestTx(now time.Time, readings []ingest.Reading, noStop map
 	for st, mu := range updates {
 		st.cursor, st.hasCursor, st.watermark = mu.cursor, mu.hasCursor, mu.watermark
 		st.dirty = st.dirty || mu.dirty
+		if mu.dirty {
+			st.lateAt = now
+		}
+		if !mu.stampedArrival.IsZero() && !st.stampedArrival.Equal(mu.stampedArrival) {
+			st.stampedArrival = mu.stampedArrival
+		}
+		if mu.held > 0 {
+			st.held += mu.held
+			p.m.held.WithLabelValues(stationLabel(st.id)).Set(float64(st.held))
+		}
 	}
 	for _, a := range acc {
 		if now.After(a.st.arrival) {
@@ -366,6 +516,7 @@ func (p *Pipeline) ingestTx(now time.Time, readings []ingest.Reading, noStop map
 	res.Duplicates += len(dups)
 	res.Accepted += len(acc)
 	res.Late += late
+	res.Held += held
 	for _, a := range acc {
 		for _, o := range p.observers {
 			o.ObserveSample(a.st.site, a.st.id, a.s, now)
@@ -376,10 +527,12 @@ func (p *Pipeline) ingestTx(now time.Time, readings []ingest.Reading, noStop map
 
 // mirror is a station's cursor and watermark as a transaction changes them.
 type mirror struct {
-	cursor    time.Time
-	hasCursor bool
-	watermark time.Time
-	dirty     bool
+	cursor         time.Time
+	hasCursor      bool
+	watermark      time.Time
+	dirty          bool
+	stampedArrival time.Time
+	held           int // readings added to the held bucket
 }
 
 // commitIngest writes the changed cursors, watermarks and last-seen times.
@@ -421,12 +574,43 @@ func (p *Pipeline) commitIngest(tx *bbolt.Tx, updates map[*station]*mirror, seen
 	return nil
 }
 
-// noneClosed reports whether the station has never closed an hour. Hours
-// close in sequence and their states outlive the late window, so once one
-// closed the bucket is never empty again.
-func noneClosed(sb stationBuckets) bool {
-	k, _ := sb.hours.Cursor().First()
-	return k == nil
+// dropBefore deletes the stored readings of a station that has closed
+// nothing yet whose hours start before floor (more than the late window lw
+// behind ref, which names the time it is measured from), and returns one
+// too_old rejection for each.
+func dropBefore(sb stationBuckets, st *station, floor time.Time, lw time.Duration, ref string) ([]ingest.Rejection, error) {
+	var out []ingest.Rejection
+	c := sb.samples.Cursor()
+	for k, v := c.First(); k != nil && hourFromKey(k).Before(floor); k, v = c.First() {
+		smp, err := decodeSample(k, v)
+		if err != nil {
+			return nil, err
+		}
+		out = append(out, ingest.Rejection{Reason: ingest.ReasonTooOld, Site: st.site, Station: st.id, Sensor: smp.Sensor,
+			Err: fmt.Errorf("%s reading time %s: more than the late window of %s before %s, and no hour of the station has closed yet: dropped (check the device clock)",
+				smp.Quantity, smp.Time.Format(time.RFC3339), lw, ref)})
+		if err := c.Delete(); err != nil {
+			return nil, fmt.Errorf("drop reading: %w", err)
+		}
+	}
+	return out, nil
+}
+
+// heldKey is a held reading's key: its time, then its sensor.
+func heldKey(s hourly.Sample) []byte {
+	k := make([]byte, 0, 8+len(s.Sensor))
+	k = append(k, u64(uint64(s.Time.UnixNano()))...)
+	return append(k, s.Sensor...)
+}
+
+// putHeld stores a reading ahead of the gateway clock; false when the same
+// sensor and time is held already (a redelivery).
+func putHeld(b *bbolt.Bucket, rd ingest.Reading, now time.Time) (bool, error) {
+	k := heldKey(rd.Sample)
+	if b.Get(k) != nil {
+		return false, nil
+	}
+	return true, putJSON(b, k, heldReading{Quantity: rd.Sample.Quantity, Value: rd.Sample.Value, Counter: rd.Counter, Rollover: rd.Rollover, Arrival: now.UTC()})
 }
 
 // counterIncrement turns a cumulative counter reading into the rain fallen

@@ -141,19 +141,29 @@ func (p *Pipeline) Record(site, stationID string, hourStart time.Time) (hourly.R
 }
 
 // NextDeadline returns the earliest wall-clock time at which a station's open
-// hour closes by silence, or the zero time when no station has an open hour.
-// The gateway sleeps until then when no readings arrive.
+// hour closes by silence, a revision waiting for its late readings to stop
+// is due, or a held reading comes within max_future of the clock; the zero
+// time when there is none. The gateway sleeps until then when no readings
+// arrive.
 func (p *Pipeline) NextDeadline() time.Time {
 	p.mu.Lock()
 	defer p.mu.Unlock()
 	var next time.Time
-	for _, st := range p.order {
-		if !st.hasCursor {
-			continue
-		}
-		d := st.silenceDeadline(st.cursor.Add(time.Hour))
+	add := func(d time.Time) {
 		if next.IsZero() || d.Before(next) {
 			next = d
+		}
+	}
+	for _, st := range p.order {
+		if st.hasCursor {
+			add(st.silenceDeadline(st.cursor.Add(time.Hour)))
+		}
+		if st.dirty && !st.lateAt.IsZero() {
+			// a revision waiting for its late readings to stop
+			add(st.lateAt.Add(st.cfg.CloseGrace.D()))
+		}
+		if st.held > 0 && !st.heldFirst.IsZero() {
+			add(st.heldFirst.Add(-st.cfg.MaxFuture.D()))
 		}
 	}
 	return next
@@ -176,7 +186,7 @@ func (p *Pipeline) Flush() ([]hourly.Record, error) {
 		recs, err := p.closeDue(st, wm, time.Time{})
 		out = append(out, recs...)
 		if err == nil && st.dirty {
-			recs, err = p.revise(st)
+			recs, _, err = p.revise(st, time.Time{})
 			out = append(out, recs...)
 			st.dirty = err != nil
 		}
@@ -199,7 +209,7 @@ func (p *Pipeline) Revise() ([]hourly.Record, error) {
 		if !st.dirty {
 			continue
 		}
-		recs, err := p.revise(st)
+		recs, _, err := p.revise(st, time.Time{})
 		out = append(out, recs...)
 		if err != nil {
 			errs = append(errs, fmt.Errorf("station %s/%s: %w", st.site, st.id, err))

@@ -83,6 +83,9 @@ type heldReading struct {
 	Value    float64         `json:"value"`
 	Counter  bool            `json:"counter,omitempty"`
 	Rollover float64         `json:"rollover,omitempty"`
+	// Arrival is the pipeline clock when the reading arrived: admitting
+	// it later does not make its station look less quiet than it was.
+	Arrival time.Time `json:"arrival"`
 }
 
 func u64(v uint64) []byte {
