@@ -22,6 +22,7 @@ type chart struct {
 	Lines  []polyline
 	Rules  []rule
 	Marks  []shape
+	Over   []rule // drawn over the bars (the depletion bar's ticks)
 	Texts  []text
 }
 
@@ -359,7 +360,7 @@ func depletionBar(z status.ZoneSummary) chart {
 		class string
 	}{{z.Target, "target"}, {z.RAW, "raw"}, {z.Trigger, "trigger"}} {
 		if t.v > 0 {
-			c.Rules = append(c.Rules, rule{X1: x(t.v), Y1: 2, X2: x(t.v), Y2: 24, Class: t.class})
+			c.Over = append(c.Over, rule{X1: x(t.v), Y1: 2, X2: x(t.v), Y2: 24, Class: t.class})
 		}
 	}
 	return c

@@ -52,6 +52,7 @@ text.trigger{fill:var(--alert);stroke:none}text.target{fill:var(--water);stroke:
 {{range .Bars}}<rect class="bar {{.Class}}" x="{{f2 .X}}" y="{{f2 .Y}}" width="{{f2 .W}}" height="{{f2 .H}}"><title>{{.Title}}</title></rect>{{end}}
 {{range .Lines}}<polyline class="{{.Class}}" points="{{.Points}}"/>{{end}}
 {{range .Marks}}<rect class="mark {{.Class}}" x="{{f2 .X}}" y="{{f2 .Y}}" width="{{f2 .W}}" height="{{f2 .H}}"><title>{{.Title}}</title></rect>{{end}}
+{{range .Over}}<line class="{{.Class}}" x1="{{f2 .X1}}" y1="{{f2 .Y1}}" x2="{{f2 .X2}}" y2="{{f2 .Y2}}"/>{{end}}
 {{range .Texts}}<text class="{{.Class}}" x="{{f2 .X}}" y="{{f2 .Y}}" text-anchor="{{.Anchor}}">{{.Text}}</text>{{end}}
 </svg>{{end}}
 {{define "alertrows"}}<div class="scroll"><table><tr><th>where</th><th>kind</th><th>evidence</th><th>since</th><th>updated</th>{{if .Cleared}}<th>cleared</th>{{end}}</tr>
@@ -71,7 +72,7 @@ const overviewHTML = `{{define "body"}}{{with .Data}}
 {{template "svg" (bar .)}}
 <div>depletion <b>{{printf "%.1f" .Depletion}}</b> mm · RAW {{printf "%.1f" .RAW}} · TAW {{printf "%.1f" .TAW}}{{if .Stressed}} · <span class="alert">stress (Ks &lt; 1)</span>{{end}}</div>
 <div>{{if .Hold}}<span class="alert">hold ({{.Hold.Scope}}){{if .Hold.Until}} until {{local .Hold.Until $zo}}{{end}}: {{.Hold.Reason}}</span>{{else}}<span class="muted">no hold</span>{{end}}</div>
-<div>next run {{with .NextRun}}{{local .Start $zo}} · {{.Minutes}} min × {{.Cycles}} cycle{{if gt .Cycles 1}}s{{end}}{{else}}<span class="muted">none planned</span>{{end}}</div>
+<div>next run {{with .NextRun}}{{local .Start $zo}} · {{.Minutes}} min × {{.Cycles}} cycle{{if gt .Cycles 1}}s{{end}}{{else}}{{if and (not .Hold) (gt .Trigger 0.0) (ge .Depletion .Trigger)}}<span class="alert">due: waits for its watering window</span>{{else}}<span class="muted">none planned</span>{{end}}{{end}}</div>
 </div>{{end}}</div>
 <p class="key"><span><i style="background:var(--soil)"></i>depletion</span><span><i style="background:var(--alert)"></i>at or past the trigger</span><span><i style="background:var(--water)"></i>refill target</span></p>
 <p>{{if .ActiveAlerts}}<a class="alert" href="/alerts">{{.ActiveAlerts}} active alert{{if gt .ActiveAlerts 1}}s{{end}}</a>{{else}}<a href="/alerts">no active alerts</a>{{end}}</p>
@@ -99,7 +100,7 @@ const zoneHTML = `{{define "body"}}{{with .Data}}{{$off := .Summary.UTCOffsetHou
 <h1>{{.Summary.Zone}} <span class="muted">{{.Summary.Site}} · ET from {{.Summary.Station}}</span></h1>
 {{template "svg" (bar .Summary)}}
 <p>depletion <b>{{printf "%.1f" .Summary.Depletion}}</b> mm · trigger {{printf "%.1f" .Summary.Trigger}} · refill to {{printf "%.1f" .Summary.Target}} · RAW {{printf "%.1f" .Summary.RAW}} · TAW {{printf "%.1f" .Summary.TAW}} mm · stress hours in {{days}} days: <span class="{{if .StressHours}}alert{{end}}">{{.StressHours}}</span></p>
-<p>{{if .Summary.Hold}}<span class="alert">hold ({{.Summary.Hold.Scope}}){{if .Summary.Hold.Until}} until {{local .Summary.Hold.Until $off}}{{end}}: {{.Summary.Hold.Reason}}</span>{{else}}no hold{{end}} · next run {{with .Summary.NextRun}}{{local .Start $off}}, {{.Minutes}} min × {{.Cycles}}{{else}}none planned{{end}}</p>
+<p>{{if .Summary.Hold}}<span class="alert">hold ({{.Summary.Hold.Scope}}){{if .Summary.Hold.Until}} until {{local .Summary.Hold.Until $off}}{{end}}: {{.Summary.Hold.Reason}}</span>{{else}}no hold{{end}} · next run {{with .Summary.NextRun}}{{local .Start $off}}, {{.Minutes}} min × {{.Cycles}}{{else}}{{if and (not .Summary.Hold) (gt .Summary.Trigger 0.0) (ge .Summary.Depletion .Summary.Trigger)}}<span class="alert">due: waits for its watering window</span>{{else}}none planned{{end}}{{end}}</p>
 <h2>Depletion, last {{days}} days</h2>
 {{template "svg" (depchart .)}}
 <p class="key"><span><i style="background:var(--soil)"></i>depletion (down = drier)</span><span><i style="background:var(--alert)"></i>trigger</span><span><i style="background:var(--water)"></i>refill target</span><span>RAW, TAW dashed grey</span></p>

@@ -1,9 +1,12 @@
 // Package httpapi serves the gateway's endpoints: /metrics (Prometheus
 // text exposition of the given Gatherer), /healthz (the process is alive),
-// /readyz (every readiness check passes) and /api/v1/history (the local
-// history, read beside the running gateway, as `etpulse export` prints it).
-// It serves nothing else: no profiling, no configuration, no writes. It
-// also holds the client side of the history route.
+// /readyz (every readiness check passes), /api/v1/history (the local
+// history, read beside the running gateway, as `etpulse export` prints it)
+// and, once a StatusReader is set, the status pages (/, /stations/...,
+// /zones/..., /alerts) with their JSON API under /api/v1/ (behind an
+// optional access token). It serves nothing else: no profiling, no
+// configuration, no writes. It also holds the client side of the history
+// route.
 package httpapi
 
 import (
@@ -104,7 +107,7 @@ func (s *Server) Handler() http.Handler {
 	mux.HandleFunc(HistoryPath, s.history)
 	s.statusRoutes(mux)
 	mux.HandleFunc("/", func(w http.ResponseWriter, r *http.Request) {
-		http.Error(w, "not found; endpoints: /metrics /healthz /readyz "+HistoryPath, http.StatusNotFound)
+		http.Error(w, "not found; endpoints: / /stations/{site}/{station} /zones/{site}/{zone} /alerts /api/v1/overview /api/v1/stations/{site}/{station} /api/v1/zones/{site}/{zone} /api/v1/alerts /metrics /healthz /readyz "+HistoryPath, http.StatusNotFound)
 	})
 	return mux
 }

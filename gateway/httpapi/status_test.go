@@ -152,6 +152,22 @@ func TestStatusPages(t *testing.T) {
 	}
 }
 
+// TestStatusZoneDue: a zone at or past its trigger with no run planned
+// says it is due, so the overview does not read "none planned" as "fine".
+func TestStatusZoneDue(t *testing.T) {
+	src := sample("s", "st", "z")
+	src.ov.Zones[0].NextRun = nil
+	src.ov.Zones[0].Hold = nil
+	src.ov.Zones[0].Depletion = 12 // trigger 8
+	base := start(t, Options{Status: src})
+	_, body := statusGet(t, base+"/", nil)
+	assert.Contains(t, body, "due: waits for its watering window")
+	src.ov.Zones[0].Depletion = 5
+	_, body = statusGet(t, base+"/", nil)
+	assert.NotContains(t, body, "due:")
+	assert.Contains(t, body, "none planned")
+}
+
 // TestStatusChartsMatchAPI: the station page draws one ET bar per hour
 // with ET, Rs and Rso lines with one point per hour having them, and the
 // zone page one depletion point per step and one bar per day with water.
