@@ -99,6 +99,7 @@ func HourChecks(site, station string, cfg *config.Alerts, choices config.Station
 			out = append(out, f)
 		}
 	}
+	nameShiftedSun(out, w)
 	return out
 }
 
