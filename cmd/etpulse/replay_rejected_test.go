@@ -56,3 +56,25 @@ func TestReplayRejectedLogRateLimited(t *testing.T) {
 	assert.NotContains(t, text, "00:06:00Z", "the 6th is not")
 	assert.Contains(t, text, "; 12 readings rejected (too_old 12)\n")
 }
+
+// TestReplayUnsetClockRowBounded: a row stamped at the Unix epoch plus one
+// second (a device whose clock was never set) before a station's real rows
+// does not make replay close every hour since 1970: it is dropped as too_old
+// when the next row comes (stored first, so counted both as stored and as
+// rejected), and replay ends at once with the real hours.
+func TestReplayUnsetClockRowBounded(t *testing.T) {
+	var rows strings.Builder
+	rows.WriteString("time,station,quantity,value,unit\n")
+	rows.WriteString("1970-01-01T00:00:01Z,mast,air_temp,20,degC\n")
+	for i := range 30 {
+		fmt.Fprintf(&rows, "2026-07-14T%02d:%02d:00Z,mast,air_temp,20,degC\n", i/12, i%12*5)
+	}
+	in := filepath.Join(t.TempDir(), "readings.csv")
+	require.NoError(t, os.WriteFile(in, []byte(rows.String()), 0o644))
+	var out, errOut bytes.Buffer
+	code := run(context.Background(), []string{"replay", "--config", "../../testdata/config/minimal.yaml", "--in", in}, nil, &out, &errOut)
+	require.Equal(t, exitOK, code, errOut.String())
+	assert.Contains(t, errOut.String(), "31 rows (0 bad, 0 duplicate), 31 readings stored, 3 hourly records")
+	assert.Contains(t, errOut.String(), "; 1 reading rejected (too_old 1)\n")
+	assert.Contains(t, errOut.String(), "check the device clock")
+}
