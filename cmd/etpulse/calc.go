@@ -12,6 +12,7 @@ import (
 
 	"golang.org/x/term"
 
+	"etpulse/gateway/config"
 	"etpulse/gateway/hourcsv"
 	"etpulse/hourly"
 )
@@ -216,6 +217,9 @@ func runCalc(ctx context.Context, args []string, stdin io.Reader, stdout, stderr
 	}
 	if err := st.Validate(); err != nil {
 		return usageErr("%v", err)
+	}
+	if _, msg := config.PlaceTimeWarning(st.Longitude, st.UTCOffset, "--lon", "--utc-offset"); msg != "" {
+		fmt.Fprintf(stderr, "etpulse calc: warning: %s\n", msg)
 	}
 
 	input := stdin

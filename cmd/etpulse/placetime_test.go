@@ -54,3 +54,18 @@ func TestCheckPlaceTime(t *testing.T) {
 		assert.False(t, strings.Contains(errs, "longitude") || strings.Contains(errs, "utc_offset_hours"), "%v: %s", pair, errs)
 	}
 }
+
+// TestCalcPlaceTime: calc warns about a flipped longitude on stderr, naming
+// its own flags, and still computes (the station might really be there).
+func TestCalcPlaceTime(t *testing.T) {
+	args := []string{"--in", demoFile, "--lat", "37.48", "--lon", "121.74", "--elevation", "310", "--utc-offset", "-8", "--wind-height", "3"}
+	code, out, errs := calc(t, "", args...)
+	require.Equal(t, exitOK, code, errs)
+	assert.NotEmpty(t, out)
+	assert.Contains(t, errs, "etpulse calc: warning: --lon 121.74 with --utc-offset -8 is 118.3° from that offset's meridian (-120°): did you mean -121.74?")
+	// Near the prime meridian a flipped sign stays within 30° of the
+	// meridian and cannot be told from a real place: no warning.
+	code, _, errs = calc(t, "", "--in", demoFile, "--lat", "37.48", "--lon", "-14.06", "--elevation", "310", "--utc-offset", "1", "--wind-height", "3")
+	require.Equal(t, exitOK, code, errs)
+	assert.NotContains(t, errs, "warning")
+}

@@ -72,6 +72,9 @@ func runReplay(ctx context.Context, args []string, stdin io.Reader, stdout, stde
 		fmt.Fprintf(stderr, "etpulse replay: %v\n", err)
 		return exitUsage
 	}
+	for _, w := range cfg.Warnings() {
+		fmt.Fprintf(stderr, "etpulse replay: warning: %s\n", w)
+	}
 	in, size := stdin, int64(-1)
 	if *inPath != "-" {
 		f, err := os.Open(*inPath)

@@ -21,9 +21,11 @@ const MaxMeridianDistance = 30.0
 const DaylightSavingDistance = 10.0
 
 // PlaceTimeWarning checks a station's longitude (degrees, east positive)
-// against its standard-time UTC offset (hours) and returns the field at
-// fault ("longitude" or "utc_offset_hours") and a message naming the fix
-// that would make the pair plausible, or "" when the pair is plausible.
+// against its standard-time UTC offset (hours) and returns the name of the
+// setting at fault (lonName or offsetName, as the caller spells them:
+// "longitude" and "utc_offset_hours" in the configuration, "--lon" and
+// "--utc-offset" in calc) and a message naming the fix that would make the
+// pair plausible, or "" when the pair is plausible.
 //
 // Two rules, both common practice, no source:
 //   - the station lies more than MaxMeridianDistance from the meridian of
@@ -36,7 +38,7 @@ const DaylightSavingDistance = 10.0
 //     is that far ahead of their longitude (much of western Europe, parts
 //     of South America) see this warning too, which is why it says what to
 //     do in either case.
-func PlaceTimeWarning(lon, offset float64) (field, message string) {
+func PlaceTimeWarning(lon, offset float64, lonName, offsetName string) (field, message string) {
 	d := meridianDistance(lon, offset)
 	if math.Abs(d) > MaxMeridianDistance {
 		far := fmt.Sprintf("%s° from that offset's meridian (%s°)", fmtF(math.Round(math.Abs(d)*10)/10), fmtF(15*offset))
@@ -44,15 +46,15 @@ func PlaceTimeWarning(lon, offset float64) (field, message string) {
 		// equivalent tests; the longitude is named first, since west
 		// positive is the other common convention.
 		if math.Abs(meridianDistance(-lon, offset)) <= MaxMeridianDistance {
-			return "longitude", fmt.Sprintf("longitude %s with utc_offset_hours %s is %s: did you mean %s? (east positive; a station really at %s has a standard offset near %s)",
-				fmtF(lon), fmtF(offset), far, fmtF(-lon), fmtF(lon), fmtF(nearestOffset(lon)))
+			return lonName, fmt.Sprintf("%s %s with %s %s is %s: did you mean %s? (east positive; a station really at %s has a standard offset near %s)",
+				lonName, fmtF(lon), offsetName, fmtF(offset), far, fmtF(-lon), fmtF(lon), fmtF(nearestOffset(lon)))
 		}
-		return "utc_offset_hours", fmt.Sprintf("utc_offset_hours %s with longitude %s is %s; the whole-hour offset nearest that longitude is %s: check both (longitude east positive, offset of standard time)",
-			fmtF(offset), fmtF(lon), far, fmtF(nearestOffset(lon)))
+		return offsetName, fmt.Sprintf("%s %s with %s %s is %s; the whole-hour offset nearest that longitude is %s: check both (longitude east positive, offset of standard time)",
+			offsetName, fmtF(offset), lonName, fmtF(lon), far, fmtF(nearestOffset(lon)))
 	}
 	if n := nearestOffset(lon); offset == n+1 && d < -DaylightSavingDistance {
-		return "utc_offset_hours", fmt.Sprintf("utc_offset_hours %s is one hour ahead of %s, the standard offset nearest longitude %s: if %s is the daylight-saving (summer) offset, use the standard offset %s; if it is the standard time there all year, ignore this warning",
-			fmtF(offset), fmtF(n), fmtF(lon), fmtF(offset), fmtF(n))
+		return offsetName, fmt.Sprintf("%s %s is one hour ahead of %s, the standard offset nearest %s %s: if %s is the daylight-saving (summer) offset, use the standard offset %s; if it is the standard time there all year, ignore this warning",
+			offsetName, fmtF(offset), fmtF(n), lonName, fmtF(lon), fmtF(offset), fmtF(n))
 	}
 	return "", ""
 }
@@ -82,7 +84,7 @@ func (c *Config) placeTimeWarnings(p *Problems) {
 	for i := range c.Sites {
 		for j := range c.Sites[i].Stations {
 			st := &c.Sites[i].Stations[j]
-			if field, msg := PlaceTimeWarning(st.Longitude, st.UTCOffset); msg != "" {
+			if field, msg := PlaceTimeWarning(st.Longitude, st.UTCOffset, "longitude", "utc_offset_hours"); msg != "" {
 				p.Add(fmt.Sprintf("sites[%d].stations[%d].%s", i, j, field), msg)
 			}
 		}
