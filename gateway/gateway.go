@@ -186,6 +186,9 @@ func New(cfg *config.Config, deps Deps) (*Gateway, error) {
 	if err := g.attachStatus(); err != nil { // status pages (status_wiring.go)
 		return nil, fmt.Errorf("new gateway: %w", err)
 	}
+	if err := g.attachReport(); err != nil { // the morning report (report_wiring.go)
+		return nil, fmt.Errorf("new gateway: %w", err)
+	}
 	return g, nil
 }
 

@@ -10,6 +10,7 @@ import (
 	"strings"
 	"time"
 
+	"etpulse/gateway"
 	"etpulse/gateway/config"
 	"etpulse/gateway/httpapi"
 	"etpulse/gateway/report"
@@ -94,7 +95,12 @@ func fetchReport(ctx context.Context, cfg *config.Config, site, date string, std
 		fmt.Fprintf(stderr, "etpulse report: %v\n", err)
 		return report.Report{}, exitUsage
 	}
-	rep, err := httpapi.FetchReport(ctx, base, site, date, "")
+	token, err := gateway.ReadToken(cfg.HTTP)
+	if err != nil {
+		fmt.Fprintf(stderr, "etpulse report: %v\n", err)
+		return report.Report{}, exitUsage
+	}
+	rep, err := httpapi.FetchReport(ctx, base, site, date, token)
 	var ie *report.InputError
 	switch {
 	case err == nil:

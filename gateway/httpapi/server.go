@@ -64,6 +64,7 @@ type Server struct {
 	ready chan struct{}
 
 	status atomic.Pointer[statusSetup] // nil: no status pages
+	report atomic.Pointer[reportSetup] // nil: no morning report (report.go)
 }
 
 // New returns a server for opt. It does not listen yet (see Listen and Run).
@@ -106,6 +107,7 @@ func (s *Server) Handler() http.Handler {
 	mux.HandleFunc("GET /readyz", s.readyz)
 	mux.HandleFunc(HistoryPath, s.history)
 	s.statusRoutes(mux)
+	s.reportRoutes(mux)
 	mux.HandleFunc("/", func(w http.ResponseWriter, r *http.Request) {
 		http.Error(w, "not found; endpoints: / /stations/{site}/{station} /zones/{site}/{zone} /alerts /api/v1/overview /api/v1/stations/{site}/{station} /api/v1/zones/{site}/{zone} /api/v1/alerts /metrics /healthz /readyz "+HistoryPath, http.StatusNotFound)
 	})
