@@ -32,9 +32,7 @@ import (
 // openDefects lists faults whose fix has not landed yet (issue 15). They
 // stay in the suite and print "fault <name>: SKIPPED (defect open: ...)";
 // ETPULSE_FAULTS_OPEN=1 runs them anyway. Remove an entry when its fix lands.
-var openDefects = map[string]string{
-	"time-readings": "issue 15 items 2, 4 and 7, far-past, time-less and far-future readings",
-}
+var openDefects = map[string]string{}
 
 // result is one fault's summary line.
 type result struct {
