@@ -51,8 +51,8 @@ type text struct {
 }
 
 const (
-	plotLeft   = 44.0 // room for the axis labels
-	plotRight  = 50.0
+	plotLeft   = 52.0 // room for the axis labels (19px on a phone)
+	plotRight  = 70.0
 	plotTop    = 10.0
 	plotBottom = 18.0
 )
@@ -185,7 +185,7 @@ func etChart(pg status.StationPage) chart {
 			c.Marks = append(c.Marks, shape{X: x + 1, Y: markRow, W: max(1, a.step()-2), H: 6, Class: cls, Title: h.Local + ": " + strings.Join(why, "; ")})
 		}
 	}
-	yLabels(&c, s, " mm", false)
+	yLabels(&c, s, "", false)
 	dayTicks(&c, a, pg.Summary.UTCOffsetHours)
 	return c
 }
@@ -339,7 +339,7 @@ func waterChart(pg status.ZonePage) chart {
 			c.Texts = append(c.Texts, text{X: x + slot/2, Y: c.H - 4, Text: d.Date[5:], Anchor: "middle", Class: "axis"})
 		}
 	}
-	yLabels(&c, s, " mm", false)
+	yLabels(&c, s, "", false)
 	return c
 }
 

@@ -42,7 +42,8 @@ text.trigger{fill:var(--alert);stroke:none}text.target{fill:var(--water);stroke:
 .irrigation{fill:var(--water)}.rain{fill:var(--water2)}.track{fill:#e9ecef}.fill{fill:var(--soil)}.fill.due{fill:var(--alert)}
 .mark-revised{fill:#6d5bd0}.mark-filled{fill:#d99a00}.mark-flag{fill:var(--alert)}
 .key span{display:inline-block;margin-right:.8rem;font-size:.85rem}.key i{display:inline-block;width:.9em;height:.9em;margin-right:.25em;vertical-align:-.1em}
-@media (max-width:600px){main{padding:0 .5rem 1.5rem}th,td{padding:.25rem}.big{font-size:1.3rem}}
+.t{white-space:nowrap}
+@media (max-width:600px){main{padding:0 .5rem 1.5rem}th,td{padding:.25rem}.big{font-size:1.3rem}svg text{font-size:19px}}
 </style></head><body>
 <header><b>etpulse</b><nav><a href="/">overview</a><a href="/alerts">alerts</a><a href="/report">report</a></nav><span class="muted">{{.Now}}</span></header>
 <main>{{template "body" .}}</main></body></html>{{end}}
@@ -82,7 +83,7 @@ const stationHTML = `{{define "body"}}{{with .Data}}{{$off := .Summary.UTCOffset
 <h1>{{.Summary.Station}} <span class="muted">{{.Summary.Site}} · {{.Summary.Reference}} reference</span></h1>
 <p>{{.Summary.ETLabel}} today {{printf "%.2f" .Summary.TodayET}} mm · yesterday {{printf "%.2f" .Summary.YesterdayET}} mm · last reading {{if .Summary.AgeSeconds}}{{age .Summary.AgeSeconds}} ago{{else}}never{{end}}</p>
 {{range .Summary.Alerts}}<p class="alert">⚠ {{.Kind}}{{if .Sensor}} · {{.Sensor}}{{end}}: {{.Message}}</p>{{end}}
-<h2>Hourly {{.Summary.ETLabel}}, last {{hours}} hours</h2>
+<h2>Hourly {{.Summary.ETLabel}} (mm), last {{hours}} hours</h2>
 {{template "svg" (etchart .)}}
 <p class="key"><span><i style="background:#4b5a63"></i>{{.Summary.ETLabel}} mm/h</span><span><i style="background:#e9ecef"></i>night</span><span><i style="background:#6d5bd0"></i>revised ({{.RevisedHours}})</span><span><i style="background:#d99a00"></i>gap-filled ({{.FilledHours}})</span><span><i style="background:var(--alert)"></i>flagged or incomplete ({{.FlaggedHours}} flagged, {{.IncompleteHours}} incomplete)</span></p>
 <h2>Solar radiation Rs against clear-sky Rso</h2>
@@ -92,7 +93,7 @@ const stationHTML = `{{define "body"}}{{with .Data}}{{$off := .Summary.UTCOffset
 {{template "svg" (airchart .)}}
 <p class="key"><span><i style="background:#8b3a62"></i>T °C (left)</span><span><i style="background:var(--water2)"></i>RH % (right)</span></p>
 <h2>Hours with revisions, fills or flags</h2><div class="scroll"><table><tr><th>hour (standard time)</th><th>{{.Summary.ETLabel}} mm</th><th>revision</th><th>fill</th><th>flags</th></tr>
-{{range .Hours}}{{if or .Revision .Fill .Flags (not .Complete)}}<tr><td>{{.Local}}</td><td>{{if .ET}}{{printf "%.3f" (deref .ET)}}{{else}}–{{end}}</td><td>{{.Revision}}</td><td>{{.Fill}}</td><td>{{range .Flags}}{{.}}<br>{{end}}{{if not .Complete}}incomplete{{end}}</td></tr>{{end}}{{end}}</table></div>
+{{range .Hours}}{{if or .Revision .Fill .Flags (not .Complete)}}<tr><td class="t">{{.Local}}</td><td>{{if .ET}}{{printf "%.3f" (deref .ET)}}{{else}}–{{end}}</td><td>{{.Revision}}</td><td>{{.Fill}}</td><td>{{range .Flags}}{{.}}<br>{{end}}{{if not .Complete}}incomplete{{end}}</td></tr>{{end}}{{end}}</table></div>
 {{if .ClearedAlerts}}<h2>Recently cleared alerts</h2>{{template "alertrows" (alerts .ClearedAlerts true)}}{{end}}
 {{end}}{{end}}`
 
@@ -101,14 +102,14 @@ const zoneHTML = `{{define "body"}}{{with .Data}}{{$off := .Summary.UTCOffsetHou
 {{template "svg" (bar .Summary)}}
 <p>depletion <b>{{printf "%.1f" .Summary.Depletion}}</b> mm · trigger {{printf "%.1f" .Summary.Trigger}} · refill to {{printf "%.1f" .Summary.Target}} · RAW {{printf "%.1f" .Summary.RAW}} · TAW {{printf "%.1f" .Summary.TAW}} mm · stress hours in {{days}} days: <span class="{{if .StressHours}}alert{{end}}">{{.StressHours}}</span></p>
 <p>{{if .Summary.Hold}}<span class="alert">hold ({{.Summary.Hold.Scope}}){{if .Summary.Hold.Until}} until {{local .Summary.Hold.Until $off}}{{end}}: {{.Summary.Hold.Reason}}</span>{{else}}no hold{{end}} · next run {{with .Summary.NextRun}}{{local .Start $off}}, {{.Minutes}} min × {{.Cycles}}{{else}}{{if and (not .Summary.Hold) (gt .Summary.Trigger 0.0) (ge .Summary.Depletion .Summary.Trigger)}}<span class="alert">due: waits for its watering window</span>{{else}}none planned{{end}}{{end}}</p>
-<h2>Depletion, last {{days}} days</h2>
+<h2>Depletion (mm), last {{days}} days</h2>
 {{template "svg" (depchart .)}}
 <p class="key"><span><i style="background:var(--soil)"></i>depletion (down = drier)</span><span><i style="background:var(--alert)"></i>trigger</span><span><i style="background:var(--water)"></i>refill target</span><span>RAW, TAW dashed grey</span></p>
-<h2>Irrigation and effective rain</h2>
+<h2>Irrigation and effective rain (mm per day)</h2>
 {{template "svg" (waterchart .)}}
 <p class="key"><span><i style="background:var(--water)"></i>irrigation (net, credited)</span><span><i style="background:var(--water2)"></i>effective rain</span></p>
 <h2>Last runs</h2><div class="scroll"><table><tr><th>start</th><th>cycle</th><th>commanded</th><th>reported</th><th>volume</th><th>credit</th><th>state</th></tr>
-{{range .Runs}}<tr><td>{{local .Start $off}}</td><td>{{.Cycle}}/{{.Cycles}}</td><td>{{.Minutes}} min</td><td>{{if .MinutesRun}}{{printf "%.1f" (deref .MinutesRun)}} min{{else}}–{{end}}</td><td>{{if .VolumeL}}{{printf "%.0f" (deref .VolumeL)}} L{{else}}–{{end}}</td><td>{{if .Credited}}{{printf "%.1f" .Credit}} mm{{else}}–{{end}}</td><td class="{{if or (eq .State "failed") (eq .State "expired")}}alert{{end}}">{{.State}}{{if .Note}} <span class="muted">{{.Note}}</span>{{end}}</td></tr>
+{{range .Runs}}<tr><td class="t">{{local .Start $off}}</td><td>{{.Cycle}}/{{.Cycles}}</td><td class="t">{{.Minutes}} min</td><td class="t">{{if .MinutesRun}}{{printf "%.1f" (deref .MinutesRun)}} min{{else}}–{{end}}</td><td class="t">{{if .VolumeL}}{{printf "%.0f" (deref .VolumeL)}} L{{else}}–{{end}}</td><td class="t">{{if .Credited}}{{printf "%.1f" .Credit}} mm{{else}}–{{end}}</td><td class="{{if or (eq .State "failed") (eq .State "expired")}}alert{{end}}">{{.State}}{{if .Note}} <span class="muted">{{.Note}}</span>{{end}}</td></tr>
 {{else}}<tr><td colspan="7" class="muted">no runs yet</td></tr>{{end}}</table></div>
 <h2>Days</h2><div class="scroll"><table><tr><th>date</th><th>ETc mm</th><th>eff. rain mm</th><th>irrigation mm</th><th>stress h</th></tr>
 {{range .Days}}<tr><td>{{.Date}}</td><td>{{printf "%.1f" .ETc}}</td><td>{{printf "%.1f" .EffRain}}</td><td>{{printf "%.1f" .Irrigation}}</td><td>{{.StressHours}}</td></tr>{{end}}</table></div>

@@ -125,7 +125,7 @@ func TestStatusPages(t *testing.T) {
 		want        []string
 	}{
 		{"/", "text/html", []string{"orchard", "apple-block-4", "ETrs today", "1.50", "6.20", "1 min ago", "next run", "25 min × 2 cycles", "RAW 44.0", "TAW 88.0", `href="/report"`, "1 active alert"}},
-		{"/stations/tallowwood/orchard", "text/html", []string{"Hourly ETrs, last 72 hours", "revised (1)", "rs-hargreaves", `class="rs"`, `class="rso"`, `class="temp"`, `class="rh"`}},
+		{"/stations/tallowwood/orchard", "text/html", []string{"Hourly ETrs (mm), last 72 hours", "revised (1)", "rs-hargreaves", `class="rs"`, `class="rso"`, `class="temp"`, `class="rh"`}},
 		{"/zones/tallowwood/apple-block-4", "text/html", []string{"stress hours in 14 days", "29.5 min", "12000 L", "5.4 mm", `class="depletion"`, "refill"}},
 		{"/alerts", "text/html", []string{"Active alerts", "night-solar", "rh unchanged for 6 h", "Cleared in the last 7 days"}},
 		{"/api/v1/overview", "application/json", []string{`"active_alerts": 1`, `"depletion_mm": 9.5`}},
