@@ -69,3 +69,20 @@ func TestCalcPlaceTime(t *testing.T) {
 	require.Equal(t, exitOK, code, errs)
 	assert.NotContains(t, errs, "warning")
 }
+
+// TestReplayUnitInValue: a unit typed into a replay value ("22.4 °C") is
+// named, with the number alone for value and the unit's name for the unit
+// column; the row is skipped and the others still run.
+func TestReplayUnitInValue(t *testing.T) {
+	dir := t.TempDir()
+	in := filepath.Join(dir, "readings.csv")
+	require.NoError(t, os.WriteFile(in, []byte("time,station,quantity,value,unit\n"+
+		"2026-07-14T00:00:00Z,mast,air_temp,22.4 °C,degC\n"+
+		"2026-07-14T00:01:00Z,mast,air_temp,\"22,5\",degC\n"+
+		"2026-07-14T00:02:00Z,mast,air_temp,22.6,degC\n"), 0o600))
+	code, _, errs := runCmd(t, "replay", "--config", placeTimeConfig(t, "-121.74", "-8"), "--in", in)
+	require.Equal(t, exitOK, code, errs)
+	assert.Contains(t, errs, `value: "22.4 °C" is not a number: the unit "°C" is in the value; write 22.4 (the unit goes in the unit column: degC)`)
+	assert.Contains(t, errs, `value: "22,5" is not a number: a decimal comma; write 22.5 (a point is the decimal mark)`)
+	assert.Contains(t, errs, "3 rows (2 bad")
+}

@@ -117,8 +117,12 @@ func Calc(ctx context.Context, in io.Reader, out io.Writer, opt CalcOptions) (Su
 		}
 		if row.Gap > 0 {
 			sum.Gaps++
-			fmt.Fprintf(report, "line %d: %s missing before %s\n",
-				row.Line, describeGap(row.Gap), AppendLocal(nil, row.Hour.Start))
+			note := ""
+			if row.Note != "" {
+				note = ": " + row.Note
+			}
+			fmt.Fprintf(report, "line %d: %s missing before %s%s\n",
+				row.Line, describeGap(row.Gap), AppendLocal(nil, row.Hour.Start), note)
 		}
 		res, next, err := hourly.Compute(opt.Station, opt.Reference, row.Hour, carry)
 		if err != nil {

@@ -85,6 +85,9 @@ type Row struct {
 	// reports it; hourly.CarryUsable decides whether the night cloudiness
 	// carry survives it.
 	Gap time.Duration
+	// Note explains the gap when it looks like the hour a daylight-saving
+	// clock skips; empty otherwise.
+	Note string
 }
 
 type humidityKind int
@@ -152,6 +155,13 @@ func NewReader(r io.Reader, opt Options) (*Reader, error) {
 		return nil, fmt.Errorf("read weather csv: %w", err)
 	}
 	line, _ := cr.FieldPos(0)
+	if len(head) == 1 {
+		for _, sep := range []string{";", "\t"} {
+			if strings.Contains(head[0], sep) {
+				return nil, fmt.Errorf("read weather csv: %w: line %d: the columns are separated by %q, not \",\" (a spreadsheet export for a locale with decimal commas (22,4)?): export again as CSV with \",\" between columns and \".\" as the decimal mark", ErrHeader, line, sep)
+			}
+		}
+	}
 	rd := &Reader{csv: cr, zone: zone, windFactor: windFactor, nfields: len(head),
 		idxTime: -1, idxTemp: -1, idxHum: -1, idxWind: -1, idxSolar: -1, idxNetRad: -1, idxSoil: -1, idxRain: -1}
 	if err := rd.mapHeader(head, line); err != nil {
@@ -238,7 +248,11 @@ func (rd *Reader) Read() (Row, error) {
 	}
 	line, _ := rd.csv.FieldPos(0)
 	if len(rec) != rd.nfields {
-		return Row{}, &RowError{Line: line, Err: fmt.Errorf("has %d fields, the header has %d", len(rec), rd.nfields)}
+		hint := ""
+		if len(rec) > rd.nfields {
+			hint = splitNumberHint(rec)
+		}
+		return Row{}, &RowError{Line: line, Err: fmt.Errorf("has %d fields, the header has %d%s", len(rec), rd.nfields, hint)}
 	}
 	row := Row{Line: line}
 	h := &row.Hour
@@ -254,11 +268,18 @@ func (rd *Reader) Read() (Row, error) {
 	}
 	if rd.havePrev {
 		if !start.After(rd.prev) {
+			hint := ""
+			if start.Equal(rd.prev) && localTime(cell) && fallBack(start) {
+				hint = "; a repeated early-morning hour in a month when clocks go back is the daylight-saving clock change: " + standardTimeFix(rd.zone)
+			}
 			return Row{}, &RowError{Line: line, Column: ColTime, Value: cell,
-				Err: fmt.Errorf("not after the previous hour %s (line %d): hours must be in increasing order without repeats", AppendLocal(nil, rd.prev), rd.prevLine)}
+				Err: fmt.Errorf("not after the previous hour %s (line %d): hours must be in increasing order without repeats%s", AppendLocal(nil, rd.prev), rd.prevLine, hint)}
 		}
 		// Sub saturates beyond about 292 years; keep the gap whole hours.
 		row.Gap = (start.Sub(rd.prev) - time.Hour).Truncate(time.Hour)
+		if localTime(cell) && springForward(row.Gap, start) {
+			row.Note = "the daylight-saving clock change? (one early-morning hour skipped in a month when clocks go forward) If the file is in daylight-saving time, every hour from here on is one hour off: " + standardTimeFix(rd.zone)
+		}
 	}
 	h.Start = start
 
@@ -330,7 +351,7 @@ func (rd *Reader) optional(rec []string, i int, col string, line int) (v float64
 	}
 	v, err = strconv.ParseFloat(s, 64)
 	if err != nil {
-		return 0, false, &RowError{Line: line, Column: col, Value: s, Err: errors.New("not a number")}
+		return 0, false, &RowError{Line: line, Column: col, Value: s, Err: NotANumber(s, false)}
 	}
 	if math.IsNaN(v) || math.IsInf(v, 0) {
 		return 0, false, &RowError{Line: line, Column: col, Value: s, Err: errors.New("not a finite number")}

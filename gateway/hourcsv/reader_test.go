@@ -161,7 +161,7 @@ func TestReadBadRows(t *testing.T) {
 		name, row, want string
 	}{
 		{"bad number", "2026-07-01T12:00,abc,50,2,800,0", `line 2: column air_temp_c: value "abc": not a number`},
-		{"number with unit", "2026-07-01T12:00,30,50,2 m/s,800,0", `line 2: column wind_ms: value "2 m/s": not a number`},
+		{"number with unit", "2026-07-01T12:00,30,50,2 m/s,800,0", `line 2: column wind_ms: value "2 m/s": not a number: the unit "m/s" is in the value; write 2 (the column name gives the unit)`},
 		{"nan", "2026-07-01T12:00,NaN,50,2,800,0", `line 2: column air_temp_c: value "NaN": not a finite number`},
 		{"inf", "2026-07-01T12:00,30,50,2,+Inf,0", `line 2: column solar_wm2: value "+Inf": not a finite number`},
 		{"empty required", "2026-07-01T12:00,30,,2,800,0", `line 2: column rh_pct: value "": empty, and the column is required`},

@@ -43,6 +43,7 @@ import (
 
 	gwclock "etpulse/gateway/clock"
 	"etpulse/gateway/config"
+	"etpulse/gateway/hourcsv"
 	"etpulse/gateway/ingest"
 	"etpulse/gateway/pipeline"
 	"etpulse/gateway/quality"
@@ -402,7 +403,7 @@ func (rr *rowReader) next() (ingest.Reading, int, error) {
 	}
 	raw, err := strconv.ParseFloat(get("value"), 64)
 	if err != nil {
-		return bad("value: %q is not a number", get("value"))
+		return bad("value: %q is %v", get("value"), hourcsv.NotANumber(get("value"), true))
 	}
 	v, err := hourly.ToCanonical(q, get("unit"), raw)
 	if err != nil {
