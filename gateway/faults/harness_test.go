@@ -287,7 +287,8 @@ func content(r hourly.Record) string {
 // records collects the hourly records a gateway publishes over MQTT.
 type records struct {
 	mu        sync.Mutex
-	byRev     map[string]string // station/start/revision -> content
+	byRev     map[string]string        // station/start/revision -> content
+	first     map[string]hourly.Record // revision 0 of each hour
 	final     map[string]hourly.Record
 	n         int
 	conflicts int // one revision published twice with different content
@@ -295,7 +296,7 @@ type records struct {
 
 func watchRecords(t *testing.T, url string) *records {
 	t.Helper()
-	rl := &records{byRev: map[string]string{}, final: map[string]hourly.Record{}}
+	rl := &records{byRev: map[string]string{}, first: map[string]hourly.Record{}, final: map[string]hourly.Record{}}
 	c, err := mqtt.Dial(context.Background(), mqtt.Options{URL: url, ClientID: "faults-records", CleanSession: false})
 	require.NoError(t, err)
 	t.Cleanup(func() { c.Close(time.Second) })
@@ -314,6 +315,9 @@ func watchRecords(t *testing.T, url string) *records {
 			rl.conflicts++
 		}
 		rl.byRev[k] = c
+		if rec.Revision == 0 {
+			rl.first[hourKey(rec)] = rec
+		}
 		if f, ok := rl.final[hourKey(rec)]; !ok || rec.Revision >= f.Revision {
 			rl.final[hourKey(rec)] = rec
 		}
@@ -351,6 +355,21 @@ func (rl *records) snapshot() (final map[string]hourly.Record, conflicts int) {
 		final[k] = v
 	}
 	return final, rl.conflicts
+}
+
+// premature counts the hours whose first publication (revision 0) differs
+// from the reference's final record: an hour closed before its readings
+// arrived, which automations acting on revision 0 took as the truth.
+func (rl *records) premature(ref map[string]hourly.Record) (n int, detail []string) {
+	rl.mu.Lock()
+	defer rl.mu.Unlock()
+	for k, r := range ref {
+		if f, ok := rl.first[k]; ok && content(f) != content(r) {
+			n++
+			detail = append(detail, k+" revision 0 closed early")
+		}
+	}
+	return n, detail
 }
 
 // compareRecords counts the reference hours that are missing or whose latest
