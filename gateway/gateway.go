@@ -109,6 +109,8 @@ type Gateway struct {
 
 	progMu   sync.Mutex
 	progress chan struct{} // closed when Handled, Emitted or Published grows; nil until asked for
+
+	retained *statePublisher // retained station and zone state (state_publish.go)
 }
 
 // New composes the gateway for cfg. It does not start anything.
@@ -173,6 +175,7 @@ func New(cfg *config.Config, deps Deps) (*Gateway, error) {
 	if err := wireZones(cfg, deps, outbox, g.alerts, &comp); err != nil {
 		return nil, fmt.Errorf("new gateway: %w", err)
 	}
+	g.retained = wireStatePublisher(cfg, deps, &comp)
 	// ---- end of components wiring ----
 
 	g.comp = comp
@@ -610,6 +613,7 @@ func (g *Gateway) publish(ctx context.Context, recs []hourly.Record) bool {
 			continue
 		}
 		done = append(done, rec)
+		g.retained.noteRecord(rec)
 		if g.deps.OnRecord != nil {
 			g.deps.OnRecord(rec)
 		}

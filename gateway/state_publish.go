@@ -1,0 +1,274 @@
+package gateway
+
+import (
+	"context"
+	"encoding/json"
+	"log/slog"
+	"math"
+	"sort"
+	"sync"
+	"time"
+
+	"etpulse/controllers"
+	"etpulse/gateway/clock"
+	"etpulse/gateway/config"
+	"etpulse/gateway/mqtt"
+	"etpulse/gateway/zones"
+	"etpulse/hourly"
+)
+
+// statePublisher keeps the retained state topics current: per station a
+// summary of its last hour (config.StationStateTopic), per zone its
+// balance, levels, hold and next run (config.ZoneStateTopic). A topic is
+// published (QoS 1, retained) only when its payload changed, so a late
+// subscriber gets the current state at once and the broker sees few
+// messages. It is a stepped service: RunOnce each minute and after every
+// published record.
+type statePublisher struct {
+	prefix string
+	pub    mqtt.Publisher
+	zones  *zones.Service // nil: no zones
+	clock  clock.Clock
+	log    *slog.Logger
+	wake   chan struct{}
+
+	mu    sync.Mutex
+	hours map[[2]string]map[hourly.Reference]hourly.Record // latest hour per station, by reference
+	sent  map[string]string                                // topic -> payload last published
+}
+
+var _ clock.Stepper = (*statePublisher)(nil)
+
+// wireStatePublisher adds the retained state publisher to comp.
+func wireStatePublisher(cfg *config.Config, deps Deps, comp *Components) *statePublisher {
+	p := &statePublisher{prefix: cfg.TopicPrefix, pub: deps.MQTT, clock: deps.Clock,
+		log: deps.Logger.With("component", "state-topics"), wake: make(chan struct{}, 1),
+		hours: map[[2]string]map[hourly.Reference]hourly.Record{}, sent: map[string]string{}}
+	for _, h := range comp.Handlers {
+		if z, ok := h.(*zones.Service); ok {
+			p.zones = z
+		}
+	}
+	comp.Services = append(comp.Services, p)
+	return p
+}
+
+// noteRecord keeps a published record as its station's latest hour (a
+// revision of an older hour does not replace a newer one) and wakes the
+// publisher.
+func (p *statePublisher) noteRecord(rec hourly.Record) {
+	if p == nil {
+		return
+	}
+	k := [2]string{rec.Site, rec.Station}
+	p.mu.Lock()
+	refs := p.hours[k]
+	for _, r := range refs {
+		if rec.Start.Before(r.Start) {
+			p.mu.Unlock()
+			return
+		}
+		if rec.Start.After(r.Start) {
+			refs = nil
+		}
+		break
+	}
+	if refs == nil {
+		refs = map[hourly.Reference]hourly.Record{}
+		p.hours[k] = refs
+	}
+	refs[rec.Reference] = rec
+	p.mu.Unlock()
+	select {
+	case p.wake <- struct{}{}:
+	default:
+	}
+}
+
+// Run publishes the state topics until ctx ends.
+func (p *statePublisher) Run(ctx context.Context) error {
+	return clock.Loop(ctx, p.clock, p.wake, p)
+}
+
+// RunOnce publishes every state topic whose payload changed; a topic that
+// fails is retried at the next pass.
+func (p *statePublisher) RunOnce(ctx context.Context, now time.Time) (time.Time, error) {
+	msgs, err := p.payloads(now)
+	if err != nil {
+		p.log.Warn("state topics: reading the zones", "err", err)
+	}
+	topics := make([]string, 0, len(msgs))
+	for t := range msgs {
+		topics = append(topics, t)
+	}
+	sort.Strings(topics)
+	for _, t := range topics {
+		p.mu.Lock()
+		same := p.sent[t] == msgs[t]
+		p.mu.Unlock()
+		if same {
+			continue
+		}
+		pctx, cancel := context.WithTimeout(ctx, 10*time.Second)
+		err := p.pub.Publish(pctx, t, 1, true, []byte(msgs[t]))
+		cancel()
+		if err != nil {
+			p.log.Warn("state topics: not published; will retry", "topic", t, "err", err)
+			continue
+		}
+		p.mu.Lock()
+		p.sent[t] = msgs[t]
+		p.mu.Unlock()
+	}
+	return now.Add(time.Minute), nil
+}
+
+// stationState is the retained payload of a station.
+type stationState struct {
+	Site       string             `json:"site"`
+	Station    string             `json:"station"`
+	HourStart  time.Time          `json:"hour_start"`
+	LocalStart string             `json:"local_start"`
+	Revision   int                `json:"revision"`
+	Complete   bool               `json:"complete"`
+	Fill       string             `json:"fill,omitempty"`
+	ETmm       map[string]float64 `json:"et_mm"` // per reference; absent when not computed
+	RainMM     float64            `json:"rain_mm"`
+	AirTempC   *float64           `json:"air_temp_c,omitempty"`
+	EaKPa      *float64           `json:"ea_kpa,omitempty"`
+	Wind2MS    *float64           `json:"wind2_m_s,omitempty"`
+	SolarMJ    *float64           `json:"solar_mj_m2,omitempty"`
+	Flags      []string           `json:"flags"`
+}
+
+// zoneState is the retained payload of a zone.
+type zoneState struct {
+	Site        string     `json:"site"`
+	Zone        string     `json:"zone"`
+	DepletionMM float64    `json:"depletion_mm"`
+	RAWMM       float64    `json:"raw_mm"`
+	TAWMM       float64    `json:"taw_mm"`
+	TriggerMM   float64    `json:"trigger_mm"`
+	TargetMM    float64    `json:"target_mm"`
+	Stressed    bool       `json:"stressed"` // depletion beyond RAW: Ks < 1 (FAO-56 eq. 84)
+	LastValidET *time.Time `json:"last_valid_et"`
+	Hold        *holdState `json:"hold"`
+	NextRun     *runState  `json:"next_run"`
+}
+
+type holdState struct {
+	Scope   string     `json:"scope"` // "site" or "zone"
+	Until   *time.Time `json:"until"` // null: until released
+	Reason  string     `json:"reason"`
+	Forever bool       `json:"forever"`
+}
+
+type runState struct {
+	ID      string    `json:"id"`
+	Start   time.Time `json:"start"`
+	Minutes int       `json:"minutes"`
+	Cycle   int       `json:"cycle"`
+	Cycles  int       `json:"cycles"`
+	State   string    `json:"state"`
+}
+
+// payloads builds every state topic's payload at now.
+func (p *statePublisher) payloads(now time.Time) (map[string]string, error) {
+	out := map[string]string{}
+	put := func(topic string, v any) {
+		b, err := json.Marshal(v)
+		if err != nil { // a non-finite number: keep the last good payload
+			p.log.Warn("state topics: encode", "topic", topic, "err", err)
+			return
+		}
+		out[topic] = string(b)
+	}
+	p.mu.Lock()
+	for k, refs := range p.hours {
+		put(config.StationStateTopic(p.prefix, k[0], k[1]), stationPayload(refs))
+	}
+	p.mu.Unlock()
+	if p.zones == nil {
+		return out, nil
+	}
+	sts, err := p.zones.Status(now)
+	if err != nil {
+		return out, err
+	}
+	holds := map[string]controllers.Holds{}
+	ledgers := map[string][]controllers.Command{}
+	for _, zs := range sts {
+		if _, ok := holds[zs.Site]; !ok {
+			if holds[zs.Site], err = p.zones.Holds(zs.Site); err != nil {
+				return out, err
+			}
+			if ledgers[zs.Site], err = p.zones.Ledger(zs.Site); err != nil {
+				return out, err
+			}
+		}
+		z := zoneState{Site: zs.Site, Zone: zs.Zone, DepletionMM: round(zs.State.Depletion, 1),
+			RAWMM: round(zs.Levels.RAW, 1), TAWMM: round(zs.Levels.TAW, 1),
+			TriggerMM: round(zs.Levels.Trigger, 1), TargetMM: round(zs.Levels.Target, 1),
+			Stressed: zs.State.Depletion > zs.Levels.RAW}
+		if lv := zs.State.LastValid; !lv.IsZero() {
+			lv = lv.UTC()
+			z.LastValidET = &lv
+		}
+		h := holds[zs.Site]
+		if hold, ok := h.For(zs.Zone, now); ok {
+			z.Hold = &holdState{Scope: "zone", Reason: hold.Reason, Forever: hold.Forever}
+			if h.Site.Active(now) {
+				z.Hold.Scope = "site"
+			}
+			if !hold.Forever {
+				u := hold.Until.UTC()
+				z.Hold.Until = &u
+			}
+		}
+		for _, c := range ledgers[zs.Site] {
+			if c.Zone != zs.Zone || !c.State.Open() {
+				continue
+			}
+			if z.NextRun == nil || c.Start.Before(z.NextRun.Start) {
+				z.NextRun = &runState{ID: c.ID, Start: c.Start.UTC(), Minutes: c.Minutes, Cycle: c.Cycle, Cycles: c.Cycles, State: string(c.State)}
+			}
+		}
+		put(config.ZoneStateTopic(p.prefix, zs.Site, zs.Zone), z)
+	}
+	return out, nil
+}
+
+// stationPayload summarises a station's latest hour (one record per
+// reference).
+func stationPayload(refs map[hourly.Reference]hourly.Record) stationState {
+	var s stationState
+	s.ETmm = map[string]float64{}
+	for ref, rec := range refs {
+		s.Site, s.Station, s.HourStart, s.LocalStart = rec.Site, rec.Station, rec.Start.UTC(), rec.LocalStart
+		s.Revision, s.Complete, s.Fill, s.RainMM = rec.Revision, rec.Complete, rec.Fill, round(rec.Rain, 2)
+		s.Flags = append([]string{}, rec.Flags...)
+		if rec.Result != nil {
+			s.ETmm[string(ref)] = round(rec.Result.ET, 2)
+			s.AirTempC = roundPtr(rec.Inputs.AirTemp, 1)
+			s.EaKPa = roundPtr(rec.Inputs.Ea, 3)
+			s.Wind2MS = roundPtr(rec.Inputs.Wind2, 1)
+			s.SolarMJ = roundPtr(rec.Inputs.Solar, 3)
+		}
+	}
+	return s
+}
+
+// round rounds v to places decimals, so payloads carry no
+// 0.21539289829921476.
+func round(v float64, places int) float64 {
+	f := math.Pow(10, float64(places))
+	return math.Round(v*f) / f
+}
+
+func roundPtr(v float64, places int) *float64 {
+	if math.IsNaN(v) || math.IsInf(v, 0) {
+		return nil
+	}
+	r := round(v, places)
+	return &r
+}
