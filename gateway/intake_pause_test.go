@@ -17,6 +17,7 @@ import (
 	"github.com/stretchr/testify/assert"
 	"github.com/stretchr/testify/require"
 	"go.etcd.io/bbolt"
+	berrors "go.etcd.io/bbolt/errors"
 
 	"etpulse/gateway/alert"
 	"etpulse/gateway/quality"
@@ -36,7 +37,7 @@ func TestStateDiskFault(t *testing.T) {
 		{wrap(syscall.EDQUOT), alert.KindStateDiskFull},
 		{wrap(syscall.EIO), alert.KindStateWriteError},
 		{wrap(syscall.EROFS), alert.KindStateWriteError},
-		{fmt.Errorf("ingest: %w", bbolt.ErrDatabaseNotOpen), ""},
+		{fmt.Errorf("ingest: %w", berrors.ErrDatabaseNotOpen), ""},
 		{wrap(syscall.EBADF), ""},
 		{errors.New("ingest: station hour unreadable"), ""},
 	} {

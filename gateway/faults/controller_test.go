@@ -116,16 +116,3 @@ func (ctl *controller) publishLocked(topic string, r zones.ReportMessage) {
 		ctl.t.Logf("controller: report %s %s not published: %v", r.ID, r.State, err)
 	}
 }
-
-// commands returns the run commands the controllers received, by id.
-func (ctl *controller) commands() map[string]zones.CommandMessage {
-	ctl.mu.Lock()
-	defer ctl.mu.Unlock()
-	out := map[string]zones.CommandMessage{}
-	for id, r := range ctl.runs {
-		if r.cmd.ID != "" {
-			out[id] = r.cmd
-		}
-	}
-	return out
-}

@@ -148,16 +148,15 @@ func faultStoreOutage(t *testing.T, s *suite) result {
 	}
 	rl.mu.Unlock()
 	deadline := time.Now().Add(60 * time.Second)
-	var keys, lines []string
 	for time.Now().Before(deadline) {
-		keys, lines = proxy.hourPoints()
+		keys, _ := proxy.hourPoints()
 		if len(keys) >= len(want) {
 			break
 		}
 		time.Sleep(100 * time.Millisecond)
 	}
 	require.Equal(t, 0, g.signal(sigTERM))
-	keys, lines = proxy.hourPoints()
+	keys, lines := proxy.hourPoints()
 	seen, dup, order := map[string]string{}, 0, 0
 	var detail []string
 	lastStart := map[string]string{}

@@ -274,7 +274,7 @@ func (p *Pipeline) admitHeld(now time.Time) ([]hourly.Record, error) {
 				return err
 			}
 			c := sb.held.Cursor()
-			for k, v := c.First(); k != nil && len(k) >= 8; k, v = c.Next() {
+			for k, v := c.First(); len(k) >= 8; k, v = c.Next() {
 				at := time.Unix(0, int64(binary.BigEndian.Uint64(k[:8]))).UTC()
 				if at.After(lim) {
 					next = at
