@@ -14,7 +14,7 @@ import (
 
 var checkHelp = helpText{
 	name:  "check",
-	usage: "etpulse check --config FILE [--quiet]",
+	usage: "etpulse check [--config] FILE [--quiet]",
 	intro: `Validates a configuration file the way 'etpulse run' loads it (unknown
 keys, ranges, units, topics, zones, alerts) and prints a summary on stdout:
 broker, state file, the gateway's own topics, and per station its place,
@@ -42,26 +42,26 @@ func runCheck(_ context.Context, args []string, _ io.Reader, stdout, stderr io.W
 	fs := flag.NewFlagSet("check", flag.ContinueOnError)
 	path := fs.String("config", "", "configuration `file` (YAML) to validate")
 	quiet := fs.Bool("quiet", false, "print nothing when the configuration is valid (warnings still go to stderr)")
-	if code, done := parseFlags(fs, args, checkHelp, stdout, stderr); done {
+	if code, done := parseConfigFlags(fs, args, checkHelp, path, stdout, stderr); done {
 		return code
 	}
 	if fs.NArg() > 0 {
 		return usageError(stderr, checkHelp, "unexpected argument %q", fs.Arg(0))
 	}
 	if *path == "" {
-		return usageError(stderr, checkHelp, "--config FILE is required")
+		return usageError(stderr, checkHelp, configForms)
 	}
 
 	cfg, err := config.Load(*path)
 	if err != nil {
 		var ve *config.ValidationError
 		if errors.As(err, &ve) {
-			fmt.Fprintf(stderr, "%s: %d problem(s):\n", *path, len(ve.Problems))
+			fmt.Fprintf(stderr, "%s%s: %d problem(s):\n", *path, configOrigin(*path), len(ve.Problems))
 			for _, p := range ve.Problems {
 				fmt.Fprintf(stderr, "  %s\n", p)
 			}
 		} else {
-			fmt.Fprintf(stderr, "%s: %v\n", *path, err)
+			fmt.Fprintf(stderr, "%s%s: %v\n", *path, configOrigin(*path), err)
 		}
 		return exitUsage
 	}

@@ -120,7 +120,7 @@ func TestCheckEveryInvalidExampleExits2(t *testing.T) {
 func TestCheckUsage(t *testing.T) {
 	code, _, errs := runCmd(t, "check")
 	assert.Equal(t, 2, code)
-	assert.Contains(t, errs, "usage: etpulse check --config FILE")
+	assert.Contains(t, errs, "usage: etpulse check [--config] FILE")
 	code, _, errs = runCmd(t, "check", "--config", "no-such-file.yaml")
 	assert.Equal(t, 2, code)
 	assert.Contains(t, errs, "no-such-file.yaml: load config: open no-such-file.yaml: no such file or directory")

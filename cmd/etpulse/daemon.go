@@ -15,6 +15,7 @@ import (
 	"github.com/prometheus/client_golang/prometheus/collectors"
 
 	"etpulse/gateway"
+	"etpulse/gateway/buildinfo"
 	"etpulse/gateway/config"
 	"etpulse/gateway/mqtt"
 	"etpulse/gateway/sdnotify"
@@ -23,7 +24,7 @@ import (
 
 var runHelp = helpText{
 	name:  "run",
-	usage: "etpulse run --config FILE [--log-format text|json] [--log-level LEVEL]",
+	usage: "etpulse run [--config] FILE [--log-format text|json] [--log-level LEVEL]",
 	intro: `Runs the gateway: subscribes to the configured sensor topics, closes
 clock hours and publishes each hourly record on
 <topic_prefix>/<site>/<station>/hour, keeps the zone balances and sends
@@ -50,14 +51,14 @@ func runDaemon(ctx context.Context, args []string, stdin io.Reader, stdout, stde
 	cfgPath := fs.String("config", "", "configuration `file` (YAML); check it first with 'etpulse check'")
 	logFormat := fs.String("log-format", "text", "log `format` on stderr: text or json")
 	logLevel := fs.String("log-level", "info", "log `level`: debug, info, warn or error")
-	if code, done := parseFlags(fs, args, runHelp, stdout, stderr); done {
+	if code, done := parseConfigFlags(fs, args, runHelp, cfgPath, stdout, stderr); done {
 		return code
 	}
 	if fs.NArg() > 0 {
 		return usageError(stderr, runHelp, "unexpected argument %q", fs.Arg(0))
 	}
 	if *cfgPath == "" {
-		return usageError(stderr, runHelp, "--config FILE is required")
+		return usageError(stderr, runHelp, configForms)
 	}
 	log, err := newLogger(stderr, *logFormat, *logLevel)
 	if err != nil {
@@ -65,7 +66,7 @@ func runDaemon(ctx context.Context, args []string, stdin io.Reader, stdout, stde
 	}
 	cfg, err := config.Load(*cfgPath)
 	if err != nil {
-		fmt.Fprintf(stderr, "etpulse run: %v\n", err)
+		fmt.Fprintf(stderr, "etpulse run: %v%s\n", err, configOrigin(*cfgPath))
 		return exitUsage
 	}
 	for _, w := range cfg.Warnings() {
@@ -86,6 +87,9 @@ func runDaemon(ctx context.Context, args []string, stdin io.Reader, stdout, stde
 func daemon(ctx context.Context, cfg *config.Config, log *slog.Logger) (err error) {
 	reg := prometheus.NewRegistry()
 	reg.MustRegister(collectors.NewGoCollector(), collectors.NewProcessCollector(collectors.ProcessCollectorOpts{}))
+	if err := buildinfo.Register(reg, buildinfo.Read(version)); err != nil {
+		return err
+	}
 
 	db, err := state.OpenLogged(cfg.State.Path, log.With("component", "state"))
 	if err != nil {

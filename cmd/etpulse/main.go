@@ -38,10 +38,17 @@ func commands() []command {
 		{"report", "print the morning report of a site for one day", runReport},
 		{"water", "record water the gateway did not command, or a measured depletion", runWater},
 		{"load", "measure the gateway's throughput with simulated stations on a local broker", runLoad},
+		{"version", "print the version, revision and Go version", runVersion},
 	}
 }
 
 func run(ctx context.Context, args []string, stdin io.Reader, stdout, stderr io.Writer) int {
+	switch {
+	case len(args) > 0 && (args[0] == "--version" || args[0] == "-version"):
+		args = []string{"version"}
+	case len(args) > 1 && args[0] == "help":
+		return helpCommand(ctx, args[1:], stdin, stdout, stderr)
+	}
 	if len(args) == 0 || args[0] == "-h" || args[0] == "--help" || args[0] == "help" {
 		usage(stdout)
 		if len(args) == 0 {
@@ -69,7 +76,20 @@ func usage(w io.Writer) {
 		fmt.Fprintf(w, "  %-8s %s\n", c.name, c.summary)
 	}
 	fmt.Fprintln(w)
-	fmt.Fprintln(w, "run 'etpulse <command> --help' for a command's flags.")
+	fmt.Fprintln(w, "run 'etpulse help <command>' (or 'etpulse <command> --help') for a command's flags;")
+	fmt.Fprintln(w, "'etpulse --version' prints the version.")
+}
+
+// helpCommand is 'etpulse help <command>': that command's --help.
+func helpCommand(ctx context.Context, args []string, stdin io.Reader, stdout, stderr io.Writer) int {
+	for _, c := range commands() {
+		if c.name == args[0] {
+			return c.run(ctx, []string{"--help"}, stdin, stdout, stderr)
+		}
+	}
+	fmt.Fprintf(stderr, "etpulse help: unknown command %q\n\n", args[0])
+	usage(stderr)
+	return exitUsage
 }
 
 // signalContext cancels on the first SIGINT/SIGTERM (graceful shutdown) and

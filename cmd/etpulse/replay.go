@@ -20,7 +20,7 @@ import (
 
 var replayHelp = helpText{
 	name:  "replay",
-	usage: "etpulse replay --config FILE --in readings.csv [--state FILE] [--zones FILE] [--summary] > records.csv",
+	usage: "etpulse replay [--config] FILE --in readings.csv [--state FILE] [--zones FILE] [--summary] > records.csv",
 	intro: `Runs recorded readings through the same pipeline, sensor checks and quality
 gate as 'etpulse run', offline (no broker, nothing published), and writes
 one CSV row per hourly record on stdout, revisions as extra rows; an hour
@@ -58,18 +58,21 @@ func runReplay(ctx context.Context, args []string, stdin io.Reader, stdout, stde
 	statePath := fs.String("state", "", "keep the pipeline's state file at `FILE` (hour bins and carries; the zone backtest and a local history are not in it); default: a temporary file, removed afterwards")
 	zonesPath := fs.String("zones", "", "write the zone backtest to `FILE`: one row per zone and day (ETc, rain, runs, credited, drainage, depletion)")
 	summary := fs.Bool("summary", false, "print the season totals per zone on stderr")
-	if code, done := parseFlags(fs, args, replayHelp, stdout, stderr); done {
+	if code, done := parseConfigFlags(fs, args, replayHelp, cfgPath, stdout, stderr); done {
 		return code
 	}
 	if fs.NArg() > 0 {
 		return usageError(stderr, replayHelp, "unexpected argument %q", fs.Arg(0))
 	}
-	if *cfgPath == "" || *inPath == "" {
-		return usageError(stderr, replayHelp, "--config FILE and --in FILE are required")
+	if *cfgPath == "" {
+		return usageError(stderr, replayHelp, configForms)
+	}
+	if *inPath == "" {
+		return usageError(stderr, replayHelp, "--in FILE is required")
 	}
 	cfg, err := config.Load(*cfgPath)
 	if err != nil {
-		fmt.Fprintf(stderr, "etpulse replay: %v\n", err)
+		fmt.Fprintf(stderr, "etpulse replay: %v%s\n", err, configOrigin(*cfgPath))
 		return exitUsage
 	}
 	for _, w := range cfg.Warnings() {

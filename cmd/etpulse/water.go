@@ -18,7 +18,7 @@ import (
 
 var waterHelp = helpText{
 	name:  "water",
-	usage: "etpulse water --config FILE [--site SITE] --zone ZONE (--mm X | --minutes M | --volume-l L | --set-depletion D) [--frost] --who NAME --why TEXT [--time TIME]",
+	usage: "etpulse water [--config] FILE [--site SITE] --zone ZONE (--mm X | --minutes M | --volume-l L | --set-depletion D) [--frost] --who NAME --why TEXT [--time TIME]",
 	intro: `Records water the gateway did not command in a zone's balance: a run
 started by hand, frost protection, or a hand-measured depletion. It sends
 the request to the running gateway over the configured broker (topic
@@ -58,7 +58,7 @@ func runWater(ctx context.Context, args []string, _ io.Reader, stdout, stderr io
 	at := fs.String("time", "", "`time` the water was applied or the measurement taken (default now)")
 	id := fs.String("id", "", "request `id` (default generated); the gateway applies an id once, so give the printed id again to retry safely")
 	timeout := fs.Duration("timeout", 30*time.Second, "`duration` to wait for the gateway's answer")
-	if code, done := parseFlags(fs, args, waterHelp, stdout, stderr); done {
+	if code, done := parseConfigFlags(fs, args, waterHelp, configPath, stdout, stderr); done {
 		return code
 	}
 	usageErr := func(format string, a ...any) int { return usageError(stderr, waterHelp, format, a...) }
@@ -67,8 +67,11 @@ func runWater(ctx context.Context, args []string, _ io.Reader, stdout, stderr io
 	}
 	set := map[string]bool{}
 	fs.Visit(func(f *flag.Flag) { set[f.Name] = true })
-	if *configPath == "" || *zone == "" {
-		return usageErr("--config and --zone are required")
+	if *configPath == "" {
+		return usageErr(configForms)
+	}
+	if *zone == "" {
+		return usageErr("--zone is required")
 	}
 	if *timeout <= 0 {
 		return usageErr("--timeout must be > 0, got %s", *timeout)

@@ -87,7 +87,7 @@ func TestWaterUsageErrors(t *testing.T) {
 		{[]string{"--zone", "block-9", "--mm", "3"}, `--zone: no zone "block-9" in site wattle`},
 		{[]string{"--zone", "block-1", "--site", "other", "--mm", "3"}, `--site: no site "other" in the configuration (sites: wattle)`},
 		{[]string{"--zone", "block-1", "--mm", "3", "--time", "last night"}, "--time:"},
-		{[]string{"--mm", "3"}, "--config and --zone are required"},
+		{[]string{"--mm", "3"}, "--zone is required"},
 	} {
 		code, out, errs := runCmd(t, append(base, tc.args...)...)
 		assert.Equal(t, exitUsage, code, "%v: %s", tc.args, errs)
