@@ -13,13 +13,16 @@ import (
 	"etpulse/gateway/clock"
 	"etpulse/gateway/config"
 	"etpulse/gateway/mqtt"
+	"etpulse/gateway/report"
+	"etpulse/gateway/store"
 	"etpulse/gateway/zones"
 	"etpulse/hourly"
 )
 
 // statePublisher keeps the retained state topics current: per station a
 // summary of its last hour (config.StationStateTopic), per zone its
-// balance, levels, hold and next run (config.ZoneStateTopic). A topic is
+// balance, levels, hold and next run (config.ZoneStateTopic), per site
+// yesterday's morning report (config.ReportTopic). A topic is
 // published (QoS 1, retained) only when its payload changed, so a late
 // subscriber gets the current state at once and the broker sees few
 // messages. It is a stepped service: RunOnce each minute and after every
@@ -27,7 +30,9 @@ import (
 type statePublisher struct {
 	prefix string
 	pub    mqtt.Publisher
-	zones  *zones.Service // nil: no zones
+	zones  *zones.Service  // nil: no zones
+	report *report.Builder // yesterday's report on config.ReportTopic; nil: none
+	sites  []string
 	clock  clock.Clock
 	log    *slog.Logger
 	wake   chan struct{}
@@ -43,11 +48,23 @@ var _ clock.Stepper = (*statePublisher)(nil)
 func wireStatePublisher(cfg *config.Config, deps Deps, comp *Components) *statePublisher {
 	p := &statePublisher{prefix: cfg.TopicPrefix, pub: deps.MQTT, clock: deps.Clock,
 		log: deps.Logger.With("component", "state-topics"), wake: make(chan struct{}, 1),
-		hours: map[[2]string]map[hourly.Reference]hourly.Record{}, sent: map[string]string{}}
+		hours: map[[2]string]map[hourly.Reference]hourly.Record{}, sent: map[string]string{}, sites: siteIDs(cfg)}
 	for _, h := range comp.Handlers {
 		if z, ok := h.(*zones.Service); ok {
 			p.zones = z
 		}
+	}
+	src := report.Sources{Config: cfg, Now: deps.Clock.Now}
+	for _, s := range comp.Services {
+		if h, ok := s.(*store.History); ok {
+			src.History = h
+		}
+	}
+	if p.zones != nil {
+		src.Zones = p.zones
+	}
+	if b, err := report.New(src); err == nil {
+		p.report = b
 	}
 	comp.Services = append(comp.Services, p)
 	return p
@@ -188,6 +205,16 @@ func (p *statePublisher) payloads(now time.Time) (map[string]string, error) {
 		put(config.StationStateTopic(p.prefix, k[0], k[1]), stationPayload(refs))
 	}
 	p.mu.Unlock()
+	if p.report != nil {
+		for _, site := range p.sites {
+			rep, err := p.report.Report(site, "")
+			if err != nil {
+				return out, err
+			}
+			rep.Generated = time.Time{} // unchanged days are not published again
+			put(config.ReportTopic(p.prefix, site), rep)
+		}
+	}
 	if p.zones == nil {
 		return out, nil
 	}

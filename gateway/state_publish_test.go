@@ -70,7 +70,8 @@ func TestRetainedState(t *testing.T) {
 
 	site := cfg.Sites[0].ID
 	stTopic := config.StationStateTopic(prefix, site, demo.Orchard)
-	want := map[string]bool{stTopic: true}
+	repTopic := config.ReportTopic(prefix, site)
+	want := map[string]bool{stTopic: true, repTopic: true}
 	for _, z := range cfg.Sites[0].Zones {
 		want[config.ZoneStateTopic(prefix, site, z.ID)] = true
 	}
@@ -82,7 +83,7 @@ func TestRetainedState(t *testing.T) {
 		}
 		defer late.Close(0)
 		ch := make(chan mqtt.Message, 64)
-		for _, f := range []string{prefix + "/" + site + "/+/state", prefix + "/" + site + "/zones/+/state"} {
+		for _, f := range []string{prefix + "/" + site + "/+/state", prefix + "/" + site + "/zones/+/state", repTopic} {
 			if late.Subscribe(f, 1, func(m mqtt.Message) { m.Ack(); ch <- m }) != nil {
 				return false
 			}
@@ -114,8 +115,20 @@ func TestRetainedState(t *testing.T) {
 	assert.Equal(t, demo.Orchard, st.Station)
 	assert.True(t, rec.Start.Equal(st.HourStart))
 	assert.InDelta(t, rec.Result.ET, st.ETmm[string(rec.Reference)], 0.0051, "ET rounded to 0.01 mm")
+	var rep struct {
+		Site     string `json:"site"`
+		Date     string `json:"date"`
+		Stations []struct {
+			Station string `json:"station"`
+		} `json:"stations"`
+	}
+	require.NoError(t, json.Unmarshal(got[repTopic], &rep), "%s", got[repTopic])
+	assert.Equal(t, site, rep.Site)
+	off := time.Duration(cfg.Sites[0].Stations[0].UTCOffset * float64(time.Hour))
+	assert.Equal(t, clock.Now().Add(off).AddDate(0, 0, -1).UTC().Format(time.DateOnly), rep.Date, "yesterday in the stations' standard time")
+	assert.Len(t, rep.Stations, 2)
 	for tp := range want {
-		if tp == stTopic {
+		if tp == stTopic || tp == repTopic {
 			continue
 		}
 		var z map[string]any
