@@ -3,7 +3,6 @@ package httpapi
 import (
 	"context"
 	"encoding/json"
-	"errors"
 	"fmt"
 	"io"
 	"net/http"
@@ -74,6 +73,3 @@ func FetchReport(ctx context.Context, base, site, date, token string) (report.Re
 	}
 	return rep, nil
 }
-
-// errReportOff is the answer of a gateway that serves no report.
-var errReportOff = errors.New("the morning report is not enabled on this listener")
