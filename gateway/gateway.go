@@ -479,13 +479,13 @@ func (g *Gateway) step(ctx context.Context, batch []mqtt.Message, byTime bool) e
 	var readings []ingest.Reading
 	for _, m := range batch {
 		rds, rejs := g.router.Route(m.Topic, m.Payload, now)
-		station := ""
+		site, station := "", ""
 		if len(rds) > 0 {
-			station = rds[0].Station
+			site, station = rds[0].Site, rds[0].Station
 		} else if len(rejs) > 0 {
-			station = rejs[0].Station
+			site, station = rejs[0].Site, rejs[0].Station
 		}
-		g.pipe.CountMessage(station)
+		g.pipe.CountMessage(site, station)
 		for _, r := range rejs {
 			g.pipe.Reject(now, r.Station, r)
 		}

@@ -113,7 +113,7 @@ func TestUnsetClockReadingOnNewStationDropped(t *testing.T) {
 	assert.Equal(t, ingest.ReasonTooOld, res.Rejected[0].Reason)
 	assert.Contains(t, res.Rejected[0].Err.Error(), "late window")
 	assert.Contains(t, res.Rejected[0].Err.Error(), "device clock")
-	assert.Equal(t, 1.0, testutil.ToFloat64(p.m.rejected.WithLabelValues("bench", "too_old")))
+	assert.Equal(t, 1.0, testutil.ToFloat64(p.m.rejected.WithLabelValues("larkspur", "bench", "too_old")))
 	out, err := p.Tick(h10.Add(2 * time.Hour))
 	require.NoError(t, err)
 	require.Len(t, out, 1, "hour 10 closes by silence; nothing before it")
@@ -127,7 +127,7 @@ func TestUnsetClockReadingOnNewStationDropped(t *testing.T) {
 	out, err = p.Tick(now.Add(15 * time.Minute))
 	require.NoError(t, err)
 	assert.Empty(t, out)
-	assert.Equal(t, 1.0, testutil.ToFloat64(p.m.rejected.WithLabelValues("bench", "too_old")))
+	assert.Equal(t, 1.0, testutil.ToFloat64(p.m.rejected.WithLabelValues("larkspur", "bench", "too_old")))
 	out, err = p.Tick(now.Add(3 * time.Hour))
 	require.NoError(t, err)
 	assert.Empty(t, out, "no first hour: nothing to close")
@@ -246,7 +246,7 @@ func TestArrivalStampedNoRevisionStorm(t *testing.T) {
 	for _, r := range recs {
 		assert.Zero(t, r.Revision, "hour %s revised", r.Start)
 	}
-	assert.Zero(t, testutil.ToFloat64(p.m.revisions.WithLabelValues("bench")))
+	assert.Zero(t, testutil.ToFloat64(p.m.revisions.WithLabelValues("larkspur", "bench")))
 }
 
 // Pruning the closed-hour states of a station does not make it forget that
@@ -290,11 +290,11 @@ func TestFutureReadingsHeldUntilClockReaches(t *testing.T) {
 	assert.Empty(t, res.Rejected)
 	assert.Equal(t, len(rds), res.Held)
 	assert.Zero(t, res.Accepted)
-	assert.Equal(t, float64(len(rds)), testutil.ToFloat64(p.m.held.WithLabelValues("bench")))
+	assert.Equal(t, float64(len(rds)), testutil.ToFloat64(p.m.held.WithLabelValues("larkspur", "bench")))
 
 	p, _ = newTestPipeline(t, db, Options{}) // restart
 	assert.Equal(t, h10.Add(-5*time.Minute), p.NextDeadline(), "the gateway wakes when the first held reading is due")
-	assert.Equal(t, float64(len(rds)), testutil.ToFloat64(p.m.held.WithLabelValues("bench")), "the gauge counts held readings after a restart")
+	assert.Equal(t, float64(len(rds)), testutil.ToFloat64(p.m.held.WithLabelValues("larkspur", "bench")), "the gauge counts held readings after a restart")
 	out, err := p.Tick(behind.Add(time.Hour))
 	require.NoError(t, err)
 	assert.Empty(t, out)
@@ -304,7 +304,7 @@ func TestFutureReadingsHeldUntilClockReaches(t *testing.T) {
 	require.Len(t, out, 1)
 	assert.Equal(t, h10, out[0].Start)
 	assert.True(t, out[0].Complete, out[0].Flags)
-	assert.Zero(t, testutil.ToFloat64(p.m.held.WithLabelValues("bench")))
+	assert.Zero(t, testutil.ToFloat64(p.m.held.WithLabelValues("larkspur", "bench")))
 }
 
 // The holding bucket is bounded: beyond its limit readings are refused
@@ -321,7 +321,7 @@ func TestHeldReadingsBounded(t *testing.T) {
 		assert.Equal(t, ingest.ReasonTooFuture, r.Reason)
 		assert.Contains(t, r.Err.Error(), "5 readings")
 	}
-	assert.Equal(t, 3.0, testutil.ToFloat64(p.m.rejected.WithLabelValues("bench", "too_future")))
+	assert.Equal(t, 3.0, testutil.ToFloat64(p.m.rejected.WithLabelValues("larkspur", "bench", "too_future")))
 }
 
 // A station clock that jumps back an hour sends readings into a closed
@@ -356,5 +356,5 @@ func TestStationClockJumpBackRevisesOnce(t *testing.T) {
 		}
 	}
 	assert.Equal(t, 1, revs, "hour 11 is revised once")
-	assert.Equal(t, 1.0, testutil.ToFloat64(p.m.revisions.WithLabelValues("bench")))
+	assert.Equal(t, 1.0, testutil.ToFloat64(p.m.revisions.WithLabelValues("larkspur", "bench")))
 }

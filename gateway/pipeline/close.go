@@ -135,7 +135,7 @@ func (p *Pipeline) closeHour(st *station, hour time.Time, silent bool) (hourly.R
 		return hourly.Record{}, fmt.Errorf("close hour %s: %w", hour.Format(time.RFC3339), err)
 	}
 	st.cursor, st.closed = hour.Add(time.Hour), true
-	p.m.closed.WithLabelValues(st.id, strconv.FormatBool(rec.Complete)).Inc()
+	p.m.closed.WithLabelValues(st.site, st.id, strconv.FormatBool(rec.Complete)).Inc()
 	p.observeRecord(st, rec)
 	return rec, nil
 }
@@ -199,7 +199,7 @@ func (p *Pipeline) revise(st *station, now time.Time) ([]hourly.Record, bool, er
 		if err != nil {
 			return out, true, fmt.Errorf("revise hour %s: %w", hour.Format(time.RFC3339), err)
 		}
-		p.m.revisions.WithLabelValues(st.id).Inc()
+		p.m.revisions.WithLabelValues(st.site, st.id).Inc()
 		p.observeRecord(st, rec)
 		out = append(out, rec)
 	}
@@ -240,7 +240,7 @@ func (p *Pipeline) trimQuiet(st *station, now time.Time) error {
 	}
 	st.cursor, st.hasCursor = cursor, !cursor.IsZero()
 	for _, r := range rejs {
-		p.m.rejected.WithLabelValues(stationLabel(st.id), string(r.Reason)).Inc()
+		p.m.rejected.WithLabelValues(labels(st.site, st.id, string(r.Reason))...).Inc()
 		p.rejects.note(now, stationLabel(st.id), r)
 	}
 	return nil
@@ -322,7 +322,7 @@ func (p *Pipeline) admitHeld(now time.Time) ([]hourly.Record, error) {
 			return out, fmt.Errorf("station %s/%s: remove admitted held readings: %w", st.site, st.id, err)
 		}
 		st.held, st.heldFirst = st.held-len(keys), next
-		p.m.held.WithLabelValues(stationLabel(st.id)).Set(float64(st.held))
+		p.m.held.WithLabelValues(st.site, st.id).Set(float64(st.held))
 		p.log.Info("held readings admitted", "station", st.id, "count", len(keys))
 	}
 	return out, nil
@@ -352,9 +352,9 @@ func (p *Pipeline) commitHour(tx *bbolt.Tx, sb stationBuckets, st *station, rec 
 
 func (p *Pipeline) observeRecord(st *station, rec hourly.Record) {
 	if rec.Result != nil {
-		p.m.lastET.WithLabelValues(st.id, string(rec.Reference)).Set(rec.Result.ET)
+		p.m.lastET.WithLabelValues(st.site, st.id, string(rec.Reference)).Set(rec.Result.ET)
 	}
-	p.m.lastClosed.WithLabelValues(st.id).Set(float64(rec.End.Unix()))
+	p.m.lastClosed.WithLabelValues(st.site, st.id).Set(float64(rec.End.Unix()))
 }
 
 func (p *Pipeline) gateFor(st *station, hour time.Time) Gate {

@@ -217,7 +217,7 @@ func New(cfg *config.Config, o Options) (*Pipeline, error) {
 			if k, _ := sb.held.Cursor().First(); len(k) >= 8 {
 				st.heldFirst = time.Unix(0, int64(binary.BigEndian.Uint64(k[:8]))).UTC()
 			}
-			p.m.held.WithLabelValues(stationLabel(st.id)).Set(float64(st.held))
+			p.m.held.WithLabelValues(st.site, st.id).Set(float64(st.held))
 		}
 		return nil
 	}); err != nil {
@@ -315,7 +315,7 @@ func (p *Pipeline) ingestTx(now time.Time, readings []ingest.Reading, noStop map
 	var (
 		acc      []accepted
 		rejs     []ingest.Rejection
-		dups     []string
+		dups     []*station
 		updates  = map[*station]*mirror{}
 		consumed int
 		stop     *station
@@ -370,7 +370,7 @@ func (p *Pipeline) ingestTx(now time.Time, readings []ingest.Reading, noStop map
 						st.heldFirst = s.Time
 					}
 				} else {
-					dups = append(dups, st.id)
+					dups = append(dups, st)
 				}
 				continue
 			}
@@ -426,7 +426,7 @@ func (p *Pipeline) ingestTx(now time.Time, readings []ingest.Reading, noStop map
 			}
 			key := sampleKey(hour, s)
 			if sb.samples.Get(key) != nil {
-				dups = append(dups, st.id)
+				dups = append(dups, st)
 				continue
 			}
 			if drives && mu.hasCursor && !noStop[st] && !s.Time.Before(mu.cursor.Add(time.Hour+st.cfg.CloseGrace.D())) {
@@ -497,7 +497,7 @@ func (p *Pipeline) ingestTx(now time.Time, readings []ingest.Reading, noStop map
 		}
 		if mu.held > 0 {
 			st.held += mu.held
-			p.m.held.WithLabelValues(stationLabel(st.id)).Set(float64(st.held))
+			p.m.held.WithLabelValues(st.site, st.id).Set(float64(st.held))
 		}
 	}
 	for _, a := range acc {
@@ -506,12 +506,12 @@ func (p *Pipeline) ingestTx(now time.Time, readings []ingest.Reading, noStop map
 		}
 	}
 	for _, r := range rejs {
-		p.m.rejected.WithLabelValues(stationLabel(r.Station), string(r.Reason)).Inc()
+		p.m.rejected.WithLabelValues(labels(r.Site, r.Station, string(r.Reason))...).Inc()
 		p.rejects.note(now, stationLabel(r.Station), r)
 	}
 	res.Rejected = append(res.Rejected, rejs...)
-	for _, id := range dups {
-		p.m.duplicates.WithLabelValues(id).Inc()
+	for _, st := range dups {
+		p.m.duplicates.WithLabelValues(st.site, st.id).Inc()
 	}
 	res.Duplicates += len(dups)
 	res.Accepted += len(acc)

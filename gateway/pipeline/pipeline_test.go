@@ -220,9 +220,9 @@ func TestWatermarkClosesHourAndMatchesDirectComputation(t *testing.T) {
 	assert.Greater(t, got.Result.ET, 0.2, "a sunny mid-morning hour")
 	assert.NotContains(t, got.Flags, FlagSilenceClose)
 
-	assert.Equal(t, 1.0, testutil.ToFloat64(p.m.closed.WithLabelValues("bench", "true")))
-	assert.InDelta(t, want.ET, testutil.ToFloat64(p.m.lastET.WithLabelValues("bench", "short")), 1e-12)
-	assert.Equal(t, float64(h10.Add(time.Hour).Unix()), testutil.ToFloat64(p.m.lastClosed.WithLabelValues("bench")))
+	assert.Equal(t, 1.0, testutil.ToFloat64(p.m.closed.WithLabelValues("larkspur", "bench", "true")))
+	assert.InDelta(t, want.ET, testutil.ToFloat64(p.m.lastET.WithLabelValues("larkspur", "bench", "short")), 1e-12)
+	assert.Equal(t, float64(h10.Add(time.Hour).Unix()), testutil.ToFloat64(p.m.lastClosed.WithLabelValues("larkspur", "bench")))
 
 	// The record survives a JSON round trip (results topic and state file).
 	b, err := MarshalRecord(got)
@@ -275,7 +275,7 @@ func TestDuplicatesDropped(t *testing.T) {
 	require.NoError(t, err)
 	assert.Equal(t, 12, res.Duplicates)
 	assert.Equal(t, 0, res.Accepted)
-	assert.Equal(t, 12.0, testutil.ToFloat64(p.m.duplicates.WithLabelValues("bench")))
+	assert.Equal(t, 12.0, testutil.ToFloat64(p.m.duplicates.WithLabelValues("larkspur", "bench")))
 
 	out, err := p.Tick(h10.Add(time.Hour + 15*time.Minute))
 	require.NoError(t, err)
@@ -311,7 +311,7 @@ func TestSilenceClosesQuietStation(t *testing.T) {
 	assert.Equal(t, h10.Add(time.Hour), out[0].Start)
 	assert.Equal(t, h10.Add(2*time.Hour), out[1].Start)
 	assert.Equal(t, 0, out[1].Stats[hourly.AirTemp].Count)
-	assert.Equal(t, 3.0, testutil.ToFloat64(p.m.closed.WithLabelValues("bench", "false")))
+	assert.Equal(t, 3.0, testutil.ToFloat64(p.m.closed.WithLabelValues("larkspur", "bench", "false")))
 }
 
 // A logger that uploads a backlog long after the fact is not a quiet
@@ -399,7 +399,7 @@ func TestLateReadingRevisesHour(t *testing.T) {
 		}
 	}
 	assert.Equal(t, []int{0, 1}, revs, "handlers see revision 0 then 1")
-	assert.Equal(t, 1.0, testutil.ToFloat64(p.m.revisions.WithLabelValues("bench")))
+	assert.Equal(t, 1.0, testutil.ToFloat64(p.m.revisions.WithLabelValues("larkspur", "bench")))
 
 	// No further revision without new late data.
 	out, err = p.Tick(now.Add(time.Minute))
@@ -425,7 +425,7 @@ func TestTooOldAndTooFuture(t *testing.T) {
 	require.Len(t, res.Rejected, 1)
 	assert.Equal(t, ingest.ReasonTooOld, res.Rejected[0].Reason)
 	assert.Contains(t, res.Rejected[0].Err.Error(), "late window of 6h0m0s has passed")
-	assert.Equal(t, 1.0, testutil.ToFloat64(p.m.rejected.WithLabelValues("bench", "too_old")))
+	assert.Equal(t, 1.0, testutil.ToFloat64(p.m.rejected.WithLabelValues("larkspur", "bench", "too_old")))
 	assert.Equal(t, 1, res.Held, "a reading too far ahead is held (TestHeldReadingsBounded: too_future when the holding is full)")
 	assert.Equal(t, 0, res.Accepted)
 }

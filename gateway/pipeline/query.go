@@ -229,7 +229,8 @@ func (p *Pipeline) Stations() [][2]string {
 	return out
 }
 
-// stationLabel is the metrics label of a station id: the id, or "unknown".
+// stationLabel is the metrics label of a site or station id: the id, or
+// "unknown".
 func stationLabel(id string) string {
 	if id == "" {
 		return "unknown"
@@ -237,16 +238,17 @@ func stationLabel(id string) string {
 	return id
 }
 
-// CountMessage counts one received MQTT message for the station ("" when the
-// topic matched no sensor).
-func (p *Pipeline) CountMessage(station string) {
-	p.m.received.WithLabelValues(stationLabel(station)).Inc()
+// CountMessage counts one received MQTT message for the station of site
+// (both "" when the topic matched no sensor).
+func (p *Pipeline) CountMessage(site, station string) {
+	p.m.received.WithLabelValues(labels(site, station)...).Inc()
 }
 
 // Reject counts and logs (rate-limited) a message or reading refused before
-// it reached Ingest, e.g. by the payload decoder.
+// it reached Ingest, e.g. by the payload decoder. The series is that of
+// rej.Site and station.
 func (p *Pipeline) Reject(now time.Time, station string, rej ingest.Rejection) {
-	p.m.rejected.WithLabelValues(stationLabel(station), string(rej.Reason)).Inc()
+	p.m.rejected.WithLabelValues(labels(rej.Site, station, string(rej.Reason))...).Inc()
 	p.rejects.note(now, stationLabel(station), rej)
 }
 
