@@ -17,6 +17,7 @@ import (
 	"github.com/stretchr/testify/assert"
 	"github.com/stretchr/testify/require"
 
+	"etpulse/gateway/report"
 	"etpulse/gateway/status"
 )
 
@@ -87,6 +88,10 @@ func TestBrowserStatusPages(t *testing.T) {
 	require.NotEmpty(t, ov.Stations)
 	require.NotEmpty(t, ov.Zones)
 	st, zn := ov.Stations[0], ov.Zones[0]
+	// The overview links the morning report: it answers too.
+	var rep report.Report
+	getJSON(t, base+"/api/v1/report?site="+st.Site, &rep)
+	require.NotEmpty(t, rep.Stations, "the report of the demo's last day lists its stations")
 	var sp status.StationPage
 	getJSON(t, base+"/api/v1/stations/"+st.Site+"/"+st.Station, &sp)
 	var zp status.ZonePage
@@ -130,6 +135,10 @@ func TestBrowserStatusPages(t *testing.T) {
 			`document.querySelectorAll('rect.bar.et').length`:      etBars,
 			`document.querySelector('polyline.rs').points.length`:  rsPts,
 			`document.querySelector('polyline.rso').points.length`: rsoPts,
+		}},
+		{"report", "/report?site=" + st.Site, map[string]int{
+			`document.querySelectorAll('.cards .card').length`:       len(rep.Stations),
+			`document.querySelectorAll('a[href^="/zones/"]').length`: len(rep.Zones),
 		}},
 		{"zone", "/zones/" + zn.Site + "/" + zn.Zone, map[string]int{
 			`document.querySelector('polyline.depletion').points.length`: len(zp.Steps),

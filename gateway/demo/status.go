@@ -31,6 +31,11 @@ func serveStatus(ctx context.Context, g *gateway.Gateway, reg *prometheus.Regist
 		return nil, fmt.Errorf("status pages: %w", err)
 	}
 	srv := httpapi.New(httpapi.Options{Addr: addr, Gatherer: reg, Status: r, Logger: opt.Logger.With("component", "http")})
+	b, err := g.ReportBuilder()
+	if err != nil {
+		return nil, fmt.Errorf("status pages: morning report: %w", err)
+	}
+	srv.SetReport(b)
 	if err := srv.Listen(); err != nil {
 		return nil, fmt.Errorf("status pages: %w (give a free address with --http)", err)
 	}
