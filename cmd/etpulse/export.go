@@ -8,6 +8,7 @@ import (
 	"io"
 	"strings"
 
+	"etpulse/gateway"
 	"etpulse/gateway/config"
 	"etpulse/gateway/httpapi"
 	"etpulse/gateway/state"
@@ -84,7 +85,12 @@ func runExport(ctx context.Context, args []string, stdin io.Reader, stdout, stde
 			fmt.Fprintf(stderr, "etpulse export: %v\n", err)
 			return exitUsage
 		}
-		n, err := httpapi.FetchHistory(ctx, base, q, stdout)
+		token, err := gateway.ReadToken(cfg.HTTP)
+		if err != nil {
+			fmt.Fprintf(stderr, "etpulse export: %v\n", err)
+			return exitUsage
+		}
+		n, err := httpapi.FetchHistory(ctx, base, q, token, stdout)
 		switch {
 		case err == nil:
 			fmt.Fprintf(stderr, "etpulse export: %s, read through the running gateway at %s\n", count(n, "point", "points"), base)

@@ -44,13 +44,17 @@ var historyClient = &http.Client{Transport: &http.Transport{
 
 // FetchHistory asks the gateway at base (see BaseURL) for the history q
 // selects and copies the response to w as it arrives; it returns the number
-// of points the gateway reports in its trailer. Errors wrapping
+// of points the gateway reports in its trailer. token, when not empty, is
+// sent as a Bearer token (the gateway's http.token_file). Errors wrapping
 // ErrNoGateway come before anything was written to w.
-func FetchHistory(ctx context.Context, base string, q HistoryQuery, w io.Writer) (int, error) {
+func FetchHistory(ctx context.Context, base string, q HistoryQuery, token string, w io.Writer) (int, error) {
 	u := base + HistoryPath + "?" + q.Values().Encode()
 	req, err := http.NewRequestWithContext(ctx, http.MethodGet, u, nil)
 	if err != nil {
 		return 0, fmt.Errorf("fetch history %s: %w", base, err)
+	}
+	if token != "" {
+		req.Header.Set("Authorization", "Bearer "+token)
 	}
 	resp, err := historyClient.Do(req)
 	if err != nil {
@@ -64,6 +68,8 @@ func FetchHistory(ctx context.Context, base string, q HistoryQuery, w io.Writer)
 	case http.StatusOK:
 	case http.StatusNotFound:
 		return 0, fmt.Errorf("fetch history %s: %w (it has no %s route: an older etpulse, or another server)", base, ErrNoGateway, HistoryPath)
+	case http.StatusUnauthorized:
+		return 0, fmt.Errorf("fetch history %s: the gateway wants its access token: give the configuration whose http.token_file it uses", base)
 	default:
 		body, _ := io.ReadAll(io.LimitReader(resp.Body, 4096))
 		return 0, fmt.Errorf("fetch history %s: %s: %s", base, resp.Status, strings.TrimSpace(string(body)))

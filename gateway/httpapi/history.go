@@ -138,6 +138,9 @@ func (s *Server) history(w http.ResponseWriter, r *http.Request) {
 		http.Error(w, "method "+r.Method+" not allowed; the history is read with GET", http.StatusMethodNotAllowed)
 		return
 	}
+	if st := s.status.Load(); st != nil && !s.authorized(w, r, st) {
+		return // the status pages' token guards the history too
+	}
 	if s.opt.History == nil {
 		http.Error(w, "this gateway keeps no local history", http.StatusServiceUnavailable)
 		return

@@ -193,7 +193,7 @@ func TestFetchHistory(t *testing.T) {
 	base := start(t, Options{Gatherer: prometheus.NewRegistry(), History: o.History()})
 	q := HistoryQuery{Filter: store.Filter{From: historyAt, To: historyAt.Add(24 * time.Hour), Measurements: []string{store.MeasurementZone}}, Format: "csv"}
 	var out bytes.Buffer
-	n, err := FetchHistory(context.Background(), base, q, &out)
+	n, err := FetchHistory(context.Background(), base, q, "", &out)
 	require.NoError(t, err)
 	assert.Equal(t, 1, n)
 	assert.Equal(t, "time,measurement,site,zone,depletion_mm,why\n2024-06-11T10:00:00Z,zone_step,lowmead,field 7,14.2,\"hand run, \"\"after\"\" the repair\"\n", out.String())
@@ -203,7 +203,7 @@ func TestFetchHistory(t *testing.T) {
 	closed := "http://" + ln.Addr().String()
 	require.NoError(t, ln.Close())
 	out.Reset()
-	_, err = FetchHistory(context.Background(), closed, q, &out)
+	_, err = FetchHistory(context.Background(), closed, q, "", &out)
 	assert.ErrorIs(t, err, ErrNoGateway)
 	assert.Empty(t, out.String())
 
@@ -212,12 +212,12 @@ func TestFetchHistory(t *testing.T) {
 	require.NoError(t, err)
 	go func() { _ = other.Serve(ln) }()
 	t.Cleanup(func() { _ = other.Close() })
-	_, err = FetchHistory(context.Background(), "http://"+ln.Addr().String(), q, &out)
+	_, err = FetchHistory(context.Background(), "http://"+ln.Addr().String(), q, "", &out)
 	assert.ErrorIs(t, err, ErrNoGateway)
 	assert.Contains(t, err.Error(), "has no /api/v1/history route")
 
 	bare := start(t, Options{Gatherer: prometheus.NewRegistry()})
-	_, err = FetchHistory(context.Background(), bare, q, &out)
+	_, err = FetchHistory(context.Background(), bare, q, "", &out)
 	require.Error(t, err)
 	assert.False(t, errors.Is(err, ErrNoGateway))
 	assert.Contains(t, err.Error(), "503 Service Unavailable: this gateway keeps no local history")
@@ -250,4 +250,29 @@ func TestHistoryQueryValuesRoundTrip(t *testing.T) {
 	got, err := ParseHistoryQuery(v.Get)
 	require.NoError(t, err)
 	assert.Equal(t, q, got)
+}
+
+// TestHistoryBehindToken: with the status pages' token set, the history
+// route wants it too (it holds the same farm data), and FetchHistory sends
+// it; without it the client says which setting the gateway wants.
+func TestHistoryBehindToken(t *testing.T) {
+	_, o := historyFixture(t)
+	base := start(t, Options{Gatherer: prometheus.NewRegistry(), History: o.History(), Status: &fixedStatus{}, Token: "s3cret-farm-token"})
+	q := HistoryQuery{Filter: store.Filter{From: historyAt, To: historyAt.Add(24 * time.Hour), Measurements: []string{store.MeasurementZone}}, Format: "csv"}
+
+	resp, err := http.Get(base + HistoryPath + "?" + q.Values().Encode())
+	require.NoError(t, err)
+	resp.Body.Close()
+	assert.Equal(t, http.StatusUnauthorized, resp.StatusCode)
+
+	var out bytes.Buffer
+	_, err = FetchHistory(context.Background(), base, q, "", &out)
+	require.Error(t, err)
+	assert.False(t, errors.Is(err, ErrNoGateway), "a gateway that wants a token is not absent: no fallback to the locked file")
+	assert.Contains(t, err.Error(), "http.token_file")
+	assert.Empty(t, out.String())
+
+	n, err := FetchHistory(context.Background(), base, q, "s3cret-farm-token", &out)
+	require.NoError(t, err)
+	assert.Equal(t, 1, n)
 }
