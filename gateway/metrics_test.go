@@ -100,7 +100,10 @@ func TestWholeRegistryScrape(t *testing.T) {
 	} {
 		assert.Contains(t, text, "\n"+name, name)
 	}
-	assert.Contains(t, text, `etpulse_alerts_raised_total{kind="range"} 1`)
+	assert.Contains(t, text, `etpulse_alerts_raised_total{kind="range",severity="critical",site="`+demo.Site+`"} 1`)
+	assert.Regexp(t, `\netpulse_alerts_active\{kind="range",quantity="air_temp",sensor="[^"]+",severity="critical",site="`+demo.Site+`",station="`+demo.Orchard+`",zone=""\} 1\n`, text,
+		"an alert rule can name the sensor at fault")
+	assert.Contains(t, text, `etpulse_messages_received_total{site="`+demo.Site+`",station="`+demo.Orchard+`"}`)
 
 	parser := expfmt.NewTextParser(model.LegacyValidation)
 	mfs, err := parser.TextToMetricFamilies(strings.NewReader(text))

@@ -105,16 +105,19 @@ func TestZoneAlertsWired(t *testing.T) {
 	stale := func() float64 {
 		mfs, err := reg.Gather()
 		require.NoError(t, err)
+		var n float64
 		for _, mf := range mfs {
 			if mf.GetName() == "etpulse_alerts_active" {
 				for _, m := range mf.GetMetric() {
-					if m.GetLabel()[0].GetValue() == "zone-et-stale" {
-						return m.GetGauge().GetValue()
+					for _, lp := range m.GetLabel() {
+						if lp.GetName() == "kind" && lp.GetValue() == "zone-et-stale" {
+							n += m.GetGauge().GetValue() // one series per zone alert
+						}
 					}
 				}
 			}
 		}
-		return 0
+		return n
 	}
 	assert.Equal(t, float64(len(cfg.Sites[0].Zones)), stale(), "one per zone")
 

@@ -142,8 +142,8 @@ func TestMetricsScrapeIsClean(t *testing.T) {
 	base := start(t, Options{Gatherer: reg})
 	code, body := get(t, base+"/metrics")
 	require.Equal(t, http.StatusOK, code)
-	assert.Contains(t, body, `etpulse_alerts_active{kind="command-expired"} 1`)
-	assert.Contains(t, body, `etpulse_alerts_raised_total{kind="command-expired"} 1`)
+	assert.Contains(t, body, `etpulse_alerts_active{kind="command-expired",quantity="command",sensor="valve-3",severity="warning",site="brackenfold",station="orchard",zone=""} 1`)
+	assert.Contains(t, body, `etpulse_alerts_raised_total{kind="command-expired",severity="warning",site="brackenfold"} 1`)
 	assert.Contains(t, body, "etpulse_outbox_depth")
 
 	parser := expfmt.NewTextParser(model.LegacyValidation)

@@ -194,7 +194,7 @@ func New(o Options) (*Monitor, error) {
 		if !a.Active() {
 			continue
 		}
-		m.metrics.active.WithLabelValues(string(a.Kind)).Inc()
+		m.metrics.show(a)
 		// A sensor silent before the restart stays silent since its last
 		// reading (the alert's value), instead of clearing and raising again.
 		if info := m.stations[stationID{a.Site, a.Station}]; info != nil && a.Kind == alert.KindSilence && a.Value > 0 {
@@ -438,17 +438,13 @@ func (m *Monitor) committed(evs []Event, states []alert.Alert, fromTx bool) {
 	}
 	m.mu.Unlock()
 	for _, ev := range evs {
-		kind := string(ev.Alert.Kind)
+		m.metrics.event(ev)
 		switch ev.Type {
 		case EventRaised:
-			m.metrics.raised.WithLabelValues(kind).Inc()
-			m.metrics.active.WithLabelValues(kind).Inc()
 			m.log.Warn("alert raised", "alert", ev.Alert.Key.String(), "severity", ev.Alert.Severity, "evidence", ev.Alert.Message)
 		case EventUpdated:
 			m.log.Info("alert updated", "alert", ev.Alert.Key.String(), "evidence", ev.Alert.Message)
 		case EventCleared:
-			m.metrics.cleared.WithLabelValues(kind).Inc()
-			m.metrics.active.WithLabelValues(kind).Dec()
 			m.log.Info("alert cleared", "alert", ev.Alert.Key.String(), "evidence", ev.Alert.Message)
 		}
 		for _, fn := range m.listeners() {

@@ -8,7 +8,6 @@ import (
 	"time"
 
 	"github.com/prometheus/client_golang/prometheus"
-	"github.com/prometheus/client_golang/prometheus/testutil"
 	"github.com/stretchr/testify/assert"
 	"github.com/stretchr/testify/require"
 	"go.etcd.io/bbolt"
@@ -135,8 +134,8 @@ func TestMonitorSoiledPyranometerLifecycle(t *testing.T) {
 	assert.Equal(t, alert.Key{Site: "brackenfold", Station: "orchard", Sensor: alert.HourSubject, Quantity: hourly.Solar, Kind: alert.KindSolarLow}, active[0].Key)
 
 	// Counted in metrics.
-	assert.Equal(t, 1.0, testutil.ToFloat64(f.mon.metrics.active.WithLabelValues("solar-low")))
-	assert.Equal(t, 1.0, testutil.ToFloat64(f.mon.metrics.raised.WithLabelValues("solar-low")))
+	assert.Equal(t, 1.0, kindTotal(t, f.reg, "etpulse_alerts_active", "solar-low"))
+	assert.Equal(t, 1.0, kindTotal(t, f.reg, "etpulse_alerts_raised_total", "solar-low"))
 
 	// Pending retained message, and a store point through the outbox.
 	pub := f.pendingPublish(t)
@@ -167,7 +166,7 @@ func TestMonitorSoiledPyranometerLifecycle(t *testing.T) {
 	require.NoError(t, f.db.Close())
 	f2 := newFixture(t, testConfig(config.RespondExclude), path, synthStart)
 	require.Len(t, f2.mon.Active(), 1)
-	assert.Equal(t, 1.0, testutil.ToFloat64(f2.mon.metrics.active.WithLabelValues("solar-low")))
+	assert.Equal(t, 1.0, kindTotal(t, f2.reg, "etpulse_alerts_active", "solar-low"))
 
 	// The dome is cleaned. The records are now computed without solar (the
 	// gate excludes it), so the monitor judges from the readings it observed.
@@ -185,8 +184,8 @@ func TestMonitorSoiledPyranometerLifecycle(t *testing.T) {
 		// Only solar reported in this part of the test: the others are silent.
 		assert.Equal(t, alert.KindSilence, a.Kind)
 	}
-	assert.Equal(t, 3.0, testutil.ToFloat64(f2.mon.metrics.raised.WithLabelValues("silence")), "raised once each, not updated")
-	assert.Equal(t, 0.0, testutil.ToFloat64(f2.mon.metrics.active.WithLabelValues("solar-low")))
+	assert.Equal(t, 3.0, kindTotal(t, f2.reg, "etpulse_alerts_raised_total", "silence"), "raised once each, not updated")
+	assert.Equal(t, 0.0, kindTotal(t, f2.reg, "etpulse_alerts_active", "solar-low"))
 	assert.Equal(t, "", f2.pendingPublish(t)[solarLowTopic], "an empty retained message clears the topic")
 	pts = f2.alertPoints(t)
 	require.Len(t, pts, 2)
@@ -284,8 +283,8 @@ func TestMonitorReadingFaultsAndSilence(t *testing.T) {
 	require.NoError(t, f.mon.Sync())
 	assert.Empty(t, f.mon.Active())
 	for _, k := range []string{"rh-above-100", "spike", "silence"} {
-		assert.Equal(t, 1.0, testutil.ToFloat64(f.mon.metrics.cleared.WithLabelValues(k)), k)
-		assert.Equal(t, 0.0, testutil.ToFloat64(f.mon.metrics.active.WithLabelValues(k)), k)
+		assert.Equal(t, 1.0, kindTotal(t, f.reg, "etpulse_alerts_cleared_total", k), k)
+		assert.Equal(t, 0.0, kindTotal(t, f.reg, "etpulse_alerts_active", k), k)
 	}
 }
 
@@ -342,5 +341,5 @@ func TestMonitorSilenceSurvivesRestart(t *testing.T) {
 	require.NoError(t, f2.mon.Sync())
 	assert.Len(t, f2.mon.Active(), 4)
 	assert.Empty(t, f2.evs)
-	assert.Equal(t, 0.0, testutil.ToFloat64(f2.mon.metrics.raised.WithLabelValues("silence")))
+	assert.Equal(t, 0.0, kindTotal(t, f2.reg, "etpulse_alerts_raised_total", "silence"))
 }
