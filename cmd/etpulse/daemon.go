@@ -87,7 +87,7 @@ func runDaemon(ctx context.Context, args []string, stdin io.Reader, stdout, stde
 func daemon(ctx context.Context, cfg *config.Config, log *slog.Logger) (err error) {
 	reg := prometheus.NewRegistry()
 	reg.MustRegister(collectors.NewGoCollector(), collectors.NewProcessCollector(collectors.ProcessCollectorOpts{}))
-	if err := buildinfo.Register(reg, buildinfo.Read(version)); err != nil {
+	if err := buildinfo.Register(reg, buildinfo.Read(version, revision)); err != nil {
 		return err
 	}
 

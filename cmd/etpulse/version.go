@@ -9,10 +9,11 @@ import (
 	"etpulse/gateway/buildinfo"
 )
 
-// version is stamped at build time: go build -ldflags "-X main.version=v1.2.0"
-// (deploy/release.sh stamps git describe). Empty: the module version or
-// "(devel)".
-var version string
+// version and revision are stamped at build time: go build -ldflags
+// "-X main.version=v1.2.0 -X main.revision=COMMIT" (deploy/release.sh
+// stamps git describe and the commit). Empty: the module version or
+// "(devel)", and the VCS revision of the Go build info.
+var version, revision string
 
 var versionHelp = helpText{
 	name:  "version",
@@ -32,6 +33,6 @@ func runVersion(_ context.Context, args []string, _ io.Reader, stdout, stderr io
 	if fs.NArg() > 0 {
 		return usageError(stderr, versionHelp, "unexpected argument %q", fs.Arg(0))
 	}
-	fmt.Fprintln(stdout, buildinfo.Read(version))
+	fmt.Fprintln(stdout, buildinfo.Read(version, revision))
 	return exitOK
 }

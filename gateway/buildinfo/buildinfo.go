@@ -19,10 +19,12 @@ type Info struct {
 	GoVersion string // the Go toolchain that built the binary
 }
 
-// Read returns the running build's Info. stamp is the version set at build
-// time with -ldflags "-X main.version=..." (deploy/release.sh stamps git
-// describe); empty means none.
-func Read(stamp string) Info {
+// Read returns the running build's Info. stamp and revStamp are the version
+// and revision set at build time with -ldflags "-X main.version=... -X
+// main.revision=..." (deploy/release.sh stamps git describe and the commit);
+// empty means none, and the Go build info's module version and VCS
+// revision are used.
+func Read(stamp, revStamp string) Info {
 	i := Info{Version: stamp, Revision: "unknown", GoVersion: runtime.Version()}
 	bi, ok := debug.ReadBuildInfo()
 	if ok {
@@ -41,6 +43,9 @@ func Read(stamp string) Info {
 		if dirty && i.Revision != "unknown" {
 			i.Revision += "-dirty"
 		}
+	}
+	if revStamp != "" {
+		i.Revision = revStamp
 	}
 	if i.Version == "" {
 		i.Version = "(devel)"

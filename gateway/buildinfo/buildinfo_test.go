@@ -12,12 +12,14 @@ import (
 )
 
 func TestReadStamp(t *testing.T) {
-	i := Read("v1.4.0-3-gabc1234")
+	i := Read("v1.4.0-3-gabc1234", "abc1234def")
 	assert.Equal(t, "v1.4.0-3-gabc1234", i.Version, "the -ldflags -X stamp wins")
+	assert.Equal(t, "abc1234def", i.Revision)
 	assert.Equal(t, runtime.Version(), i.GoVersion)
 	assert.NotEmpty(t, i.Revision)
-	j := Read("")
+	j := Read("", "")
 	assert.NotEmpty(t, j.Version, "without a stamp: the module version or (devel)")
+	assert.NotEmpty(t, j.Revision, "the VCS revision, or unknown")
 	assert.Equal(t, "etpulse "+i.Version+" (revision "+i.Revision+", "+runtime.Version()+")", i.String())
 }
 
