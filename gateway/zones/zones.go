@@ -176,7 +176,7 @@ func New(o Options) (*Service, error) {
 			s.sites = append(s.sites, sr)
 		}
 	}
-	m, err := newMetrics(o.Registerer)
+	m, err := newMetrics(o.Registerer, s)
 	if err != nil {
 		return nil, fmt.Errorf("new zones: %w", err)
 	}
