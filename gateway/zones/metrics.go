@@ -19,7 +19,7 @@ type metrics struct {
 	raw        *prometheus.GaugeVec
 	trigger    *prometheus.GaugeVec
 	commands   *prometheus.CounterVec
-	badReports prometheus.Counter
+	badReports *prometheus.CounterVec
 }
 
 func newMetrics(reg prometheus.Registerer, s *Service) (*metrics, error) {
@@ -44,10 +44,10 @@ func newMetrics(reg prometheus.Registerer, s *Service) (*metrics, error) {
 			Name: "etpulse_commands_total",
 			Help: "Valve commands by outcome: sent, resent, reported (finished), failed, expired, cancelled, duplicate (report), stop_sent, stop_resent, stopped (report).",
 		}, []string{"site", "zone", "outcome"}),
-		badReports: prometheus.NewCounter(prometheus.CounterOpts{
+		badReports: prometheus.NewCounterVec(prometheus.CounterOpts{
 			Name: "etpulse_valve_reports_refused_total",
-			Help: "Valve reports that were malformed, for an unknown command, or contradicted the ledger.",
-		}),
+			Help: "Valve reports that were malformed, for an unknown command, or contradicted the ledger, by the site and zone of their topic.",
+		}, []string{"site", "zone"}),
 	}
 	day := &dayCollector{
 		s: s,

@@ -666,13 +666,13 @@ func (s *Service) queue(tx *bbolt.Tx, site string, ref *zoneRef, c *controllers.
 func (s *Service) onReport(ref *zoneRef) func(mqtt.Message) {
 	return func(m mqtt.Message) {
 		if !s.fromTopic(m, ref.reportTopic, "valve report", ref.site) {
-			s.m.badReports.Inc()
+			s.m.badReports.WithLabelValues(ref.site, ref.id).Inc()
 			return
 		}
 		now := s.o.Clock.Now()
 		r, err := DecodeReport(m.Payload)
 		if err != nil {
-			s.m.badReports.Inc()
+			s.m.badReports.WithLabelValues(ref.site, ref.id).Inc()
 			s.log.Warn("valve report refused", "site", ref.site, "zone", ref.id, "topic", m.Topic, "err", err)
 			m.Ack()
 			return
@@ -718,13 +718,13 @@ func (s *Service) applyReport(ref *zoneRef, r controllers.Report, now time.Time)
 			return err
 		}
 		if !ok || c.Zone != ref.id {
-			s.m.badReports.Inc()
+			s.m.badReports.WithLabelValues(ref.site, ref.id).Inc()
 			s.log.Warn("valve report for an unknown command", "site", ref.site, "zone", ref.id, "id", r.ID, "state", r.State)
 			return nil
 		}
 		out, err := c.Apply(r, now, ref.z.Policy)
 		if err != nil {
-			s.m.badReports.Inc()
+			s.m.badReports.WithLabelValues(ref.site, ref.id).Inc()
 			s.log.Warn("valve report refused", "site", ref.site, "zone", ref.id, "id", r.ID, "err", err)
 			return nil
 		}

@@ -127,7 +127,7 @@ func TestTickPlansSendsExpiresAndCredits(t *testing.T) {
 	assert.True(t, acked)
 	require.True(t, driveReport(f, "row-a", ReportMessage{ID: "row-a-unknown", State: "finished"}))
 	require.True(t, driveReport(f, "row-a", ReportMessage{ID: idB, State: "finished"}), "another zone's id")
-	assert.Equal(t, 3.0, testutil.ToFloat64(f.svc.m.badReports))
+	assert.Equal(t, 3.0, testutil.ToFloat64(f.svc.m.badReports.WithLabelValues("fernhill", "row-a")), "counted under the zone whose topic they came on")
 
 	// row-c never answers: re-sent at +2 and +4 minutes, expired at 10:17.
 	// row-a, credited but still above its trigger (27.58 mm; the 240-minute
@@ -235,7 +235,7 @@ func TestStaleETAlert(t *testing.T) {
 	assert.Empty(t, led)
 	assert.Len(t, f.eventsOf(EventAlert), 3)
 	var alerts int
-	require.NoError(t, f.out.History().Range(store.Filter{Measurements: []string{store.MeasurementAlert}}, func(p store.Point) error {
+	require.NoError(t, f.out.History().Range(store.Filter{Measurements: []string{store.MeasurementZoneAlert}}, func(p store.Point) error {
 		alerts++
 		assert.Equal(t, "zone-et-stale", p.Tags["kind"])
 		return nil
