@@ -94,7 +94,7 @@ func TestForgedEarlyReportRefusedRealOneCredited(t *testing.T) {
 	f.clock.set(cmdStart.Add(-55 * time.Second))
 	require.True(t, b.deliver(t, reportTopic("row-a"), reportTopic("row-a"), ReportMessage{ID: id, State: "finished", VolumeL: fp(1e15)}))
 	assert.InDelta(t, 30.5, f.status(t, "row-a").State.Depletion, 1e-9, "nothing credited")
-	assert.Equal(t, 1.0, testutil.ToFloat64(f.svc.m.badReports))
+	assert.Equal(t, 1.0, testutil.ToFloat64(f.svc.m.badReports.WithLabelValues("fernhill", "row-a")))
 	led, err := f.svc.Ledger("fernhill")
 	require.NoError(t, err)
 	for _, c := range led {
@@ -122,7 +122,7 @@ func TestMessagesOnlyFromConfiguredTopics(t *testing.T) {
 	// On its own topic naming another zone's command: refused.
 	require.True(t, b.deliver(t, reportTopic("row-a"), reportTopic("row-a"), ReportMessage{ID: "row-b-20260701T1802Z-c1", State: "finished", MinutesRun: fp(240)}))
 	assert.InDelta(t, 30.5, f.status(t, "row-b").State.Depletion, 1e-9, "row-b not credited from row-a's topic")
-	assert.Equal(t, 2.0, testutil.ToFloat64(f.svc.m.badReports))
+	assert.Equal(t, 2.0, testutil.ToFloat64(f.svc.m.badReports.WithLabelValues("fernhill", "row-a")))
 
 	hold := config.HoldTopic("etpulse", "fernhill")
 	require.True(t, b.deliver(t, hold, "fernhill/mast/t", HoldRequest{ID: "h1", Action: "hold", Reason: "forged"}))
