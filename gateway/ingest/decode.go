@@ -3,6 +3,7 @@ package ingest
 import (
 	"bytes"
 	"encoding/json"
+	"errors"
 	"fmt"
 	"math"
 	"slices"
@@ -20,10 +21,64 @@ func (d *decoding) number(payload []byte) {
 	s := strings.TrimSpace(string(payload))
 	v, err := parseDecimal(s)
 	if err != nil {
+		if hint := d.structuredHint(s); hint != "" {
+			err = errors.New(hint)
+		}
 		d.rejectAll(ReasonUnparseable, fmt.Errorf("payload: %w", err))
 		return
 	}
 	d.emit("", d.b.sensor.Channel, d.b.sensor.Unit, v, stamp{d.arrival, true})
+}
+
+// structuredHint explains a JSON object or array sent to a number sensor
+// and names the format (and value key) that would read it; "" when s is
+// neither.
+func (d *decoding) structuredHint(s string) string {
+	what, fix := "", ""
+	switch {
+	case strings.HasPrefix(s, "{"):
+		var obj map[string]json.RawMessage
+		if json.Unmarshal([]byte(s), &obj) != nil {
+			return ""
+		}
+		var values []string
+		for k, raw := range obj {
+			var f float64
+			if json.Unmarshal(raw, &f) == nil && !isTimeKey(k, d.b.sensor.TimeKey) {
+				values = append(values, k)
+			}
+		}
+		sort.Strings(values)
+		what, fix = "a JSON object", "set format: json and value_key: KEY"
+		if len(values) > 0 {
+			fix = "set format: json and value_key: " + values[0]
+		}
+		if len(values) > 1 {
+			fix += " (or format: fields for several values)"
+		}
+	case strings.HasPrefix(s, "["):
+		if !json.Valid([]byte(s)) {
+			return ""
+		}
+		what, fix = "a JSON array", "set format: senml if it is a SenML pack"
+	default:
+		return ""
+	}
+	return fmt.Sprintf("%s is %s, but sensor %q has format number (a bare number such as 21.4): %s",
+		truncate(s, 64), what, d.b.sensor.ID, fix)
+}
+
+// isTimeKey reports whether an object key is likely the reading's time
+// rather than a value: the configured time key or a usual name for it.
+func isTimeKey(k, configured string) bool {
+	if configured != "" && k == configured {
+		return true
+	}
+	switch strings.ToLower(k) {
+	case "time", "ts", "timestamp":
+		return true
+	}
+	return false
 }
 
 // json decodes {"<value_key>": 21.4, "<time_key>": ...}; other keys are

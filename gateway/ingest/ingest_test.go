@@ -122,6 +122,16 @@ func TestNumber(t *testing.T) {
 	rejected(t, route(t, r, "bh/west/t", "1e999"), ReasonUnparseable, `payload: "1e999" is not a decimal number`)
 	rejected(t, route(t, r, "bh/west/t", "0x1p4"), ReasonUnparseable, `payload: "0x1p4" is not a decimal number`)
 	rejected(t, route(t, r, "bh/west/t", ""), ReasonUnparseable, `payload: empty, want a number`)
+
+	// A structured payload on a number sensor names the format that fits.
+	rejected(t, route(t, r, "bh/west/t", `{"value":21.4}`), ReasonUnparseable,
+		`payload: {"value":21.4} is a JSON object, but sensor "t" has format number (a bare number such as 21.4): set format: json and value_key: value`)
+	rejected(t, route(t, r, "bh/west/t", ` {"temp": 21.4, "time": 1780308000}`), ReasonUnparseable,
+		`payload: {"temp": 21.4, "time": 1780308000} is a JSON object, but sensor "t" has format number (a bare number such as 21.4): set format: json and value_key: temp`)
+	rejected(t, route(t, r, "bh/west/t", `{"temp": 21.4, "rh": 60}`), ReasonUnparseable,
+		`payload: {"temp": 21.4, "rh": 60} is a JSON object, but sensor "t" has format number (a bare number such as 21.4): set format: json and value_key: rh (or format: fields for several values)`)
+	rejected(t, route(t, r, "bh/west/t", `[{"n":"t","v":21.4}]`), ReasonUnparseable,
+		`payload: [{"n":"t","v":21.4}] is a JSON array, but sensor "t" has format number (a bare number such as 21.4): set format: senml if it is a SenML pack`)
 }
 
 func TestJSON(t *testing.T) {
