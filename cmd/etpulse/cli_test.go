@@ -92,3 +92,40 @@ func TestConfigPathForms(t *testing.T) {
 	assert.Equal(t, exitUsage, code)
 	assert.NotContains(t, errs, "give the configuration file")
 }
+
+// TestConfigPathReportExport: report and export take the configuration the
+// same three ways as the other commands; export's --state wins over
+// ETPULSE_CONFIG (the variable is a default, not a second file).
+func TestConfigPathReportExport(t *testing.T) {
+	path := placeTimeConfig(t, "-121.74", "-8")
+	t.Setenv("ETPULSE_CONFIG", "")
+	for _, args := range [][]string{
+		{"report", path, "--format", "bogus"},
+		{"report", "--format", "bogus", path},
+	} {
+		code, _, errs := runCmd(t, args...)
+		assert.Equal(t, exitUsage, code, "%v", args)
+		assert.Contains(t, errs, "--format: must be one of", "%v: the path was taken, the format refused", args)
+	}
+	code, _, errs := runCmd(t, "report")
+	assert.Equal(t, exitUsage, code)
+	assert.Contains(t, errs, configForms)
+	code, _, errs = runCmd(t, "report", path, "other.yaml")
+	assert.Equal(t, exitUsage, code)
+	assert.Contains(t, errs, `unexpected argument "other.yaml"`)
+
+	code, _, errs = runCmd(t, "export", "--from", "2024-07-01", "--to", "2024-07-02")
+	assert.Equal(t, exitUsage, code)
+	assert.Contains(t, errs, "give --state FILE, or the configuration as the first argument")
+
+	// ETPULSE_CONFIG names a missing file: export says where it came from;
+	// with --state the variable is not read at all.
+	t.Setenv("ETPULSE_CONFIG", "/nonexistent/farm.yaml")
+	code, _, errs = runCmd(t, "export", "--from", "2024-07-01", "--to", "2024-07-02")
+	assert.Equal(t, exitUsage, code)
+	assert.Contains(t, errs, "(from ETPULSE_CONFIG)")
+	code, _, errs = runCmd(t, "export", "--from", "2024-07-01", "--to", "2024-07-02", "--state", "/nonexistent/state.db")
+	assert.NotContains(t, errs, "give --state or --config, not both")
+	assert.NotContains(t, errs, "ETPULSE_CONFIG")
+	assert.NotEqual(t, exitOK, code)
+}

@@ -17,7 +17,7 @@ import (
 
 var exportHelp = helpText{
 	name:  "export",
-	usage: "etpulse export --from TIME --to TIME [--station STATION] [--measurement LIST] [--format csv|lp] (--state FILE | --config FILE)",
+	usage: "etpulse export --from TIME --to TIME [--station STATION] [--measurement LIST] [--format csv|lp] (--state FILE | CONFIG | --config FILE)",
 	intro: `Prints the local history kept in a state file (hourly records, zone
 steps, valve commands and reports, alerts; raw summaries are not kept) on
 stdout, and the number of points on stderr. Times: RFC 3339, or UTC
@@ -48,7 +48,7 @@ func runExport(ctx context.Context, args []string, stdin io.Reader, stdout, stde
 	fs.String("format", "csv", "output `format`: csv, or lp for InfluxDB line protocol (post it with precision=ns)")
 	statePath := fs.String("state", "", "state `file` to read (the gateway must not be running)")
 	configPath := fs.String("config", "", "configuration `file`: read through the running gateway on its http.listen, else its state.path")
-	if code, done := parseFlags(fs, args, exportHelp, stdout, stderr); done {
+	if code, done := parseConfigFlags(fs, args, exportHelp, configPath, stdout, stderr); done {
 		return code
 	}
 	usageErr := func(format string, a ...any) int {
@@ -56,6 +56,9 @@ func runExport(ctx context.Context, args []string, stdin io.Reader, stdout, stde
 	}
 	if fs.NArg() > 0 {
 		return usageErr("unexpected argument %q", fs.Arg(0))
+	}
+	if *statePath != "" && configOrigin(*configPath) != "" {
+		*configPath = "" // --state overrides ETPULSE_CONFIG
 	}
 	q, err := httpapi.ParseHistoryQuery(func(name string) string { return fs.Lookup(name).Value.String() })
 	if err != nil {
@@ -72,7 +75,7 @@ func runExport(ctx context.Context, args []string, stdin io.Reader, stdout, stde
 	case *configPath != "":
 		cfg, err := config.Load(*configPath)
 		if err != nil {
-			fmt.Fprintf(stderr, "etpulse export: %v\n", err)
+			fmt.Fprintf(stderr, "etpulse export: %v%s\n", err, configOrigin(*configPath))
 			return exitUsage
 		}
 		path = cfg.State.Path
@@ -102,7 +105,7 @@ func runExport(ctx context.Context, args []string, stdin io.Reader, stdout, stde
 			return exitError
 		}
 	case path == "":
-		return usageErr("--state FILE or --config FILE is required")
+		return usageErr("give --state FILE, or the configuration as the first argument, --config FILE or %s", configEnv)
 	}
 	return exportFile(path, q, stdout, stderr)
 }

@@ -79,7 +79,7 @@ func TestExportUsageErrors(t *testing.T) {
 		{[]string{"--state", path, "--from", "2024-06-12", "--to", "2024-06-11"}, "--to: 2024-06-11T00:00:00Z is not after the start 2024-06-12T00:00:00Z"},
 		{[]string{"--state", path, "--from", "2024-06-11", "--to", "2024-06-12", "--format", "json"}, `--format: must be csv or lp, got "json"`},
 		{[]string{"--state", path, "--from", "2024-06-11", "--to", "2024-06-12", "--measurement", "et_day"}, `unknown measurement "et_day"`},
-		{[]string{"--from", "2024-06-11", "--to", "2024-06-12"}, "--state FILE or --config FILE is required"},
+		{[]string{"--from", "2024-06-11", "--to", "2024-06-12"}, "give --state FILE, or the configuration as the first argument, --config FILE or ETPULSE_CONFIG"},
 	} {
 		code, _, errs := export(t, c.args...)
 		assert.Equal(t, exitUsage, code, c.args)

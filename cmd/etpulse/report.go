@@ -21,7 +21,7 @@ import (
 
 var reportHelp = helpText{
 	name:  "report",
-	usage: "etpulse report --config FILE [--date YYYY-MM-DD] [--site SITE] [--format text|csv|json]",
+	usage: "etpulse report (CONFIG | --config FILE) [--date YYYY-MM-DD] [--site SITE] [--format text|csv|json]",
 	intro: `Prints the morning report of a site for one day (each station's standard-
 time day; default yesterday): per station the day's reference ET, rain,
 hours complete, filled and missing, and the alerts raised; per zone ETc,
@@ -48,7 +48,7 @@ func runReport(ctx context.Context, args []string, _ io.Reader, stdout, stderr i
 	date := fs.String("date", "", "the `day` to report, YYYY-MM-DD (default yesterday)")
 	site := fs.String("site", "", "the `site` id (default the only site)")
 	format := fs.String("format", "text", "output `format`: "+strings.Join(report.Formats, ", "))
-	if code, done := parseFlags(fs, args, reportHelp, stdout, stderr); done {
+	if code, done := parseConfigFlags(fs, args, reportHelp, configPath, stdout, stderr); done {
 		return code
 	}
 	usageErr := func(format string, a ...any) int { return usageError(stderr, reportHelp, format, a...) }
@@ -56,7 +56,7 @@ func runReport(ctx context.Context, args []string, _ io.Reader, stdout, stderr i
 	case fs.NArg() > 0:
 		return usageErr("unexpected argument %q", fs.Arg(0))
 	case *configPath == "":
-		return usageErr("--config FILE is required")
+		return usageErr("%s", configForms)
 	case !slices.Contains(report.Formats, *format):
 		return usageErr("--format: must be one of %s, got %q", strings.Join(report.Formats, ", "), *format)
 	}
@@ -67,7 +67,7 @@ func runReport(ctx context.Context, args []string, _ io.Reader, stdout, stderr i
 	}
 	cfg, err := config.Load(*configPath)
 	if err != nil {
-		fmt.Fprintf(stderr, "etpulse report: %v\n", err)
+		fmt.Fprintf(stderr, "etpulse report: %v%s\n", err, configOrigin(*configPath))
 		return exitUsage
 	}
 	rep, code := fetchReport(ctx, cfg, *site, *date, stderr)

@@ -155,7 +155,7 @@ func TestReportBadInput(t *testing.T) {
 	}{
 		{[]string{"--date", "12/01/2026"}, `--date: "12/01/2026" is not a date; give YYYY-MM-DD`},
 		{[]string{"--format", "xml"}, `--format: must be one of text, csv, json, got "xml"`},
-		{nil, "--config FILE is required"},
+		{nil, configForms},
 	} {
 		args := append([]string{"report"}, tc.args...)
 		if tc.args != nil {
