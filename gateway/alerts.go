@@ -1,7 +1,10 @@
 package gateway
 
 import (
+	"context"
 	"fmt"
+	"slices"
+	"sync"
 
 	"github.com/prometheus/client_golang/prometheus"
 
@@ -54,7 +57,9 @@ func setupAlerts(cfg *config.Config, deps Deps, outbox *store.Outbox, pause *int
 	// The intake check first: while intake is paused on an unwritable state
 	// file, a small test write may still succeed (freed pages are reused).
 	checks := []httpapi.Check{{Name: "intake", Func: pause.check}, httpapi.StateWritable(deps.DB, deps.Clock.Now)}
-	if c, ok := deps.MQTT.(interface{ Connected() bool }); ok {
+	if c, ok := deps.MQTT.(interface{ ConnectionState() error }); ok {
+		checks = append([]httpapi.Check{httpapi.BrokerState(c.ConnectionState)}, checks...)
+	} else if c, ok := deps.MQTT.(interface{ Connected() bool }); ok {
 		checks = append([]httpapi.Check{httpapi.BrokerConnected(c.Connected)}, checks...)
 	}
 	if outbox != nil {
@@ -83,3 +88,28 @@ func siteIDs(cfg *config.Config) []string {
 // Alerts returns the gateway's drift and fault monitor, e.g. to follow its
 // events (Monitor.Notify) or to raise alerts from another part (Monitor.Raise).
 func (g *Gateway) Alerts() *quality.Monitor { return g.alerts }
+
+// StartHTTP starts the metrics, health and status endpoints now, before
+// Run (and before the broker connection exists), so /healthz, /metrics
+// and /readyz answer from the first second; Run then leaves the server
+// alone. The returned stop shuts the server down and waits for it; call it
+// after Run returned (it is safe to call more than once). Without an HTTP
+// server (http.disabled) StartHTTP does nothing.
+func (g *Gateway) StartHTTP(ctx context.Context) (stop func()) {
+	i := slices.IndexFunc(g.comp.Services, func(s Service) bool { _, ok := s.(*httpapi.Server); return ok })
+	if i < 0 {
+		return func() {}
+	}
+	srv := g.comp.Services[i].(*httpapi.Server)
+	g.comp.Services = slices.Delete(g.comp.Services, i, i+1)
+	hctx, cancel := context.WithCancel(context.WithoutCancel(ctx))
+	done := make(chan struct{})
+	go func() {
+		defer close(done)
+		if err := srv.Run(hctx); err != nil {
+			g.log.Error("metrics and health endpoints stopped", "err", err)
+		}
+	}()
+	var once sync.Once
+	return func() { once.Do(func() { cancel(); <-done }) }
+}

@@ -64,9 +64,18 @@ func runDaemon(ctx context.Context, args []string, stdin io.Reader, stdout, stde
 	if err != nil {
 		return usageError(stderr, runHelp, "%v", err)
 	}
+	// Everything the process prints from here on goes through log: the
+	// signal notices, the standard log package, paho's and http.Server's
+	// loggers; with --log-format json every line is JSON.
+	logSignalNotices(ctx, log)
+	defer routeLibraryLogs(log)()
 	cfg, err := config.Load(*cfgPath)
 	if err != nil {
-		fmt.Fprintf(stderr, "etpulse run: %v%s\n", err, configOrigin(*cfgPath))
+		if strings.EqualFold(*logFormat, "json") {
+			log.Error("configuration refused", "err", err.Error()+configOrigin(*cfgPath))
+		} else {
+			fmt.Fprintf(stderr, "etpulse run: %v%s\n", err, configOrigin(*cfgPath))
+		}
 		return exitUsage
 	}
 	for _, w := range cfg.Warnings() {
@@ -112,15 +121,20 @@ func daemon(ctx context.Context, cfg *config.Config, log *slog.Logger) (err erro
 	mo.Workers = 1
 	mo.Availability = config.AvailabilityTopic(cfg.Prefix(), cfg.Broker.ClientID)
 	// The gateway is composed before the connection exists, so that Run
-	// subscribes right after the session resumes.
-	broker := &lateBroker{}
+	// subscribes right after the session resumes, and its HTTP endpoints
+	// start before the dial: /healthz answers and /readyz says what the
+	// gateway waits for while the broker is unreachable.
+	broker := &lateBroker{url: mqtt.RedactURL(cfg.Broker.URL)}
+	mo.OnDialRetry = broker.dialFailed
 	g, err := gateway.New(cfg, gateway.Deps{
 		Logger: log, Registerer: reg, Gatherer: reg, DB: db, MQTT: broker,
 	})
 	if err != nil {
 		return err
 	}
-	log.Info("connecting to broker", "url", cfg.Broker.URL, "client_id", cfg.Broker.ClientID, "topic_prefix", cfg.Prefix())
+	stopHTTP := g.StartHTTP(ctx)
+	defer stopHTTP()
+	log.Info("connecting to broker", "url", broker.url, "client_id", cfg.Broker.ClientID, "topic_prefix", cfg.Prefix())
 	client, err := mqtt.Dial(ctx, mo)
 	if err != nil {
 		if ctx.Err() != nil {
@@ -170,10 +184,16 @@ func notifySystemd(ctx context.Context, g *gateway.Gateway, log *slog.Logger) (s
 	return func() { cancel(); wg.Wait() }
 }
 
-// lateBroker forwards to the MQTT client once it is connected.
+// lateBroker forwards to the MQTT client once it is connected, and until
+// then says what the first connection waits for.
 type lateBroker struct {
-	mu sync.Mutex
-	c  *mqtt.Client
+	url string // redacted
+
+	mu      sync.Mutex
+	c       *mqtt.Client
+	lastErr error         // the last failed first attempt
+	retryIn time.Duration // the wait after it
+	retryAt time.Time
 }
 
 var _ gateway.Broker = (*lateBroker)(nil)
@@ -215,6 +235,44 @@ func (b *lateBroker) Subscribe(filter string, qos byte, handle func(mqtt.Message
 func (b *lateBroker) Connected() bool {
 	c, err := b.client()
 	return err == nil && c.Connected()
+}
+
+// dialFailed records a failed first connection attempt (mqtt.Options.OnDialRetry).
+func (b *lateBroker) dialFailed(err error, retryIn time.Duration) {
+	b.mu.Lock()
+	defer b.mu.Unlock()
+	b.lastErr, b.retryIn, b.retryAt = err, retryIn, time.Now().Add(retryIn)
+}
+
+// ConnectionState returns nil while connected, else what the connection
+// waits for: the readiness check of /readyz.
+func (b *lateBroker) ConnectionState() error {
+	b.mu.Lock()
+	defer b.mu.Unlock()
+	switch {
+	case b.c != nil && b.c.Connected():
+		return nil
+	case b.c != nil:
+		return fmt.Errorf("connection to %s lost; reconnecting by itself (back-off up to %s)", b.url, mqtt.MaxRetryInterval)
+	case b.lastErr == nil:
+		return fmt.Errorf("connecting to %s: first attempt under way", b.url)
+	}
+	next := max(time.Until(b.retryAt), 0).Round(100 * time.Millisecond)
+	return fmt.Errorf("connecting to %s: %v; retrying with back-off (now every %s, at most every %s), next attempt in %s",
+		b.url, b.lastErr, b.retryIn, mqtt.MaxRetryInterval, next)
+}
+
+// routeLibraryLogs sends the standard log package's output and paho's
+// error, warning and critical loggers through log until the returned
+// function restores them.
+func routeLibraryLogs(log *slog.Logger) (restore func()) {
+	prev := slog.Default()
+	slog.SetDefault(log) // also redirects the standard log package
+	undoMQTT := mqtt.RouteLibraryLogs(log.With("component", "mqtt"))
+	return func() {
+		undoMQTT()
+		slog.SetDefault(prev)
+	}
 }
 
 func newLogger(w io.Writer, format, level string) (*slog.Logger, error) {

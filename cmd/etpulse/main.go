@@ -95,21 +95,22 @@ func helpCommand(ctx context.Context, args []string, stdin io.Reader, stdout, st
 // signalContext cancels on the first SIGINT/SIGTERM (graceful shutdown) and
 // exits the process on the second (forced).
 func signalContext(parent context.Context, stderr io.Writer) (context.Context, func()) {
-	ctx, cancel := context.WithCancel(parent)
+	notices := &signalNotices{stderr: stderr}
+	ctx, cancel := context.WithCancel(withSignalNotices(parent, notices))
 	ch := make(chan os.Signal, 2)
 	signal.Notify(ch, syscall.SIGINT, syscall.SIGTERM)
 	done := make(chan struct{})
 	go func() {
 		select {
 		case <-ch:
-			fmt.Fprintln(stderr, "etpulse: shutting down (send the signal again to force)")
+			notices.say("shutting down (send the signal again to force)", false)
 			cancel()
 		case <-done:
 			return
 		}
 		select {
 		case <-ch:
-			fmt.Fprintln(stderr, "etpulse: forced exit")
+			notices.say("forced exit", true)
 			os.Exit(exitError)
 		case <-done:
 		}

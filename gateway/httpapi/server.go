@@ -207,6 +207,13 @@ func BrokerConnected(connected func() bool) Check {
 	}}
 }
 
+// BrokerState is a readiness check named "mqtt" that passes while state
+// returns nil; otherwise its error says what the connection waits for (e.g.
+// "connecting to tcp://...: <last error>; next attempt in 4s").
+func BrokerState(state func() error) Check {
+	return Check{Name: "mqtt", Func: func(context.Context) error { return state() }}
+}
+
 // readyBucket is the bucket the state-file check writes to.
 var readyBucket = state.BucketReady
 

@@ -53,6 +53,11 @@ type Options struct {
 	// OnConnectionChange, when set, is called with true on every (re)connect
 	// and false on every connection loss. It must not block.
 	OnConnectionChange func(up bool)
+	// OnDialRetry, when set, is called by Dial after each failed first
+	// connection attempt that will be retried, with the error and the wait
+	// before the next attempt (e.g. for a readiness check that says what
+	// it waits for). It must not block.
+	OnDialRetry func(err error, retryIn time.Duration)
 }
 
 // The payloads of the availability topic (Options.Availability).
@@ -67,7 +72,8 @@ const (
 	DefaultConnectTimeout = 10 * time.Second
 	DefaultMaxInflight    = 256
 	DefaultWorkers        = 4
-	maxRetryInterval      = 30 * time.Second
+	// MaxRetryInterval is the longest wait between connection attempts.
+	MaxRetryInterval = 30 * time.Second
 )
 
 // ErrClosed is returned by operations on a closed Client.
@@ -171,7 +177,7 @@ func Dial(ctx context.Context, o Options) (*Client, error) {
 		SetConnectTimeout(o.ConnectTimeout).
 		SetWriteTimeout(o.ConnectTimeout).
 		SetAutoReconnect(true).
-		SetMaxReconnectInterval(maxRetryInterval).
+		SetMaxReconnectInterval(MaxRetryInterval).
 		SetConnectRetry(false).
 		SetResumeSubs(true).
 		SetAutoAckDisabled(true).
@@ -213,13 +219,16 @@ func Dial(ctx context.Context, o Options) (*Client, error) {
 			return nil, fmt.Errorf("mqtt dial %s: certificate check failed (check tls.ca_file, tls.cert_file and key_file, and that the broker's certificate names this host): %w", redactURL(o.URL), err)
 		}
 		c.log.Warn("connect failed, retrying", "err", err, "retry_in", backoff)
+		if f := o.OnDialRetry; f != nil {
+			f(err, backoff)
+		}
 		select {
 		case <-ctx.Done():
 			c.stopWorkers()
 			return nil, fmt.Errorf("mqtt dial %s: %w (last error: %v)", redactURL(o.URL), ctx.Err(), err)
 		case <-time.After(backoff):
 		}
-		backoff = min(backoff*2, maxRetryInterval)
+		backoff = min(backoff*2, MaxRetryInterval)
 	}
 }
 
@@ -529,6 +538,10 @@ func (c *Client) stopWorkers() {
 	}
 	c.workers.Wait()
 }
+
+// RedactURL returns the broker URL u with any user information replaced
+// by REDACTED, for logs and status texts.
+func RedactURL(u string) string { return redactURL(u) }
 
 func redactURL(u string) string {
 	if i := strings.Index(u, "@"); i >= 0 {
