@@ -527,6 +527,7 @@ func (g *Gateway) store(ctx context.Context, now time.Time, readings []ingest.Re
 	for {
 		res, err := g.pipe.Ingest(now, readings)
 		emitted += len(res.Records)
+		g.logClosed(res.Records)
 		if err == nil {
 			g.pause.resume(g.deps.Clock.Now())
 			return emitted, true, nil
@@ -561,6 +562,7 @@ func (g *Gateway) closeHours(now time.Time) time.Time {
 	if err != nil {
 		g.log.Error("closing hours", "err", err)
 	}
+	g.logClosed(recs)
 	if len(recs) > 0 {
 		g.emitted.Add(uint64(len(recs)))
 		g.progressed()

@@ -25,6 +25,7 @@ import (
 	"etpulse/gateway/alert"
 	"etpulse/gateway/clock"
 	"etpulse/gateway/config"
+	"etpulse/gateway/internal/precision"
 	"etpulse/gateway/mqtt"
 	"etpulse/gateway/store"
 	"etpulse/hourly"
@@ -415,7 +416,9 @@ func (s *Service) publish(ctx context.Context, sends []outgoing) {
 			s.log.Warn("command publish failed; it will be retried", "site", c.Source, "zone", c.Zone, "id", c.ID, "attempt", c.Attempts, "err", err)
 			continue
 		}
-		s.log.Info("command sent", "zone", c.Zone, "id", c.ID, "minutes", c.Minutes, "start", c.Start, "attempt", c.Attempts)
+		s.log.Info("command sent", "site", s.siteOf(c.Zone), "zone", c.Zone, "id", c.ID, "minutes", c.Minutes, "start", c.Start,
+			"cycle", c.Cycle, "cycles", c.Cycles, "attempt", c.Attempts, "basis", c.Reason.Basis,
+			"depletion_mm", precision.Round(precision.MM, c.Reason.DepletionMM), "trigger_mm", precision.Round(precision.MM, c.Reason.TriggerMM))
 		s.emit(Event{Time: s.o.Clock.Now(), Site: s.siteOf(c.Zone), Zone: c.Zone, Kind: EventSent, Command: &c})
 	}
 }
