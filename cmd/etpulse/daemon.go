@@ -6,7 +6,9 @@ import (
 	"flag"
 	"fmt"
 	"io"
+	"io/fs"
 	"log/slog"
+	"os"
 	"strings"
 	"sync"
 	"time"
@@ -100,6 +102,7 @@ func daemon(ctx context.Context, cfg *config.Config, log *slog.Logger) (err erro
 		return err
 	}
 
+	fresh := freshStateFile(cfg.State.Path)
 	db, err := state.OpenLogged(cfg.State.Path, log.With("component", "state"))
 	if err != nil {
 		return err
@@ -120,6 +123,14 @@ func daemon(ctx context.Context, cfg *config.Config, log *slog.Logger) (err erro
 	// broker's order, which decides what counts as a late reading.
 	mo.Workers = 1
 	mo.Availability = config.AvailabilityTopic(cfg.Prefix(), cfg.Broker.ClientID)
+	if fresh {
+		// The broker may keep a session under this client id from an earlier
+		// state file; its queued readings would arrive first and move the
+		// stations' clocks past the real backlog. Clean once, then persistent.
+		mo.DiscardSession = true
+		log.Info("fresh state file: starting a clean MQTT session, the broker's queued messages for client id "+cfg.Broker.ClientID+" are discarded",
+			"state", cfg.State.Path, "client_id", cfg.Broker.ClientID)
+	}
 	// The gateway is composed before the connection exists, so that Run
 	// subscribes right after the session resumes, and its HTTP endpoints
 	// start before the dial: /healthz answers and /readyz says what the
@@ -148,6 +159,13 @@ func daemon(ctx context.Context, cfg *config.Config, log *slog.Logger) (err erro
 	stopNotify := notifySystemd(ctx, g, log)
 	defer stopNotify()
 	return g.Run(ctx)
+}
+
+// freshStateFile reports whether the state file at path is about to be
+// created (absent or empty).
+func freshStateFile(path string) bool {
+	fi, err := os.Stat(path)
+	return errors.Is(err, fs.ErrNotExist) || (err == nil && fi.Size() == 0)
 }
 
 // notifySystemd tells systemd (a unit of Type=notify, $NOTIFY_SOCKET) that

@@ -30,6 +30,13 @@ type Options struct {
 	// stores subscriptions and queues QoS 1 messages while the client is
 	// away, and redelivers unacknowledged ones after a reconnect.
 	CleanSession bool
+	// DiscardSession makes Dial drop the session the broker keeps under
+	// ClientID before its first connection (one connect with a clean
+	// session, then a disconnect), so messages queued for an earlier run
+	// are not delivered; the session it then starts follows CleanSession.
+	// For a gateway whose state file is new: the earlier run's queue holds
+	// readings that state never saw.
+	DiscardSession bool
 
 	KeepAlive      time.Duration // default 30s
 	ConnectTimeout time.Duration // one connection attempt; default 10s
@@ -205,8 +212,18 @@ func Dial(ctx context.Context, o Options) (*Client, error) {
 	}
 
 	backoff := 500 * time.Millisecond
+	discard := o.DiscardSession
 	for {
-		err := c.connectOnce(ctx)
+		var err error
+		if discard {
+			if err = discardSession(ctx, *po); err == nil {
+				discard = false
+				c.log.Info("discarded the session the broker kept for this client id")
+			}
+		}
+		if err == nil {
+			err = c.connectOnce(ctx)
+		}
 		if err == nil {
 			return c, nil
 		}
@@ -241,6 +258,29 @@ func (c *Client) connectOnce(ctx context.Context) error {
 		c.c.Disconnect(0)
 		return ctx.Err()
 	}
+}
+
+// discardSession connects once with a clean session and the options of
+// po, without handlers or last will, and disconnects: the broker drops the
+// session it kept under the client id, with its queued messages.
+func discardSession(ctx context.Context, po paho.ClientOptions) error {
+	po.SetCleanSession(true).SetAutoReconnect(false).SetConnectRetry(false).
+		SetOnConnectHandler(nil).SetConnectionLostHandler(nil).SetReconnectingHandler(nil).
+		SetDefaultPublishHandler(nil)
+	po.WillEnabled = false
+	pc := paho.NewClient(&po)
+	tok := pc.Connect()
+	select {
+	case <-tok.Done():
+	case <-ctx.Done():
+		pc.Disconnect(0)
+		return ctx.Err()
+	}
+	if err := tok.Error(); err != nil {
+		return err
+	}
+	pc.Disconnect(250)
+	return nil
 }
 
 // refused reports a CONNACK refusal that retrying cannot fix.

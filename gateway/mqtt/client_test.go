@@ -338,3 +338,39 @@ func TestOptionsValidation(t *testing.T) {
 	_, err = Dial(context.Background(), Options{URL: "tcp://127.0.0.1:1"})
 	assert.ErrorContains(t, err, "empty client id")
 }
+
+// TestDiscardSessionDropsStaleQueue: a client id whose persistent session
+// on the broker holds a queued message from an earlier run; Dial with
+// DiscardSession (a fresh state file) does not receive it, and the session
+// it then keeps is persistent: a message published while it is away
+// arrives after the next (ordinary) Dial.
+func TestDiscardSessionDropsStaleQueue(t *testing.T) {
+	url := testenv.MQTT(t)
+	id := uniq(t)
+	topic := id + "/reading"
+	ctx, cancel := context.WithTimeout(context.Background(), 30*time.Second)
+	defer cancel()
+
+	old := dial(t, url, id)
+	require.NoError(t, old.Subscribe(topic, 1, func(m Message) { m.Ack() }))
+	old.Close(0)
+	pub := dial(t, url, id+"-pub", func(o *Options) { o.CleanSession = true })
+	require.NoError(t, pub.Publish(ctx, topic, 1, false, []byte("stale")))
+
+	fresh := dial(t, url, id, func(o *Options) { o.DiscardSession = true })
+	got := newCollector()
+	require.NoError(t, fresh.Subscribe(topic, 1, got.handle(true)))
+	require.NoError(t, pub.Publish(ctx, topic, 1, false, []byte("marker")))
+	got.wait(t, 1, 10*time.Second)
+	// The broker delivers a session's queue before newer messages: had the
+	// stale message survived, it would have come first.
+	assert.Equal(t, []string{"marker"}, got.payloads())
+	fresh.Close(0)
+
+	require.NoError(t, pub.Publish(ctx, topic, 1, false, []byte("while-away")))
+	again := dial(t, url, id)
+	back := newCollector()
+	require.NoError(t, again.Subscribe(topic, 1, back.handle(true)))
+	back.wait(t, 1, 10*time.Second)
+	assert.Equal(t, []string{"while-away"}, back.payloads())
+}
