@@ -15,6 +15,7 @@ import (
 	"etpulse/gateway/mqtt"
 	"etpulse/gateway/report"
 	"etpulse/gateway/store"
+	"etpulse/gateway/vocab"
 	"etpulse/gateway/zones"
 	"etpulse/hourly"
 )
@@ -142,35 +143,42 @@ func (p *statePublisher) RunOnce(ctx context.Context, now time.Time) (time.Time,
 
 // stationState is the retained payload of a station.
 type stationState struct {
-	Site       string             `json:"site"`
-	Station    string             `json:"station"`
-	HourStart  time.Time          `json:"hour_start"`
-	LocalStart string             `json:"local_start"`
-	Revision   int                `json:"revision"`
-	Complete   bool               `json:"complete"`
-	Fill       string             `json:"fill,omitempty"`
-	ETmm       map[string]float64 `json:"et_mm"` // per reference; absent when not computed
-	RainMM     float64            `json:"rain_mm"`
-	AirTempC   *float64           `json:"air_temp_c,omitempty"`
-	EaKPa      *float64           `json:"ea_kpa,omitempty"`
-	Wind2MS    *float64           `json:"wind2_m_s,omitempty"`
-	SolarMJ    *float64           `json:"solar_mj_m2,omitempty"`
-	Flags      []string           `json:"flags"`
+	FormatVersion int                `json:"format_version"` // vocab.FormatVersion
+	Site          string             `json:"site"`
+	Station       string             `json:"station"`
+	HourStart     time.Time          `json:"hour_start"`
+	LocalStart    string             `json:"local_start"`
+	Revision      int                `json:"revision"`
+	Complete      bool               `json:"complete"`
+	Fill          string             `json:"fill,omitempty"`
+	ETmm          map[string]float64 `json:"et_mm"` // per reference; absent when not computed
+	RainMM        float64            `json:"rain_mm"`
+	AirTempC      *float64           `json:"air_temp_c,omitempty"`
+	EaKPa         *float64           `json:"ea_kpa,omitempty"`
+	Wind2MS       *float64           `json:"wind_2m_m_s,omitempty"`
+	SolarMJ       *float64           `json:"solar_mj_m2,omitempty"`
+	Flags         []string           `json:"flags"`
 }
 
 // zoneState is the retained payload of a zone.
 type zoneState struct {
-	Site        string     `json:"site"`
-	Zone        string     `json:"zone"`
-	DepletionMM float64    `json:"depletion_mm"`
-	RAWMM       float64    `json:"raw_mm"`
-	TAWMM       float64    `json:"taw_mm"`
-	TriggerMM   float64    `json:"trigger_mm"`
-	TargetMM    float64    `json:"target_mm"`
-	Stressed    bool       `json:"stressed"` // depletion beyond RAW: Ks < 1 (FAO-56 eq. 84)
-	LastValidET *time.Time `json:"last_valid_et"`
-	Hold        *holdState `json:"hold"`
-	NextRun     *runState  `json:"next_run"`
+	FormatVersion int        `json:"format_version"` // vocab.FormatVersion
+	Site          string     `json:"site"`
+	Zone          string     `json:"zone"`
+	DepletionMM   float64    `json:"depletion_mm"`
+	RAWMM         float64    `json:"raw_mm"`
+	TAWMM         float64    `json:"taw_mm"`
+	TriggerMM     float64    `json:"trigger_mm"`
+	TargetMM      float64    `json:"target_mm"`
+	Stressed      bool       `json:"stressed"` // depletion beyond RAW: Ks < 1 (FAO-56 eq. 84)
+	LastValidET   *time.Time `json:"last_valid_et"`
+	Hold          *holdState `json:"hold"`
+	NextRun       *runState  `json:"next_run"`
+}
+
+// newZoneState starts the retained payload of a zone.
+func newZoneState(site, zone string) zoneState {
+	return zoneState{FormatVersion: vocab.FormatVersion, Site: site, Zone: zone}
 }
 
 type holdState struct {
@@ -233,10 +241,11 @@ func (p *statePublisher) payloads(now time.Time) (map[string]string, error) {
 				return out, err
 			}
 		}
-		z := zoneState{Site: zs.Site, Zone: zs.Zone, DepletionMM: round(zs.State.Depletion, 1),
-			RAWMM: round(zs.Levels.RAW, 1), TAWMM: round(zs.Levels.TAW, 1),
-			TriggerMM: round(zs.Levels.Trigger, 1), TargetMM: round(zs.Levels.Target, 1),
-			Stressed: zs.State.Depletion > zs.Levels.RAW}
+		z := newZoneState(zs.Site, zs.Zone)
+		z.DepletionMM, z.RAWMM, z.TAWMM, z.TriggerMM, z.TargetMM, z.Stressed = vocab.Round(vocab.DepletionMM, zs.State.Depletion),
+			vocab.Round(vocab.RAWmm, zs.Levels.RAW), vocab.Round(vocab.TAWmm, zs.Levels.TAW),
+			vocab.Round(vocab.TriggerMM, zs.Levels.Trigger), vocab.Round(vocab.TargetMM, zs.Levels.Target),
+			zs.State.Depletion > zs.Levels.RAW
 		if lv := zs.State.LastValid; !lv.IsZero() {
 			lv = lv.UTC()
 			z.LastValidET = &lv
@@ -266,36 +275,31 @@ func (p *statePublisher) payloads(now time.Time) (map[string]string, error) {
 }
 
 // stationPayload summarises a station's latest hour (one record per
-// reference).
+// reference), numbers rounded to their quantity's precision.
 func stationPayload(refs map[hourly.Reference]hourly.Record) stationState {
-	var s stationState
+	s := stationState{FormatVersion: vocab.FormatVersion}
 	s.ETmm = map[string]float64{}
 	for ref, rec := range refs {
 		s.Site, s.Station, s.HourStart, s.LocalStart = rec.Site, rec.Station, rec.Start.UTC(), rec.LocalStart
-		s.Revision, s.Complete, s.Fill, s.RainMM = rec.Revision, rec.Complete, rec.Fill, round(rec.Rain, 2)
+		s.Revision, s.Complete, s.Fill, s.RainMM = rec.Revision, rec.Complete, rec.Fill, vocab.Round(vocab.RainMM, rec.Rain)
 		s.Flags = append([]string{}, rec.Flags...)
 		if rec.Result != nil {
-			s.ETmm[string(ref)] = round(rec.Result.ET, 2)
-			s.AirTempC = roundPtr(rec.Inputs.AirTemp, 1)
-			s.EaKPa = roundPtr(rec.Inputs.Ea, 3)
-			s.Wind2MS = roundPtr(rec.Inputs.Wind2, 1)
-			s.SolarMJ = roundPtr(rec.Inputs.Solar, 3)
+			s.ETmm[string(ref)] = vocab.Round(vocab.ETmm, rec.Result.ET)
+			s.AirTempC = roundPtr(vocab.AirTempC, rec.Inputs.AirTemp)
+			s.EaKPa = roundPtr(vocab.EaKPa, rec.Inputs.Ea)
+			s.Wind2MS = roundPtr(vocab.Wind2mMS, rec.Inputs.Wind2)
+			s.SolarMJ = roundPtr(vocab.SolarMJ, rec.Inputs.Solar)
 		}
 	}
 	return s
 }
 
-// round rounds v to places decimals, so payloads carry no
-// 0.21539289829921476.
-func round(v float64, places int) float64 {
-	f := math.Pow(10, float64(places))
-	return math.Round(v*f) / f
-}
-
-func roundPtr(v float64, places int) *float64 {
+// roundPtr is v rounded to the precision of the quantity name, or nil when
+// v is not finite.
+func roundPtr(name string, v float64) *float64 {
 	if math.IsNaN(v) || math.IsInf(v, 0) {
 		return nil
 	}
-	r := round(v, places)
+	r := vocab.Round(name, v)
 	return &r
 }

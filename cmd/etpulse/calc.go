@@ -83,13 +83,13 @@ Output columns (hourly):
   time      hour start, station standard time
   et_mm     reference ET over the hour, mm (can be slightly negative at
             night: dew)
-  ra_mj     extraterrestrial radiation, MJ/m2
-  rso_mj    clear-sky radiation, MJ/m2
+  ra_mj_m2  extraterrestrial radiation, MJ/m2
+  rso_mj_m2 clear-sky radiation, MJ/m2
   fcd       cloudiness function (night: carried from the last hour with the
             sun above 0.3 rad before this night, at most 18 h old; else the
             0.8 Rs/Rso default, flagged)
-  rn_mj     net radiation, MJ/m2
-  g_mj      soil heat flux, MJ/m2
+  rn_mj_m2  net radiation, MJ/m2
+  g_mj_m2   soil heat flux, MJ/m2
   es_kpa    saturation vapour pressure, kPa
   ea_kpa    actual vapour pressure, kPa
   day       1 when Rn > 0 (daytime constants), else 0
@@ -100,8 +100,8 @@ Output columns (--daily):
   date, hours (computed hours of the date), et_mm (sum of hourly ET),
   et_daily_mm (daily equation, FAO-56 eq. 6 / ASCE-EWRI 2005, from the
   day's aggregates; empty unless all 24 hours are present), rain_mm (empty
-  without rain values), rs_mj, rn_mj (sums), tmin_c, tmax_c (of the hourly
-  means), ea_kpa, wind_ms (means)
+  without rain values), solar_mj_m2, rn_mj_m2 (sums), air_temp_min_c,
+  air_temp_max_c (of the hourly means), ea_kpa, wind_2m_m_s (means)
 
 Exit status: 0 success (also when --skip-bad skipped some rows), 1 bad data
 (or every row skipped) or unreadable input, 2 bad command line.

@@ -110,7 +110,7 @@ func TestCalcPlausible(t *testing.T) {
 		switch {
 		case r["day"] == "0":
 			assert.InDelta(t, 0, et, 0.07, "night hour %s", r["time"])
-			assert.LessOrEqual(t, num(t, r["rn_mj"]), 0.0, "night hour %s", r["time"])
+			assert.LessOrEqual(t, num(t, r["rn_mj_m2"]), 0.0, "night hour %s", r["time"])
 		case hour >= "11" && hour <= "14" && r["time"][:10] != "2026-07-16": // the 16th has a storm
 			assert.Greater(t, et, 0.4, "midday hour %s", r["time"])
 			assert.Less(t, et, 1.0, "midday hour %s", r["time"])
@@ -158,25 +158,25 @@ func TestCalcFAO56Example19(t *testing.T) {
 	assert.Equal(t, "2026-10-01T14:00", day["time"])
 	assert.Equal(t, "1", day["day"])
 	checkCells(t, day, []published{
-		{"es_kpa", 6.625, 0.0005}, // FAO-56 Example 19: e°(38) = 6.625 kPa
-		{"ea_kpa", 3.445, 0.0005}, // FAO-56 Example 19: ea = 6.625 x 0.52 = 3.445 kPa
-		{"ra_mj", 3.543, 0.0005},  // FAO-56 Example 19: Ra = 3.543 MJ m-2 h-1
-		{"rso_mj", 2.658, 0.0005}, // FAO-56 Example 19: Rso = 0.75 Ra = 2.658
-		{"rn_mj", 1.749, 0.0005},  // FAO-56 Example 19: Rn = 1.887 - 0.137 = 1.749
-		{"g_mj", 0.175, 0.0005},   // FAO-56 Example 19: G = 0.1 Rn = 0.175
-		{"et_mm", 0.63, 0.005},    // FAO-56 Example 19: ETo = 0.63 mm/hour
+		{"es_kpa", 6.625, 0.0005},    // FAO-56 Example 19: e°(38) = 6.625 kPa
+		{"ea_kpa", 3.445, 0.0005},    // FAO-56 Example 19: ea = 6.625 x 0.52 = 3.445 kPa
+		{"ra_mj_m2", 3.543, 0.0005},  // FAO-56 Example 19: Ra = 3.543 MJ m-2 h-1
+		{"rso_mj_m2", 2.658, 0.0005}, // FAO-56 Example 19: Rso = 0.75 Ra = 2.658
+		{"rn_mj_m2", 1.749, 0.0005},  // FAO-56 Example 19: Rn = 1.887 - 0.137 = 1.749
+		{"g_mj_m2", 0.175, 0.0005},   // FAO-56 Example 19: G = 0.1 Rn = 0.175
+		{"et_mm", 0.63, 0.005},       // FAO-56 Example 19: ETo = 0.63 mm/hour
 	})
 
 	assert.Equal(t, "2026-10-02T02:00", night["time"])
 	assert.Equal(t, "0", night["day"])
 	checkCells(t, night, []published{
-		{"es_kpa", 3.780, 0.0005}, // FAO-56 Example 19: e°(28) = 3.780 kPa
-		{"ea_kpa", 3.402, 0.0005}, // FAO-56 Example 19: ea = 3.780 x 0.90 = 3.402 kPa
-		{"ra_mj", 0, 0},           // FAO-56 Example 19: sun below the horizon, Ra = 0
-		{"fcd", 0.73, 0.0005},     // FAO-56 Example 19 assumes Rs/Rso = 0.8 at night
-		{"rn_mj", -0.100, 0.0005}, // FAO-56 Example 19: Rn = 0 - 0.100 = -0.100
-		{"g_mj", -0.050, 0.0005},  // FAO-56 Example 19: G = 0.5 Rn = -0.050
-		{"et_mm", 0.00, 0.005},    // FAO-56 Example 19: ETo = 0.00 mm/hour
+		{"es_kpa", 3.780, 0.0005},    // FAO-56 Example 19: e°(28) = 3.780 kPa
+		{"ea_kpa", 3.402, 0.0005},    // FAO-56 Example 19: ea = 3.780 x 0.90 = 3.402 kPa
+		{"ra_mj_m2", 0, 0},           // FAO-56 Example 19: sun below the horizon, Ra = 0
+		{"fcd", 0.73, 0.0005},        // FAO-56 Example 19 assumes Rs/Rso = 0.8 at night
+		{"rn_mj_m2", -0.100, 0.0005}, // FAO-56 Example 19: Rn = 0 - 0.100 = -0.100
+		{"g_mj_m2", -0.050, 0.0005},  // FAO-56 Example 19: G = 0.5 Rn = -0.050
+		{"et_mm", 0.00, 0.005},       // FAO-56 Example 19: ETo = 0.00 mm/hour
 	})
 }
 

@@ -41,7 +41,7 @@ it is a terminal.`,
             id.key); default the station's first sensor of the quantity
 
 Output columns: site, station, reference, start_utc, end_utc, local_start,
-revision, complete, air_temp_c, ea_kpa, wind2_m_s, solar_mj_m2, rain_mm,
+revision, complete, air_temp_c, ea_kpa, wind_2m_m_s, solar_mj_m2, rain_mm,
 ra_mj_m2, rso_mj_m2, rn_mj_m2, g_mj_m2, fcd, fcd_source, et_mm, flags, fill.
 The inputs of an incomplete hour are empty.
 

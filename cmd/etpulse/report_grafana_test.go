@@ -13,6 +13,8 @@ import (
 	"github.com/stretchr/testify/assert"
 	"github.com/stretchr/testify/require"
 
+	"etpulse/gateway/alert"
+	"etpulse/gateway/quality"
 	"etpulse/gateway/state"
 	"etpulse/gateway/store"
 )
@@ -92,6 +94,14 @@ func TestGrafanaDashboardMatchesSchema(t *testing.T) {
 	}
 
 	schema := storeSchema(t, demoState(t))
+	// The demo day raises no zone fault; the fields of one come from the
+	// code that writes them.
+	zp := quality.AlertPoint(quality.Event{Alert: alert.Alert{Key: alert.ZoneKey("s", "z", alert.KindZoneETStale)}})
+	require.Equal(t, store.MeasurementZoneAlert, zp.Measurement)
+	schema[zp.Measurement] = map[string]bool{}
+	for f := range zp.Fields {
+		schema[zp.Measurement][f] = true
+	}
 	declared := store.Measurements()
 	for m := range schema {
 		require.Contains(t, declared, m, "the history holds a measurement store.Measurements does not declare")
@@ -122,7 +132,7 @@ func TestGrafanaDashboardMatchesSchema(t *testing.T) {
 		}
 	}
 	assert.GreaterOrEqual(t, panels, 8)
-	for _, m := range []string{store.MeasurementHour, store.MeasurementZone, store.MeasurementCommand, store.MeasurementReport, store.MeasurementAlert} {
+	for _, m := range []string{store.MeasurementHour, store.MeasurementZone, store.MeasurementCommand, store.MeasurementReport, store.MeasurementAlert, store.MeasurementZoneAlert} {
 		assert.True(t, queried[m], "a panel shows %s", m)
 	}
 }

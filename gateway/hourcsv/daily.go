@@ -8,11 +8,14 @@ import (
 	"strings"
 	"time"
 
+	"etpulse/gateway/vocab"
 	"etpulse/hourly"
 )
 
-// DayColumns are the columns of the daily results CSV, in order.
-var DayColumns = []string{"date", "hours", "et_mm", "et_daily_mm", "rain_mm", "rs_mj", "rn_mj", "tmin_c", "tmax_c", "ea_kpa", "wind_ms"}
+// DayColumns are the columns of the daily results CSV, in order: "date",
+// then names of the vocabulary (gateway/vocab).
+var DayColumns = []string{"date", vocab.Hours, vocab.ETmm, vocab.ETDailyMM, vocab.RainMM, vocab.SolarMJ, vocab.RnMJ,
+	vocab.AirTempMinC, vocab.AirTempMaxC, vocab.EaKPa, vocab.Wind2mMS}
 
 // Day is the sum of the computed hours of one local date (station standard
 // time).

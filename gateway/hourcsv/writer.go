@@ -7,11 +7,13 @@ import (
 	"strings"
 	"time"
 
+	"etpulse/gateway/vocab"
 	"etpulse/hourly"
 )
 
-// HourColumns are the columns of the hourly results CSV, in order.
-var HourColumns = []string{"time", "et_mm", "ra_mj", "rso_mj", "fcd", "rn_mj", "g_mj", "es_kpa", "ea_kpa", "day", "flags"}
+// HourColumns are the columns of the hourly results CSV, in order: "time",
+// then names of the vocabulary (gateway/vocab).
+var HourColumns = []string{"time", vocab.ETmm, vocab.RaMJ, vocab.RsoMJ, vocab.Fcd, vocab.RnMJ, vocab.GMJ, vocab.EsKPa, vocab.EaKPa, vocab.Day, vocab.Flags}
 
 // Decimals written for each kind of number. Fixed, so that output files can
 // be compared line by line.

@@ -8,6 +8,7 @@ import (
 	"time"
 
 	"etpulse/gateway/config"
+	"etpulse/gateway/vocab"
 	"etpulse/hourly"
 )
 
@@ -38,14 +39,6 @@ func (n *num) UnmarshalJSON(b []byte) error {
 	return nil
 }
 
-// known is v, or null (NaN) when the value was not computed.
-func known(v float64, ok bool) num {
-	if !ok {
-		return num(math.NaN())
-	}
-	return num(v)
-}
-
 // orZero is the value, or 0 for null.
 func (n num) orZero() float64 {
 	if math.IsNaN(float64(n)) {
@@ -54,31 +47,33 @@ func (n num) orZero() float64 {
 	return float64(n)
 }
 
-// recordJSON is the wire form of an hourly.Record on the results topic and in
-// the state file. Field names carry their units; README.md documents them.
+// recordJSON is the wire form of an hourly.Record on the results topic.
+// Field names are the vocabulary's (gateway/vocab), numbers rounded to
+// their quantity's precision; README.md documents them.
 type recordJSON struct {
-	Site       string                     `json:"site"`
-	Station    string                     `json:"station"`
-	Reference  hourly.Reference           `json:"reference"`
-	Start      time.Time                  `json:"start"`
-	End        time.Time                  `json:"end"`
-	LocalStart string                     `json:"local_start"`
-	Revision   int                        `json:"revision"`
-	Complete   bool                       `json:"complete"`
-	ETmm       *num                       `json:"et_mm"`
-	Inputs     inputsJSON                 `json:"inputs"`
-	RainMM     num                        `json:"rain_mm"`
-	Stats      map[hourly.Quantity]statsJ `json:"stats"`
-	Result     *resultJSON                `json:"result"`
-	Carry      carryJSON                  `json:"carry"`
-	Flags      []string                   `json:"flags"`
-	Fill       string                     `json:"fill,omitempty"`
+	FormatVersion int                        `json:"format_version"`
+	Site          string                     `json:"site"`
+	Station       string                     `json:"station"`
+	Reference     hourly.Reference           `json:"reference"`
+	Start         time.Time                  `json:"start"`
+	End           time.Time                  `json:"end"`
+	LocalStart    string                     `json:"local_start"`
+	Revision      int                        `json:"revision"`
+	Complete      bool                       `json:"complete"`
+	ETmm          *num                       `json:"et_mm"`
+	Inputs        inputsJSON                 `json:"inputs"`
+	RainMM        num                        `json:"rain_mm"`
+	Stats         map[hourly.Quantity]statsJ `json:"stats"`
+	Result        *resultJSON                `json:"result"`
+	Carry         carryJSON                  `json:"carry"`
+	Flags         []string                   `json:"flags"`
+	Fill          string                     `json:"fill,omitempty"`
 }
 
 type inputsJSON struct {
 	AirTempC     num  `json:"air_temp_c"`
 	EaKPa        num  `json:"ea_kpa"`
-	Wind2MS      num  `json:"wind2_m_s"`
+	Wind2MS      num  `json:"wind_2m_m_s"`
 	SolarMJ      num  `json:"solar_mj_m2"`
 	NetRadMJ     *num `json:"net_rad_mj_m2,omitempty"`
 	SoilHeatMJ   *num `json:"soil_heat_mj_m2,omitempty"`
@@ -115,7 +110,7 @@ type resultJSON struct {
 	RsoMJ            num              `json:"rso_mj_m2"`
 	RsMJ             num              `json:"rs_mj_m2"`
 	SolarCapped      bool             `json:"solar_capped"`
-	Wind2MS          num              `json:"wind2_m_s"`
+	Wind2MS          num              `json:"wind_2m_m_s"`
 	WindFloored      bool             `json:"wind_floored"`
 	CarryExpired     bool             `json:"carry_expired"`
 	RsRso            num              `json:"rs_rso"`
@@ -129,13 +124,9 @@ type resultJSON struct {
 	SoilHeatMeasured bool             `json:"soil_heat_measured"`
 	Cn               num              `json:"cn"`
 	Cd               num              `json:"cd"`
-	RadiationTermMM  num              `json:"radiation_term_mm"`
-	AeroTermMM       num              `json:"aerodynamic_term_mm"`
+	RadiationTermMM  num              `json:"rad_term_mm"`
+	AeroTermMM       num              `json:"aero_term_mm"`
 	ETmm             num              `json:"et_mm"`
-}
-
-func carryToJSON(c hourly.Carry) carryJSON {
-	return carryJSON{Fcd: num(c.Fcd), From: c.From.UTC(), Valid: c.Valid}
 }
 
 func (c carryJSON) carry() hourly.Carry {
@@ -146,50 +137,63 @@ func (c carryJSON) carry() hourly.Carry {
 	return hourly.Carry{Fcd: f, From: c.From, Valid: c.Valid}
 }
 
+// r rounds v to the precision of the vocabulary's quantity name.
+func r(name string, v float64) num { return num(vocab.Round(name, v)) }
+
+// rk is r for a value that is null when not computed.
+func rk(name string, v float64, ok bool) num {
+	if !ok {
+		return num(math.NaN())
+	}
+	return r(name, v)
+}
+
 func toJSON(rec hourly.Record) recordJSON {
 	j := recordJSON{
-		Site: rec.Site, Station: rec.Station, Reference: rec.Reference,
+		FormatVersion: vocab.FormatVersion,
+		Site:          rec.Site, Station: rec.Station, Reference: rec.Reference,
 		Start: rec.Start.UTC(), End: rec.End.UTC(), LocalStart: rec.LocalStart,
 		Revision: rec.Revision, Complete: rec.Complete,
 		Inputs: inputsJSON{
-			AirTempC: known(rec.Inputs.AirTemp, rec.Complete), EaKPa: known(rec.Inputs.Ea, rec.Complete),
-			Wind2MS: known(rec.Inputs.Wind2, rec.Complete), SolarMJ: known(rec.Inputs.Solar, rec.Complete),
+			AirTempC: rk(vocab.AirTempC, rec.Inputs.AirTemp, rec.Complete), EaKPa: rk(vocab.EaKPa, rec.Inputs.Ea, rec.Complete),
+			Wind2MS: rk(vocab.Wind2mMS, rec.Inputs.Wind2, rec.Complete), SolarMJ: rk(vocab.SolarMJ, rec.Inputs.Solar, rec.Complete),
 			LengthSecond:   int(rec.End.Sub(rec.Start) / time.Second),
 			SolarEstimated: rec.Inputs.SolarEstimated,
 		},
-		RainMM: num(rec.Rain),
+		RainMM: r(vocab.RainMM, rec.Rain),
 		Stats:  make(map[hourly.Quantity]statsJ, len(rec.Stats)),
-		Carry:  carryToJSON(rec.Carry),
+		Carry:  carryJSON{Fcd: num(vocab.RoundFraction(rec.Carry.Fcd)), From: rec.Carry.From.UTC(), Valid: rec.Carry.Valid},
 		Flags:  append([]string{}, rec.Flags...),
 		Fill:   rec.Fill,
 	}
 	if rec.Inputs.HasNetRad {
-		v := num(rec.Inputs.NetRad)
+		v := r(vocab.NetRadMJ, rec.Inputs.NetRad)
 		j.Inputs.NetRadMJ = &v
 	}
 	if rec.Inputs.HasSoilHeat {
-		v := num(rec.Inputs.SoilHeat)
+		v := r(vocab.SoilHeatMJ, rec.Inputs.SoilHeat)
 		j.Inputs.SoilHeatMJ = &v
 	}
 	for q, s := range rec.Stats {
-		j.Stats[q] = statsJ{Count: s.Count, Min: num(s.Min), Max: num(s.Max), Mean: num(s.Mean), Coverage: num(s.Coverage)}
+		rs := func(v float64) num { return num(vocab.RoundSample(string(q), v)) }
+		j.Stats[q] = statsJ{Count: s.Count, Min: rs(s.Min), Max: rs(s.Max), Mean: rs(s.Mean), Coverage: num(vocab.RoundFraction(s.Coverage))}
 	}
-	if r := rec.Result; r != nil {
-		et := num(r.ET)
+	if res := rec.Result; res != nil {
+		et := r(vocab.ETmm, res.ET)
 		j.ETmm = &et
 		j.Result = &resultJSON{
-			Reference: r.Reference, Day: r.Day,
-			PressureKPa: num(r.Pressure), GammaKPaC: num(r.Gamma), DeltaKPaC: num(r.Delta),
-			EsKPa: num(r.Es), EaKPa: num(r.Ea), VPDKPa: num(r.VPD),
-			SunElevationRad: num(r.SunElevation), RaMJ: num(r.Ra), RsoMJ: num(r.Rso),
-			RsMJ: num(r.Rs), SolarCapped: r.SolarCapped, Wind2MS: num(r.Wind2), WindFloored: r.WindFloored,
-			CarryExpired: r.CarryExpired,
-			RsRso:        num(r.RsRso), Fcd: num(r.Fcd), FcdSource: r.FcdSource,
-			RnsMJ: num(r.Rns), RnlMJ: num(r.Rnl), RnMJ: num(r.Rn), GMJ: num(r.G),
-			NetRadMeasured: r.NetRadMeasured, SoilHeatMeasured: r.SoilHeatMeasured,
-			Cn: num(r.Cn), Cd: num(r.Cd),
-			RadiationTermMM: num(r.RadiationTerm), AeroTermMM: num(r.AerodynamicTerm),
-			ETmm: num(r.ET),
+			Reference: res.Reference, Day: res.Day,
+			PressureKPa: r(vocab.PressureKPa, res.Pressure), GammaKPaC: r(vocab.GammaKPaC, res.Gamma), DeltaKPaC: r(vocab.DeltaKPaC, res.Delta),
+			EsKPa: r(vocab.EsKPa, res.Es), EaKPa: r(vocab.EaKPa, res.Ea), VPDKPa: r(vocab.VPDKPa, res.VPD),
+			SunElevationRad: r(vocab.SunElevationRad, res.SunElevation), RaMJ: r(vocab.RaMJ, res.Ra), RsoMJ: r(vocab.RsoMJ, res.Rso),
+			RsMJ: r(vocab.RsMJ, res.Rs), SolarCapped: res.SolarCapped, Wind2MS: r(vocab.Wind2mMS, res.Wind2), WindFloored: res.WindFloored,
+			CarryExpired: res.CarryExpired,
+			RsRso:        r(vocab.RsRso, res.RsRso), Fcd: r(vocab.Fcd, res.Fcd), FcdSource: res.FcdSource,
+			RnsMJ: r(vocab.RnsMJ, res.Rns), RnlMJ: r(vocab.RnlMJ, res.Rnl), RnMJ: r(vocab.RnMJ, res.Rn), GMJ: r(vocab.GMJ, res.G),
+			NetRadMeasured: res.NetRadMeasured, SoilHeatMeasured: res.SoilHeatMeasured,
+			Cn: r(vocab.Cn, res.Cn), Cd: r(vocab.Cd, res.Cd),
+			RadiationTermMM: r(vocab.RadTermMM, res.RadiationTerm), AeroTermMM: r(vocab.AeroTermMM, res.AerodynamicTerm),
+			ETmm: et,
 		}
 	}
 	return j
@@ -241,7 +245,8 @@ func (j recordJSON) record() hourly.Record {
 }
 
 // MarshalRecord encodes a record as the JSON published on the results topic
-// (field list in README.md, "Hourly records over MQTT").
+// (field list in README.md, "Hourly records over MQTT"), each number
+// rounded to its quantity's precision.
 func MarshalRecord(rec hourly.Record) ([]byte, error) {
 	b, err := json.Marshal(toJSON(rec))
 	if err != nil {
@@ -250,7 +255,8 @@ func MarshalRecord(rec hourly.Record) ([]byte, error) {
 	return b, nil
 }
 
-// UnmarshalRecord decodes a record published by MarshalRecord.
+// UnmarshalRecord decodes a record published by MarshalRecord (its numbers
+// as rounded there).
 func UnmarshalRecord(b []byte) (hourly.Record, error) {
 	var j recordJSON
 	if err := json.Unmarshal(b, &j); err != nil {

@@ -921,7 +921,8 @@ func MarshalAlert(a alert.Alert) ([]byte, error) {
 }
 
 // AlertPoint returns the store point of an alert event: measurement
-// sensor_alert; tags site, station, sensor, quantity, kind; fields active
+// sensor_alert (zone_alert for a zone's fault, tagged site, zone, quantity,
+// kind); tags site, station, sensor, quantity, kind; fields active
 // (bool: false once cleared), critical (bool), value, limit; notes (local
 // history only) event, severity, message; time = the event time.
 func AlertPoint(ev Event) store.Point {
@@ -933,7 +934,12 @@ func AlertPoint(ev Event) store.Point {
 	if v := finite(a.Limit); v != nil {
 		fields["limit"] = *v
 	}
-	p := store.AlertPoint(a.Site, a.Station, a.Sensor, string(a.Kind), a.Updated, fields)
+	var p store.Point
+	if z := a.Zone(); z != "" {
+		p = store.ZoneAlertPoint(a.Site, z, string(a.Kind), a.Updated, fields)
+	} else {
+		p = store.AlertPoint(a.Site, a.Station, a.Sensor, string(a.Kind), a.Updated, fields)
+	}
 	p.Tags["quantity"] = string(a.Quantity)
 	p.Notes = map[string]string{"event": string(ev.Type), "severity": string(a.Severity), "message": a.Message}
 	return p

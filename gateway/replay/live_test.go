@@ -153,7 +153,7 @@ func TestReplayIncompleteHourInputsEmpty(t *testing.T) {
 	for i, c := range Columns {
 		col[c] = i
 	}
-	for _, c := range []string{"air_temp_c", "ea_kpa", "wind2_m_s", "solar_mj_m2", "et_mm"} {
+	for _, c := range []string{"air_temp_c", "ea_kpa", "wind_2m_m_s", "solar_mj_m2", "et_mm"} {
 		assert.Equal(t, "", row[col[c]], c)
 	}
 	assert.Equal(t, "0.0000", row[col["rain_mm"]], "rain is a sum; none fell")

@@ -83,7 +83,7 @@ type Summary struct {
 // Columns is the header of the records CSV.
 var Columns = []string{
 	"site", "station", "reference", "start_utc", "end_utc", "local_start", "revision", "complete",
-	"air_temp_c", "ea_kpa", "wind2_m_s", "solar_mj_m2", "rain_mm",
+	"air_temp_c", "ea_kpa", "wind_2m_m_s", "solar_mj_m2", "rain_mm",
 	"ra_mj_m2", "rso_mj_m2", "rn_mj_m2", "g_mj_m2", "fcd", "fcd_source", "et_mm", "flags", "fill",
 }
 

@@ -137,7 +137,7 @@ func writeCSV(w io.Writer, r Report) error {
 		for _, kv := range [][2]string{
 			{"etc_mm", f(z.ETcMM)}, {"eff_rain_mm", f(z.EffRainMM)}, {"commands", strconv.Itoa(z.Commands)},
 			{"commanded_minutes", f(z.CommandedMin)}, {"reported_minutes", f(z.ReportedMin)},
-			{"reported_volume_l", f(z.ReportedVolumeL)}, {"credited_mm", f(z.CreditedMM)},
+			{"reported_volume_l", f(z.ReportedVolumeL)}, {"credit_mm", f(z.CreditedMM)},
 			{"depletion_start_mm", opt(z.DepletionStartMM)}, {"depletion_end_mm", opt(z.DepletionEndMM)},
 			{"raw_mm", opt(z.RAWMM)}, {"taw_mm", opt(z.TAWMM)}, {"stress_hours", strconv.Itoa(z.StressHours)},
 		} {

@@ -110,7 +110,7 @@ type Zone struct {
 	CommandedMin    float64 `json:"commanded_minutes"`
 	ReportedMin     float64 `json:"reported_minutes"`
 	ReportedVolumeL float64 `json:"reported_volume_l"`
-	CreditedMM      float64 `json:"credited_mm"`
+	CreditedMM      float64 `json:"credit_mm"`
 	// Depletion of the root zone before the day's first step and after its
 	// last (null when the history holds no step there).
 	DepletionStartMM *float64 `json:"depletion_start_mm"`
@@ -325,9 +325,15 @@ func zoneDay(rng store.RangeFunc, site string, cfg *config.Zone, offset float64,
 	commanded := map[string]float64{}
 	type run struct{ minutes, volume float64 }
 	reported := map[string]run{}
-	err = rng(store.Filter{From: from, To: to, Measurements: []string{store.MeasurementZone, store.MeasurementCommand, store.MeasurementReport, store.MeasurementAlert}}, func(p store.Point) error {
-		if p.Measurement == store.MeasurementAlert {
-			if p.Tags["site"] == site && p.Tags["station"] == alert.ZoneStation && p.Tags["sensor"] == cfg.ID {
+	err = rng(store.Filter{From: from, To: to, Measurements: []string{store.MeasurementZone, store.MeasurementCommand, store.MeasurementReport, store.MeasurementZoneAlert, store.MeasurementAlert}}, func(p store.Point) error {
+		if p.Measurement == store.MeasurementZoneAlert || p.Measurement == store.MeasurementAlert {
+			// zone_alert since format version 2; before it, sensor_alert
+			// with station "zones" and the zone as sensor.
+			zone := p.Tags["zone"]
+			if p.Measurement == store.MeasurementAlert && p.Tags["station"] == alert.ZoneStation {
+				zone = p.Tags["sensor"]
+			}
+			if p.Tags["site"] == site && zone == cfg.ID {
 				if a, ok := raised(p); ok {
 					z.Alerts = append(z.Alerts, a)
 				}

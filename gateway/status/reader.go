@@ -13,6 +13,7 @@ import (
 	"etpulse/gateway/config"
 	"etpulse/gateway/pipeline"
 	"etpulse/gateway/store"
+	"etpulse/gateway/vocab"
 	"etpulse/gateway/zones"
 	"etpulse/hourly"
 )
@@ -192,17 +193,22 @@ func (r *Reader) hours(site, station string, from, to time.Time, fn func(HourVie
 }
 
 func hourView(p store.Point) HourView {
-	h := HourView{Start: p.Time, Local: p.Notes["local_start"], Fill: p.Notes["fill"]}
-	h.ET, h.Rs, h.Rso, h.AirTemp = num(p, "et_mm"), num(p, "rs_mj_m2"), num(p, "rso_mj_m2"), num(p, "t_air_c")
-	if ea, es := num(p, "ea_kpa"), num(p, "es_kpa"); ea != nil && es != nil && *es > 0 {
+	h := HourView{Start: p.Time, Local: p.Notes[vocab.LocalStart], Fill: p.Notes[vocab.Fill]}
+	h.ET, h.Rs, h.Rso, h.AirTemp = num(p, vocab.ETmm), num(p, vocab.SolarMJ), num(p, vocab.RsoMJ), num(p, vocab.AirTempC)
+	if h.AirTemp == nil && h.Rs == nil {
+		// An hour stored before format version 2 (t_air_c; rs_mj_m2 was
+		// the measured solar): kept in the history until it ages out.
+		h.Rs, h.AirTemp = num(p, "rs_mj_m2"), num(p, "t_air_c")
+	}
+	if ea, es := num(p, vocab.EaKPa), num(p, vocab.EsKPa); ea != nil && es != nil && *es > 0 {
 		rh := min(100, 100**ea / *es)
 		h.RH = &rh
 	}
-	if v := num(p, "rain_mm"); v != nil {
+	if v := num(p, vocab.RainMM); v != nil {
 		h.Rain = *v
 	}
-	h.Day, _ = p.Fields["day"].(bool)
-	h.Complete, _ = p.Fields["complete"].(bool)
+	h.Day, _ = p.Fields[vocab.Day].(bool)
+	h.Complete, _ = p.Fields[vocab.Complete].(bool)
 	if v, ok := p.Fields["revision"].(int64); ok {
 		h.Revision = int(v)
 	}
@@ -496,7 +502,7 @@ func (r *Reader) cleared(now time.Time) ([]AlertView, error) {
 	if r.o.History == nil {
 		return out, nil
 	}
-	f := store.Filter{From: now.Add(-ClearedWindow), To: now.Add(time.Minute), Measurements: []string{store.MeasurementAlert}}
+	f := store.Filter{From: now.Add(-ClearedWindow), To: now.Add(time.Minute), Measurements: []string{store.MeasurementAlert, store.MeasurementZoneAlert}}
 	err := r.o.History.Range(f, func(p store.Point) error {
 		if active, ok := p.Fields["active"].(bool); !ok || active {
 			return nil

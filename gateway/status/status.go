@@ -110,9 +110,9 @@ type HourView struct {
 	Start    time.Time `json:"start"`
 	Local    string    `json:"local_start"` // station standard time
 	ET       *float64  `json:"et_mm,omitempty"`
-	Rs       *float64  `json:"rs_mj_m2,omitempty"`
+	Rs       *float64  `json:"solar_mj_m2,omitempty"` // measured (or estimated) solar radiation
 	Rso      *float64  `json:"rso_mj_m2,omitempty"`
-	AirTemp  *float64  `json:"t_air_c,omitempty"`
+	AirTemp  *float64  `json:"air_temp_c,omitempty"`
 	RH       *float64  `json:"rh_pct,omitempty"` // 100 ea/es of the hour
 	Rain     float64   `json:"rain_mm"`
 	Day      bool      `json:"day"` // the sun was up (ASCE-EWRI 2005 day/night G)

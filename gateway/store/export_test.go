@@ -52,7 +52,7 @@ func TestExportCSV(t *testing.T) {
 	lines := strings.Split(strings.TrimSpace(b.String()), "\n")
 	require.Len(t, lines, 3)
 	header := strings.Split(lines[0], ",")
-	assert.Equal(t, []string{"time", "measurement", "reference", "site", "station", "aero_term_mm", "complete"}, header[:7])
+	assert.Equal(t, []string{"time", "measurement", "reference", "site", "station", "aero_term_mm", "air_temp_c"}, header[:7])
 	assert.Equal(t, []string{"flags", "local_start"}, header[len(header)-2:], "notes come last")
 	row := map[string]string{}
 	for i, v := range strings.Split(lines[1], ",") {

@@ -4,6 +4,7 @@ import (
 	"strings"
 	"time"
 
+	"etpulse/gateway/vocab"
 	"etpulse/hourly"
 )
 
@@ -16,12 +17,14 @@ import (
 const (
 	// MeasurementHour is one station-hour (ClassHour).
 	// Tags: site, station, reference (short, tall, fao56).
-	// Fields: revision (int), complete (bool), flag_count (int), filled (bool),
+	// Fields (names from gateway/vocab, full precision for audit):
+	// revision (int), complete (bool), flag_count (int), filled (bool),
 	// rain_mm; cov_<quantity> (fraction 0-1 of the hour's coverage slots) per
-	// quantity seen; when computed: t_air_c, ea_kpa, u2_m_s, rs_mj_m2, et_mm,
-	// rn_mj_m2, g_mj_m2, rns_mj_m2, rnl_mj_m2, ra_mj_m2, rso_mj_m2, rs_rso,
-	// fcd, fcd_carried, fcd_default (bool), es_kpa, vpd_kpa, delta_kpa_c,
-	// gamma_kpa_c, p_kpa, sun_elev_rad, day, rn_measured, g_measured (bool),
+	// quantity seen; when computed: air_temp_c, ea_kpa, wind_2m_m_s,
+	// solar_mj_m2, et_mm, rn_mj_m2, g_mj_m2, rns_mj_m2, rnl_mj_m2, ra_mj_m2,
+	// rso_mj_m2, rs_mj_m2, rs_rso, fcd, fcd_carried, fcd_default (bool),
+	// es_kpa, vpd_kpa, delta_kpa_c, gamma_kpa_c, pressure_kpa,
+	// sun_elevation_rad, day, net_rad_measured, soil_heat_measured (bool),
 	// rad_term_mm, aero_term_mm. Energy and depth fields are per hour.
 	// Notes: flags, fill, local_start.
 	MeasurementHour = "et_hour"
@@ -39,9 +42,13 @@ const (
 	// MeasurementReport is one valve acknowledgement or run report
 	// (ClassReport). Tags: site, zone.
 	MeasurementReport = "valve_report"
-	// MeasurementAlert is one alert raised, updated or cleared (ClassAlert).
-	// Tags: site, station, sensor, kind.
+	// MeasurementAlert is one sensor or station alert raised, updated or
+	// cleared (ClassAlert). Tags: site, station, sensor, quantity, kind.
 	MeasurementAlert = "sensor_alert"
+	// MeasurementZoneAlert is one zone fault raised, updated or cleared
+	// (ClassAlert): stale ET, a valve that does not answer, a run cut
+	// short. Tags: site, zone, kind.
+	MeasurementZoneAlert = "zone_alert"
 )
 
 // rawUnits names the canonical unit of each quantity in field names.
@@ -65,52 +72,39 @@ func RawUnit(q hourly.Quantity) string { return rawUnits[q] }
 // point at the hour start.
 func HourPoints(rec hourly.Record) []Point {
 	f := map[string]any{
-		"revision":   int64(rec.Revision),
-		"complete":   rec.Complete,
-		"flag_count": int64(len(rec.Flags)),
-		"filled":     rec.Fill != "",
-		"rain_mm":    rec.Rain,
+		vocab.Revision:  int64(rec.Revision),
+		vocab.Complete:  rec.Complete,
+		vocab.FlagCount: int64(len(rec.Flags)),
+		vocab.Filled:    rec.Fill != "",
+		vocab.RainMM:    rec.Rain,
 	}
 	for q, s := range rec.Stats {
-		f["cov_"+string(q)] = s.Coverage
+		f[vocab.Coverage(string(q))] = s.Coverage
 	}
 	if r := rec.Result; r != nil {
-		f["t_air_c"] = rec.Inputs.AirTemp
-		f["ea_kpa"] = rec.Inputs.Ea
-		f["u2_m_s"] = rec.Inputs.Wind2
-		f["rs_mj_m2"] = rec.Inputs.Solar
-		f["et_mm"] = r.ET
-		f["rn_mj_m2"] = r.Rn
-		f["g_mj_m2"] = r.G
-		f["rns_mj_m2"] = r.Rns
-		f["rnl_mj_m2"] = r.Rnl
-		f["ra_mj_m2"] = r.Ra
-		f["rso_mj_m2"] = r.Rso
-		f["rs_rso"] = r.RsRso
-		f["fcd"] = r.Fcd
-		f["fcd_carried"] = r.FcdSource == hourly.FcdCarried
-		f["fcd_default"] = r.FcdSource == hourly.FcdDefault
-		f["es_kpa"] = r.Es
-		f["vpd_kpa"] = r.VPD
-		f["delta_kpa_c"] = r.Delta
-		f["gamma_kpa_c"] = r.Gamma
-		f["p_kpa"] = r.Pressure
-		f["sun_elev_rad"] = r.SunElevation
-		f["day"] = r.Day
-		f["rn_measured"] = r.NetRadMeasured
-		f["g_measured"] = r.SoilHeatMeasured
-		f["rad_term_mm"] = r.RadiationTerm
-		f["aero_term_mm"] = r.AerodynamicTerm
+		for k, v := range map[string]any{
+			vocab.AirTempC: rec.Inputs.AirTemp, vocab.EaKPa: rec.Inputs.Ea, vocab.Wind2mMS: rec.Inputs.Wind2,
+			vocab.SolarMJ: rec.Inputs.Solar, vocab.ETmm: r.ET, vocab.RnMJ: r.Rn, vocab.GMJ: r.G,
+			vocab.RnsMJ: r.Rns, vocab.RnlMJ: r.Rnl, vocab.RaMJ: r.Ra, vocab.RsoMJ: r.Rso, vocab.RsMJ: r.Rs,
+			vocab.RsRso: r.RsRso, vocab.Fcd: r.Fcd,
+			vocab.FcdCarried: r.FcdSource == hourly.FcdCarried, vocab.FcdDefault: r.FcdSource == hourly.FcdDefault,
+			vocab.EsKPa: r.Es, vocab.VPDKPa: r.VPD, vocab.DeltaKPaC: r.Delta, vocab.GammaKPaC: r.Gamma,
+			vocab.PressureKPa: r.Pressure, vocab.SunElevationRad: r.SunElevation, vocab.Day: r.Day,
+			vocab.NetRadMeasured: r.NetRadMeasured, vocab.SoilHeatMeasured: r.SoilHeatMeasured,
+			vocab.RadTermMM: r.RadiationTerm, vocab.AeroTermMM: r.AerodynamicTerm,
+		} {
+			f[k] = v
+		}
 	}
 	notes := map[string]string{}
 	if len(rec.Flags) > 0 {
-		notes["flags"] = strings.Join(rec.Flags, ";")
+		notes[vocab.Flags] = strings.Join(rec.Flags, ";")
 	}
 	if rec.Fill != "" {
-		notes["fill"] = rec.Fill
+		notes[vocab.Fill] = rec.Fill
 	}
 	if rec.LocalStart != "" {
-		notes["local_start"] = rec.LocalStart
+		notes[vocab.LocalStart] = rec.LocalStart
 	}
 	return []Point{{
 		Class:       ClassHour,
@@ -172,6 +166,18 @@ func AlertPoint(site, station, sensor, kind string, t time.Time, fields map[stri
 		Class:       ClassAlert,
 		Measurement: MeasurementAlert,
 		Tags:        tags("site", site, "station", station, "sensor", sensor, "kind", kind),
+		Fields:      fields,
+		Time:        t,
+	}
+}
+
+// ZoneAlertPoint builds a zone fault point (ClassAlert,
+// MeasurementZoneAlert).
+func ZoneAlertPoint(site, zone, kind string, t time.Time, fields map[string]any) Point {
+	return Point{
+		Class:       ClassAlert,
+		Measurement: MeasurementZoneAlert,
+		Tags:        tags("site", site, "zone", zone, "kind", kind),
 		Fields:      fields,
 		Time:        t,
 	}

@@ -37,7 +37,7 @@ func example19Record() hourly.Record {
 		Result: &hourly.Result{
 			Reference: hourly.FAO56, Day: true,
 			Pressure: 101.2, Gamma: 0.0673, Delta: 0.358, Es: 6.625, Ea: 3.445, VPD: 3.180,
-			SunElevation: 0.9, Ra: 3.543, Rso: 2.658, RsRso: 0.922, Fcd: 0.84, FcdSource: hourly.FcdComputed,
+			SunElevation: 0.9, Ra: 3.543, Rso: 2.658, Rs: 2.450, RsRso: 0.922, Fcd: 0.84, FcdSource: hourly.FcdComputed,
 			Rns: 1.887, Rnl: 0.137, Rn: 1.749, G: 0.175,
 			Cn: 37, Cd: 0.24, RadiationTerm: 0.40, AerodynamicTerm: 0.23, ET: 0.63,
 		},
@@ -79,12 +79,12 @@ func TestHourPointsLineProtocol(t *testing.T) {
 	assert.Equal(t, map[string]string{
 		"revision": "1i", "complete": "true", "flag_count": "1i", "filled": "false", "rain_mm": "0",
 		"cov_air_temp": "1", "cov_rel_humidity": "1", "cov_wind": "0.95", "cov_solar": "1",
-		"t_air_c": "38", "ea_kpa": "3.445", "u2_m_s": "3.3", "rs_mj_m2": "2.45",
+		"air_temp_c": "38", "ea_kpa": "3.445", "wind_2m_m_s": "3.3", "solar_mj_m2": "2.45", "rs_mj_m2": "2.45",
 		"et_mm": "0.63", "rn_mj_m2": "1.749", "g_mj_m2": "0.175", "rns_mj_m2": "1.887", "rnl_mj_m2": "0.137",
 		"ra_mj_m2": "3.543", "rso_mj_m2": "2.658", "rs_rso": "0.922", "fcd": "0.84",
 		"fcd_carried": "false", "fcd_default": "false",
-		"es_kpa": "6.625", "vpd_kpa": "3.18", "delta_kpa_c": "0.358", "gamma_kpa_c": "0.0673", "p_kpa": "101.2",
-		"sun_elev_rad": "0.9", "day": "true", "rn_measured": "false", "g_measured": "false",
+		"es_kpa": "6.625", "vpd_kpa": "3.18", "delta_kpa_c": "0.358", "gamma_kpa_c": "0.0673", "pressure_kpa": "101.2",
+		"sun_elevation_rad": "0.9", "day": "true", "net_rad_measured": "false", "soil_heat_measured": "false",
 		"rad_term_mm": "0.4", "aero_term_mm": "0.23",
 	}, fields)
 	// Text stays out of the line (victoria-metrics would store it as 0) and
@@ -100,7 +100,7 @@ func TestHourPointsIncomplete(t *testing.T) {
 	assert.Equal(t, "false", fields["complete"])
 	assert.Equal(t, "0i", fields["revision"])
 	assert.NotContains(t, fields, "et_mm", "no ET for an incomplete hour")
-	assert.NotContains(t, fields, "t_air_c", "inputs only with a computed result")
+	assert.NotContains(t, fields, "air_temp_c", "inputs only with a computed result")
 	assert.Equal(t, "0.95", fields["cov_wind"])
 }
 

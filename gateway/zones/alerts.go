@@ -177,10 +177,9 @@ func finiteOr0(v float64) float64 {
 }
 
 // alertPoint is the store point of a zone alert when no alert.Raiser is
-// configured: measurement sensor_alert with a zone tag and the text in notes.
+// configured: measurement zone_alert with the text in notes.
 func alertPoint(site, zone, kind string, raised bool, t time.Time, text string) store.Point {
-	p := store.AlertPoint(site, "", "", kind, t, map[string]any{"raised": raised})
-	p.Tags["zone"] = zone
+	p := store.ZoneAlertPoint(site, zone, kind, t, map[string]any{"raised": raised})
 	p.Notes = map[string]string{"text": text}
 	return p
 }

@@ -199,13 +199,13 @@ func TestValveNoReportAlertMosquitto(t *testing.T) {
 	assert.Equal(t, controllers.Finished, led[1].State, "the next window's command")
 	assert.False(t, led[1].Start.Before(time.Date(2026, 7, 1, 10, 10, 0, 0, fernLoc)))
 
-	// The store has the raise and the clear as sensor_alert points of the
-	// zone (station "zones", sensor = zone id).
+	// The store has the raise and the clear as zone_alert points of the
+	// zone (tagged with the zone, apart from the sensors' alerts).
 	var events []string
-	require.NoError(t, f.out.History().Range(store.Filter{Measurements: []string{store.MeasurementAlert}}, func(p store.Point) error {
+	require.NoError(t, f.out.History().Range(store.Filter{Measurements: []string{store.MeasurementZoneAlert}}, func(p store.Point) error {
 		if p.Tags["kind"] == "valve-no-report" {
-			assert.Equal(t, "zones", p.Tags["station"])
-			assert.Equal(t, "row-c", p.Tags["sensor"])
+			assert.Equal(t, "row-c", p.Tags["zone"])
+			assert.Empty(t, p.Tags["station"])
 			events = append(events, p.Notes["event"])
 		}
 		return nil

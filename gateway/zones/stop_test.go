@@ -261,12 +261,12 @@ func TestValveFailedAlertLifecycle(t *testing.T) {
 	require.NoError(t, err)
 	assert.Empty(t, mon.Active(), "valid ET clears it")
 
-	// Every raise and clear is a sensor_alert point of the zone.
+	// Every raise and clear is a zone_alert point of the zone.
 	n := 0
-	require.NoError(t, f.out.History().Range(store.Filter{Measurements: []string{store.MeasurementAlert}}, func(p store.Point) error {
+	require.NoError(t, f.out.History().Range(store.Filter{Measurements: []string{store.MeasurementZoneAlert}}, func(p store.Point) error {
 		n++
-		assert.Equal(t, "zones", p.Tags["station"])
-		assert.Equal(t, "row-a", p.Tags["sensor"])
+		assert.Equal(t, "row-a", p.Tags["zone"])
+		assert.Empty(t, p.Tags["station"])
 		return nil
 	}))
 	assert.Equal(t, 4, n)
