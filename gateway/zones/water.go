@@ -244,7 +244,7 @@ func (s *Service) applyWater(site *siteRef, payload []byte, now time.Time) Water
 		s.log.Info("water request already applied", "site", site.id, "zone", req.Zone, "id", req.ID)
 		return reply
 	}
-	reply.NetMM, reply.DrainageMM, reply.PreviousMM, reply.DepletionMM = &step.Irrigation, &step.Drainage, &prev, &step.Depletion
+	reply.setDepths(step.Irrigation, step.Drainage, prev, step.Depletion)
 	s.m.setLevels(ref, &level, now)
 	s.log.Info("water recorded", "site", site.id, "zone", req.Zone, "kind", req.Kind, "id", req.ID,
 		"net_mm", step.Irrigation, "previous_depletion_mm", prev, "depletion_mm", step.Depletion,

@@ -8,6 +8,7 @@ import (
 	"time"
 
 	"etpulse/controllers"
+	"etpulse/gateway/internal/precision"
 )
 
 // CommandMessage is the JSON a valve controller receives on its zone's
@@ -96,7 +97,22 @@ func stopMessage(c *controllers.Command) StopMessage {
 func commandMessage(c *controllers.Command) CommandMessage {
 	return CommandMessage{ID: c.ID, Zone: c.Zone, Valve: c.Valve, Minutes: c.Minutes,
 		Start: c.Start.UTC(), Expiry: c.Expiry.UTC(), Cycle: c.Cycle, Cycles: c.Cycles,
-		Attempt: c.Attempts, Reason: c.Reason}
+		Attempt: c.Attempts, Reason: wireReason(c.Reason)}
+}
+
+// wireReason is r with its depths rounded for the wire (precision.MM).
+func wireReason(r controllers.Reason) controllers.Reason {
+	mm := func(v float64) float64 { return precision.Round(precision.MM, v) }
+	r.DepletionMM, r.TriggerMM, r.EtcSinceLastMM = mm(r.DepletionMM), mm(r.TriggerMM), mm(r.EtcSinceLastMM)
+	r.ProjectedMM, r.ShortMM = mm(r.ProjectedMM), mm(r.ShortMM)
+	return r
+}
+
+// setDepths fills the depths of a water reply, rounded for the wire
+// (precision.MM).
+func (r *WaterReply) setDepths(net, drainage, previous, depletion float64) {
+	r.NetMM, r.DrainageMM = precision.Ptr(precision.MM, net), precision.Ptr(precision.MM, drainage)
+	r.PreviousMM, r.DepletionMM = precision.Ptr(precision.MM, previous), precision.Ptr(precision.MM, depletion)
 }
 
 func decodeStrict(b []byte, v any) error {
