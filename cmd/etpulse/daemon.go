@@ -19,6 +19,7 @@ import (
 	"etpulse/gateway"
 	"etpulse/gateway/buildinfo"
 	"etpulse/gateway/config"
+	"etpulse/gateway/logfmt"
 	"etpulse/gateway/mqtt"
 	"etpulse/gateway/sdnotify"
 	"etpulse/gateway/state"
@@ -298,7 +299,7 @@ func newLogger(w io.Writer, format, level string) (*slog.Logger, error) {
 	if err := lv.UnmarshalText([]byte(level)); err != nil {
 		return nil, fmt.Errorf("--log-level: %q is not debug, info, warn or error", level)
 	}
-	opts := &slog.HandlerOptions{Level: lv}
+	opts := logfmt.Options(lv)
 	switch strings.ToLower(format) {
 	case "text":
 		return slog.New(slog.NewTextHandler(w, opts)), nil

@@ -172,3 +172,15 @@ func (h *allowAllHook) Provides(b byte) bool {
 func (h *allowAllHook) OnConnectAuthenticate(*mochi.Client, packets.Packet) bool { return true }
 
 func (h *allowAllHook) OnACLCheck(*mochi.Client, string, bool) bool { return true }
+
+// Durations in log lines are short Go duration strings in both formats,
+// never nanosecond counts (JSON) or 7.903066ms (text).
+func TestLogDurations(t *testing.T) {
+	for format, want := range map[string]string{"json": `"retry_in":"7.9ms"`, "text": `retry_in=7.9ms`} {
+		var b bytes.Buffer
+		log, err := newLogger(&b, format, "info")
+		require.NoError(t, err)
+		log.Info("connect failed, retrying", "retry_in", 7903066*time.Nanosecond)
+		assert.Contains(t, b.String(), want, format)
+	}
+}
