@@ -28,7 +28,7 @@ func TestReplaySummaryCountsRejected(t *testing.T) {
 	var out, errOut bytes.Buffer
 	code := run(context.Background(), []string{"replay", "--config", "../../testdata/config/minimal.yaml", "--in", in}, nil, &out, &errOut)
 	require.Equal(t, exitOK, code, errOut.String())
-	assert.Regexp(t, `level=WARN msg="reading rejected" station=mast .*reason=too_old err=".*air_temp reading at 2026-07-14T00:05:00Z`, errOut.String())
+	assert.Regexp(t, `level=WARN msg="reading rejected" site=lowfield station=mast .*reason=too_old err=".*air_temp reading at 2026-07-14T00:05:00Z`, errOut.String())
 	assert.Contains(t, errOut.String(), "4 rows (0 bad, 0 duplicate), 3 readings stored")
 	assert.Contains(t, errOut.String(), "; 1 reading rejected (too_old 1)\n")
 }

@@ -61,7 +61,7 @@ func TestReportAgainstHandSummedDay(t *testing.T) {
 	type sums struct {
 		et                        map[string]float64
 		rain                      float64
-		complete, filled, records int
+		complete, filled int
 	}
 	want := map[string]*sums{}
 	seen := map[string]bool{} // station/hour: rain and marks counted once
