@@ -906,6 +906,17 @@ func finite(v float64) *float64 {
 	return &v
 }
 
+// shown is v rounded as the alert's message shows it (about three
+// significant digits), or nil when v is not finite: the retained payload's
+// value and limit.
+func shown(v float64) *float64 {
+	if f := finite(v); f != nil {
+		r := roundNum(*f)
+		return &r
+	}
+	return nil
+}
+
 // MarshalAlert returns the retained payload of an alert: its JSON while
 // active, empty once cleared (an empty retained message removes the topic's
 // retained state at the broker).
@@ -916,7 +927,7 @@ func MarshalAlert(a alert.Alert) ([]byte, error) {
 	return json.Marshal(alertJSON{
 		Site: a.Site, Station: a.Station, Sensor: a.Sensor, Zone: a.Zone(), Quantity: string(a.Quantity), Kind: string(a.Kind),
 		Severity: string(a.Severity), State: "active", Message: a.Message,
-		Value: finite(a.Value), Limit: finite(a.Limit), Since: a.Since.UTC(), Updated: a.Updated.UTC(),
+		Value: shown(a.Value), Limit: shown(a.Limit), Since: a.Since.UTC(), Updated: a.Updated.UTC(),
 	})
 }
 

@@ -9,6 +9,7 @@ import (
 
 	"etpulse/gateway/alert"
 	"etpulse/gateway/config"
+	"etpulse/gateway/internal/precision"
 	"etpulse/hourly"
 )
 
@@ -116,7 +117,7 @@ func (c *ReadingChecks) Observe(s hourly.Sample, now time.Time) []Finding {
 		if rate > lim.SpikePerMinute {
 			f.Status = StatusBad
 			f.Message = fmt.Sprintf("%s changed %s -> %s in %s (%s per minute), limit %s per minute",
-				s.Quantity, num(prev.v), num(s.Value), s.Time.Sub(prev.t), num(rate), num(lim.SpikePerMinute))
+				s.Quantity, num(prev.v), num(s.Value), precision.Duration(s.Time.Sub(prev.t)), num(rate), num(lim.SpikePerMinute))
 		} else {
 			f.Status = StatusGood
 			f.Message = fmt.Sprintf("%s changes within %s per minute", s.Quantity, num(lim.SpikePerMinute))
@@ -225,6 +226,15 @@ func absDur(d time.Duration) time.Duration {
 		return -d
 	}
 	return d
+}
+
+// roundNum rounds v as num shows it: the value an alert payload carries.
+func roundNum(v float64) float64 {
+	r, err := strconv.ParseFloat(num(v), 64)
+	if err != nil {
+		return v
+	}
+	return r
 }
 
 // num formats a value for an alert message: about three significant

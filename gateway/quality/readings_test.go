@@ -122,3 +122,24 @@ func TestSilence(t *testing.T) {
 	assert.Equal(t, StatusGood, got[0].Status)
 	assert.Equal(t, t0.Add(36*time.Minute), c.NextSilence())
 }
+
+// TestSpikeMessageAndPayloadRounded: the time between the readings is a
+// short duration in the message (not 7.903066ms), and the retained alert
+// payload carries value and limit rounded as the message shows them.
+func TestSpikeMessageAndPayloadRounded(t *testing.T) {
+	c := NewReadingChecks("brackenfold", "orchard", testAlerts())
+	s1 := sample("t1", hourly.AirTemp, 0, 20.0)
+	s2 := s1
+	s2.Time, s2.Value = s1.Time.Add(7903066*time.Nanosecond+40*time.Second), 23.123456789
+	fs := observe(c, alert.KindSpike, s1, s2)
+	require.Len(t, fs, 1)
+	require.Equal(t, StatusBad, fs[0].Status)
+	assert.Equal(t, "air_temp changed 20 -> 23.1 in 40s (3.12 per minute), limit 3 per minute", fs[0].Message)
+
+	a := alert.Alert{Key: fs[0].Key, Severity: fs[0].Severity, Message: fs[0].Message, Value: fs[0].Value, Limit: fs[0].Limit,
+		Since: s2.Time, Updated: s2.Time}
+	b, err := MarshalAlert(a)
+	require.NoError(t, err)
+	assert.Contains(t, string(b), `"value":3.12,`)
+	assert.Contains(t, string(b), `"limit":3,`)
+}
