@@ -38,10 +38,16 @@ type statePublisher struct {
 	log    *slog.Logger
 	wake   chan struct{}
 
-	mu    sync.Mutex
-	hours map[[2]string]map[hourly.Reference]hourly.Record // latest hour per station, by reference
-	sent  map[string]string                                // topic -> payload last published
+	mu       sync.Mutex
+	hours    map[[2]string]map[hourly.Reference]hourly.Record // latest hour per station, by reference
+	sent     map[string]string                                // topic -> payload last published
+	connects uint64                                           // the client's connect count when sent was valid
 }
+
+// connectCounter is implemented by a publisher that counts its connects
+// (mqtt.Client): after a reconnect the broker may have lost its retained
+// messages (a restart without persistence), so everything is sent again.
+type connectCounter interface{ Connects() uint64 }
 
 var _ clock.Stepper = (*statePublisher)(nil)
 
@@ -108,9 +114,17 @@ func (p *statePublisher) Run(ctx context.Context) error {
 	return clock.Loop(ctx, p.clock, p.wake, p)
 }
 
-// RunOnce publishes every state topic whose payload changed; a topic that
-// fails is retried at the next pass.
+// RunOnce publishes every state topic whose payload changed, and every one
+// after the client reconnected; a topic that fails is retried at the next
+// pass (at least every minute).
 func (p *statePublisher) RunOnce(ctx context.Context, now time.Time) (time.Time, error) {
+	if cc, ok := p.pub.(connectCounter); ok {
+		if n := cc.Connects(); n != p.connects {
+			p.mu.Lock()
+			p.sent, p.connects = map[string]string{}, n
+			p.mu.Unlock()
+		}
+	}
 	msgs, err := p.payloads(now)
 	if err != nil {
 		p.log.Warn("state topics: reading the zones", "err", err)

@@ -543,6 +543,10 @@ func (c *Client) Publish(ctx context.Context, topic string, qos byte, retained b
 // Connected reports whether the connection to the broker is up now.
 func (c *Client) Connected() bool { return c.c.IsConnectionOpen() }
 
+// Connects returns how many times the client has connected (1 after Dial,
+// one more per reconnect).
+func (c *Client) Connects() uint64 { return uint64(c.connects.Load()) }
+
 // Inflight returns the number of received messages queued or being handled.
 func (c *Client) Inflight() int { return int(c.inflight.Load()) }
 
