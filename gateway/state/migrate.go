@@ -219,8 +219,12 @@ var (
 // closed hours without readings); then the mark is its cursor (hours close
 // in sequence, so the cursor is the end of the latest). A station whose
 // hours were all pruned and nothing of it is pending stays unmarked: it
-// behaves as in version 2.
+// behaves as in version 2. The stored points of the history and the outbox
+// get the version-3 names (migratePointsV3).
 func migrate2to3(tx *bbolt.Tx) error {
+	if err := migratePointsV3(tx); err != nil {
+		return err
+	}
 	root := tx.Bucket(BucketPipeline)
 	if root == nil {
 		return nil

@@ -67,8 +67,9 @@ func dump(t *testing.T, path string) map[string]map[string][]byte {
 }
 
 // TestMigrateV1: the committed version-1 file opens at Version. Every
-// bucket but the zone balances and the ledger is byte for byte what it was
-// (records, carries, hour bins, outbox entries, history, alerts, holds);
+// bucket but the zone balances, the ledger and the history (renamed points,
+// TestMigrateStoredPoints) is byte for byte what it was (records, carries,
+// hour bins, outbox entries, alerts, holds);
 // every ledger row and zone balance reads back field by field as the domain
 // types the version-1 release wrote; a backup of the original is kept next
 // to the file until the next start.
@@ -84,7 +85,9 @@ func TestMigrateV1(t *testing.T) {
 
 	after := openDump(t, path)
 
-	migrated := map[string]bool{"zones/ledger": true, "zones/state": true, string(BucketMeta): true}
+	// The history's points get the version-3 names
+	// (TestMigrateStoredPoints checks every one).
+	migrated := map[string]bool{"zones/ledger": true, "zones/state": true, string(BucketMeta): true, string(BucketHistory): true}
 	for name, kv := range before {
 		if migrated[name] {
 			continue
@@ -202,7 +205,8 @@ const v2File = "../../testdata/state/v2-tallowwood.db"
 // TestMigrateV2: the committed version-2 file opens at Version. Every
 // station that closed hours gets the closed-through mark equal to its cursor
 // (the end of its latest closed hour) and an empty bucket of held readings;
-// every other row is byte for byte what it was.
+// the history's points are renamed (TestMigrateStoredPoints); every other
+// row is byte for byte what it was.
 func TestMigrateV2(t *testing.T) {
 	path := copyTo(t, v2File)
 	before := dump(t, path)
@@ -215,6 +219,9 @@ func TestMigrateV2(t *testing.T) {
 		switch {
 		case name == string(BucketMeta):
 			assert.Equal(t, []byte{0, 0, 0, 0, 0, 0, 0, 3}, after[name]["schema_version"])
+		case name == string(BucketHistory):
+			// Renamed to the version-3 names: TestMigrateStoredPoints.
+			assert.Len(t, after[name], len(kv))
 		case isStationMeta(name):
 			stations++
 			require.Len(t, kv["cursor"], 8, name)
