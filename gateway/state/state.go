@@ -33,6 +33,9 @@ const Version = 3
 var (
 	// ErrNewerVersion: the file was written by a newer etpulse.
 	ErrNewerVersion = errors.New("state file is newer than this etpulse")
+	// ErrOlderVersion: a reader (OpenReadOnly) was given a file that must
+	// be migrated first.
+	ErrOlderVersion = errors.New("state file needs migrating")
 	// ErrNotStateFile: the file is not a bbolt database, or not etpulse's.
 	ErrNotStateFile = errors.New("not an etpulse state file")
 	// ErrLocked: another process (usually a running gateway) holds the file.
@@ -97,9 +100,10 @@ func OpenLogged(path string, log *slog.Logger) (*bbolt.DB, error) {
 
 // OpenReadOnly opens the state file at path for reading only, for tools
 // that read history beside a stopped gateway: it never creates, migrates or
-// writes the file. Files of this Version and of older versions whose
-// buckets read the same are opened; a newer file is refused with
-// ErrNewerVersion, a missing one with an error naming it.
+// writes the file. Files of this Version are opened; an older file (whose
+// stored points have the names before version 3) is refused with
+// ErrOlderVersion and how to migrate it, a newer one with ErrNewerVersion,
+// a missing one with an error naming it.
 func OpenReadOnly(path string) (*bbolt.DB, error) {
 	if _, err := os.Stat(path); err != nil {
 		return nil, fmt.Errorf("open state %s: %w", path, err)
@@ -111,6 +115,9 @@ func OpenReadOnly(path string) (*bbolt.DB, error) {
 	v, err := FileVersion(db)
 	if err == nil && v > Version {
 		err = fmt.Errorf("schema version %d, this etpulse reads up to %d: use a newer etpulse: %w", v, Version, ErrNewerVersion)
+	}
+	if err == nil && v < Version {
+		err = fmt.Errorf("schema version %d, this etpulse reads version %d: start the gateway once with this etpulse (etpulse run), which migrates the file and keeps a backup, or read a copy with the etpulse that wrote it: %w", v, Version, ErrOlderVersion)
 	}
 	if err != nil {
 		_ = db.Close()

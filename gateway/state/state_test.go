@@ -359,20 +359,32 @@ func assertSubset(t *testing.T, want, got any, where string) {
 	}
 }
 
-// TestOpenReadOnly: a reader opens the version-1 file as it is (no version
-// written, no backup), refuses a newer file, and says when a file is missing.
+// TestOpenReadOnly: a reader refuses a file of an older version (its
+// stored points have the names before version 3, which no reader reads any
+// more), saying how to migrate it, and leaves it as it is (no version
+// written, no backup); it opens a file of this version, refuses a newer
+// file, and says when a file is missing.
 func TestOpenReadOnly(t *testing.T) {
-	path := copyTo(t, v1File)
-	before := dump(t, path)
-	db, err := OpenReadOnly(path)
+	for _, old := range []string{v1File, v2File} {
+		path := copyTo(t, old)
+		before := dump(t, path)
+		_, err := OpenReadOnly(path)
+		require.ErrorIs(t, err, ErrOlderVersion, old)
+		assert.Contains(t, err.Error(), "start the gateway once with this etpulse (etpulse run)", old)
+		assert.Equal(t, before, dump(t, path))
+		_, err = os.Stat(BackupPath(path, 1))
+		assert.True(t, os.IsNotExist(err))
+	}
+	current := filepath.Join(t.TempDir(), "current.db")
+	db, err := Open(current)
+	require.NoError(t, err)
+	require.NoError(t, db.Close())
+	db, err = OpenReadOnly(current)
 	require.NoError(t, err)
 	v, err := FileVersion(db)
 	require.NoError(t, err)
-	assert.Equal(t, 1, v)
+	assert.Equal(t, Version, v)
 	require.NoError(t, db.Close())
-	assert.Equal(t, before, dump(t, path))
-	_, err = os.Stat(BackupPath(path, 1))
-	assert.True(t, os.IsNotExist(err))
 
 	newer := filepath.Join(t.TempDir(), "newer.db")
 	db, err = Open(newer)
