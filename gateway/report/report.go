@@ -17,7 +17,6 @@ import (
 	"time"
 
 	"etpulse/controllers"
-	"etpulse/gateway/alert"
 	"etpulse/gateway/config"
 	"etpulse/gateway/status"
 	"etpulse/gateway/store"
@@ -325,15 +324,9 @@ func zoneDay(rng store.RangeFunc, site string, cfg *config.Zone, offset float64,
 	commanded := map[string]float64{}
 	type run struct{ minutes, volume float64 }
 	reported := map[string]run{}
-	err = rng(store.Filter{From: from, To: to, Measurements: []string{store.MeasurementZone, store.MeasurementCommand, store.MeasurementReport, store.MeasurementZoneAlert, store.MeasurementAlert}}, func(p store.Point) error {
-		if p.Measurement == store.MeasurementZoneAlert || p.Measurement == store.MeasurementAlert {
-			// zone_alert since format version 2; before it, sensor_alert
-			// with station "zones" and the zone as sensor.
-			zone := p.Tags["zone"]
-			if p.Measurement == store.MeasurementAlert && p.Tags["station"] == alert.ZoneStation {
-				zone = p.Tags["sensor"]
-			}
-			if p.Tags["site"] == site && zone == cfg.ID {
+	err = rng(store.Filter{From: from, To: to, Measurements: []string{store.MeasurementZone, store.MeasurementCommand, store.MeasurementReport, store.MeasurementZoneAlert}}, func(p store.Point) error {
+		if p.Measurement == store.MeasurementZoneAlert {
+			if mine(p) {
 				if a, ok := raised(p); ok {
 					z.Alerts = append(z.Alerts, a)
 				}

@@ -1,29 +1,52 @@
 package status
 
 import (
+	"os"
+	"path/filepath"
 	"testing"
 	"time"
 
 	"github.com/stretchr/testify/assert"
 	"github.com/stretchr/testify/require"
 
+	"etpulse/gateway/state"
 	"etpulse/gateway/store"
 )
 
-// TestHourViewNamesOldAndNew: an hour the history stored in format
-// version 2 (air_temp_c, solar_mj_m2) and one stored before it (t_air_c,
-// rs_mj_m2 for the measured solar) both show their temperature and solar
-// radiation on the status pages. The numbers are placeholders.
-func TestHourViewNamesOldAndNew(t *testing.T) {
-	at := time.Date(2026, 7, 14, 10, 0, 0, 0, time.UTC)
-	for name, fields := range map[string]map[string]any{
-		"v2": {"air_temp_c": 24.5, "solar_mj_m2": 2.1, "rs_mj_m2": 2.0, "et_mm": 0.5},
-		"v1": {"t_air_c": 24.5, "rs_mj_m2": 2.1, "et_mm": 0.5},
-	} {
-		h := hourView(store.Point{Measurement: store.MeasurementHour, Time: at, Fields: fields})
-		require.NotNil(t, h.AirTemp, name)
-		require.NotNil(t, h.Rs, name)
-		assert.Equal(t, 24.5, *h.AirTemp, name)
-		assert.Equal(t, 2.1, *h.Rs, name, "the measured solar")
+// TestHourViewMigratedHistory: the status pages read only the vocabulary
+// names, since opening a file of schema version 2 renames its stored hours
+// (gateway/state migrate2to3): the hours of the committed version-2 file
+// (testdata/state/v2-names.db, stored as t_air_c and rs_mj_m2 for the
+// measured solar) show their temperature and measured solar once the file
+// is opened. A point with the old names, which no migrated file holds,
+// shows neither. The numbers are the generator's placeholders
+// (testdata/state/gen/names.go.txt).
+func TestHourViewMigratedHistory(t *testing.T) {
+	raw, err := os.ReadFile("../../testdata/state/v2-names.db")
+	require.NoError(t, err)
+	path := filepath.Join(t.TempDir(), "etpulse.db")
+	require.NoError(t, os.WriteFile(path, raw, 0o600))
+	db, err := state.Open(path)
+	require.NoError(t, err)
+	defer db.Close()
+	h, err := store.OpenHistory(db)
+	require.NoError(t, err)
+	t0 := time.Date(2026, 2, 3, 0, 0, 0, 0, time.UTC)
+	views := map[time.Time]HourView{}
+	require.NoError(t, h.Range(store.Filter{Measurements: []string{store.MeasurementHour}}, func(p store.Point) error {
+		views[p.Time] = hourView(p)
+		return nil
+	}))
+	for at, solar := range map[time.Time]float64{t0: 1.875, t0.Add(time.Hour): 3.125} {
+		v := views[at]
+		if assert.NotNil(t, v.AirTemp, at) && assert.NotNil(t, v.Rs, at) {
+			assert.Equal(t, 22.625, *v.AirTemp, at)
+			assert.Equal(t, solar, *v.Rs, at, "the measured solar")
+		}
 	}
+
+	old := hourView(store.Point{Measurement: store.MeasurementHour, Time: t0,
+		Fields: map[string]any{"t_air_c": 24.5, "rs_mj_m2": 2.1, "et_mm": 0.5}})
+	assert.Nil(t, old.AirTemp, "old names are not read")
+	assert.Nil(t, old.Rs, "old names are not read")
 }

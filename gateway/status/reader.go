@@ -195,11 +195,6 @@ func (r *Reader) hours(site, station string, from, to time.Time, fn func(HourVie
 func hourView(p store.Point) HourView {
 	h := HourView{Start: p.Time, Local: p.Notes[vocab.LocalStart], Fill: p.Notes[vocab.Fill]}
 	h.ET, h.Rs, h.Rso, h.AirTemp = num(p, vocab.ETmm), num(p, vocab.SolarMJ), num(p, vocab.RsoMJ), num(p, vocab.AirTempC)
-	if h.AirTemp == nil && h.Rs == nil {
-		// An hour stored before format version 2 (t_air_c; rs_mj_m2 was
-		// the measured solar): kept in the history until it ages out.
-		h.Rs, h.AirTemp = num(p, "rs_mj_m2"), num(p, "t_air_c")
-	}
 	if ea, es := num(p, vocab.EaKPa), num(p, vocab.EsKPa); ea != nil && es != nil && *es > 0 {
 		rh := min(100, 100**ea / *es)
 		h.RH = &rh
