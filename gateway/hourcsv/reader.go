@@ -27,7 +27,8 @@ const (
 	ColRH        = "rh_pct"        // mean relative humidity, %
 	ColDewPoint  = "dewpoint_c"    // mean dew point, °C
 	ColEa        = "ea_kpa"        // actual vapour pressure, kPa
-	ColWind      = "wind_ms"       // mean wind speed at the sensor height, m/s
+	ColWind      = "wind_ms"       // mean wind speed at the sensor height (Options.WindHeight), m/s
+	ColWind2m    = "wind_2m_m_s"   // mean wind speed at 2 m (gateway/vocab's name); only with a wind height of 2 m
 	ColSolar     = "solar_wm2"     // mean incoming solar radiation over the hour, W m-2
 	ColNetRad    = "net_rad_wm2"   // optional measured net radiation, mean W m-2
 	ColSoilHeat  = "soil_heat_wm2" // optional measured soil heat flux, mean W m-2, positive into the soil
@@ -36,7 +37,7 @@ const (
 )
 
 // Columns lists every accepted input column, required ones first.
-var Columns = []string{ColTime, ColAirTemp, ColRH, ColDewPoint, ColEa, ColWind, ColSolar, ColNetRad, ColSoilHeat, ColRain}
+var Columns = []string{ColTime, ColAirTemp, ColRH, ColDewPoint, ColEa, ColWind, ColWind2m, ColSolar, ColNetRad, ColSoilHeat, ColRain}
 
 // ErrHeader is wrapped by every error about the header line: an unknown,
 // duplicate or missing column. Such a file cannot be read at all.
@@ -114,6 +115,7 @@ type Reader struct {
 	idxSoil    int
 	idxRain    int
 	windFactor float64
+	windHeight float64 // m
 	prev       time.Time
 	havePrev   bool
 	prevLine   int
@@ -162,7 +164,7 @@ func NewReader(r io.Reader, opt Options) (*Reader, error) {
 			}
 		}
 	}
-	rd := &Reader{csv: cr, zone: zone, windFactor: windFactor, nfields: len(head),
+	rd := &Reader{csv: cr, zone: zone, windFactor: windFactor, windHeight: opt.WindHeight, nfields: len(head),
 		idxTime: -1, idxTemp: -1, idxHum: -1, idxWind: -1, idxSolar: -1, idxNetRad: -1, idxSoil: -1, idxRain: -1}
 	if err := rd.mapHeader(head, line); err != nil {
 		return nil, fmt.Errorf("read weather csv: %w", err)
@@ -198,8 +200,14 @@ func (rd *Reader) mapHeader(head []string, line int) error {
 			default:
 				rd.hum = humEa
 			}
-		case ColWind:
+		case ColWind, ColWind2m:
+			if rd.idxWind >= 0 {
+				return fmt.Errorf("%w: line %d: columns %q and %q both give the wind: keep one", ErrHeader, line, head[rd.idxWind], raw)
+			}
 			rd.idxWind = i
+			if name == ColWind2m && rd.windHeight != 2 {
+				return fmt.Errorf("%w: line %d: column %q is wind at 2 m, but the wind height is %g m: name the column %q (wind at the wind height) or leave the wind height at 2 m", ErrHeader, line, name, rd.windHeight, ColWind)
+			}
 		case ColSolar:
 			rd.idxSolar = i
 		case ColNetRad:

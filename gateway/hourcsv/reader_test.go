@@ -207,7 +207,7 @@ func TestHeaderErrors(t *testing.T) {
 		{"empty input", "", "read weather csv: bad header: empty input, expected a header line naming the columns"},
 		{"only comments", "# nothing\n\n", "read weather csv: bad header: empty input, expected a header line naming the columns"},
 		{"unknown column", "time,air_temp_c,rh_pct,wind_ms,solar_wm2,leaf_wetness\n",
-			`read weather csv: bad header: line 1: unknown column "leaf_wetness" (accepted: time, air_temp_c, rh_pct, dewpoint_c, ea_kpa, wind_ms, solar_wm2, net_rad_wm2, soil_heat_wm2, rain_mm)`},
+			`read weather csv: bad header: line 1: unknown column "leaf_wetness" (accepted: time, air_temp_c, rh_pct, dewpoint_c, ea_kpa, wind_ms, wind_2m_m_s, solar_wm2, net_rad_wm2, soil_heat_wm2, rain_mm)`},
 		{"missing time", "air_temp_c,rh_pct,wind_ms,solar_wm2\n", `read weather csv: bad header: line 1: missing required column "time"`},
 		{"missing air temp", "time,rh_pct,wind_ms,solar_wm2\n", `read weather csv: bad header: line 1: missing required column "air_temp_c"`},
 		{"missing wind", "time,air_temp_c,rh_pct,solar_wm2\n", `read weather csv: bad header: line 1: missing required column "wind_ms"`},
