@@ -117,6 +117,7 @@ type Client struct {
 	mu      sync.Mutex
 	subs    map[string]subscription // by filter
 	order   []string                // filters in subscription order
+	routes  routes                  // filter index over order (route.go)
 	pending []Message               // received before any matching Subscribe (persistent session start-up)
 
 	queue     chan job
@@ -440,15 +441,37 @@ func (c *Client) run(j job) {
 	j.handle(j.msg)
 }
 
-// match returns the handler of the first subscription whose filter matches
-// topic, or nil. c.mu must be held.
+// match returns the handler of the first subscription (in subscription
+// order) whose filter matches topic, or nil; its cost does not grow with the
+// number of subscriptions (see routes). c.mu must be held.
 func (c *Client) match(topic string) func(Message) {
-	for _, f := range c.order {
-		if MatchTopic(f, topic) {
-			return c.subs[f].handle
-		}
+	if pos := c.routes.lookup(topic); pos >= 0 {
+		return c.subs[c.order[pos]].handle
 	}
 	return nil
+}
+
+// register records the subscription for routing and returns the held
+// messages it claims (see Client.pending).
+func (c *Client) register(filter string, qos byte, handle func(Message)) []Message {
+	c.mu.Lock()
+	defer c.mu.Unlock()
+	if _, ok := c.subs[filter]; !ok {
+		c.routes.add(filter, len(c.order))
+		c.order = append(c.order, filter)
+	}
+	c.subs[filter] = subscription{filter: filter, qos: qos, handle: handle}
+	var claimed []Message
+	kept := c.pending[:0]
+	for _, m := range c.pending {
+		if MatchTopic(filter, m.Topic) {
+			claimed = append(claimed, m)
+		} else {
+			kept = append(kept, m)
+		}
+	}
+	c.pending = kept
+	return claimed
 }
 
 // Subscribe subscribes to filter and routes its messages to handle, on one of
@@ -470,22 +493,7 @@ func (c *Client) Subscribe(filter string, qos byte, handle func(Message)) error 
 		return fmt.Errorf("mqtt subscribe %q: %w", filter, ErrClosed)
 	default:
 	}
-	c.mu.Lock()
-	if _, ok := c.subs[filter]; !ok {
-		c.order = append(c.order, filter)
-	}
-	c.subs[filter] = subscription{filter: filter, qos: qos, handle: handle}
-	var claimed []Message
-	kept := c.pending[:0]
-	for _, m := range c.pending {
-		if MatchTopic(filter, m.Topic) {
-			claimed = append(claimed, m)
-		} else {
-			kept = append(kept, m)
-		}
-	}
-	c.pending = kept
-	c.mu.Unlock()
+	claimed := c.register(filter, qos, handle)
 	for _, m := range claimed {
 		c.enqueue(job{msg: m, handle: handle})
 	}
