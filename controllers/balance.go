@@ -51,6 +51,13 @@ type Zone struct {
 	Policy  CommandPolicy
 
 	FailSafe FailSafe
+
+	// Stages are the grower's deficit stages (regulated deficit or a
+	// stage's management-allowed depletion); none: full demand all year.
+	Stages []DeficitStage
+	// Salinity gives the leaching requirement added to each run; the zero
+	// value (no water EC) adds none.
+	Salinity Salinity
 }
 
 // Validate reports the first impossible parameter.
@@ -75,6 +82,19 @@ func (z *Zone) Validate() error {
 		if err != nil {
 			return fmt.Errorf("zone %s: %w", z.ID, err)
 		}
+	}
+	if z.Crop.Canopy != nil {
+		if err := z.Crop.Canopy.Validate(); err != nil {
+			return fmt.Errorf("zone %s: %w", z.ID, err)
+		}
+	}
+	for _, d := range z.Stages {
+		if err := d.Validate(); err != nil {
+			return fmt.Errorf("zone %s: %w", z.ID, err)
+		}
+	}
+	if err := z.Salinity.Validate(); err != nil {
+		return fmt.Errorf("zone %s: %w", z.ID, err)
 	}
 	if len(z.Windows) == 0 {
 		return fmt.Errorf("zone %s: windows: at least one is required: %w", z.ID, ErrInput)
@@ -206,6 +226,15 @@ type Step struct {
 	// empty when none: the step is driven by an estimate, and says so.
 	Fill string
 
+	// Stage is the deficit stage in force for the hour ("" when none).
+	Stage string
+	// Intended marks a stressed hour (Ks < 1) inside a deficit stage: the
+	// stress is what the grower asked for, not a watering shortfall.
+	Intended bool
+	// Leach is the part of Drainage that is the leaching fraction of the
+	// irrigation credited (FAO-29 leaching requirement), mm.
+	Leach float64
+
 	// Hour holds the hour's totals after this step (for a first emission
 	// the same values as the step); a store that overwrites the hour's
 	// point by time keeps these.
@@ -220,6 +249,9 @@ type Levels struct {
 	RAW     float64 // mm
 	Trigger float64 // depletion that triggers irrigation, mm
 	Target  float64 // depletion to leave after irrigation, mm
+	// Stage is the deficit stage in force (nil when none): its MAD sets
+	// Trigger, its replacement fraction limits each run.
+	Stage *DeficitStage
 }
 
 // LevelsAt returns the zone's thresholds at t given its recent hours.
@@ -233,6 +265,10 @@ func (z *Zone) LevelsAt(st *State, t time.Time) Levels {
 	l.Trigger = l.RAW
 	if z.Soil.TriggerMM > 0 {
 		l.Trigger = math.Min(z.Soil.TriggerMM, l.TAW)
+	}
+	l.Stage = z.StageAt(t)
+	if l.Stage != nil && l.Stage.MAD > 0 {
+		l.Trigger = l.Stage.MAD * l.TAW // management-allowed depletion of the stage
 	}
 	l.Target = z.Soil.RefillFraction * l.RAW
 	if l.Target > l.Trigger {
@@ -378,6 +414,10 @@ func (z *Zone) StepHour(st *State, in HourInput) (Step, bool, error) {
 
 	s.ET, s.Kc, s.Ks, s.ETc, s.Rain, s.EffRain = dET, e.Kc, e.Ks, dETc, dRain, dEff
 	s.Depletion = d
+	if lv.Stage != nil {
+		s.Stage = lv.Stage.Name
+		s.Intended = e.Ks < 1
+	}
 	s.Fallback = e.Fallback
 	s.Missing = !in.Valid && !e.Fallback
 	if in.Valid {
@@ -402,7 +442,9 @@ func (st *State) prune() {
 
 // Credit applies mm of net irrigation reported for command id at t: the
 // depletion falls, water above field capacity percolates (FAO-56 eq. 85, 88),
-// and the crop ET since the last run restarts from zero.
+// and the crop ET since the last run restarts from zero. With saline water
+// the leaching fraction LR of the water passes below the root zone at once
+// (FAO-29 leaching requirement): only (1 - LR) mm refill the soil.
 func (z *Zone) Credit(st *State, id string, mm float64, t time.Time) (Step, error) {
 	if !finite(mm) || mm < 0 {
 		return Step{}, fmt.Errorf("credit zone %s: irrigation: must be >= 0 mm, got %v: %w", z.ID, mm, ErrInput)
@@ -414,14 +456,21 @@ func (z *Zone) Credit(st *State, id string, mm float64, t time.Time) (Step, erro
 		s.Adjust = st.Depletion - lv.TAW
 		st.Depletion = lv.TAW
 	}
-	d := st.Depletion - mm // FAO-56 eq. 85
+	if lr := z.Salinity.LeachingRequirement(); lr > 0 {
+		s.Leach = mm * lr
+		s.Drainage = s.Leach
+	}
+	d := st.Depletion - (mm - s.Leach) // FAO-56 eq. 85
 	if d < 0 {
-		s.Drainage = -d // FAO-56 eq. 88
+		s.Drainage += -d // FAO-56 eq. 88
 		d = 0
 	}
 	st.Depletion = d
 	st.EtcSinceRun = 0
 	s.Depletion = d
+	if lv.Stage != nil {
+		s.Stage = lv.Stage.Name
+	}
 	return s, nil
 }
 

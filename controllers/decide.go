@@ -306,9 +306,22 @@ func PlanRuns(now time.Time, zones []ZoneInput, sources []Source, ledger []Comma
 			continue // one run per window occurrence
 		}
 		need := st.Depletion - lv.Target
-		m := GrossMinutes(need, z.System.Efficiency, z.System.Rate)
+		lr := z.Salinity.LeachingRequirement()
+		m := GrossMinutes(GrossForLeaching(need, lr), z.System.Efficiency, z.System.Rate)
+		deficit := false
+		if f := replaceFraction(lv.Stage); f < 1 {
+			// Regulated deficit: put back only the stage's share of the
+			// crop ET since the last run, in whole minutes rounded down so
+			// the share is never exceeded.
+			need, deficit = math.Min(need, f*st.EtcSinceRun), true
+			m = floorMinutes(GrossForLeaching(need, lr), z.System.Efficiency, z.System.Rate)
+		}
 		if m > z.System.MaxMinutes {
 			m = z.System.MaxMinutes
+		}
+		if m < z.System.MinMinutes && deficit {
+			skip(fmt.Sprintf("deficit stage %s: its share of the crop ET since the last run is below the minimum run", lv.Stage.Name), false)
+			continue
 		}
 		if m < z.System.MinMinutes {
 			if NetMM(float64(z.System.MinMinutes), z.System.Rate, z.System.Efficiency) > st.Depletion {
@@ -316,6 +329,14 @@ func PlanRuns(now time.Time, zones []ZoneInput, sources []Source, ledger []Comma
 				continue
 			}
 			m = z.System.MinMinutes
+		}
+		if lv.Stage != nil {
+			reason.Stage = lv.Stage.Name
+			why += fmt.Sprintf("; deficit stage %s", lv.Stage.Name)
+		}
+		if lr > 0 {
+			reason.LeachMM = round2(GrossForLeaching(need, lr) - need)
+			why += fmt.Sprintf("; leaching fraction %.2f adds %.1f mm", lr, reason.LeachMM)
 		}
 		plan.Why = append(plan.Why, Skip{Zone: z.ID, Reason: why})
 		cands = append(cands, candidate{in, lv, m, need, slot, reason})
@@ -379,7 +400,7 @@ func PlanRuns(now time.Time, zones []ZoneInput, sources []Source, ledger []Comma
 			total += p.Minutes
 		}
 		short := 0.0
-		if d := c.need - NetMM(float64(total), z.System.Rate, z.System.Efficiency); d >= 0.05 {
+		if d := c.need - NetMM(float64(total), z.System.Rate, z.System.Efficiency)*(1-z.Salinity.LeachingRequirement()); d >= 0.05 {
 			short = round2(d)
 		}
 		for i := range planned {

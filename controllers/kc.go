@@ -114,11 +114,25 @@ type Crop struct {
 	// Climate, when set, adjusts the season's Kc mid and Kc end (FAO-56 eq.
 	// 62, 65) before the curve is evaluated.
 	Climate *Climate
+	// Canopy, when set, scales the full-cover Kc to the zone's partial
+	// ground cover and crop height (Allen and Pereira 2009 density
+	// coefficient, the form of FAO-56 eq. 98).
+	Canopy *Canopy
 }
 
 // KcOn returns the crop coefficient on the calendar date of t (t in the
-// station's standard time).
+// station's standard time), adjusted for partial cover when a Canopy is set.
 func (c Crop) KcOn(t time.Time) float64 {
+	k := c.FullKcOn(t)
+	if c.Canopy != nil {
+		return c.Canopy.Adjust(k, t) // Allen and Pereira 2009; FAO-56 eq. 98 form
+	}
+	return k
+}
+
+// FullKcOn returns the crop coefficient at full cover on the date of t: the
+// constant Kc or the season curve, climate-adjusted.
+func (c Crop) FullKcOn(t time.Time) float64 {
 	if c.Season == nil {
 		return c.Kc
 	}

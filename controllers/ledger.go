@@ -94,6 +94,11 @@ type Reason struct {
 	// ShortMM is the net water the run needed but could not deliver (cut by
 	// a cap or the window's end): the next window waters it.
 	ShortMM float64 `json:"short_mm,omitempty"`
+	// Stage is the deficit stage the run was planned in, if any.
+	Stage string `json:"stage,omitempty"`
+	// LeachMM is the net water added to the run for the leaching
+	// requirement (FAO-29), mm.
+	LeachMM float64 `json:"leach_mm,omitempty"`
 }
 
 // Command is one valve run and its ledger entry. Rate, Efficiency and Area

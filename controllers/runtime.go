@@ -95,6 +95,12 @@ func DripRate(emitterLH float64, perPlant int, plantArea float64) (float64, erro
 // most one minute of water, rounding down would leave the trigger reached).
 // A tiny tolerance keeps 30.0000000001 from becoming 31.
 func GrossMinutes(net, efficiency, rate float64) int {
+	return wholeMinutes(net, efficiency, rate, func(m float64) float64 { return math.Ceil(m - 1e-9) })
+}
+
+// wholeMinutes converts a net depth to minutes of the system, rounded by
+// round and limited to one day.
+func wholeMinutes(net, efficiency, rate float64, round func(float64) float64) int {
 	if !(net > 0) || !(efficiency > 0) || !(rate > 0) {
 		return 0
 	}
@@ -102,7 +108,7 @@ func GrossMinutes(net, efficiency, rate float64) int {
 	if m > MaxRunMinutes {
 		return MaxRunMinutes
 	}
-	return int(math.Ceil(m - 1e-9))
+	return int(round(m))
 }
 
 // NetMM returns the net depth reaching the root zone when the system runs
@@ -130,4 +136,11 @@ func SplitCycles(total, cycle int) []int {
 		}
 	}
 	return out
+}
+
+// floorMinutes returns the whole minutes that put at most net mm into the
+// root zone (GrossMinutes rounded down instead of up): a regulated deficit
+// must not exceed its share.
+func floorMinutes(net, efficiency, rate float64) int {
+	return wholeMinutes(net, efficiency, rate, func(m float64) float64 { return math.Floor(m + 1e-9) })
 }

@@ -31,6 +31,13 @@ type Soil struct {
 	// of RAW: 0 refills to field capacity, 0.2 leaves 20 % of RAW as room for
 	// rain.
 	RefillFraction float64
+	// WettedFraction is the fraction of the soil wetted by the emitters
+	// (drip, micro-sprinklers), 0-1; 0 means 1 (all of it). Roots draw on
+	// the wetted volume only, so TAW, RAW and the depth a run refills are
+	// those of the wetted fraction, expressed over the zone's whole area
+	// (FAO-56 Table 20 gives fw; the scaling of TAW by fw is common
+	// practice for micro-irrigation, no source).
+	WettedFraction float64
 }
 
 // Validate reports the first impossible value.
@@ -49,6 +56,9 @@ func (s Soil) Validate() error {
 	}
 	if !(s.P >= MinP && s.P <= MaxP) {
 		return fmt.Errorf("p: must be within %g-%g, got %v: %w", MinP, MaxP, s.P, ErrInput)
+	}
+	if !(s.WettedFraction >= 0 && s.WettedFraction <= 1) {
+		return fmt.Errorf("wetted fraction: must be within (0, 1], got %v: %w", s.WettedFraction, ErrInput)
 	}
 	if s.TriggerMM < 0 || !(s.RefillFraction >= 0 && s.RefillFraction < 1) {
 		return fmt.Errorf("trigger/refill: need trigger >= 0 and 0 <= refill < 1, got %v/%v: %w", s.TriggerMM, s.RefillFraction, ErrInput)
@@ -81,8 +91,17 @@ func (s Soil) RootDepth(season *Season, t time.Time) float64 {
 }
 
 // TAW returns the total available water of a root zone of depth zr m, mm:
-// TAW = 1000 (θFC - θWP) Zr (FAO-56 eq. 82).
-func (s Soil) TAW(zr float64) float64 { return s.perMetre() * zr }
+// TAW = 1000 (θFC - θWP) Zr (FAO-56 eq. 82), times the wetted fraction
+// when only part of the soil is wetted.
+func (s Soil) TAW(zr float64) float64 { return s.perMetre() * zr * s.Wetted() }
+
+// Wetted returns the wetted fraction of the soil (1 when not set).
+func (s Soil) Wetted() float64 {
+	if s.WettedFraction == 0 {
+		return 1
+	}
+	return s.WettedFraction
+}
 
 // PFor returns the depletion fraction p for a crop ET of etcDay mm/day: the
 // tabled p, or with AdjustP p = p_table + 0.04 (5 - ETc) limited to 0.1-0.8

@@ -104,7 +104,7 @@ func commandMessage(c *controllers.Command) CommandMessage {
 func wireReason(r controllers.Reason) controllers.Reason {
 	mm := func(v float64) float64 { return precision.Round(precision.MM, v) }
 	r.DepletionMM, r.TriggerMM, r.EtcSinceLastMM = mm(r.DepletionMM), mm(r.TriggerMM), mm(r.EtcSinceLastMM)
-	r.ProjectedMM, r.ShortMM = mm(r.ProjectedMM), mm(r.ShortMM)
+	r.ProjectedMM, r.ShortMM, r.LeachMM = mm(r.ProjectedMM), mm(r.ShortMM), mm(r.LeachMM)
 	return r
 }
 
