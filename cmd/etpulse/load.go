@@ -12,17 +12,25 @@ import (
 
 var loadHelp = helpText{
 	name:  "load",
-	usage: "etpulse load [--broker tcp://127.0.0.1:PORT] [--stations N] [--messages N] [--duration D] [--rate R] [--json]",
+	usage: "etpulse load [--broker tcp://127.0.0.1:PORT] [--stations N] [--messages N] [--duration D] [--rate R] [--no-bare] [--json]",
 	intro: `Measures the gateway's throughput: runs the real gateway in process
 (pipeline, state file in a temporary directory, outbox and local history,
-alerts) against an MQTT broker on this machine, fed by simulated stations
-that publish at QoS 1 a reading of each sensor every --interval of simulated
-time, so hours close during the run. Publishers keep at most --window
-messages unacknowledged, or send at --rate. The run stops after --messages
-or --duration, waits for the gateway to catch up, and prints a summary on
-stdout (progress lines on stderr): throughput, acknowledgement and record
-latency, hours and records, CPU and memory, and a consistency verdict.`,
+alerts) against an MQTT broker on this machine, fed by up to 10000
+simulated stations that publish at QoS 1 a reading of each sensor every
+--interval of simulated time, so hours close during the run. Publishers keep
+at most --window messages unacknowledged, or send at --rate. The run stops
+after --messages or --duration, waits for the gateway to catch up, and
+prints a summary on stdout (progress lines on stderr): throughput, CPU per
+message, acknowledgement and record latency, the time to close one hour at
+every station, bytes written per message, peak memory, and a consistency
+verdict.
+
+First, for at most --bare-duration, the same publishers feed a bare
+subscriber on the same broker (QoS 1, the same topics, each message
+acknowledged and counted, nothing else): the summary gives the gateway's
+rate and CPU per message as a ratio of that floor's.`,
 	outro: `For mosquitto, set set_tcp_nodelay true and max_queued_messages 0.
+See deploy/PERFORMANCE.md for the figures and how to reproduce them.
 
 Exit status: 0 consistent (also when interrupted: the summary covers what
 was done), 1 inconsistent result or failure, 2 bad command line.`,
@@ -45,6 +53,8 @@ func runLoad(ctx context.Context, args []string, stdin io.Reader, stdout, stderr
 	fs.IntVar(&o.Bad, "bad", 0, "inject `N` malformed messages (the gateway must reject exactly these)")
 	fs.StringVar(&o.Dir, "dir", "", "put the run's temporary state file in `DIR` (default: the system's temporary directory)")
 	fs.DurationVar(&o.Every, "every", loadgen.DefaultEvery, "a progress line on stderr every `D`; 0 for none")
+	fs.DurationVar(&o.BareDuration, "bare-duration", loadgen.DefaultBare, "run the bare subscriber's phase for at most `D` (it also stops after --messages)")
+	fs.BoolVar(&o.NoBare, "no-bare", false, "skip the bare subscriber's phase")
 	asJSON := fs.Bool("json", false, "print the summary as JSON")
 	logLevel := fs.String("log-level", "error", "gateway log `level` on stderr: debug, info, warn or error")
 	if code, done := parseFlags(fs, args, loadHelp, stdout, stderr); done {

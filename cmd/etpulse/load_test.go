@@ -16,7 +16,7 @@ import (
 func TestLoadJSON(t *testing.T) {
 	var out, errOut bytes.Buffer
 	code := run(context.Background(), []string{"load", "--stations", "3", "--messages", "3000", "--interval", "1m",
-		"--bad", "2", "--json", "--every", "0"}, nil, &out, &errOut)
+		"--bad", "2", "--json", "--every", "0", "--no-bare"}, nil, &out, &errOut)
 	require.Equal(t, exitOK, code, "stderr: %s", errOut.String())
 	var sum struct {
 		Consistent  bool               `json:"consistent"`
@@ -28,6 +28,7 @@ func TestLoadJSON(t *testing.T) {
 		MsgPerS     float64            `json:"msg_per_s"`
 		AckP99      float64            `json:"ack_latency_p99_ms"`
 		PeakHeap    uint64             `json:"peak_heap_bytes"`
+		Bare        *struct{}          `json:"bare"`
 	}
 	require.NoError(t, json.Unmarshal(out.Bytes(), &sum), out.String())
 	assert.True(t, sum.Consistent)
@@ -41,6 +42,25 @@ func TestLoadJSON(t *testing.T) {
 	assert.Positive(t, sum.MsgPerS)
 	assert.Positive(t, sum.AckP99)
 	assert.Positive(t, sum.PeakHeap)
+	assert.Nil(t, sum.Bare, "--no-bare skips the bare subscriber")
+}
+
+// TestLoadBare runs the bare subscriber's phase before the gateway's and
+// prints the ratio; the network size goes to 10,000 stations.
+func TestLoadBare(t *testing.T) {
+	var out, errOut bytes.Buffer
+	code := run(context.Background(), []string{"load", "--stations", "3", "--messages", "1200", "--interval", "1m",
+		"--bare-duration", "30s", "--every", "0"}, nil, &out, &errOut)
+	require.Equal(t, exitOK, code, "stderr: %s", errOut.String())
+	for _, want := range []string{"bare subscriber   1200 of 1200 messages", "gateway / bare    ", "hour close        p50 ", "written           "} {
+		assert.Contains(t, out.String(), want)
+	}
+
+	out.Reset()
+	errOut.Reset()
+	code = run(context.Background(), []string{"load", "--stations", "10001"}, nil, &out, &errOut)
+	assert.Equal(t, exitUsage, code)
+	assert.Contains(t, errOut.String(), "stations must be 1-10000, got 10001")
 }
 
 func TestLoadRefusesRemoteBroker(t *testing.T) {

@@ -1,10 +1,14 @@
 // Package loadgen measures the live gateway under load: it runs the real
 // gateway (pipeline, state file, outbox, alerts) in process against an MQTT
-// broker on this machine, publishes simulated readings of many stations as
-// fast as the gateway takes them (or at a fixed rate) on a simulated clock
-// so that hours close during the run, and reports throughput, latency from
-// publication to the gateway's durable acknowledgement, hours closed and
-// memory.
+// broker on this machine, publishes simulated readings of up to 10,000
+// stations as fast as the gateway takes them (or at a fixed rate) on a
+// simulated clock so that hours close during the run, and reports
+// throughput, CPU per message, latency from publication to the gateway's
+// durable acknowledgement, record latency, the time to close one hour at
+// every station, peak memory and bytes written per message. Before the
+// gateway starts, the same publishers feed a bare subscriber on the same
+// broker (the floor), and the summary gives the gateway's rate as a ratio of
+// the floor's.
 //
 // Load goes only to this machine: the broker is started in process on
 // 127.0.0.1, or given by the caller and refused unless its host is a
@@ -62,6 +66,10 @@ type Options struct {
 	Progress io.Writer
 	Every    time.Duration // default 5s
 	Logger   *slog.Logger  // gateway logs; nil discards
+	// BareDuration bounds the bare subscriber's phase (it also stops after
+	// Messages); default 15s, at most MaxDuration.
+	BareDuration time.Duration
+	NoBare       bool // skip the bare phase
 }
 
 // Defaults and limits of Options.
@@ -74,11 +82,13 @@ const (
 	DefaultPublishers = 4
 	DefaultWindow     = 2000
 	DefaultEvery      = 5 * time.Second
-	maxWindow         = 4096 // under the embedded broker's 8192 in-flight messages per client
-	maxStations       = 1000
-	maxMessages       = 50_000_000
-	drainTimeout      = 60 * time.Second // after publishing, for the gateway to catch up
-	startupSettle     = 300 * time.Millisecond
+	DefaultBare       = 15 * time.Second
+	// MaxStations is the largest network a run simulates.
+	MaxStations   = 10_000
+	maxWindow     = 4096 // under the embedded broker's 8192 in-flight messages per client
+	maxMessages   = 50_000_000
+	drainTimeout  = 60 * time.Second // after publishing, for the gateway to catch up
+	startupSettle = 300 * time.Millisecond
 	// lagSim is how far (simulated time) publishers may run ahead of the
 	// slowest station the gateway has taken: under the 15-minute silence
 	// alert and the silence close.
@@ -105,12 +115,15 @@ func (o *Options) Validate() error {
 	if o.Every == 0 {
 		o.Every = DefaultEvery
 	}
+	if o.BareDuration == 0 {
+		o.BareDuration = DefaultBare
+	}
 	if o.Logger == nil {
 		o.Logger = slog.New(slog.DiscardHandler)
 	}
 	switch {
-	case o.Stations < 1 || o.Stations > maxStations:
-		return fmt.Errorf("stations must be 1-%d, got %d", maxStations, o.Stations)
+	case o.Stations < 1 || o.Stations > MaxStations:
+		return fmt.Errorf("stations must be 1-%d, got %d", MaxStations, o.Stations)
 	case o.Messages < 1 || o.Messages > maxMessages:
 		return fmt.Errorf("messages must be 1-%d, got %d", maxMessages, o.Messages)
 	case o.Duration < 0 || o.Duration > MaxDuration:
@@ -127,6 +140,8 @@ func (o *Options) Validate() error {
 		return fmt.Errorf("bad must be 0 to messages-1, got %d", o.Bad)
 	case o.Every < 0:
 		return fmt.Errorf("progress interval must be >= 0, got %s", o.Every)
+	case o.BareDuration < 0 || o.BareDuration > MaxDuration:
+		return fmt.Errorf("bare phase duration must be 0 to %s, got %s", MaxDuration, o.BareDuration)
 	}
 	o.Publishers = min(o.Publishers, o.Stations)
 	if _, err := newPlan(newFarm(o.Stations, "", o.Interval), *o); err != nil {
@@ -168,6 +183,16 @@ func Run(ctx context.Context, o Options) (sum Summary, err error) {
 		}
 		defer srv.Close()
 		url, sum.Broker = u, "embedded"
+	}
+
+	if !o.NoBare {
+		if sum.Bare, err = runBare(ctx, o, f, pl, url, runID); err != nil {
+			return sum, fmt.Errorf("load: %w", err)
+		}
+		if ctx.Err() != nil {
+			sum.StoppedBy = "signal"
+			return sum, nil
+		}
 	}
 
 	statePath := filepath.Join(dir, "state.db")
@@ -258,19 +283,11 @@ func Run(ctx context.Context, o Options) (sum Summary, err error) {
 	go func() { <-pubCtx.Done(); tr.stop() }()
 
 	prog := startProgress(o.Progress, o.Every, tr, g, mem)
+	sum.PeakRSSGatewayOnly = resetPeakRSS()
+	io0 := readIO()
 	cpu0 := ProcessCPU()
 	began := tr.since()
-	errs := make(chan error, len(pubs))
-	for _, p := range pubs {
-		go func() { errs <- p.run(pubCtx, pl, tr, clock) }()
-	}
-	var pubErr error
-	for range pubs {
-		if err := <-errs; err != nil && pubErr == nil {
-			pubErr = err
-			stopPub()
-		}
-	}
+	pubErr := runPublishers(pubCtx, stopPub, pubs, pl, tr, clock)
 	switch {
 	case pubErr != nil:
 		sum.StoppedBy = "error"
@@ -297,6 +314,7 @@ func Run(ctx context.Context, o Options) (sum Summary, err error) {
 		sum.CPUSeconds = cpu.Seconds()
 		sum.CPUPerMsgUs = float64(cpu.Microseconds()) / float64(sum.Acked)
 	}
+	sum.written(io0, readIO())
 	if err := sum.Check(); err != nil {
 		sum.Problems = strings.Split(err.Error(), "\n")
 	}

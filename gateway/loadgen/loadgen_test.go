@@ -49,6 +49,19 @@ func checkSmall(t *testing.T, sum Summary) {
 	assert.GreaterOrEqual(t, sum.AckP99Ms, sum.AckP50Ms)
 	assert.Positive(t, sum.RecordP50Ms)
 	assert.Positive(t, sum.PeakHeapBytes)
+	// Hour close, all stations: 13 hour ends, each closed at all 3 stations.
+	assert.Equal(t, 13, sum.HoursAllStations)
+	assert.Positive(t, sum.HourCloseMaxMs)
+	assert.GreaterOrEqual(t, sum.HourCloseMaxMs, sum.HourCloseP50Ms)
+	// The gateway writes its state file; nothing else in the run writes.
+	assert.Positive(t, sum.WriteCallBytesPerMsg, "bytes handed to write calls per message")
+	// The bare subscriber ran on the same broker with the same publishers
+	// and took every message it was sent.
+	require.NotNil(t, sum.Bare)
+	assert.Positive(t, sum.Bare.Published)
+	assert.Equal(t, sum.Bare.Published, sum.Bare.Received)
+	assert.Positive(t, sum.Bare.MsgPerSecond)
+	assert.InDelta(t, sum.MsgPerSecond/sum.Bare.MsgPerSecond, sum.RatioToBare, 1e-9)
 	require.NoError(t, sum.Check())
 }
 
@@ -111,13 +124,24 @@ func TestLoopbackOnly(t *testing.T) {
 func TestOptionsRejected(t *testing.T) {
 	for _, o := range []Options{
 		{Stations: -1}, {Duration: 11 * time.Minute}, {Interval: 10 * time.Minute}, {Interval: 1500 * time.Millisecond},
-		{Rate: -5}, {Window: 100000}, {Messages: 10, Bad: 10},
+		{Rate: -5}, {Window: 100000}, {Messages: 10, Bad: 10}, {Stations: 10001, Messages: 1e6},
+		{BareDuration: -time.Second},
 	} {
 		_, err := Run(context.Background(), o)
 		assert.Error(t, err, "%+v", o)
 	}
 	_, err := Run(context.Background(), Options{Stations: 20, Messages: 30})
 	assert.ErrorContains(t, err, "messages must be at least 41 for one reading of every sensor of 20 stations")
+}
+
+// TestTenThousandStations: the tool takes a network of 10,000 stations
+// (it refused more than 1,000 before), without running it.
+func TestTenThousandStations(t *testing.T) {
+	o := Options{Stations: MaxStations, Messages: 1_000_000}
+	require.NoError(t, o.Validate())
+	f := newFarm(o.Stations, "r", o.Interval)
+	assert.Len(t, f.stations, 10000)
+	assert.Equal(t, "block-10000", f.stations[9999].id)
 }
 
 func TestHistogram(t *testing.T) {

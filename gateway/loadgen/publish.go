@@ -197,3 +197,20 @@ func (p *publisher) run(ctx context.Context, pl *plan, tr *tracker, clock *demo.
 	}
 	return flush()
 }
+
+// runPublishers runs every publisher until done and returns the first
+// error; on an error it calls stop so the others end too.
+func runPublishers(ctx context.Context, stop func(), pubs []*publisher, pl *plan, tr *tracker, clock *demo.Clock) error {
+	errs := make(chan error, len(pubs))
+	for _, p := range pubs {
+		go func() { errs <- p.run(ctx, pl, tr, clock) }()
+	}
+	var first error
+	for range pubs {
+		if err := <-errs; err != nil && first == nil {
+			first = err
+			stop()
+		}
+	}
+	return first
+}

@@ -60,11 +60,34 @@ type Summary struct {
 	AlertsRaised    float64        `json:"alerts_raised"`
 	OutboxDepth     float64        `json:"outbox_depth"` // points not yet accepted by a store, at the end
 
+	// Hour close for all stations: over the hour ends every station closed,
+	// the time from the first closing reading published to the last
+	// station's record published.
+	HoursAllStations int     `json:"hours_closed_all_stations"`
+	HourCloseP50Ms   float64 `json:"hour_close_all_stations_p50_ms"`
+	HourCloseMaxMs   float64 `json:"hour_close_all_stations_max_ms"`
+
+	// Bytes written by the process from the first publication to the end of
+	// draining (/proc/self/io; only the gateway writes to disk in a run):
+	// write_bytes reached the storage layer, wchar went to write calls.
+	WriteBytes           uint64  `json:"write_bytes"`
+	WriteBytesPerMsg     float64 `json:"write_bytes_per_msg"`
+	WriteCallBytes       uint64  `json:"write_call_bytes"`
+	WriteCallBytesPerMsg float64 `json:"write_call_bytes_per_msg"`
+
+	// Bare is the floor measured before the gateway started; nil when
+	// skipped. RatioToBare is MsgPerSecond over the floor's msg/s.
+	Bare        *BareSummary `json:"bare,omitempty"`
+	RatioToBare float64      `json:"ratio_to_bare,omitempty"`
+
 	CPUSeconds    float64 `json:"cpu_seconds"`     // process user+system CPU from the first publication to the end of draining; 0 where unavailable
 	CPUPerMsgUs   float64 `json:"cpu_us_per_msg"`  // CPUSeconds per acknowledged message, whole process
 	PeakHeapBytes uint64  `json:"peak_heap_bytes"` // live heap objects, sampled every 100 ms
 	PeakRSSBytes  uint64  `json:"peak_rss_bytes"`  // VmHWM of the whole process; 0 where unavailable
-	GCCycles      uint32  `json:"gc_cycles"`
+	// PeakRSSGatewayOnly says the peak was reset when the gateway phase
+	// began (so it is not the bare phase's); false: since the process began.
+	PeakRSSGatewayOnly bool   `json:"peak_rss_reset_at_gateway_phase"`
+	GCCycles           uint32 `json:"gc_cycles"`
 
 	Consistent bool     `json:"consistent"`         // Check passed
 	Problems   []string `json:"problems,omitempty"` // what Check found
@@ -101,11 +124,17 @@ func (s *Summary) collect(o Options, f *farm, tr *tracker, g *gateway.Gateway, r
 		}
 	}
 	s.Revisions, s.Incomplete, s.SilenceClosed = tr.revisions, tr.incomplete, tr.silenced
+	var p50, worst time.Duration
+	s.HoursAllStations, p50, worst = tr.hourCloses()
+	s.HourCloseP50Ms, s.HourCloseMaxMs = ms(p50), ms(worst)
 	tr.mu.Unlock()
 
 	s.PublishSeconds = publishing.Seconds()
 	if s.AckSeconds > 0 {
 		s.MsgPerSecond = float64(s.Acked) / s.AckSeconds
+	}
+	if s.Bare != nil && s.Bare.MsgPerSecond > 0 {
+		s.RatioToBare = s.MsgPerSecond / s.Bare.MsgPerSecond
 	}
 	s.Handled = int64(g.Handled())
 	s.Records, s.RecordsEmitted = g.Published(), g.Emitted()
@@ -116,6 +145,19 @@ func (s *Summary) collect(o Options, f *farm, tr *tracker, g *gateway.Gateway, r
 	sumMetric(reg, "etpulse_readings_duplicate_total", func(_ map[string]string, v float64) { s.Duplicates += v })
 	sumMetric(reg, "etpulse_alerts_raised_total", func(_ map[string]string, v float64) { s.AlertsRaised += v })
 	sumMetric(reg, "etpulse_outbox_depth", func(_ map[string]string, v float64) { s.OutboxDepth += v })
+}
+
+// written fills in the bytes written between two readings of the
+// process's counters.
+func (s *Summary) written(a, b ioCounters) {
+	if !a.ok || !b.ok {
+		return
+	}
+	s.WriteBytes, s.WriteCallBytes = b.writeBytes-a.writeBytes, b.wchar-a.wchar
+	if s.Acked > 0 {
+		s.WriteBytesPerMsg = float64(s.WriteBytes) / float64(s.Acked)
+		s.WriteCallBytesPerMsg = float64(s.WriteCallBytes) / float64(s.Acked)
+	}
 }
 
 func ms(d time.Duration) float64 { return float64(d.Microseconds()) / 1000 }
@@ -189,6 +231,9 @@ func (s *Summary) Check() error {
 	if s.Records != s.RecordsEmitted || s.Records != uint64(s.HoursClosed+s.Revisions) {
 		bad("records published %d, committed %d, hours closed %d", s.Records, s.RecordsEmitted, s.HoursClosed)
 	}
+	if s.Bare != nil && s.Bare.Received != s.Bare.Published {
+		bad("bare subscriber received %d of %d published messages", s.Bare.Received, s.Bare.Published)
+	}
 	return errors.Join(errs...)
 }
 
@@ -223,6 +268,12 @@ func (s *Summary) WriteText(w io.Writer) error {
 	} else {
 		p("record latency    n/a (no hour closed)")
 	}
+	if s.HoursAllStations > 0 {
+		p("hour close        p50 %.2f s, max %.2f s for all %d stations (first closing reading published to last record published; %d hours)",
+			s.HourCloseP50Ms/1000, s.HourCloseMaxMs/1000, s.Stations, s.HoursAllStations)
+	} else {
+		p("hour close        n/a (no hour closed at every station)")
+	}
 	p("hours             %d closed (expected %d) over %.1f simulated hours; revisions %d, incomplete %d, closed by silence %d",
 		s.HoursClosed, s.HoursExpected, s.SimHours, s.Revisions, s.Incomplete, s.SilenceClosed)
 	p("records           %d published (%d committed); alerts raised %.0f; outbox depth at the end %.0f", s.Records, s.RecordsEmitted, s.AlertsRaised, s.OutboxDepth)
@@ -231,9 +282,26 @@ func (s *Summary) WriteText(w io.Writer) error {
 		rss = mib(s.PeakRSSBytes)
 	}
 	if s.CPUSeconds > 0 {
-		p("cpu               %.2fs user+system, %.1f µs per message (whole process: broker, publishers and gateway)", s.CPUSeconds, s.CPUPerMsgUs)
+		p("cpu               %.2fs user+system, %.1f µs per message (this process: publishers and gateway%s)", s.CPUSeconds, s.CPUPerMsgUs, s.embeddedNote())
 	}
-	p("memory            peak heap %s, peak RSS %s (whole process: broker, publishers and gateway), %d GC cycles", mib(s.PeakHeapBytes), rss, s.GCCycles)
+	since := "since the process began"
+	if s.PeakRSSGatewayOnly {
+		since = "during the gateway phase"
+	}
+	p("memory            peak heap %s, peak RSS %s %s (this process: publishers and gateway%s), %d GC cycles", mib(s.PeakHeapBytes), rss, since, s.embeddedNote(), s.GCCycles)
+	if s.WriteCallBytes > 0 || s.WriteBytes > 0 {
+		p("written           %.0f B per message to storage (write_bytes %s), %.0f B per message in write calls (wchar %s)",
+			s.WriteBytesPerMsg, mib(s.WriteBytes), s.WriteCallBytesPerMsg, mib(s.WriteCallBytes))
+	}
+	if b := s.Bare; b != nil {
+		p("bare subscriber   %d of %d messages in %.2fs, %.0f msg/s, %.1f µs CPU per message (publishers and bare subscriber), p99 %.2f ms",
+			b.Received, b.Published, b.Seconds, b.MsgPerSecond, b.CPUPerMsgUs, b.AckP99Ms)
+		cpu := "n/a"
+		if b.CPUPerMsgUs > 0 && s.CPUPerMsgUs > 0 {
+			cpu = fmt.Sprintf("%.2f×", s.CPUPerMsgUs/b.CPUPerMsgUs)
+		}
+		p("gateway / bare    %.2f× the rate, %s the CPU per message (same broker, publishers, topics and QoS 1)", s.RatioToBare, cpu)
+	}
 	if err := s.Check(); s.StoppedBy == "signal" {
 		p("consistency       not checked: interrupted before the gateway caught up")
 	} else if err != nil {
@@ -246,6 +314,13 @@ func (s *Summary) WriteText(w io.Writer) error {
 	}
 	_, err := w.Write(b.Bytes())
 	return err
+}
+
+func (s *Summary) embeddedNote() string {
+	if s.Broker == "embedded" {
+		return ", and the embedded broker"
+	}
+	return ""
 }
 
 func mib(n uint64) string { return fmt.Sprintf("%.1f MiB", float64(n)/(1<<20)) }

@@ -73,10 +73,18 @@ type tracker struct {
 	ackLat      histogram
 	recLat      histogram
 	closing     map[closeKey]time.Duration // first reading past an hour's end + grace, by publication time
+	spans       map[int64]*hourSpan        // by hour end: closing readings published to records published, all stations
 	hours       []int                      // first emissions, by station
 	revisions   int
 	incomplete  int
 	silenced    int
+}
+
+// hourSpan is one hour end across all stations: the first closing reading
+// published, the last record published and how many stations' records.
+type hourSpan struct {
+	first, last time.Duration
+	records     int
 }
 
 type closeKey struct {
@@ -86,7 +94,7 @@ type closeKey struct {
 
 func newTracker(f *farm, pubs, lag, limit int) *tracker {
 	t := &tracker{base: time.Now(), farm: f, lag: lag, limit: limit, topics: map[string]*fifo{},
-		pubs: make([]pubState, pubs), closing: map[closeKey]time.Duration{}, hours: make([]int, len(f.stations))}
+		pubs: make([]pubState, pubs), closing: map[closeKey]time.Duration{}, spans: map[int64]*hourSpan{}, hours: make([]int, len(f.stations))}
 	t.cond = sync.NewCond(&t.mu)
 	for _, st := range f.stations {
 		for _, topic := range st.topics {
@@ -168,6 +176,11 @@ func (t *tracker) tickDone(pub, k int) {
 func (t *tracker) closingAt(st int, end time.Time, at time.Duration) {
 	t.mu.Lock()
 	t.closing[closeKey{st, end.Unix()}] = at
+	if sp := t.spans[end.Unix()]; sp == nil {
+		t.spans[end.Unix()] = &hourSpan{first: at}
+	} else {
+		sp.first = min(sp.first, at)
+	}
 	t.mu.Unlock()
 }
 
@@ -226,6 +239,10 @@ func (t *tracker) record(rec hourly.Record) {
 		t.recLat.add(now - at)
 		delete(t.closing, key)
 	}
+	if sp := t.spans[key.end]; sp != nil {
+		sp.last = max(sp.last, now)
+		sp.records++
+	}
 }
 
 // tap is the gateway's broker connection with every acknowledgement
@@ -254,6 +271,21 @@ func (b *tap) Subscribe(filter string, qos byte, handle func(mqtt.Message)) erro
 		}
 		handle(m)
 	})
+}
+
+// hourCloses returns, over the hour ends every station has closed, how
+// many there are and the median and largest time from the first closing
+// reading's publication to the last station's record publication. t.mu held.
+func (t *tracker) hourCloses() (n int, p50, worst time.Duration) {
+	var h histogram
+	for _, sp := range t.spans {
+		if sp.records < len(t.farm.stations) {
+			continue
+		}
+		h.add(sp.last - sp.first)
+		n++
+	}
+	return n, h.quantile(0.5), h.max
 }
 
 // histogram keeps durations in logarithmic buckets 2 % wide from 1 µs, so a
