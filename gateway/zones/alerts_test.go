@@ -16,6 +16,7 @@ import (
 	"go.etcd.io/bbolt"
 
 	"etpulse/controllers"
+	"etpulse/gateway/alert"
 	"etpulse/gateway/clock"
 	"etpulse/gateway/config"
 	"etpulse/gateway/internal/testenv"
@@ -189,7 +190,14 @@ func TestValveNoReportAlertMosquitto(t *testing.T) {
 	assert.Equal(t, 0.0, metricValue(t, f.reg, "etpulse_alerts_active", kind))
 	assert.Equal(t, 1.0, metricValue(t, f.reg, "etpulse_alerts_cleared_total", kind))
 	assert.Equal(t, 1.0, metricValue(t, f.reg, "etpulse_alerts_raised_total", kind))
-	assert.Empty(t, mon.Active())
+	// The lost command never got a final report, so by its latest possible
+	// end it is treated as a valve that may be open (a stop is sent, a
+	// valve-open alert raised; the simulated radio loses those too). Whether
+	// that moment has passed depends on how fast the test clock ran, so
+	// only the valve-no-report alert is asserted cleared here.
+	for _, a := range mon.Active() {
+		assert.NotEqual(t, alert.KindValveNoReport, a.Kind, "%s still active", a.Key)
+	}
 
 	led, err := f.svc.Ledger("fernhill")
 	require.NoError(t, err)
