@@ -31,7 +31,8 @@ type BareSummary struct {
 const subscribeChunk = 500
 
 // runBare runs the bare phase: a subscriber on the farm's topics, the
-// publishers for at most o.BareDuration (and o.Messages), then waits until
+// publishers as fast as it takes them for at most o.BareDuration (and
+// o.Messages), then waits until
 // the subscriber has every message the broker acknowledged.
 func runBare(ctx context.Context, o Options, f *farm, pl *plan, url, runID string) (*BareSummary, error) {
 	lag := max(1, int(lagSim/o.Interval))
@@ -68,6 +69,7 @@ func runBare(ctx context.Context, o Options, f *farm, pl *plan, url, runID strin
 		}
 	}
 
+	pl = floorPlan(pl)
 	pubs, err := dialPublishers(ctx, url, runID+"-bare", o.Publishers, f)
 	if err != nil {
 		return nil, fmt.Errorf("bare phase: %w", err)
@@ -111,6 +113,14 @@ func runBare(ctx context.Context, o Options, f *farm, pl *plan, url, runID strin
 		b.MsgPerSecond = float64(b.Received) / b.Seconds
 	}
 	return b, nil
+}
+
+// floorPlan is pl unpaced: the floor is the bare subscriber's top rate,
+// whatever the gateway phase's --rate.
+func floorPlan(pl *plan) *plan {
+	unpaced := *pl
+	unpaced.rate = 0
+	return &unpaced
 }
 
 // wait waits for an MQTT token or the end of ctx.

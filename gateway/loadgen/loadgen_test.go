@@ -144,6 +144,18 @@ func TestTenThousandStations(t *testing.T) {
 	assert.Equal(t, "block-10000", f.stations[9999].id)
 }
 
+// TestFloorUnpaced: a --rate paces the gateway phase only; the bare phase
+// measures the floor's top rate.
+func TestFloorUnpaced(t *testing.T) {
+	o := Options{Stations: 3, Rate: 50}
+	require.NoError(t, o.Validate())
+	pl, err := newPlan(newFarm(3, "r", o.Interval), o)
+	require.NoError(t, err)
+	assert.Zero(t, floorPlan(pl).rate)
+	assert.Equal(t, 50.0, pl.rate, "the gateway phase's plan is left as it was")
+	assert.Equal(t, pl.ticks, floorPlan(pl).ticks)
+}
+
 func TestHistogram(t *testing.T) {
 	var h histogram
 	assert.Zero(t, h.quantile(0.5))

@@ -298,9 +298,9 @@ func (s *Summary) WriteText(w io.Writer) error {
 			b.Received, b.Published, b.Seconds, b.MsgPerSecond, b.CPUPerMsgUs, b.AckP99Ms)
 		cpu := "n/a"
 		if b.CPUPerMsgUs > 0 && s.CPUPerMsgUs > 0 {
-			cpu = fmt.Sprintf("%.2f×", s.CPUPerMsgUs/b.CPUPerMsgUs)
+			cpu = fmt.Sprintf("%.2f× the CPU per message (%+.1f µs)", s.CPUPerMsgUs/b.CPUPerMsgUs, s.CPUPerMsgUs-b.CPUPerMsgUs)
 		}
-		p("gateway / bare    %.2f× the rate, %s the CPU per message (same broker, publishers, topics and QoS 1)", s.RatioToBare, cpu)
+		p("gateway / bare    %.2f× the rate, %s; same broker, publishers, topics and QoS 1", s.RatioToBare, cpu)
 	}
 	if err := s.Check(); s.StoppedBy == "signal" {
 		p("consistency       not checked: interrupted before the gateway caught up")
