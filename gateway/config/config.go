@@ -97,6 +97,7 @@ func (c *Config) setDefaults() {
 		}
 		for j := range s.Zones {
 			s.Zones[j].setDefaults()
+			s.Zones[j].defaultGreenhouseStation(s)
 		}
 		for j := range s.Sources {
 			s.Sources[j].setDefaults()

@@ -26,6 +26,15 @@ type Zone struct {
 	FailSafe ZoneFailSafe `yaml:"fail_safe"`
 	Commands ZoneCommands `yaml:"commands"`
 
+	// DeficitStages are grower-named periods watered on purpose below
+	// full demand; Salinity adds the leaching requirement to each run.
+	DeficitStages []ZoneDeficitStage `yaml:"deficit_stages"`
+	Salinity      *ZoneSalinity      `yaml:"salinity"`
+	// Greenhouse marks a zone under cover: without a station it takes the
+	// site's one station with inside_greenhouse. Kc values of greenhouse
+	// crops are the grower's own (no table is built in).
+	Greenhouse bool `yaml:"greenhouse"`
+
 	// CommandTopic and ReportTopic default to
 	// <topic_prefix>/<site>/zones/<zone>/command and .../report.
 	CommandTopic string `yaml:"command_topic"`
@@ -44,6 +53,9 @@ type ZoneCrop struct {
 	// CoverTransmission is a greenhouse cover's transmission factor (0-1]
 	// applied to the reference ET of an outside station. Unset: no cover.
 	CoverTransmission float64 `yaml:"cover_transmission"`
+	// Canopy scales the full-cover Kc to a partial cover (Allen and
+	// Pereira 2009; FAO-56 eq. 98 form). Unset: full cover.
+	Canopy *ZoneCanopy `yaml:"canopy"`
 }
 
 // ZoneSeason is a Kc curve by growth stage (FAO-56 chapter 6, Fig. 25).
@@ -78,6 +90,8 @@ type ZoneSoil struct {
 	TriggerMM            float64 `yaml:"trigger_mm"`       // explicit trigger; default RAW
 	RefillFraction       float64 `yaml:"refill_fraction_of_raw"`
 	InitialDepletionMM   float64 `yaml:"initial_depletion_mm"` // depletion when the zone is first seen
+	// Wetted is the fraction of the soil the emitters wet; unset: all.
+	Wetted *ZoneWetted `yaml:"wetted"`
 }
 
 func (s *ZoneSoil) controller() controllers.Soil {
@@ -308,6 +322,9 @@ func (z *Zone) Controller(st *Station) (*controllers.Zone, error) {
 	if c := z.Crop.Climate; c != nil {
 		cz.Crop.Climate = &controllers.Climate{U2: c.U2, RHMin: c.RHMin, Height: c.HeightM}
 	}
+	if err := z.orchardController(cz); err != nil {
+		return nil, err
+	}
 	for _, w := range z.Windows {
 		cw, err := controllers.ParseWindow(w)
 		if err != nil {
@@ -334,7 +351,7 @@ func (z *Zone) validate(path string, p *Problems, site *Site) {
 		p.Addf(path+".id", "must be 1-64 characters of a-z, 0-9, '-' or '_', got %q", z.ID)
 	}
 	st := site.StationByID(z.Station)
-	if st == nil {
+	if st == nil && !(z.Greenhouse && z.Station == "") {
 		p.Addf(path+".station", "no station %q in this site", z.Station)
 	}
 	if z.Source != "" && site.sourceByID(z.Source) == nil {
@@ -344,7 +361,12 @@ func (z *Zone) validate(path string, p *Problems, site *Site) {
 		p.Addf(path+".area_m2", "must be > 0, got %s", fmtF(z.AreaM2))
 	}
 	z.validateCrop(path+".crop", p)
+	z.validateCanopy(path+".crop", p)
 	z.validateSoil(path+".soil", p)
+	z.validateWetted(path+".soil", p)
+	z.validateDeficit(path, p)
+	z.validateSalinity(path, p)
+	z.validateGreenhouse(path, p, site)
 	switch controllers.RainMethod(z.Rain.Method) {
 	case controllers.RainAll, controllers.RainNone:
 	case controllers.RainFractionAboveThreshold, controllers.RainFractionAboveDailyThreshold:
@@ -554,6 +576,7 @@ func (z *Zone) validateSoil(path string, p *Problems) {
 func (z *Zone) validateTrigger(path string, p *Problems) {
 	s := &z.Soil
 	cz := controllers.Zone{Soil: s.controller()}
+	cz.Soil.WettedFraction = z.wettedFraction()
 	if z.Crop.Season != nil {
 		cz.Crop.Season = &controllers.Season{}
 	}
