@@ -212,12 +212,7 @@ func (z *Zone) defaultGreenhouseStation(site *Site) {
 	if !z.Greenhouse || z.Station != "" {
 		return
 	}
-	var inside []string
-	for i := range site.Stations {
-		if site.Stations[i].InsideGreenhouse {
-			inside = append(inside, site.Stations[i].ID)
-		}
-	}
+	inside := insideStations(site)
 	if len(inside) == 1 {
 		z.Station = inside[0]
 	}
@@ -228,12 +223,7 @@ func (z *Zone) validateGreenhouse(path string, p *Problems, site *Site) {
 		return
 	}
 	if z.Station == "" {
-		var inside []string
-		for i := range site.Stations {
-			if site.Stations[i].InsideGreenhouse {
-				inside = append(inside, site.Stations[i].ID)
-			}
-		}
+		inside := insideStations(site)
 		if len(inside) == 0 {
 			p.Add(path+".station", "a greenhouse zone without a station needs one station with inside_greenhouse: true in the site; set station (an outside one with crop.cover_transmission) or add the inside station")
 		} else {
@@ -276,4 +266,15 @@ func (z *Zone) orchardController(cz *controllers.Zone) error {
 	}
 	cz.Salinity = z.salinity()
 	return nil
+}
+
+// insideStations lists the ids of the site's stations inside a greenhouse.
+func insideStations(site *Site) []string {
+	var inside []string
+	for i := range site.Stations {
+		if site.Stations[i].InsideGreenhouse {
+			inside = append(inside, site.Stations[i].ID)
+		}
+	}
+	return inside
 }

@@ -21,7 +21,7 @@ func TestYoungOrchardExample(t *testing.T) {
 	require.NotNil(t, cz.Crop.Canopy)
 	require.Len(t, cz.Crop.Canopy.Cover, 3)
 	require.InDelta(t, 0.35, cz.Soil.WettedFraction, 1e-12) // FAO-56 Table 20 drip (from memory)
-	require.InDelta(t, 42, cz.Soil.TAW(1), 1e-9)             // 120 mm/m x 1 m x 0.35
+	require.InDelta(t, 42, cz.Soil.TAW(1), 1e-9)            // 120 mm/m x 1 m x 0.35
 	require.Len(t, cz.Stages, 1)
 	require.Equal(t, "post-harvest", cz.Stages[0].Name)
 	require.InDelta(t, 1.2/(5*1.7-1.2), cz.Salinity.LeachingRequirement(), 1e-12) // FAO-29 LR (from memory)
