@@ -32,20 +32,27 @@ const hourStatsKeep = 25 * time.Hour
 
 // Tick closes every hour that is due at now and re-emits every closed hour
 // that received late readings, each in its own transaction, and prunes
-// samples older than the late window. It returns the records it emitted, in
+// samples older than the late window. It visits only the stations with
+// something due (see deadlines). It returns the records it emitted, in
 // order; they are also kept as pending until MarkPublished.
 func (p *Pipeline) Tick(now time.Time) ([]hourly.Record, error) {
 	p.mu.Lock()
 	defer p.mu.Unlock()
 	p.startClock(now)
+	due := p.takeDue(now)
+	defer func() {
+		for _, st := range due {
+			p.schedule(st)
+		}
+	}()
 	var out []hourly.Record
 	var errs []error
-	recs, err := p.admitHeld(now)
+	recs, err := p.admitHeld(now, due)
 	out = append(out, recs...)
 	if err != nil {
 		errs = append(errs, err)
 	}
-	for _, st := range p.order {
+	for _, st := range due {
 		recs, err := p.tickStation(st, now)
 		out = append(out, recs...)
 		if err != nil {
@@ -63,16 +70,19 @@ func (p *Pipeline) tickStation(st *station, now time.Time) ([]hourly.Record, err
 	if err != nil {
 		return out, err
 	}
-	if st.dirty {
+	if st.dirty && !now.Before(st.reviseAt) {
 		recs, waiting, err := p.revise(st, now)
 		out = append(out, recs...)
 		if err != nil {
+			st.reviseAt = time.Time{} // retried at the next pass
 			return out, err
 		}
 		st.dirty = waiting
 	}
-	if err := p.prune(st, now); err != nil {
-		return out, err
+	if st.pruneSoon || (!st.pruneAt.IsZero() && !now.Before(st.pruneAt)) {
+		if err := p.prune(st, now); err != nil {
+			return out, err
+		}
 	}
 	return out, nil
 }
@@ -135,6 +145,9 @@ func (p *Pipeline) closeHour(st *station, hour time.Time, silent bool) (hourly.R
 		return hourly.Record{}, fmt.Errorf("close hour %s: %w", hour.Format(time.RFC3339), err)
 	}
 	st.cursor, st.closed = hour.Add(time.Hour), true
+	if st.pruneAt.IsZero() {
+		st.pruneSoon = true // samples held back by the cursor may go now
+	}
 	p.m.closed.WithLabelValues(st.site, st.id, strconv.FormatBool(rec.Complete)).Inc()
 	p.observeRecord(st, rec)
 	return rec, nil
@@ -148,6 +161,7 @@ func (p *Pipeline) closeHour(st *station, hour time.Time, silent bool) (hourly.R
 func (p *Pipeline) revise(st *station, now time.Time) ([]hourly.Record, bool, error) {
 	var hours []time.Time
 	waiting := false
+	var next time.Time // the earliest waiting hour's deadline
 	if err := p.db.View(func(tx *bbolt.Tx) error {
 		sb, err := st.buckets(tx)
 		if err != nil {
@@ -162,6 +176,9 @@ func (p *Pipeline) revise(st *station, now time.Time) ([]hourly.Record, bool, er
 			case !hs.Dirty:
 			case !now.IsZero() && now.Sub(hs.LateAt) < st.cfg.CloseGrace.D():
 				waiting = true
+				if at := hs.LateAt.Add(st.cfg.CloseGrace.D()); next.IsZero() || at.Before(next) {
+					next = at
+				}
 			default:
 				hours = append(hours, hourFromKey(k))
 			}
@@ -170,6 +187,7 @@ func (p *Pipeline) revise(st *station, now time.Time) ([]hourly.Record, bool, er
 	}); err != nil {
 		return nil, true, err
 	}
+	st.reviseAt = next
 	var out []hourly.Record
 	for _, hour := range hours {
 		gate := p.gateFor(st, hour)
@@ -254,13 +272,13 @@ func latestOf(a, b time.Time) time.Time {
 	return a
 }
 
-// admitHeld takes the held readings that the gateway clock has reached
+// admitHeld takes, for the due stations, the held readings that the gateway clock has reached
 // (within max_future of now) through Ingest and removes them from the held
 // bucket. A crash between the two takes them again at the next start: they
 // are then duplicates, dropped.
-func (p *Pipeline) admitHeld(now time.Time) ([]hourly.Record, error) {
+func (p *Pipeline) admitHeld(now time.Time, due []*station) ([]hourly.Record, error) {
 	var out []hourly.Record
-	for _, st := range p.order {
+	for _, st := range due {
 		if st.held == 0 {
 			continue
 		}
@@ -486,35 +504,50 @@ func (p *Pipeline) prune(st *station, now time.Time) error {
 	if st.cursor.Before(stateLimit) {
 		stateLimit = st.cursor
 	}
-	need := false
+	var firstSample, firstHour time.Time
+	var hasSample, hasHour bool
+	firsts := func(sb stationBuckets) {
+		var k []byte
+		k, _ = sb.samples.Cursor().First()
+		if hasSample = k != nil; hasSample {
+			firstSample = hourFromKey(k)
+		}
+		k, _ = sb.hours.Cursor().First()
+		if hasHour = k != nil; hasHour {
+			firstHour = hourFromKey(k)
+		}
+	}
 	if err := p.db.View(func(tx *bbolt.Tx) error {
 		sb, err := st.buckets(tx)
 		if err != nil {
 			return err
 		}
-		if k, _ := sb.samples.Cursor().First(); k != nil && hourFromKey(k).Before(sampleLimit) {
-			need = true
-		}
-		if k, _ := sb.hours.Cursor().First(); k != nil && hourFromKey(k).Before(stateLimit) {
-			need = true
-		}
+		firsts(sb)
 		return nil
 	}); err != nil {
 		return err
 	}
-	if !need {
-		return nil
+	if (hasSample && firstSample.Before(sampleLimit)) || (hasHour && firstHour.Before(stateLimit)) {
+		if err := p.db.Update(func(tx *bbolt.Tx) error {
+			sb, err := st.buckets(tx)
+			if err != nil {
+				return err
+			}
+			if err := deleteBefore(sb.samples, sampleLimit); err != nil {
+				return err
+			}
+			if err := deleteBefore(sb.hours, stateLimit); err != nil {
+				return err
+			}
+			firsts(sb)
+			return nil
+		}); err != nil {
+			return err
+		}
 	}
-	return p.db.Update(func(tx *bbolt.Tx) error {
-		sb, err := st.buckets(tx)
-		if err != nil {
-			return err
-		}
-		if err := deleteBefore(sb.samples, sampleLimit); err != nil {
-			return err
-		}
-		return deleteBefore(sb.hours, stateLimit)
-	})
+	st.pruneSoon = false
+	st.pruneAt = st.nextPrune(now, firstSample, hasSample, firstHour, hasHour)
+	return nil
 }
 
 func deleteBefore(b *bbolt.Bucket, limit time.Time) error {

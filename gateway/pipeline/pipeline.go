@@ -75,6 +75,7 @@ type Pipeline struct {
 	stations map[stationID]*station
 	order    []*station // configuration order, for stable output
 	started  bool       // the clock has been read once since New (see startClock)
+	due      *deadlines // which stations a clock pass visits (deadline.go)
 }
 
 type stationID struct{ site, station string }
@@ -117,6 +118,16 @@ type station struct {
 	lateAt    time.Time
 	held      int       // readings in the held bucket
 	heldFirst time.Time // time of the earliest held reading (zero: none known)
+
+	// The deadline index (deadline.go).
+	index     int       // position in configuration order
+	reviseAt  time.Time // earliest a dirty hour's revision may be due (zero: at the next pass)
+	pruneAt   time.Time // when prune next has work (zero: none known)
+	pruneSoon bool      // prune at the next pass
+	wakeAt    time.Time // the key in deadlines.wake
+	wakePos   int       // position in deadlines.wake, -1 when absent
+	prunePos  int       // position in deadlines.prune, -1 when absent
+	soon      bool      // in deadlines.soon
 }
 
 // silenceDeadline is when the wall clock may close the station's hour that
@@ -154,6 +165,7 @@ func (p *Pipeline) startClock(now time.Time) {
 		if !st.stampedArrival.IsZero() && now.After(st.stampedArrival) {
 			st.stampedArrival = now
 		}
+		p.schedule(st)
 	}
 }
 
@@ -177,10 +189,12 @@ func New(cfg *config.Config, o Options) (*Pipeline, error) {
 		handlers: o.Handlers, observers: o.Observers, gate: o.Gate,
 		heldLimit: o.HeldLimit,
 		stations:  map[stationID]*station{},
+		due:       newDeadlines(),
 	}
 	for _, site := range cfg.Sites {
 		for _, sc := range site.Stations {
 			st := newStation(site.ID, sc)
+			st.index = len(p.order)
 			p.stations[stationID{site.ID, sc.ID}] = st
 			p.order = append(p.order, st)
 		}
@@ -198,6 +212,7 @@ func New(cfg *config.Config, o Options) (*Pipeline, error) {
 			st.watermark, _ = getTime(sb.meta, keyWatermark)
 			_, st.closed = getTime(sb.meta, keyClosedThrough)
 			st.dirty = true // look for revisions left pending by a crash
+			st.pruneSoon = true
 			if err := sb.seen.ForEach(func(k, v []byte) error {
 				var ss seenState
 				if err := jsonUnmarshal(v, &ss); err != nil {
@@ -218,6 +233,7 @@ func New(cfg *config.Config, o Options) (*Pipeline, error) {
 				st.heldFirst = time.Unix(0, int64(binary.BigEndian.Uint64(k[:8]))).UTC()
 			}
 			p.m.held.WithLabelValues(st.site, st.id).Set(float64(st.held))
+			p.schedule(st)
 		}
 		return nil
 	}); err != nil {
@@ -234,9 +250,10 @@ func newStation(site string, sc config.Station) *station {
 	}
 	st := &station{
 		site: site, id: sc.ID, key: []byte(site + "/" + sc.ID), cfg: sc,
-		hs:     sc.HourlyStation(),
-		offset: off,
-		zone:   time.FixedZone(name, int(off/time.Second)),
+		hs:      sc.HourlyStation(),
+		offset:  off,
+		zone:    time.FixedZone(name, int(off/time.Second)),
+		wakePos: -1, prunePos: -1,
 	}
 	return st
 }
@@ -296,6 +313,7 @@ func (p *Pipeline) ingest(now time.Time, readings []ingest.Reading) (IngestResul
 		}
 		recs, err := p.closeDue(stop, readings[0].Sample.Time.UTC(), time.Time{})
 		res.Records = append(res.Records, recs...)
+		p.schedule(stop)
 		if err != nil {
 			// The hour stays open; Tick retries. Do not stop again for it.
 			p.log.Error("closing hour", "station", stop.id, "err", err)
@@ -491,6 +509,9 @@ func (p *Pipeline) ingestTx(now time.Time, readings []ingest.Reading, noStop map
 		st.dirty = st.dirty || mu.dirty
 		if mu.dirty {
 			st.lateAt = now
+			if at := now.Add(st.cfg.CloseGrace.D()); st.reviseAt.IsZero() || at.Before(st.reviseAt) {
+				st.reviseAt = at // revise corrects it to the waiting hours' own
+			}
 		}
 		if !mu.stampedArrival.IsZero() && !st.stampedArrival.Equal(mu.stampedArrival) {
 			st.stampedArrival = mu.stampedArrival
@@ -504,6 +525,9 @@ func (p *Pipeline) ingestTx(now time.Time, readings []ingest.Reading, noStop map
 		if now.After(a.st.arrival) {
 			a.st.arrival = now
 		}
+	}
+	for st := range updates {
+		p.schedule(st)
 	}
 	for _, r := range rejs {
 		p.m.rejected.WithLabelValues(labels(r.Site, r.Station, string(r.Reason))...).Inc()

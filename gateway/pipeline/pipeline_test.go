@@ -114,18 +114,23 @@ func weather(at time.Time) (tc, rh, u, rs float64) {
 func benchReadings(from, to time.Time, step time.Duration) []ingest.Reading {
 	var out []ingest.Reading
 	for at := from; at.Before(to); at = at.Add(step) {
-		tc, rh, u, rs := weather(at)
-		for _, s := range []hourly.Sample{
-			{Sensor: "t", Quantity: hourly.AirTemp, Value: tc},
-			{Sensor: "rh", Quantity: hourly.RelHumidity, Value: rh},
-			{Sensor: "u", Quantity: hourly.Wind, Value: u},
-			{Sensor: "rs", Quantity: hourly.Solar, Value: rs},
-		} {
-			s.Time = at
+		for _, s := range weatherSamples(at) {
 			out = append(out, ingest.Reading{Site: "larkspur", Station: "bench", Sample: s})
 		}
 	}
 	return out
+}
+
+// weatherSamples is one sample of each of the bench station's four
+// sensors at at.
+func weatherSamples(at time.Time) []hourly.Sample {
+	tc, rh, u, rs := weather(at)
+	return []hourly.Sample{
+		{Sensor: "t", Quantity: hourly.AirTemp, Value: tc, Time: at},
+		{Sensor: "rh", Quantity: hourly.RelHumidity, Value: rh, Time: at},
+		{Sensor: "u", Quantity: hourly.Wind, Value: u, Time: at},
+		{Sensor: "rs", Quantity: hourly.Solar, Value: rs, Time: at},
+	}
 }
 
 // feed ingests readings and ticks at now, returning every record emitted.

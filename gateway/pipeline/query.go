@@ -148,25 +148,7 @@ func (p *Pipeline) Record(site, stationID string, hourStart time.Time) (hourly.R
 func (p *Pipeline) NextDeadline() time.Time {
 	p.mu.Lock()
 	defer p.mu.Unlock()
-	var next time.Time
-	add := func(d time.Time) {
-		if next.IsZero() || d.Before(next) {
-			next = d
-		}
-	}
-	for _, st := range p.order {
-		if st.hasCursor {
-			add(st.silenceDeadline(st.cursor.Add(time.Hour)))
-		}
-		if st.dirty && !st.lateAt.IsZero() {
-			// a revision waiting for its late readings to stop
-			add(st.lateAt.Add(st.cfg.CloseGrace.D()))
-		}
-		if st.held > 0 && !st.heldFirst.IsZero() {
-			add(st.heldFirst.Add(-st.cfg.MaxFuture.D()))
-		}
-	}
-	return next
+	return p.due.wake.peek()
 }
 
 // Flush closes every open hour up to and including the one holding each
@@ -193,6 +175,7 @@ func (p *Pipeline) Flush() ([]hourly.Record, error) {
 		if err != nil {
 			errs = append(errs, fmt.Errorf("station %s/%s: %w", st.site, st.id, err))
 		}
+		p.schedule(st)
 	}
 	return out, errors.Join(errs...)
 }
@@ -216,6 +199,7 @@ func (p *Pipeline) Revise() ([]hourly.Record, error) {
 			continue
 		}
 		st.dirty = false
+		p.schedule(st)
 	}
 	return out, errors.Join(errs...)
 }
