@@ -209,6 +209,8 @@ type outMsg struct {
 	topic   string
 	payload []byte
 	bad     bool
+	station int   // index of the station
+	closes  int64 // end (Unix seconds) of the station's hour this reading closes; 0 for none
 }
 
 // configYAML returns the gateway configuration of the farm.

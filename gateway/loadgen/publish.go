@@ -157,7 +157,13 @@ func (p *publisher) run(ctx context.Context, pl *plan, tr *tracker, clock *demo.
 	for k := 0; k < pl.ticks; k++ {
 		buf = buf[:0]
 		for _, st := range p.stations {
+			from := len(buf)
 			buf = f.messages(st, k, buf)
+			if end, ok := f.closingHour(st, k); ok {
+				for i := from; i < len(buf); i++ {
+					buf[i].station, buf[i].closes = st.idx, end.Unix()
+				}
+			}
 		}
 		if p.idx == 0 {
 			for i := 0; i < pl.bad[k]; i++ {
@@ -168,11 +174,6 @@ func (p *publisher) run(ctx context.Context, pl *plan, tr *tracker, clock *demo.
 			break
 		}
 		clock.Set(f.tickTime(k))
-		for _, st := range p.stations {
-			if end, ok := f.closingHour(st, k); ok {
-				tr.closingAt(st.idx, end, tr.since())
-			}
-		}
 		for _, m := range buf {
 			if perSec > 0 {
 				due := start.Add(time.Duration(float64(n) / perSec * float64(time.Second)))
@@ -181,7 +182,7 @@ func (p *publisher) run(ctx context.Context, pl *plan, tr *tracker, clock *demo.
 				}
 			}
 			n++
-			tr.publishing(p.idx, k, m.topic)
+			tr.publishing(p.idx, k, m)
 			window = append(window, p.c.Publish(m.topic, 1, false, m.payload))
 			if m.bad {
 				p.bad.Add(1)

@@ -45,7 +45,7 @@ type Summary struct {
 	AckP50Ms    float64 `json:"ack_latency_p50_ms"` // publication to durable acknowledgement
 	AckP99Ms    float64 `json:"ack_latency_p99_ms"`
 	AckMaxMs    float64 `json:"ack_latency_max_ms"`
-	RecordP50Ms float64 `json:"record_latency_p50_ms"` // closing reading published to hour record published
+	RecordP50Ms float64 `json:"record_latency_p50_ms"` // closing reading acknowledged by the gateway (the hour closed) to hour record published
 	RecordP99Ms float64 `json:"record_latency_p99_ms"`
 
 	SimHours        float64        `json:"simulated_hours"` // simulated time covered by the readings
@@ -61,8 +61,8 @@ type Summary struct {
 	OutboxDepth     float64        `json:"outbox_depth"` // points not yet accepted by a store, at the end
 
 	// Hour close for all stations: over the hour ends every station closed,
-	// the time from the first closing reading published to the last
-	// station's record published.
+	// the time from the gateway taking the last station's closing reading to
+	// the last station's record published.
 	HoursAllStations int     `json:"hours_closed_all_stations"`
 	HourCloseP50Ms   float64 `json:"hour_close_all_stations_p50_ms"`
 	HourCloseMaxMs   float64 `json:"hour_close_all_stations_max_ms"`
@@ -264,12 +264,12 @@ func (s *Summary) WriteText(w io.Writer) error {
 	p("throughput        %.0f msg/s sustained (acknowledged / %.2fs from first publication to last acknowledgement)", s.MsgPerSecond, s.AckSeconds)
 	p("ack latency       p50 %.2f ms, p99 %.2f ms, max %.2f ms (publication to durable acknowledgement)", s.AckP50Ms, s.AckP99Ms, s.AckMaxMs)
 	if s.HoursClosed > 0 {
-		p("record latency    p50 %.2f ms, p99 %.2f ms (closing reading published to hour record published)", s.RecordP50Ms, s.RecordP99Ms)
+		p("record latency    p50 %.2f ms, p99 %.2f ms (closing reading acknowledged by the gateway to hour record published)", s.RecordP50Ms, s.RecordP99Ms)
 	} else {
 		p("record latency    n/a (no hour closed)")
 	}
 	if s.HoursAllStations > 0 {
-		p("hour close        p50 %.2f s, max %.2f s for all %d stations (first closing reading published to last record published; %d hours)",
+		p("hour close        p50 %.2f s, max %.2f s for all %d stations (last station's closing reading taken to last record published; %d hours)",
 			s.HourCloseP50Ms/1000, s.HourCloseMaxMs/1000, s.Stations, s.HoursAllStations)
 	} else {
 		p("hour close        n/a (no hour closed at every station)")

@@ -14,9 +14,11 @@ import (
 
 // entry is one published message waiting for the gateway's acknowledgement.
 type entry struct {
-	at   time.Duration // publication, since the tracker's base
-	tick int
-	pub  int
+	at      time.Duration // publication, since the tracker's base
+	tick    int
+	pub     int
+	station int
+	closes  int64 // end (Unix seconds) of the station's hour this reading closes; 0 for none
 }
 
 // fifo holds the unacknowledged messages of one topic in publication order.
@@ -57,6 +59,7 @@ type pubState struct {
 // window of the gateway (see waitTurn).
 type tracker struct {
 	base  time.Time
+	clock func() time.Duration // since base; replaced in tests
 	farm  *farm
 	lag   int // ticks a publisher may run ahead of the slowest acknowledged tick
 	limit int // messages published and not yet acknowledged, all connections
@@ -72,19 +75,20 @@ type tracker struct {
 	lastAck     time.Duration
 	ackLat      histogram
 	recLat      histogram
-	closing     map[closeKey]time.Duration // first reading past an hour's end + grace, by publication time
-	spans       map[int64]*hourSpan        // by hour end: closing readings published to records published, all stations
+	closedAt    map[closeKey]time.Duration // gateway's acknowledgement of the reading that closes a station's hour
+	spans       map[int64]*hourSpan        // by hour end: closing readings taken to records published, all stations
 	hours       []int                      // first emissions, by station
 	revisions   int
 	incomplete  int
 	silenced    int
 }
 
-// hourSpan is one hour end across all stations: the first closing reading
-// published, the last record published and how many stations' records.
+// hourSpan is one hour end across all stations: the last station's closing
+// reading acknowledged by the gateway, the last record published and how
+// many stations' records.
 type hourSpan struct {
-	first, last time.Duration
-	records     int
+	lastClose, lastRecord time.Duration
+	records               int
 }
 
 type closeKey struct {
@@ -94,8 +98,9 @@ type closeKey struct {
 
 func newTracker(f *farm, pubs, lag, limit int) *tracker {
 	t := &tracker{base: time.Now(), farm: f, lag: lag, limit: limit, topics: map[string]*fifo{},
-		pubs: make([]pubState, pubs), closing: map[closeKey]time.Duration{}, spans: map[int64]*hourSpan{}, hours: make([]int, len(f.stations))}
+		pubs: make([]pubState, pubs), closedAt: map[closeKey]time.Duration{}, spans: map[int64]*hourSpan{}, hours: make([]int, len(f.stations))}
 	t.cond = sync.NewCond(&t.mu)
+	t.clock = func() time.Duration { return time.Since(t.base) }
 	for _, st := range f.stations {
 		for _, topic := range st.topics {
 			t.topics[topic] = &fifo{}
@@ -107,7 +112,7 @@ func newTracker(f *farm, pubs, lag, limit int) *tracker {
 	return t
 }
 
-func (t *tracker) since() time.Duration { return time.Since(t.base) }
+func (t *tracker) since() time.Duration { return t.clock() }
 
 // stop wakes every waiting publisher for good.
 func (t *tracker) stop() {
@@ -150,14 +155,14 @@ func (t *tracker) waitTurn(ctx context.Context, pub, k, n int) bool {
 	return false
 }
 
-// publishing records that a message of topic is about to be handed to the
-// broker by publisher pub at tick k. The entry goes in before the
-// publication, so the acknowledgement can never overtake it.
-func (t *tracker) publishing(pub, k int, topic string) {
+// publishing records that message m is about to be handed to the broker by
+// publisher pub at tick k. The entry goes in before the publication, so the
+// acknowledgement can never overtake it.
+func (t *tracker) publishing(pub, k int, m outMsg) {
 	at := t.since()
 	t.mu.Lock()
 	defer t.mu.Unlock()
-	t.topics[topic].push(entry{at: at, tick: k, pub: pub})
+	t.topics[m.topic].push(entry{at: at, tick: k, pub: pub, station: m.station, closes: m.closes})
 	t.pubs[pub].outstanding++
 	t.outstanding++
 }
@@ -169,19 +174,6 @@ func (t *tracker) tickDone(pub, k int) {
 	t.pubs[pub].lastTick = k
 	t.mu.Unlock()
 	t.cond.Broadcast()
-}
-
-// closingAt records when the reading that closes the hour ending at end was
-// published for station st.
-func (t *tracker) closingAt(st int, end time.Time, at time.Duration) {
-	t.mu.Lock()
-	t.closing[closeKey{st, end.Unix()}] = at
-	if sp := t.spans[end.Unix()]; sp == nil {
-		t.spans[end.Unix()] = &hourSpan{first: at}
-	} else {
-		sp.first = min(sp.first, at)
-	}
-	t.mu.Unlock()
 }
 
 // ack is called when the gateway acknowledges a message of topic.
@@ -202,6 +194,9 @@ func (t *tracker) ack(topic string) {
 	}
 	t.acked++
 	t.lastAck = now
+	if e.closes != 0 {
+		t.closeTaken(closeKey{e.station, e.closes}, now)
+	}
 	t.ackLat.add(now - e.at)
 	ps := &t.pubs[e.pub]
 	ps.outstanding--
@@ -235,14 +230,16 @@ func (t *tracker) record(rec hourly.Record) {
 	}
 	t.hours[st]++
 	key := closeKey{st, rec.End.Unix()}
-	if at, ok := t.closing[key]; ok {
-		t.recLat.add(now - at)
-		delete(t.closing, key)
+	// A record may go out before its closing reading's acknowledgement
+	// (that follows the commit): no delay.
+	var lat time.Duration
+	if at, ok := t.closedAt[key]; ok {
+		lat = now - at
 	}
-	if sp := t.spans[key.end]; sp != nil {
-		sp.last = max(sp.last, now)
-		sp.records++
-	}
+	t.recLat.add(lat)
+	sp := t.span(key.end)
+	sp.lastRecord = max(sp.lastRecord, now)
+	sp.records++
 }
 
 // tap is the gateway's broker connection with every acknowledgement
@@ -273,16 +270,37 @@ func (b *tap) Subscribe(filter string, qos byte, handle func(mqtt.Message)) erro
 	})
 }
 
+// closeTaken records the gateway's first acknowledgement of a reading that
+// closes a station's hour: the moment the hour closed. t.mu held.
+func (t *tracker) closeTaken(key closeKey, now time.Duration) {
+	if _, seen := t.closedAt[key]; seen {
+		return
+	}
+	t.closedAt[key] = now
+	sp := t.span(key.end)
+	sp.lastClose = max(sp.lastClose, now)
+}
+
+func (t *tracker) span(end int64) *hourSpan {
+	sp := t.spans[end]
+	if sp == nil {
+		sp = &hourSpan{}
+		t.spans[end] = sp
+	}
+	return sp
+}
+
 // hourCloses returns, over the hour ends every station has closed, how
-// many there are and the median and largest time from the first closing
-// reading's publication to the last station's record publication. t.mu held.
+// many there are and the median and largest time from the gateway taking
+// the last station's closing reading to the last record's publication (0
+// when the records went out first). t.mu held.
 func (t *tracker) hourCloses() (n int, p50, worst time.Duration) {
 	var h histogram
 	for _, sp := range t.spans {
 		if sp.records < len(t.farm.stations) {
 			continue
 		}
-		h.add(sp.last - sp.first)
+		h.add(max(0, sp.lastRecord-sp.lastClose))
 		n++
 	}
 	return n, h.quantile(0.5), h.max
