@@ -77,8 +77,13 @@ type DayRow struct {
 	Drainage         float64 // mm
 	Depletion        float64 // at the end of the day, mm
 	StressHours      int     // hours with Ks < 1
-	FallbackHours    int
-	MissingHours     int
+	// IntendedStressHours are the stress hours inside a deficit stage
+	// (counted in StressHours too): the stress the grower asked for.
+	IntendedStressHours int
+	ETcPot              float64 // Kc ETo without water stress, mm
+	Leach               float64 // leaching fraction of the credited water (in Drainage), mm
+	FallbackHours       int
+	MissingHours        int
 }
 
 // ZoneTotals are a zone's totals over a backtest.
@@ -93,6 +98,10 @@ type ZoneTotals struct {
 	StartDepletion, EndDepletion  float64
 	StressHours, FallbackHours    int
 	MissingHours                  int
+	// IntendedStressHours are the stress hours inside deficit stages;
+	// ETcPot the unstressed crop ET; Leach the leaching water, mm.
+	IntendedStressHours int
+	ETcPot, Leach       float64
 }
 
 // NewBacktest builds the zones of cfg on db, a scratch state file of its
@@ -292,6 +301,12 @@ func (b *Backtest) event(e Event) {
 		r.Depletion = s.Depletion
 		if s.Ks < 1 && s.Revision == 0 {
 			r.StressHours++
+			if s.Intended {
+				r.IntendedStressHours++
+			}
+		}
+		if s.Revision == 0 {
+			r.ETcPot += s.Hour.ETcPot
 		}
 		if s.Fallback && s.Revision == 0 {
 			r.FallbackHours++
@@ -315,6 +330,7 @@ func (b *Backtest) event(e Event) {
 		r.GrossMM += c.MinutesRun / 60 * c.Rate
 		r.CreditedMM += s.Irrigation
 		r.Drainage += s.Drainage
+		r.Leach += s.Leach
 		r.Depletion = s.Depletion
 		b.totals[e.Site+"/"+e.Zone].EndDepletion = s.Depletion
 	}
@@ -344,6 +360,7 @@ func (b *Backtest) Totals() []ZoneTotals {
 		t.Days, t.ETc, t.Rain, t.EffRain, t.Runs, t.Minutes = 0, 0, 0, 0, 0, 0
 		t.GrossMM, t.CreditedMM, t.Drainage, t.StressHours, t.FallbackHours, t.MissingHours = 0, 0, 0, 0, 0, 0
 		t.Cancelled, t.CancelledMinutes = 0, 0
+		t.IntendedStressHours, t.ETcPot, t.Leach = 0, 0, 0
 		for _, r := range rows {
 			if r.Site != t.Site || r.Zone != t.Zone {
 				continue
@@ -362,6 +379,9 @@ func (b *Backtest) Totals() []ZoneTotals {
 			t.StressHours += r.StressHours
 			t.FallbackHours += r.FallbackHours
 			t.MissingHours += r.MissingHours
+			t.IntendedStressHours += r.IntendedStressHours
+			t.ETcPot += r.ETcPot
+			t.Leach += r.Leach
 		}
 		out = append(out, t)
 	}
@@ -393,11 +413,11 @@ func WriteDays(w io.Writer, rows []DayRow) error {
 // WriteTotals prints the season totals per zone, counted as WriteDays does.
 func WriteTotals(w io.Writer, totals []ZoneTotals) error {
 	tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', tabwriter.AlignRight)
-	fmt.Fprintln(tw, "zone\tdays\tetc_mm\train_mm\teff_rain_mm\truns\tminutes\tgross_mm\tcredited_mm\tcancelled\tcancelled_min\tdrainage_mm\tstart_dep_mm\tend_dep_mm\tstress_h\tfallback_h\tmissing_h\t")
+	fmt.Fprintln(tw, "zone\tdays\tetc_mm\train_mm\teff_rain_mm\truns\tminutes\tgross_mm\tcredited_mm\tcancelled\tcancelled_min\tdrainage_mm\tstart_dep_mm\tend_dep_mm\tstress_h\tfallback_h\tmissing_h\tintended_stress_h\tetc_pot_mm\tleach_mm\t")
 	for _, t := range totals {
-		fmt.Fprintf(tw, "%s\t%d\t%.1f\t%.1f\t%.1f\t%d\t%.0f\t%.1f\t%.1f\t%d\t%d\t%.1f\t%.1f\t%.1f\t%d\t%d\t%d\t\n",
+		fmt.Fprintf(tw, "%s\t%d\t%.1f\t%.1f\t%.1f\t%d\t%.0f\t%.1f\t%.1f\t%d\t%d\t%.1f\t%.1f\t%.1f\t%d\t%d\t%d\t%d\t%.1f\t%.1f\t\n",
 			t.Zone, t.Days, t.ETc, t.Rain, t.EffRain, t.Runs, t.Minutes, t.GrossMM, t.CreditedMM, t.Cancelled, t.CancelledMinutes, t.Drainage,
-			t.StartDepletion, t.EndDepletion, t.StressHours, t.FallbackHours, t.MissingHours)
+			t.StartDepletion, t.EndDepletion, t.StressHours, t.FallbackHours, t.MissingHours, t.IntendedStressHours, t.ETcPot, t.Leach)
 	}
 	return tw.Flush()
 }
