@@ -69,15 +69,21 @@ Input columns, named in a header line, in any order ('#' starts a comment line):
   exactly one of:
     rh_pct       mean relative humidity, %  (ea from this row's RH and air
                  temperature, FAO-56 eq. 54)
-    dewpoint_c   mean dew point, degC       (ea = e°(Tdew), FAO-56 eq. 14)
+    dew_point_c  mean dew point, degC       (ea = e°(Tdew), FAO-56 eq. 14)
     ea_kpa       actual vapour pressure, kPa
-  wind_ms        mean wind speed at --wind-height, m/s
-  solar_wm2      mean incoming solar radiation over the hour, W/m2
+  wind_m_s       mean wind speed at --wind-height, m/s
+  wind_2m_m_s    instead of wind_m_s: mean wind speed at 2 m, m/s (only with
+                 --wind-height 2)
+  solar_w_m2     mean incoming solar radiation over the hour, W/m2
   optional (an empty cell means "not measured this hour"):
-    net_rad_wm2    measured net radiation, mean W/m2 (replaces the estimate)
-    soil_heat_wm2  measured soil heat flux, mean W/m2, positive into the soil
+    net_rad_w_m2   measured net radiation, mean W/m2 (replaces the estimate)
+    soil_heat_w_m2 measured soil heat flux, mean W/m2, positive into the soil
                    (replaces G = 0.1/0.5 Rn short, 0.04/0.2 Rn tall)
     rain_mm        rain over the hour, mm (summed by --daily)
+  The old names wind_ms, solar_wm2, net_rad_wm2,
+  soil_heat_wm2 and dewpoint_c are still read, with one line on stderr per
+  old name; a header with both the old and the new name of one quantity is
+  refused.
 
 Output columns (hourly):
   time      hour start, station standard time

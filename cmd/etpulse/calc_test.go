@@ -145,7 +145,7 @@ func TestCalcPlausible(t *testing.T) {
 // carry restarts and the 0.8 Rs/Rso default applies, which is exactly what
 // the example assumes for the night (fcd = 1.35 x 0.8 - 0.35 = 0.73).
 func TestCalcFAO56Example19(t *testing.T) {
-	in := "time,air_temp_c,rh_pct,wind_ms,solar_wm2\n" +
+	in := "time,air_temp_c,rh_pct,wind_m_s,solar_w_m2\n" +
 		"2026-10-01T14:00,38,52,3.3,680.5556\n" +
 		"2026-10-02T02:00,28,90,1.9,0\n"
 	code, out, errOut := calc(t, in, "--lat", "16.2167", "--lon", "-16.25", "--elevation", "8", "--utc-offset", "-1", "--reference", "fao56")
@@ -197,7 +197,7 @@ func checkCells(t *testing.T, row map[string]string, checks []published) {
 
 func TestCalcStdinAndRFC3339(t *testing.T) {
 	// The same FAO-56 Example 19 day hour given in UTC: 15:00Z is 14:00 at UTC-1.
-	in := "solar_wm2,wind_ms,rh_pct,air_temp_c,time\n680.5556,3.3,52,38,2026-10-01T15:00:00Z\n"
+	in := "solar_w_m2,wind_m_s,rh_pct,air_temp_c,time\n680.5556,3.3,52,38,2026-10-01T15:00:00Z\n"
 	code, out, errOut := calc(t, in, "--lat", "16.2167", "--lon", "-16.25", "--elevation", "8", "--utc-offset", "-1", "--reference", "fao56")
 	require.Equal(t, exitOK, code, errOut)
 	rows := table(t, out)
@@ -286,20 +286,20 @@ func TestCalcHelpExampleRuns(t *testing.T) {
 
 func TestCalcDataErrors(t *testing.T) {
 	station := []string{"--lat", "37.48", "--lon", "14.06", "--elevation", "310", "--utc-offset", "1"}
-	const head = "time,air_temp_c,rh_pct,wind_ms,solar_wm2\n"
+	const head = "time,air_temp_c,rh_pct,wind_m_s,solar_w_m2\n"
 	for _, tc := range []struct {
 		name, in, want string
 		rows           int // hour lines written before the error
 	}{
-		{"unknown column", "time,air_temp_c,rh_pct,wind_ms,solar_wm2,leaf_wet\n",
-			`etpulse calc: read weather csv: bad header: line 1: unknown column "leaf_wet" (accepted: time, air_temp_c, rh_pct, dewpoint_c, ea_kpa, wind_ms, solar_wm2, net_rad_wm2, soil_heat_wm2, rain_mm)`, -1},
-		{"missing column", "time,air_temp_c,rh_pct,wind_ms\n",
-			`etpulse calc: read weather csv: bad header: line 1: missing required column "solar_wm2"`, -1},
+		{"unknown column", "time,air_temp_c,rh_pct,wind_m_s,solar_w_m2,leaf_wet\n",
+			`etpulse calc: read weather csv: bad header: line 1: unknown column "leaf_wet" (accepted: time, air_temp_c, rh_pct, dew_point_c, ea_kpa, wind_m_s, wind_2m_m_s, solar_w_m2, net_rad_w_m2, soil_heat_w_m2, rain_mm)`, -1},
+		{"missing column", "time,air_temp_c,rh_pct,wind_m_s\n",
+			`etpulse calc: read weather csv: bad header: line 1: missing required column "solar_w_m2"`, -1},
 		{"bad number", head + "2026-07-14T12:00,31,40,2,900\n2026-07-14T13:00,31,40,2,9OO\n",
-			`etpulse calc: line 3: column solar_wm2: value "9OO": not a number`, 1},
+			`etpulse calc: line 3: column solar_w_m2: value "9OO": not a number`, 1},
 		{"temperature", head + "2026-07-14T12:00,71,40,2,900\n",
 			`etpulse calc: line 2: column air_temp_c: value "71": outside -90..65 degC: bad input`, 0},
-		{"engine refuses", "time,air_temp_c,ea_kpa,wind_ms,solar_wm2\n2026-07-14T12:00,20,3.1,2,900\n",
+		{"engine refuses", "time,air_temp_c,ea_kpa,wind_m_s,solar_w_m2\n2026-07-14T12:00,20,3.1,2,900\n",
 			`etpulse calc: line 2: compute: actual vapour pressure: 3.1 kPa exceeds saturation 2.338 kPa at 20 degC: bad input`, 0},
 		{"backwards", head + "2026-07-14T12:00,31,40,2,900\n2026-07-14T11:00,31,40,2,900\n",
 			`etpulse calc: line 3: column time: value "2026-07-14T11:00": not after the previous hour 2026-07-14T12:00 (line 2): hours must be in increasing order without repeats`, 1},
@@ -323,7 +323,7 @@ func TestCalcDataErrors(t *testing.T) {
 }
 
 func TestCalcSkipBad(t *testing.T) {
-	in := "time,air_temp_c,rh_pct,wind_ms,solar_wm2\n" +
+	in := "time,air_temp_c,rh_pct,wind_m_s,solar_w_m2\n" +
 		"2026-07-14T10:00,27,50,2,850\n" +
 		"2026-07-14T11:00,abc,50,2,900\n" +
 		"2026-07-14T12:00,31,40,2,950\n" +
@@ -346,7 +346,7 @@ etpulse calc: line 7: 3 hours missing before 2026-07-14T16:00
 etpulse calc: 3 hours computed, 3 bad rows skipped, 2 gaps
 `, errOut)
 
-	code, out, errOut = calc(t, "time,air_temp_c,rh_pct,wind_ms,solar_wm2\n2026-07-14T10:00,x,50,2,850\n", args...)
+	code, out, errOut = calc(t, "time,air_temp_c,rh_pct,wind_m_s,solar_w_m2\n2026-07-14T10:00,x,50,2,850\n", args...)
 	assert.Equal(t, exitError, code, "nothing computed")
 	assert.Len(t, table(t, out), 0)
 	assert.Equal(t, `etpulse calc: skipped line 2: column air_temp_c: value "x": not a number
@@ -364,7 +364,7 @@ etpulse calc: no row could be computed
 func TestCalcGapRestartsCarry(t *testing.T) {
 	station := []string{"--lat", "37.48", "--lon", "14.06", "--elevation", "310", "--utc-offset", "1"}
 	// A heavily overcast afternoon (low fcd), then the night.
-	contiguous := "time,air_temp_c,rh_pct,wind_ms,solar_wm2\n" +
+	contiguous := "time,air_temp_c,rh_pct,wind_m_s,solar_w_m2\n" +
 		"2026-07-14T15:00,25,70,2,120\n" +
 		"2026-07-14T16:00,24,72,2,100\n" +
 		"2026-07-14T22:00,20,80,1,0\n"
@@ -374,7 +374,7 @@ func TestCalcGapRestartsCarry(t *testing.T) {
 	require.Len(t, rows, 3)
 	assert.Equal(t, "0.730", rows[2]["fcd"], "after the gap the default Rs/Rso 0.8 applies")
 
-	withoutGap := "time,air_temp_c,rh_pct,wind_ms,solar_wm2\n" +
+	withoutGap := "time,air_temp_c,rh_pct,wind_m_s,solar_w_m2\n" +
 		"2026-07-14T15:00,25,70,2,120\n" +
 		"2026-07-14T16:00,24,72,2,100\n"
 	for h := 17; h <= 22; h++ {
@@ -461,7 +461,7 @@ func TestCalcMinWindAndGreenhouse(t *testing.T) {
 	station := []string{"--lat", "37.48", "--lon", "14.06", "--elevation", "310", "--utc-offset", "1"}
 	hour := func(wind string, args ...string) map[string]string {
 		t.Helper()
-		in := "time,air_temp_c,rh_pct,wind_ms,solar_wm2\n2026-07-14T12:00,31,40," + wind + ",900\n"
+		in := "time,air_temp_c,rh_pct,wind_m_s,solar_w_m2\n2026-07-14T12:00,31,40," + wind + ",900\n"
 		code, out, errOut := calc(t, in, append(append([]string(nil), station...), args...)...)
 		require.Equal(t, exitOK, code, errOut)
 		rows := table(t, out)
@@ -479,7 +479,7 @@ func TestCalcMinWindAndGreenhouse(t *testing.T) {
 
 	assert.Equal(t, hour("0.1", "--inside-greenhouse")["et_mm"], hour("6", "--inside-greenhouse")["et_mm"], "the measured wind is not used inside")
 
-	in := "time,air_temp_c,rh_pct,wind_ms,solar_wm2\n2026-07-14T12:00,31,40,1,900\n"
+	in := "time,air_temp_c,rh_pct,wind_m_s,solar_w_m2\n2026-07-14T12:00,31,40,1,900\n"
 	code, _, errOut := calc(t, in, append(station, "--min-wind", "-1")...)
 	assert.Equal(t, exitUsage, code)
 	assert.Contains(t, errOut, "--min-wind: -1 m/s outside 0..2")

@@ -19,8 +19,9 @@ type CalcOptions struct {
 	// SkipBad reports bad rows to Report and continues; otherwise the first
 	// bad row ends the run with its error.
 	SkipBad bool
-	// Report receives one line per non-fatal event: gaps in the hours, and
-	// skipped rows when SkipBad is set. Nil discards them.
+	// Report receives one line per non-fatal event: old column names in
+	// the header (Reader.Deprecations), gaps in the hours, and skipped rows
+	// when SkipBad is set. Nil discards them.
 	Report io.Writer
 }
 
@@ -56,6 +57,9 @@ func Calc(ctx context.Context, in io.Reader, out io.Writer, opt CalcOptions) (Su
 	rd, err := NewReader(in, Options{UTCOffset: opt.Station.UTCOffset, WindHeight: opt.WindHeight})
 	if err != nil {
 		return sum, fmt.Errorf("calc: %w", err)
+	}
+	for _, line := range rd.Deprecations() {
+		fmt.Fprintln(report, line)
 	}
 
 	var (

@@ -17,7 +17,7 @@ var demoStation = hourly.Station{Latitude: 37.48, Longitude: 14.06, Elevation: 3
 func TestCalcDailyPartialDay(t *testing.T) {
 	// Two hours of one day and one hour of the next: no daily-equation value
 	// for incomplete days, rain empty where no hour had a rain value.
-	in := "time,air_temp_c,rh_pct,wind_ms,solar_wm2,rain_mm\n" +
+	in := "time,air_temp_c,rh_pct,wind_m_s,solar_w_m2,rain_mm\n" +
 		"2026-07-14T11:00,30,40,2,900,1.5\n" +
 		"2026-07-14T12:00,31,38,2,950,0.5\n" +
 		"2026-07-15T12:00,31,38,2,950,\n"

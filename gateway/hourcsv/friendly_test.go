@@ -16,7 +16,7 @@ import (
 // TestHeaderSemicolons: a spreadsheet export with ";" between the columns
 // is named as such, with the fix, instead of one unknown column.
 func TestHeaderSemicolons(t *testing.T) {
-	src := "time;air_temp_c;rh_pct;wind_ms;solar_wm2\n2026-07-01T14:00;22,4;52;3,3;680\n"
+	src := "time;air_temp_c;rh_pct;wind_m_s;solar_w_m2\n2026-07-01T14:00;22,4;52;3,3;680\n"
 	_, err := NewReader(strings.NewReader(src), Options{UTCOffset: 1})
 	require.Error(t, err)
 	assert.True(t, errors.Is(err, ErrHeader))
@@ -29,7 +29,7 @@ func TestHeaderSemicolons(t *testing.T) {
 // comma with the number it probably means; an unquoted one that splits the
 // row in two says so too.
 func TestDecimalComma(t *testing.T) {
-	src := "time,air_temp_c,rh_pct,wind_ms,solar_wm2\n" +
+	src := "time,air_temp_c,rh_pct,wind_m_s,solar_w_m2\n" +
 		"2026-07-01T14:00,\"22,4\",52,3.3,680\n" +
 		"2026-07-01T15:00,22,4,52,3.3,680\n"
 	_, bad := readAll(t, src, Options{UTCOffset: 1})
@@ -41,7 +41,7 @@ func TestDecimalComma(t *testing.T) {
 // TestUnitInValue: a unit typed into a cell is named, with the number alone
 // as the fix.
 func TestUnitInValue(t *testing.T) {
-	src := "time,air_temp_c,rh_pct,wind_ms,solar_wm2\n2026-07-01T14:00,22.4 °C,52%,3.3,680\n"
+	src := "time,air_temp_c,rh_pct,wind_m_s,solar_w_m2\n2026-07-01T14:00,22.4 °C,52%,3.3,680\n"
 	_, bad := readAll(t, src, Options{UTCOffset: 1})
 	require.Len(t, bad, 1)
 	assert.Equal(t, `line 2: column air_temp_c: value "22.4 °C": not a number: the unit "°C" is in the value; write 22.4 (the column name gives the unit)`, bad[0].Error())
@@ -72,7 +72,7 @@ func TestNumberHint(t *testing.T) {
 // the repeated hour names the clock change too.
 func TestDaylightSavingHours(t *testing.T) {
 	row := func(ts string) string { return ts + ",12,80,2,0\n" }
-	head := "time,air_temp_c,rh_pct,wind_ms,solar_wm2\n"
+	head := "time,air_temp_c,rh_pct,wind_m_s,solar_w_m2\n"
 	spring := head + row("2026-03-29T00:00") + row("2026-03-29T01:00") + row("2026-03-29T03:00") + row("2026-03-29T04:00")
 	var out, rep bytes.Buffer
 	_, err := Calc(context.Background(), strings.NewReader(spring), &out, CalcOptions{

@@ -18,10 +18,12 @@ import (
 // rejected row must carry its line number. The committed corpus lives in
 // testdata/fuzz/FuzzReadHours.
 func FuzzReadHours(f *testing.F) {
-	f.Add([]byte("time,air_temp_c,rh_pct,wind_ms,solar_wm2\n2026-10-01T14:00,38,52,3.3,680.5556\n2026-10-01T15:00,37,50,3.1,600\n"), 0.0, 2.0)
-	f.Add([]byte("time,air_temp_c,dewpoint_c,wind_ms,solar_wm2,rain_mm\n2026-07-01T00:00:00Z,20,12,2,0,0.2\n"), -8.0, 10.0)
-	f.Add([]byte("ea_kpa,time,air_temp_c,wind_ms,solar_wm2,net_rad_wm2,soil_heat_wm2\n1.2,2026-01-01T00:00+05:30,5,1,0,-40,-8\n"), 5.5, 3.0)
+	f.Add([]byte("time,air_temp_c,rh_pct,wind_m_s,solar_w_m2\n2026-10-01T14:00,38,52,3.3,680.5556\n2026-10-01T15:00,37,50,3.1,600\n"), 0.0, 2.0)
+	f.Add([]byte("time,air_temp_c,dew_point_c,wind_m_s,solar_w_m2,rain_mm\n2026-07-01T00:00:00Z,20,12,2,0,0.2\n"), -8.0, 10.0)
+	f.Add([]byte("ea_kpa,time,air_temp_c,wind_m_s,solar_w_m2,net_rad_w_m2,soil_heat_w_m2\n1.2,2026-01-01T00:00+05:30,5,1,0,-40,-8\n"), 5.5, 3.0)
 	f.Add(SyntheticYears(2026, 1)[:1200], 1.0, 2.0)
+	// The old column names (OldColumns), still read.
+	f.Add([]byte("time,air_temp_c,dewpoint_c,wind_ms,solar_wm2,net_rad_wm2,soil_heat_wm2\n2026-07-01T12:00,30,20,2,800,500,50\n"), 0.0, 3.0)
 	f.Fuzz(checkReadHours)
 }
 

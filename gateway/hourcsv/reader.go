@@ -17,27 +17,39 @@ import (
 	"strings"
 	"time"
 
+	"etpulse/gateway/vocab"
 	"etpulse/hourly"
 )
 
-// Input column names.
+// Input column names: the vocabulary's (gateway/vocab, "calc input").
 const (
 	ColTime      = "time"          // hour start: station standard time, or RFC 3339 with an offset
-	ColAirTemp   = "air_temp_c"    // mean air temperature, °C
-	ColRH        = "rh_pct"        // mean relative humidity, %
-	ColDewPoint  = "dewpoint_c"    // mean dew point, °C
-	ColEa        = "ea_kpa"        // actual vapour pressure, kPa
-	ColWind      = "wind_ms"       // mean wind speed at the sensor height (Options.WindHeight), m/s
-	ColWind2m    = "wind_2m_m_s"   // mean wind speed at 2 m (gateway/vocab's name); only with a wind height of 2 m
-	ColSolar     = "solar_wm2"     // mean incoming solar radiation over the hour, W m-2
-	ColNetRad    = "net_rad_wm2"   // optional measured net radiation, mean W m-2
-	ColSoilHeat  = "soil_heat_wm2" // optional measured soil heat flux, mean W m-2, positive into the soil
-	ColRain      = "rain_mm"       // optional rain over the hour, mm
+	ColAirTemp   = vocab.AirTempC  // mean air temperature, °C
+	ColRH        = vocab.RHPct     // mean relative humidity, %
+	ColDewPoint  = vocab.DewPointC // mean dew point, °C
+	ColEa        = vocab.EaKPa     // actual vapour pressure, kPa
+	ColWind      = vocab.WindMS    // mean wind speed at the sensor height (Options.WindHeight), m/s
+	ColWind2m    = vocab.Wind2mMS  // mean wind speed at 2 m; only with a wind height of 2 m
+	ColSolar     = vocab.SolarW    // mean incoming solar radiation over the hour, W m-2
+	ColNetRad    = vocab.NetRadW   // optional measured net radiation, mean W m-2
+	ColSoilHeat  = vocab.SoilHeatW // optional measured soil heat flux, mean W m-2, positive into the soil
+	ColRain      = vocab.RainMM    // optional rain over the hour, mm
 	humidityCols = ColRH + ", " + ColDewPoint + " or " + ColEa
 )
 
 // Columns lists every accepted input column, required ones first.
 var Columns = []string{ColTime, ColAirTemp, ColRH, ColDewPoint, ColEa, ColWind, ColWind2m, ColSolar, ColNetRad, ColSoilHeat, ColRain}
+
+// OldColumns maps the input column names used before the vocabulary's
+// names to the names now. A header with an old name is still read, and
+// Reader.Deprecations says which name replaces it, until a later release.
+var OldColumns = map[string]string{
+	"dewpoint_c":    ColDewPoint,
+	"wind_ms":       ColWind,
+	"solar_wm2":     ColSolar,
+	"net_rad_wm2":   ColNetRad,
+	"soil_heat_wm2": ColSoilHeat,
+}
 
 // ErrHeader is wrapped by every error about the header line: an unknown,
 // duplicate or missing column. Such a file cannot be read at all.
@@ -115,7 +127,9 @@ type Reader struct {
 	idxSoil    int
 	idxRain    int
 	windFactor float64
-	windHeight float64 // m
+	windHeight float64  // m
+	names      []string // the header's column names, lower case, as the file spells them
+	deprecated []string // one line per old column name in the header
 	prev       time.Time
 	havePrev   bool
 	prevLine   int
@@ -174,7 +188,9 @@ func NewReader(r io.Reader, opt Options) (*Reader, error) {
 
 func (rd *Reader) mapHeader(head []string, line int) error {
 	seen := make(map[string]int, len(head))
+	canonical := make(map[string]int, len(head)) // current name -> column
 	var humCols []string
+	rd.names = make([]string, len(head))
 	for i, raw := range head {
 		name := strings.ToLower(strings.TrimSpace(raw))
 		if name == "" {
@@ -184,13 +200,23 @@ func (rd *Reader) mapHeader(head []string, line int) error {
 			return fmt.Errorf("%w: line %d: column %q appears twice (columns %d and %d)", ErrHeader, line, name, j+1, i+1)
 		}
 		seen[name] = i
+		rd.names[i] = name
+		if now, ok := OldColumns[name]; ok {
+			rd.deprecated = append(rd.deprecated, fmt.Sprintf("column %s is now %s; the old name is read until a later release", name, now))
+			name = now
+		}
+		if j, dup := canonical[name]; dup {
+			return fmt.Errorf("%w: line %d: columns %q and %q are the new and the old name of one quantity: keep %q",
+				ErrHeader, line, name, oldName(rd.names[i], rd.names[j]), name)
+		}
+		canonical[name] = i
 		switch name {
 		case ColTime:
 			rd.idxTime = i
 		case ColAirTemp:
 			rd.idxTemp = i
 		case ColRH, ColDewPoint, ColEa:
-			humCols = append(humCols, name)
+			humCols = append(humCols, rd.names[i])
 			rd.idxHum = i
 			switch name {
 			case ColRH:
@@ -206,6 +232,7 @@ func (rd *Reader) mapHeader(head []string, line int) error {
 			}
 			rd.idxWind = i
 			if name == ColWind2m && rd.windHeight != 2 {
+				// The wind height belongs to wind_m_s.
 				return fmt.Errorf("%w: line %d: column %q is wind at 2 m, but the wind height is %g m: name the column %q (wind at the wind height) or leave the wind height at 2 m", ErrHeader, line, name, rd.windHeight, ColWind)
 			}
 		case ColSolar:
@@ -238,6 +265,14 @@ func (rd *Reader) mapHeader(head []string, line int) error {
 	}
 	return nil
 }
+
+// Deprecations returns one line per old column name (OldColumns) in the
+// header, in header order, naming the new name; nil when there is none.
+// Calc writes them to its report.
+func (rd *Reader) Deprecations() []string { return rd.deprecated }
+
+// col is the name the file gives column i.
+func (rd *Reader) col(i int) string { return rd.names[i] }
 
 // Read returns the next good row, io.EOF at the end of the input, a
 // *RowError for a bad row (reading may continue with the next call), or
@@ -291,13 +326,13 @@ func (rd *Reader) Read() (Row, error) {
 	}
 	h.Start = start
 
-	if h.AirTemp, err = rd.number(rec, rd.idxTemp, ColAirTemp, line); err != nil {
+	if h.AirTemp, err = rd.number(rec, rd.idxTemp, line); err != nil {
 		return Row{}, err
 	}
 	if h.AirTemp < hourly.MinAirTemp || h.AirTemp > hourly.MaxAirTemp {
 		// Checked here, before the humidity conversion uses it, so the error
 		// names the right column.
-		return Row{}, &RowError{Line: line, Column: ColAirTemp, Value: cellAt(rec, rd.idxTemp),
+		return Row{}, &RowError{Line: line, Column: rd.col(rd.idxTemp), Value: cellAt(rec, rd.idxTemp),
 			Err: fmt.Errorf("outside %g..%g degC: %w", hourly.MinAirTemp, hourly.MaxAirTemp, hourly.ErrInput)}
 	}
 	if h.Ea, err = rd.humidity(rec, h.AirTemp, line); err != nil {
@@ -306,26 +341,26 @@ func (rd *Reader) Read() (Row, error) {
 	if h.Wind2, err = rd.wind(rec, line); err != nil {
 		return Row{}, err
 	}
-	solar, err := rd.number(rec, rd.idxSolar, ColSolar, line)
+	solar, err := rd.number(rec, rd.idxSolar, line)
 	if err != nil {
 		return Row{}, err
 	}
 	h.Solar = hourly.WattsToMJ(solar, 1)
-	if v, ok, err := rd.optional(rec, rd.idxNetRad, ColNetRad, line); err != nil {
+	if v, ok, err := rd.optional(rec, rd.idxNetRad, line); err != nil {
 		return Row{}, err
 	} else if ok {
 		h.NetRad, h.HasNetRad = hourly.WattsToMJ(v, 1), true
 	}
-	if v, ok, err := rd.optional(rec, rd.idxSoil, ColSoilHeat, line); err != nil {
+	if v, ok, err := rd.optional(rec, rd.idxSoil, line); err != nil {
 		return Row{}, err
 	} else if ok {
 		h.SoilHeat, h.HasSoilHeat = hourly.WattsToMJ(v, 1), true
 	}
-	if v, ok, err := rd.optional(rec, rd.idxRain, ColRain, line); err != nil {
+	if v, ok, err := rd.optional(rec, rd.idxRain, line); err != nil {
 		return Row{}, err
 	} else if ok {
 		if v < 0 {
-			return Row{}, &RowError{Line: line, Column: ColRain, Value: cellAt(rec, rd.idxRain), Err: errors.New("rain must be >= 0 mm")}
+			return Row{}, &RowError{Line: line, Column: rd.col(rd.idxRain), Value: cellAt(rec, rd.idxRain), Err: errors.New("rain must be >= 0 mm")}
 		}
 		row.Rain, row.HasRain = v, true
 	}
@@ -337,22 +372,23 @@ func (rd *Reader) Read() (Row, error) {
 func cellAt(rec []string, i int) string { return strings.TrimSpace(rec[i]) }
 
 // number parses a required numeric cell.
-func (rd *Reader) number(rec []string, i int, col string, line int) (float64, error) {
-	v, ok, err := rd.optional(rec, i, col, line)
+func (rd *Reader) number(rec []string, i int, line int) (float64, error) {
+	v, ok, err := rd.optional(rec, i, line)
 	if err != nil {
 		return 0, err
 	}
 	if !ok {
-		return 0, &RowError{Line: line, Column: col, Value: "", Err: errors.New("empty, and the column is required")}
+		return 0, &RowError{Line: line, Column: rd.col(i), Value: "", Err: errors.New("empty, and the column is required")}
 	}
 	return v, nil
 }
 
 // optional parses a numeric cell that may be empty (ok false) or absent (i < 0).
-func (rd *Reader) optional(rec []string, i int, col string, line int) (v float64, ok bool, err error) {
+func (rd *Reader) optional(rec []string, i int, line int) (v float64, ok bool, err error) {
 	if i < 0 {
 		return 0, false, nil
 	}
+	col := rd.col(i)
 	s := cellAt(rec, i)
 	if s == "" {
 		return 0, false, nil
@@ -370,14 +406,7 @@ func (rd *Reader) optional(rec []string, i int, col string, line int) (v float64
 // humidity returns the hour's actual vapour pressure ea, kPa, from whichever
 // humidity column the file has.
 func (rd *Reader) humidity(rec []string, airTemp float64, line int) (float64, error) {
-	col := ColRH
-	switch rd.hum {
-	case humDewPoint:
-		col = ColDewPoint
-	case humEa:
-		col = ColEa
-	}
-	v, err := rd.number(rec, rd.idxHum, col, line)
+	v, err := rd.number(rec, rd.idxHum, line)
 	if err != nil {
 		return 0, err
 	}
@@ -394,19 +423,27 @@ func (rd *Reader) humidity(rec []string, airTemp float64, line int) (float64, er
 		}
 	}
 	if err != nil {
-		return 0, &RowError{Line: line, Column: col, Value: cellAt(rec, rd.idxHum), Err: err}
+		return 0, &RowError{Line: line, Column: rd.col(rd.idxHum), Value: cellAt(rec, rd.idxHum), Err: err}
 	}
 	return ea, nil
 }
 
+// oldName returns whichever of a and b is an old column name.
+func oldName(a, b string) string {
+	if _, ok := OldColumns[a]; ok {
+		return a
+	}
+	return b
+}
+
 // wind returns the wind speed adjusted from the sensor height to 2 m.
 func (rd *Reader) wind(rec []string, line int) (float64, error) {
-	v, err := rd.number(rec, rd.idxWind, ColWind, line)
+	v, err := rd.number(rec, rd.idxWind, line)
 	if err != nil {
 		return 0, err
 	}
 	if v < 0 {
-		return 0, &RowError{Line: line, Column: ColWind, Value: cellAt(rec, rd.idxWind), Err: errors.New("wind speed must be >= 0 m/s")}
+		return 0, &RowError{Line: line, Column: rd.col(rd.idxWind), Value: cellAt(rec, rd.idxWind), Err: errors.New("wind speed must be >= 0 m/s")}
 	}
 	return v * rd.windFactor, nil // FAO-56 eq. 47 factor from hourly.WindFactor
 }

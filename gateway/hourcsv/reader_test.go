@@ -41,7 +41,7 @@ func readAll(t *testing.T, src string, opt Options) ([]Row, []*RowError) {
 
 func TestReadColumnsInAnyOrder(t *testing.T) {
 	src := "# comment line\n" +
-		" Solar_Wm2 ,wind_ms,rain_mm,rh_pct,air_temp_c,time\n" +
+		" Solar_W_M2 ,wind_m_s,rain_mm,rh_pct,air_temp_c,time\n" +
 		"\n" +
 		"680.5556,3.3,0.2,52,38,2026-10-01T14:00\n" +
 		"0,1.9,,90,28,2026-10-01T15:00\n"
@@ -73,7 +73,7 @@ func TestReadColumnsInAnyOrder(t *testing.T) {
 
 func TestReadSpreadsheetExport(t *testing.T) {
 	// Byte order mark, quoted cells, CRLF line ends, as spreadsheets write.
-	src := "\ufeff\"time\",\"Air_Temp_C\",\"rh_pct\",\"wind_ms\",\"solar_wm2\"\r\n" +
+	src := "\ufeff\"time\",\"Air_Temp_C\",\"rh_pct\",\"wind_m_s\",\"solar_w_m2\"\r\n" +
 		"\"2026-07-14T12:00\",\"31.5\",\"40\",\"2.5\",\"900\"\r\n"
 	rows, bad := readAll(t, src, Options{})
 	require.Empty(t, bad)
@@ -84,11 +84,11 @@ func TestReadSpreadsheetExport(t *testing.T) {
 func TestReadHumidityForms(t *testing.T) {
 	// FAO-56 Annex 2 Table 2.3 (from memory): e°(20 degC) = 2.338 kPa, so a
 	// dew point of 20 degC gives ea = 2.338 kPa (FAO-56 eq. 14).
-	rows, bad := readAll(t, "time,air_temp_c,dewpoint_c,wind_ms,solar_wm2\n2026-07-01T12:00,30,20,2,800\n", Options{})
+	rows, bad := readAll(t, "time,air_temp_c,dew_point_c,wind_m_s,solar_w_m2\n2026-07-01T12:00,30,20,2,800\n", Options{})
 	require.Empty(t, bad)
 	assert.InDelta(t, 2.338, rows[0].Hour.Ea, 0.0005)
 
-	rows, bad = readAll(t, "time,air_temp_c,ea_kpa,wind_ms,solar_wm2\n2026-07-01T12:00,30,1.75,2,800\n", Options{})
+	rows, bad = readAll(t, "time,air_temp_c,ea_kpa,wind_m_s,solar_w_m2\n2026-07-01T12:00,30,1.75,2,800\n", Options{})
 	require.Empty(t, bad)
 	assert.Equal(t, 1.75, rows[0].Hour.Ea)
 }
@@ -98,14 +98,14 @@ func TestReadWindHeight(t *testing.T) {
 	// 2 m, published to one decimal. Re-derived by hand from FAO-56 eq. 47:
 	// 4.87 / ln(67.8 x 10 - 5.42) = 4.87 / ln(672.58) = 4.87 / 6.5111 = 0.7480,
 	// and 3.2 x 0.7480 = 2.393 m/s.
-	rows, bad := readAll(t, "time,air_temp_c,rh_pct,wind_ms,solar_wm2\n2026-07-01T12:00,30,40,3.2,800\n", Options{WindHeight: 10})
+	rows, bad := readAll(t, "time,air_temp_c,rh_pct,wind_m_s,solar_w_m2\n2026-07-01T12:00,30,40,3.2,800\n", Options{WindHeight: 10})
 	require.Empty(t, bad)
 	assert.InDelta(t, 2.4, rows[0].Hour.Wind2, 0.05)
 	assert.InDelta(t, 2.393, rows[0].Hour.Wind2, 0.001)
 }
 
 func TestReadMeasuredFluxes(t *testing.T) {
-	rows, bad := readAll(t, "time,air_temp_c,rh_pct,wind_ms,solar_wm2,net_rad_wm2,soil_heat_wm2\n"+
+	rows, bad := readAll(t, "time,air_temp_c,rh_pct,wind_m_s,solar_w_m2,net_rad_w_m2,soil_heat_w_m2\n"+
 		"2026-07-01T12:00,30,40,2,800,500,-20\n2026-07-01T13:00,30,40,2,800,,\n", Options{})
 	require.Empty(t, bad)
 	h := rows[0].Hour
@@ -118,7 +118,7 @@ func TestReadMeasuredFluxes(t *testing.T) {
 }
 
 func TestReadTimeForms(t *testing.T) {
-	src := "time,air_temp_c,rh_pct,wind_ms,solar_wm2\n" +
+	src := "time,air_temp_c,rh_pct,wind_m_s,solar_w_m2\n" +
 		"2026-07-01T05:00,20,50,2,0\n" + // station standard time
 		"2026-06-30T22:00:00Z,20,50,2,0\n" + // UTC -> 06:00 next day at UTC+8
 		"2026-07-01T07:00:00+08:00,20,50,2,0\n" + // the station's own offset
@@ -136,7 +136,7 @@ func TestReadTimeForms(t *testing.T) {
 }
 
 func TestReadGapsAndOrder(t *testing.T) {
-	src := "time,air_temp_c,rh_pct,wind_ms,solar_wm2\n" +
+	src := "time,air_temp_c,rh_pct,wind_m_s,solar_w_m2\n" +
 		"2026-07-01T00:00,20,50,2,0\n" +
 		"2026-07-01T01:00,20,50,2,0\n" +
 		"2026-07-01T04:00,20,50,2,0\n" + // 2 h missing
@@ -156,17 +156,17 @@ func TestReadGapsAndOrder(t *testing.T) {
 }
 
 func TestReadBadRows(t *testing.T) {
-	head := "time,air_temp_c,rh_pct,wind_ms,solar_wm2,rain_mm\n"
+	head := "time,air_temp_c,rh_pct,wind_m_s,solar_w_m2,rain_mm\n"
 	for _, tc := range []struct {
 		name, row, want string
 	}{
 		{"bad number", "2026-07-01T12:00,abc,50,2,800,0", `line 2: column air_temp_c: value "abc": not a number`},
-		{"number with unit", "2026-07-01T12:00,30,50,2 m/s,800,0", `line 2: column wind_ms: value "2 m/s": not a number: the unit "m/s" is in the value; write 2 (the column name gives the unit)`},
+		{"number with unit", "2026-07-01T12:00,30,50,2 m/s,800,0", `line 2: column wind_m_s: value "2 m/s": not a number: the unit "m/s" is in the value; write 2 (the column name gives the unit)`},
 		{"nan", "2026-07-01T12:00,NaN,50,2,800,0", `line 2: column air_temp_c: value "NaN": not a finite number`},
-		{"inf", "2026-07-01T12:00,30,50,2,+Inf,0", `line 2: column solar_wm2: value "+Inf": not a finite number`},
+		{"inf", "2026-07-01T12:00,30,50,2,+Inf,0", `line 2: column solar_w_m2: value "+Inf": not a finite number`},
 		{"empty required", "2026-07-01T12:00,30,,2,800,0", `line 2: column rh_pct: value "": empty, and the column is required`},
 		{"rh out of range", "2026-07-01T12:00,30,150,2,800,0", `line 2: column rh_pct: value "150": relative humidity: 150 % outside 0..100: bad input`},
-		{"negative wind", "2026-07-01T12:00,30,50,-1,800,0", `line 2: column wind_ms: value "-1": wind speed must be >= 0 m/s`},
+		{"negative wind", "2026-07-01T12:00,30,50,-1,800,0", `line 2: column wind_m_s: value "-1": wind speed must be >= 0 m/s`},
 		{"negative rain", "2026-07-01T12:00,30,50,2,800,-0.2", `line 2: column rain_mm: value "-0.2": rain must be >= 0 mm`},
 		{"field count", "2026-07-01T12:00,30,50,2,800", `line 2: has 5 fields, the header has 6`},
 		{"bad time", "01/07/2026 12:00,30,50,2,800,0", `line 2: column time: value "01/07/2026 12:00": ` + errTimeSyntax.Error()},
@@ -186,7 +186,7 @@ func TestReadBadRows(t *testing.T) {
 }
 
 func TestReadContinuesAfterBadRow(t *testing.T) {
-	src := "time,air_temp_c,rh_pct,wind_ms,solar_wm2\n" +
+	src := "time,air_temp_c,rh_pct,wind_m_s,solar_w_m2\n" +
 		"2026-07-01T00:00,20,50,2,0\n" +
 		"2026-07-01T01:00,x,50,2,0\n" +
 		"2026-07-01T02:00,20,50,2\n" +
@@ -206,20 +206,20 @@ func TestHeaderErrors(t *testing.T) {
 	}{
 		{"empty input", "", "read weather csv: bad header: empty input, expected a header line naming the columns"},
 		{"only comments", "# nothing\n\n", "read weather csv: bad header: empty input, expected a header line naming the columns"},
-		{"unknown column", "time,air_temp_c,rh_pct,wind_ms,solar_wm2,leaf_wetness\n",
-			`read weather csv: bad header: line 1: unknown column "leaf_wetness" (accepted: time, air_temp_c, rh_pct, dewpoint_c, ea_kpa, wind_ms, wind_2m_m_s, solar_wm2, net_rad_wm2, soil_heat_wm2, rain_mm)`},
-		{"missing time", "air_temp_c,rh_pct,wind_ms,solar_wm2\n", `read weather csv: bad header: line 1: missing required column "time"`},
-		{"missing air temp", "time,rh_pct,wind_ms,solar_wm2\n", `read weather csv: bad header: line 1: missing required column "air_temp_c"`},
-		{"missing wind", "time,air_temp_c,rh_pct,solar_wm2\n", `read weather csv: bad header: line 1: missing required column "wind_ms"`},
-		{"missing solar", "# c\ntime,air_temp_c,rh_pct,wind_ms\n", `read weather csv: bad header: line 2: missing required column "solar_wm2"`},
-		{"no humidity", "time,air_temp_c,wind_ms,solar_wm2\n",
-			"read weather csv: bad header: line 1: missing humidity column: give exactly one of rh_pct, dewpoint_c or ea_kpa"},
-		{"two humidity", "time,air_temp_c,rh_pct,dewpoint_c,wind_ms,solar_wm2\n",
-			"read weather csv: bad header: line 1: columns dewpoint_c and rh_pct all give humidity: give exactly one of rh_pct, dewpoint_c or ea_kpa"},
-		{"duplicate", "time,air_temp_c,rh_pct,wind_ms,solar_wm2,Time\n",
+		{"unknown column", "time,air_temp_c,rh_pct,wind_m_s,solar_w_m2,leaf_wetness\n",
+			`read weather csv: bad header: line 1: unknown column "leaf_wetness" (accepted: time, air_temp_c, rh_pct, dew_point_c, ea_kpa, wind_m_s, wind_2m_m_s, solar_w_m2, net_rad_w_m2, soil_heat_w_m2, rain_mm)`},
+		{"missing time", "air_temp_c,rh_pct,wind_m_s,solar_w_m2\n", `read weather csv: bad header: line 1: missing required column "time"`},
+		{"missing air temp", "time,rh_pct,wind_m_s,solar_w_m2\n", `read weather csv: bad header: line 1: missing required column "air_temp_c"`},
+		{"missing wind", "time,air_temp_c,rh_pct,solar_w_m2\n", `read weather csv: bad header: line 1: missing required column "wind_m_s"`},
+		{"missing solar", "# c\ntime,air_temp_c,rh_pct,wind_m_s\n", `read weather csv: bad header: line 2: missing required column "solar_w_m2"`},
+		{"no humidity", "time,air_temp_c,wind_m_s,solar_w_m2\n",
+			"read weather csv: bad header: line 1: missing humidity column: give exactly one of rh_pct, dew_point_c or ea_kpa"},
+		{"two humidity", "time,air_temp_c,rh_pct,dew_point_c,wind_m_s,solar_w_m2\n",
+			"read weather csv: bad header: line 1: columns dew_point_c and rh_pct all give humidity: give exactly one of rh_pct, dew_point_c or ea_kpa"},
+		{"duplicate", "time,air_temp_c,rh_pct,wind_m_s,solar_w_m2,Time\n",
 			`read weather csv: bad header: line 1: column "time" appears twice (columns 1 and 6)`},
 		{"bad quote", "time,\"air_temp_c\"x,rh_pct\n", `read weather csv: bad header: line 1: extraneous or missing " in quoted-field`},
-		{"empty name", "time,air_temp_c,,rh_pct,wind_ms,solar_wm2\n", "read weather csv: bad header: line 1: column 3 has an empty name"},
+		{"empty name", "time,air_temp_c,,rh_pct,wind_m_s,solar_w_m2\n", "read weather csv: bad header: line 1: column 3 has an empty name"},
 	} {
 		t.Run(tc.name, func(t *testing.T) {
 			_, err := NewReader(strings.NewReader(tc.src), Options{})

@@ -30,7 +30,7 @@ func TestCalcCarryRuleAsLive(t *testing.T) {
 		// 2026-07-15 missing entirely: its sunny hours were missed
 		"2026-07-16T02:00,20,70,1,0",
 	}
-	in := "time,air_temp_c,rh_pct,wind_ms,solar_wm2\n" + strings.Join(rows, "\n") + "\n"
+	in := "time,air_temp_c,rh_pct,wind_m_s,solar_w_m2\n" + strings.Join(rows, "\n") + "\n"
 	var out, report bytes.Buffer
 	sum, err := Calc(context.Background(), strings.NewReader(in), &out, CalcOptions{Station: st, Reference: hourly.Short, Report: &report})
 	require.NoError(t, err)

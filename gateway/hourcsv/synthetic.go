@@ -7,7 +7,7 @@ import (
 )
 
 // SyntheticYears returns an hourly weather CSV (time, air_temp_c, rh_pct,
-// wind_ms, solar_wm2, rain_mm) of years consecutive years starting on 1
+// wind_m_s, solar_w_m2, rain_mm) of years consecutive years starting on 1
 // January of startYear, for benchmarks and load tests. The weather is made
 // up: smooth daily and seasonal cycles for a mid-latitude northern site with
 // a little deterministic noise, no sources and no check values.
@@ -16,7 +16,7 @@ func SyntheticYears(startYear, years int) []byte {
 	end := start.AddDate(years, 0, 0)
 	n := int(end.Sub(start) / time.Hour)
 	out := make([]byte, 0, 48*(n+1))
-	out = append(out, "time,air_temp_c,rh_pct,wind_ms,solar_wm2,rain_mm\n"...)
+	out = append(out, "time,air_temp_c,rh_pct,wind_m_s,solar_w_m2,rain_mm\n"...)
 	noise := uint32(2463534242)
 	next := func() float64 { // xorshift32 in 0..1
 		noise ^= noise << 13

@@ -36,6 +36,7 @@ const (
 	ReplayCSV                      // etpulse replay
 	Status                         // status JSON API (/api/v1)
 	Report                         // morning report JSON
+	CalcInput                      // etpulse calc, the weather CSV read
 )
 
 var whereNames = []struct {
@@ -43,7 +44,7 @@ var whereNames = []struct {
 	name string
 }{
 	{Record, "record"}, {StationState, "station state"}, {ZoneState, "zone state"},
-	{Store, "store"}, {HourCSV, "calc"}, {DayCSV, "calc --daily"}, {ReplayCSV, "replay"},
+	{Store, "store"}, {CalcInput, "calc input"}, {HourCSV, "calc"}, {DayCSV, "calc --daily"}, {ReplayCSV, "replay"},
 	{Status, "status API"}, {Report, "report"},
 }
 
@@ -126,6 +127,14 @@ const (
 	DepletionStartMM = "depletion_start_mm"
 	DepletionEndMM   = "depletion_end_mm"
 	FormatVersionKey = "format_version"
+
+	// Input columns of the weather CSV that etpulse calc reads, in the
+	// units the file gives (the hour's means of the sensors' readings).
+	DewPointC = "dew_point_c"
+	WindMS    = "wind_m_s"
+	SolarW    = "solar_w_m2"
+	NetRadW   = "net_rad_w_m2"
+	SoilHeatW = "soil_heat_w_m2"
 )
 
 // Name is one row of the table.
@@ -147,15 +156,15 @@ const (
 var table = []Name{
 	{ETmm, precision.MM, "reference ET of the hour (or of the day in calc --daily, the sum of its hours)", all | hcsv | DayCSV | Status | Report},
 	{ETDailyMM, precision.MM, "reference ET of the day by the daily equation (FAO-56 eq. 6), for comparison", DayCSV},
-	{RainMM, precision.MM, "rain fallen in the hour (or day)", all | DayCSV | Status | Report},
-	{AirTempC, precision.Celsius, "mean air temperature of the hour", all | Status},
+	{RainMM, precision.MM, "rain fallen in the hour (or day)", all | DayCSV | Status | Report | CalcInput},
+	{AirTempC, precision.Celsius, "mean air temperature of the hour", all | Status | CalcInput},
 	{AirTempMinC, precision.Celsius, "lowest hourly mean air temperature of the day", DayCSV},
 	{AirTempMaxC, precision.Celsius, "highest hourly mean air temperature of the day", DayCSV},
-	{RHPct, precision.Percent, "relative humidity of the hour, 100 ea/es", Status},
-	{EaKPa, precision.KPa, "actual vapour pressure (hour mean of the samples' ea)", all | hcsv | DayCSV},
+	{RHPct, precision.Percent, "relative humidity of the hour, 100 ea/es (calc input: the hour's mean)", Status | CalcInput},
+	{EaKPa, precision.KPa, "actual vapour pressure (hour mean of the samples' ea)", all | hcsv | DayCSV | CalcInput},
 	{EsKPa, precision.KPa, "saturation vapour pressure at the hour's air temperature (FAO-56 eq. 11)", rec | HourCSV},
 	{VPDKPa, precision.KPa, "vapour pressure deficit es - ea", rec},
-	{Wind2mMS, precision.MPerS, "mean wind speed at 2 m (FAO-56 eq. 47 from the sensor height)", all | DayCSV},
+	{Wind2mMS, precision.MPerS, "mean wind speed at 2 m (FAO-56 eq. 47 from the sensor height)", all | DayCSV | CalcInput},
 	{SolarMJ, precision.MJPerM2, "incoming solar radiation measured (or estimated, see solar_estimated) over the hour", all | DayCSV | Status},
 	{NetRadMJ, precision.MJPerM2, "measured net radiation over the hour (only with a net radiometer)", Record},
 	{SoilHeatMJ, precision.MJPerM2, "measured soil heat flux over the hour (only with a heat flux plate)", Record},
@@ -209,6 +218,11 @@ var table = []Name{
 	{DepletionStartMM, precision.MM, "zone depletion at the start of the report's day", Report},
 	{DepletionEndMM, precision.MM, "zone depletion at the end of the report's day", Report},
 	{FormatVersionKey, "", "version of the output formats (vocab.FormatVersion)", Record | StationState | ZoneState},
+	{DewPointC, precision.Celsius, "mean dew point of the hour (ea from it, FAO-56 eq. 14)", CalcInput},
+	{WindMS, precision.MPerS, "mean wind speed at the sensor height (calc --wind-height)", CalcInput},
+	{SolarW, precision.WPerM2, "mean incoming solar radiation over the hour", CalcInput},
+	{NetRadW, precision.WPerM2, "mean measured net radiation over the hour (replaces the estimate)", CalcInput},
+	{SoilHeatW, precision.WPerM2, "mean measured soil heat flux over the hour, positive into the soil", CalcInput},
 }
 
 var byName = func() map[string]Name {
