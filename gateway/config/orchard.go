@@ -2,7 +2,9 @@ package config
 
 import (
 	"fmt"
+	"math"
 	"strings"
+	"time"
 
 	"etpulse/controllers"
 )
@@ -277,4 +279,79 @@ func insideStations(site *Site) []string {
 		}
 	}
 	return inside
+}
+
+// orchardSummary prints the derived numbers of the partial-cover, wetting,
+// deficit, salinity and greenhouse settings, when any is set.
+func orchardSummary(ew *errWriter, z *Zone, cz *controllers.Zone, s *Site) {
+	if z.Greenhouse {
+		how := "outside station scaled by cover_transmission"
+		if st := s.StationByID(z.Station); st != nil && st.InsideGreenhouse {
+			how = "the inside station's reference ET"
+		}
+		ew.printf("    greenhouse: %s (station %s); Kc is the grower's own figure for the crop under cover\n", how, z.Station)
+	}
+	if cz.Crop.Canopy != nil {
+		ew.printf("    partial cover (Allen and Pereira 2009 density coefficient, FAO-56 eq. 98 form; height %s m, ML %s, Kc soil %s): %s\n",
+			fmtF(cz.Crop.Canopy.Height), fmtF(orDefault(cz.Crop.Canopy.ML, controllers.DefaultML)), fmtF(cz.Crop.Canopy.KcSoil), stageKcs(cz))
+	}
+	if fw := cz.Soil.WettedFraction; fw > 0 {
+		how := "given"
+		switch w := z.Soil.Wetted; {
+		case w.Typical:
+			how = "FAO-56 Table 20 typical for " + z.System.Type + ", from memory"
+		case w.EmitterDiameterM > 0:
+			how = fmt.Sprintf("%d emitters x %s m wetted circles over %s m2", z.System.Drip.EmittersPerPlant, fmtF(w.EmitterDiameterM), fmtF(z.System.Drip.PlantAreaM2))
+		}
+		ew.printf("    wetted fraction %s (%s): TAW, RAW and the refill above are of the wetted soil, over the whole area; in the wetted strip a run's depth is %s times deeper\n",
+			fmtF(round2(fw)), how, fmtF(round2(1/fw)))
+	}
+	for _, d := range cz.Stages {
+		var parts []string
+		if d.MAD > 0 {
+			parts = append(parts, fmt.Sprintf("trigger at mad %s x TAW", fmtF(d.MAD)))
+		}
+		if d.Replace > 0 {
+			parts = append(parts, fmt.Sprintf("each run puts back %s %% of the crop ET since the last run (intended deficit %s %%)", fmtF(d.Replace*100), fmtF(round2((1-d.Replace)*100))))
+		}
+		ew.printf("    deficit stage %s %02d-%02d to %02d-%02d: %s; its stress is reported as intended\n",
+			d.Name, d.FromMonth, d.FromDay, d.ToMonth, d.ToDay, strings.Join(parts, ", "))
+	}
+	if z.Salinity != nil {
+		sal := cz.Salinity
+		if lr := sal.LeachingRequirement(); lr > 0 {
+			ew.printf("    salinity: water %s dS/m, crop threshold %s dS/m: leaching fraction %s (FAO-29 LR = ECw / (5 ECe - ECw)), each run x %s, the extra drains below the roots\n",
+				fmtF(sal.ECw), fmtF(sal.ECe), fmtF(math.Round(lr*1000)/1000), fmtF(round2(1/(1-lr))))
+		} else {
+			ew.printf("    salinity: water %s dS/m is fresh (at or below %s dS/m): no leaching added\n", fmtF(sal.ECw), fmtF(sal.FreshUpTo))
+		}
+	}
+}
+
+// stageKcs names the effective Kc in the middle of each season stage (or
+// the constant Kc) as full-cover -> partial-cover.
+func stageKcs(cz *controllers.Zone) string {
+	se := cz.Crop.Season
+	if se == nil {
+		t := time.Date(2025, 7, 1, 12, 0, 0, 0, cz.Loc)
+		return fmt.Sprintf("Kc %s -> %s (cover %s, Kd %s)", fmtF(round2(cz.Crop.FullKcOn(t))), fmtF(round2(cz.Crop.KcOn(t))),
+			fmtF(round2(cz.Crop.Canopy.CoverOn(t))), fmtF(round2(cz.Crop.Canopy.Kd(t))))
+	}
+	start := time.Date(2025, se.StartMonth, se.StartDay, 12, 0, 0, 0, cz.Loc)
+	var parts []string
+	for _, st := range []struct {
+		name string
+		day  int
+	}{{"initial", se.Initial / 2}, {"development", se.Initial + se.Development/2}, {"mid", se.Initial + se.Development + se.Mid/2}, {"end", se.Length() - 1}} {
+		t := start.AddDate(0, 0, st.day)
+		parts = append(parts, fmt.Sprintf("%s %s -> %s (cover %s)", st.name, fmtF(round2(cz.Crop.FullKcOn(t))), fmtF(round2(cz.Crop.KcOn(t))), fmtF(round2(cz.Crop.Canopy.CoverOn(t)))))
+	}
+	return "Kc " + strings.Join(parts, ", ")
+}
+
+func orDefault(v, d float64) float64 {
+	if v == 0 {
+		return d
+	}
+	return v
 }

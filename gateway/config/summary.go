@@ -117,6 +117,7 @@ func zoneSummary(ew *errWriter, z *Zone, s *Site) {
 	ew.printf("    TAW %s mm (root depth %s m), RAW %s mm (%s), trigger %s mm (%s), refill target %s mm (%s x RAW)\n",
 		span(lo.TAW, hi.TAW), span(lo.Zr, hi.Zr), span(lo.RAW, hi.RAW), pNote, span(lo.Trigger, hi.Trigger), trig,
 		span(lo.Target, hi.Target), fmtF(z.Soil.RefillFraction))
+	orchardSummary(ew, z, cz, s)
 	ceil := func(m float64) float64 { return math.Ceil(m - 1e-9) }
 	ew.printf("    rate %s mm/h (%s), efficiency %s: RAW takes %s min\n",
 		fmtF(math.Round(cz.System.Rate*1e4)/1e4), z.RateSource(), fmtF(cz.System.Efficiency),
