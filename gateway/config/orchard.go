@@ -355,3 +355,15 @@ func orDefault(v, d float64) float64 {
 	}
 	return v
 }
+
+// StageOn returns the deficit stage in force on the calendar date of t (t
+// in the zone's standard time), or nil.
+func (z *Zone) StageOn(t time.Time) *controllers.DeficitStage {
+	for _, d := range z.DeficitStages {
+		cd, err := d.controller()
+		if err == nil && cd.In(t) {
+			return &cd
+		}
+	}
+	return nil
+}

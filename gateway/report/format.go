@@ -89,6 +89,7 @@ func writeText(w io.Writer, r Report) error {
 				optMM(z.DepletionStartMM), optMM(z.DepletionEndMM), optMM(z.RAWMM), optMM(z.TAWMM), z.StressHours)
 		}
 		tw.Flush()
+		writeDeficits(ew, r.Zones)
 		fmt.Fprintln(ew, "\nNext planned runs:")
 		planned := false
 		for _, z := range r.Zones {
@@ -143,6 +144,12 @@ func writeCSV(w io.Writer, r Report) error {
 		} {
 			add("zone", z.Zone, kv[0], kv[1])
 		}
+		if z.Stage != "" || (z.Deficit != nil && *z.Deficit > 0) {
+			for _, kv := range [][2]string{{"deficit", opt(z.Deficit)}, {"stage", z.Stage}, {"intended_deficit", opt(z.IntendedDeficit)},
+				{"intended_stress_hours", strconv.Itoa(z.IntendedStressHours)}} {
+				add("zone", z.Zone, kv[0], kv[1])
+			}
+		}
 		for _, p := range z.Plan {
 			add("plan", z.Zone, p.ID, fmt.Sprintf("%s %d min cycle %d/%d %s", p.Start.Format(time.RFC3339), p.Minutes, p.Cycle, p.Cycles, p.State))
 		}
@@ -166,4 +173,31 @@ func (e *errWriter) Write(p []byte) (int, error) {
 	n, err := e.w.Write(p)
 	e.err = err
 	return n, err
+}
+
+// writeDeficits prints, for zones short of their unstressed crop ET or in
+// a deficit stage, the deficit against the intended one.
+func writeDeficits(ew *errWriter, zones []Zone) {
+	head := false
+	for _, z := range zones {
+		if z.Stage == "" && (z.Deficit == nil || *z.Deficit == 0) {
+			continue
+		}
+		if !head {
+			fmt.Fprintln(ew, "\nDeficit (1 - ETc / unstressed Kc ETo) against the intended one:")
+			head = true
+		}
+		got := "n/a"
+		if z.Deficit != nil {
+			got = fmt.Sprintf("%.0f %%", *z.Deficit*100)
+		}
+		switch {
+		case z.Stage == "":
+			fmt.Fprintf(ew, "  %s  deficit %s, intended none: unintended stress %d h\n", z.Zone, got, z.StressHours)
+		case z.IntendedDeficit != nil:
+			fmt.Fprintf(ew, "  %s  deficit %s, intended %.0f %% (stage %s); stress %d h, all intended\n", z.Zone, got, *z.IntendedDeficit*100, z.Stage, z.StressHours)
+		default:
+			fmt.Fprintf(ew, "  %s  deficit %s in stage %s (a raised depletion allowance, no set share); stress %d h, all intended\n", z.Zone, got, z.Stage, z.StressHours)
+		}
+	}
 }

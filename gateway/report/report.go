@@ -118,9 +118,19 @@ type Zone struct {
 	TAWMM            *float64 `json:"taw_mm"`
 	// StressHours counts the day's hours with Ks < 1 (depletion beyond
 	// RAW, FAO-56 eq. 84).
-	StressHours int     `json:"stress_hours"`
-	Steps       int     `json:"steps"`
-	Alerts      []Alert `json:"alerts"`
+	StressHours int `json:"stress_hours"`
+	// Deficit is the day's shortfall of crop ET against its unstressed
+	// value, 1 - Σ Ks Kc ETo / Σ Kc ETo (FAO-56 eq. 80/81), 0-1; null when
+	// the day had no crop ET. Stage names the grower's deficit stage of the
+	// day, IntendedDeficit its planned shortfall (1 - replace_fraction;
+	// null for a stage that only raises the depletion allowed), and
+	// IntendedStressHours the stress hours inside the stage.
+	Deficit             *float64 `json:"deficit,omitempty"`
+	Stage               string   `json:"stage,omitempty"`
+	IntendedDeficit     *float64 `json:"intended_deficit,omitempty"`
+	IntendedStressHours int      `json:"intended_stress_hours,omitempty"`
+	Steps               int      `json:"steps"`
+	Alerts              []Alert  `json:"alerts"`
 	// Plan is the zone's open commands (planned, sent, accepted or started)
 	// at the time of the report, earliest first.
 	Plan []Run `json:"plan"`
@@ -322,6 +332,7 @@ func zoneDay(rng store.RangeFunc, site string, cfg *config.Zone, offset float64,
 		return z, fmt.Errorf("zone %s: %w", cfg.ID, err)
 	}
 	commanded := map[string]float64{}
+	etcPot := 0.0
 	type run struct{ minutes, volume float64 }
 	reported := map[string]run{}
 	err = rng(store.Filter{From: from, To: to, Measurements: []string{store.MeasurementZone, store.MeasurementCommand, store.MeasurementReport, store.MeasurementZoneAlert}}, func(p store.Point) error {
@@ -345,6 +356,11 @@ func zoneDay(rng store.RangeFunc, site string, cfg *config.Zone, offset float64,
 			z.EffRainMM += eff
 			if ks, ok := numField(p, "ks"); ok && ks < 1 && p.Notes["kind"] == string(controllers.StepHour) {
 				z.StressHours++
+			}
+			if p.Notes["kind"] == string(controllers.StepHour) {
+				kc, _ := numField(p, "kc")
+				et, _ := numField(p, "et_mm")
+				etcPot += kc * et // FAO-56 eq. 56: the unstressed crop ET
 			}
 			if v, ok := numField(p, "depletion_mm"); ok {
 				z.DepletionEndMM = ptr(round(v, 1))
@@ -389,6 +405,7 @@ func zoneDay(rng store.RangeFunc, site string, cfg *config.Zone, offset float64,
 		z.ReportedMin += r.minutes
 		z.ReportedVolumeL += r.volume
 	}
+	deficitOf(&z, cfg, etcPot, from.In(fixed(offset)))
 	z.ETcMM, z.EffRainMM, z.CreditedMM = round(z.ETcMM, 2), round(z.EffRainMM, 2), round(z.CreditedMM, 2)
 	z.ReportedMin, z.ReportedVolumeL, z.CommandedMin = round(z.ReportedMin, 1), round(z.ReportedVolumeL, 0), round(z.CommandedMin, 1)
 	return z, nil
@@ -440,3 +457,20 @@ func round(v float64, places int) float64 {
 }
 
 func ptr(v float64) *float64 { return &v }
+
+// deficitOf fills the day's deficit against the unstressed crop ET and,
+// inside a grower's deficit stage, the intended deficit and stress.
+func deficitOf(z *Zone, cfg *config.Zone, etcPot float64, localDay time.Time) {
+	if etcPot > 0 {
+		z.Deficit = ptr(round(math.Max(0, 1-z.ETcMM/etcPot), 3))
+	}
+	st := cfg.StageOn(localDay)
+	if st == nil {
+		return
+	}
+	z.Stage = st.Name
+	z.IntendedStressHours = z.StressHours
+	if st.Replace > 0 {
+		z.IntendedDeficit = ptr(round(1-st.Replace, 3))
+	}
+}
