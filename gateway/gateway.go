@@ -100,7 +100,10 @@ type Gateway struct {
 	emitted   atomic.Uint64
 	published atomic.Uint64
 	kick      chan struct{} // wakes the record publisher
-	pubMu     sync.Mutex    // one publishPending at a time: a record goes out once
+	pubMu     sync.Mutex    // guards pub: a record goes out once (publish.go)
+	markMu    sync.Mutex    // one markAcked at a time
+	pubWG     sync.WaitGroup
+	pub       recordPublisher
 	ready     chan struct{}
 	alerts    *quality.Monitor
 	pause     *intakePause // intake held on an unwritable state file
@@ -134,7 +137,9 @@ func New(cfg *config.Config, deps Deps) (*Gateway, error) {
 		return nil, fmt.Errorf("new gateway: %w", err)
 	}
 	g := &Gateway{cfg: cfg, deps: deps, log: deps.Logger, router: router, queue: make(chan mqtt.Message, deps.QueueSize),
-		kick: make(chan struct{}, 1), ready: make(chan struct{})}
+		kick: make(chan struct{}, 1), ready: make(chan struct{}),
+		pub: recordPublisher{ctx: context.Background(), window: make(chan struct{}, recordWindow),
+			failed: make(chan struct{}, 1), flight: map[recordKey]bool{}}}
 	comp := deps.Components
 	comp.Handlers = append([]pipeline.HourHandler(nil), comp.Handlers...)
 	comp.Observers = append([]pipeline.SampleObserver(nil), comp.Observers...)
@@ -270,6 +275,7 @@ func (g *Gateway) RunStepped(ctx context.Context) error { return g.run(ctx, true
 func (g *Gateway) Step(ctx context.Context, now time.Time) error {
 	g.closeHours(now)
 	g.publishPending(ctx)
+	g.waitPublished(ctx)
 	for _, s := range g.comp.Services {
 		if st, ok := s.(clock.Stepper); ok {
 			if _, err := st.RunOnce(ctx, now); err != nil {
@@ -332,6 +338,9 @@ func (g *Gateway) run(ctx context.Context, stepped bool) error {
 	// the broker's acknowledgement, which must never wait on intake.
 	pubCtx, stopPublisher := context.WithCancel(context.WithoutCancel(ctx))
 	defer stopPublisher()
+	g.pubMu.Lock()
+	g.pub.ctx = pubCtx // publishes under way end with the publisher
+	g.pubMu.Unlock()
 	pubDone := make(chan struct{})
 	go func() {
 		defer close(pubDone)
@@ -357,9 +366,11 @@ func (g *Gateway) run(ctx context.Context, stepped bool) error {
 	<-intakeDone
 	dctx, cancelDrain := context.WithTimeout(context.WithoutCancel(ctx), 5*time.Second)
 	g.publishPending(dctx) // the last hours intake closed
+	g.waitPublished(dctx)
 	cancelDrain()
 	stopPublisher()
 	<-pubDone
+	g.pubWG.Wait() // publishes under way end with pubCtx
 	stopServices()
 	svcWG.Wait()
 	fctx, cancel := context.WithTimeout(context.WithoutCancel(ctx), g.deps.FlushTimeout)
@@ -576,69 +587,4 @@ func (g *Gateway) kickPublisher() {
 	case g.kick <- struct{}{}:
 	default:
 	}
-}
-
-// publisher publishes pending records whenever intake commits some, and
-// retries failed ones every 10 s of real time.
-func (g *Gateway) publisher(ctx context.Context) {
-	var retry <-chan time.Time
-	for {
-		select {
-		case <-ctx.Done():
-			return
-		case <-g.kick:
-		case <-retry:
-		}
-		retry = nil
-		if !g.publishPending(ctx) {
-			retry = time.After(10 * time.Second)
-		}
-	}
-}
-
-// publish sends records on their stations' results topics and forgets the
-// published ones; the rest stay pending and are retried. It reports whether
-// every record went out.
-func (g *Gateway) publish(ctx context.Context, recs []hourly.Record) bool {
-	var done []hourly.Record
-	ok := true
-	for _, rec := range recs {
-		b, err := pipeline.MarshalRecord(rec)
-		if err == nil {
-			pctx, cancel := context.WithTimeout(ctx, 10*time.Second)
-			err = g.deps.MQTT.Publish(pctx, config.RecordTopic(g.cfg.TopicPrefix, rec.Site, rec.Station), 1, false, b)
-			cancel()
-		}
-		if err != nil {
-			ok = false
-			g.log.Warn("hour record not published; will retry", "station", rec.Station, "hour", rec.LocalStart, "revision", rec.Revision, "err", err)
-			continue
-		}
-		done = append(done, rec)
-		g.retained.noteRecord(rec)
-		if g.deps.OnRecord != nil {
-			g.deps.OnRecord(rec)
-		}
-	}
-	if len(done) > 0 {
-		if err := g.pipe.MarkPublished(done...); err != nil {
-			g.log.Error("marking records published", "err", err)
-		}
-		g.published.Add(uint64(len(done)))
-		g.progressed()
-	}
-	return ok
-}
-
-// publishPending publishes records committed but not yet published (a crash
-// or a broker outage between commit and publish).
-func (g *Gateway) publishPending(ctx context.Context) bool {
-	g.pubMu.Lock()
-	defer g.pubMu.Unlock()
-	recs, err := g.pipe.Pending()
-	if err != nil {
-		g.log.Error("reading pending records", "err", err)
-		return false
-	}
-	return g.publish(ctx, recs)
 }
