@@ -82,6 +82,7 @@ func (z *Zone) RateSource() string {
 func (c *Config) Warnings() []string {
 	var p Problems
 	c.placeTimeWarnings(&p)
+	c.oldKeyWarnings(&p)
 	for i := range c.Sites {
 		s := &c.Sites[i]
 		for j := range s.Zones {

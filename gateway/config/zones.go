@@ -73,9 +73,14 @@ type ZoneSeason struct {
 
 // ZoneClimate is the mean mid/late-season climate for FAO-56 eq. 62.
 type ZoneClimate struct {
-	U2      float64 `yaml:"u2_m_s"`     // mean wind at 2 m, m/s
-	RHMin   float64 `yaml:"rh_min_pct"` // mean minimum relative humidity, %
-	HeightM float64 `yaml:"height_m"`   // mean crop height, m
+	// Wind2m is the mean wind at 2 m, m/s; OldU2 the same key by its
+	// name before the vocabulary (u2_m_s), read with a warning. U2 is
+	// the one given (climate.go).
+	Wind2m  *float64 `yaml:"wind_2m_m_s"`
+	OldU2   *float64 `yaml:"u2_m_s"`
+	U2      float64  `yaml:"-"`
+	RHMin   float64  `yaml:"rh_min_pct"` // mean minimum relative humidity, %
+	HeightM float64  `yaml:"height_m"`   // mean crop height, m
 }
 
 // ZoneSoil is the root zone.
@@ -188,6 +193,7 @@ func (z *Zone) setDefaults() {
 	if z.Crop.Reference == "" {
 		z.Crop.Reference = "grass"
 	}
+	z.Crop.Climate.setDefaults()
 	if s := z.Crop.Season; s != nil && s.OffSeasonKc == nil {
 		v := s.KcIni
 		s.OffSeasonKc = &v
@@ -507,9 +513,7 @@ func (z *Zone) validateCrop(path string, p *Problems) {
 			}
 		}
 		if cl := c.Climate; cl != nil {
-			if !(cl.U2 >= 0 && cl.U2 <= 20) {
-				p.Addf(path+".climate.u2_m_s", "must be within 0-20, got %s", fmtF(cl.U2))
-			}
+			cl.validateWind(path+".climate", p)
 			if !(cl.RHMin >= 0 && cl.RHMin <= 100) {
 				p.Addf(path+".climate.rh_min_pct", "must be within 0-100, got %s", fmtF(cl.RHMin))
 			}
