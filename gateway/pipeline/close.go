@@ -52,14 +52,78 @@ func (p *Pipeline) Tick(now time.Time) ([]hourly.Record, error) {
 	if err != nil {
 		errs = append(errs, err)
 	}
+	out = append(out, p.closeTogether(due, now)...)
+	var pruning []*station
 	for _, st := range due {
 		recs, err := p.tickStation(st, now)
 		out = append(out, recs...)
 		if err != nil {
 			errs = append(errs, fmt.Errorf("station %s/%s: %w", st.site, st.id, err))
 		}
+		if st.pruneSoon || (!st.pruneAt.IsZero() && !now.Before(st.pruneAt)) {
+			pruning = append(pruning, st)
+		}
+	}
+	if err := p.pruneAll(pruning, now); err != nil {
+		errs = append(errs, err)
 	}
 	return out, errors.Join(errs...)
+}
+
+// closeTogetherMax bounds the hours closed in one transaction.
+const closeTogetherMax = 4096
+
+// closeTogether closes the due hours of several stations in a few
+// transactions instead of one each: in rounds, each round the earliest due
+// hour of every station in one transaction (so each hour's quality gate is
+// asked after the station's previous hour closed, as closeDue does). A
+// failed round is left to closeDue, station by station. A station whose
+// first hour trimQuiet would trim is left to it too.
+func (p *Pipeline) closeTogether(due []*station, now time.Time) []hourly.Record {
+	type job struct {
+		st     *station
+		hour   time.Time
+		silent bool
+		gate   Gate
+	}
+	var out []hourly.Record
+	for {
+		var jobs []job
+		for _, st := range due {
+			if !st.hasCursor || len(jobs) == closeTogetherMax {
+				continue
+			}
+			end := st.cursor.Add(time.Hour)
+			if !st.closed && now.Sub(end) > st.cfg.LateWindow.D() {
+				continue // trimQuiet's
+			}
+			byData := !st.watermark.Before(end.Add(st.cfg.CloseGrace.D()))
+			if byData || st.silent(end, now) {
+				jobs = append(jobs, job{st, st.cursor, !byData, p.gateFor(st, st.cursor)})
+			}
+		}
+		if len(jobs) < 2 {
+			return out // one station: closeDue
+		}
+		recs := make([]hourly.Record, len(jobs))
+		err := p.db.Update(func(tx *bbolt.Tx) error {
+			for i, j := range jobs {
+				var err error
+				if recs[i], err = p.closeHourTx(tx, j.st, j.hour, j.silent, j.gate); err != nil {
+					return fmt.Errorf("station %s/%s: %w", j.st.site, j.st.id, err)
+				}
+			}
+			return nil
+		})
+		if err != nil {
+			p.log.Error("closing hours together failed; closing them station by station", "hours", len(jobs), "err", err)
+			return out
+		}
+		for i, j := range jobs {
+			p.closedHour(j.st, j.hour, recs[i])
+			out = append(out, recs[i])
+		}
+	}
 }
 
 func (p *Pipeline) tickStation(st *station, now time.Time) ([]hourly.Record, error) {
@@ -78,11 +142,6 @@ func (p *Pipeline) tickStation(st *station, now time.Time) ([]hourly.Record, err
 			return out, err
 		}
 		st.dirty = waiting
-	}
-	if st.pruneSoon || (!st.pruneAt.IsZero() && !now.Before(st.pruneAt)) {
-		if err := p.prune(st, now); err != nil {
-			return out, err
-		}
 	}
 	return out, nil
 }
@@ -115,6 +174,22 @@ func (p *Pipeline) closeHour(st *station, hour time.Time, silent bool) (hourly.R
 	gate := p.gateFor(st, hour)
 	var rec hourly.Record
 	err := p.db.Update(func(tx *bbolt.Tx) error {
+		var err error
+		rec, err = p.closeHourTx(tx, st, hour, silent, gate)
+		return err
+	})
+	if err != nil {
+		return hourly.Record{}, err
+	}
+	p.closedHour(st, hour, rec)
+	return rec, nil
+}
+
+// closeHourTx closes the station's hour at hour inside tx; closedHour
+// follows the commit.
+func (p *Pipeline) closeHourTx(tx *bbolt.Tx, st *station, hour time.Time, silent bool, gate Gate) (hourly.Record, error) {
+	var rec hourly.Record
+	err := func() error {
 		sb, err := st.buckets(tx)
 		if err != nil {
 			return err
@@ -140,17 +215,21 @@ func (p *Pipeline) closeHour(st *station, hour time.Time, silent bool) (hourly.R
 			return err
 		}
 		return putTime(sb.meta, keyCursor, hour.Add(time.Hour))
-	})
+	}()
 	if err != nil {
 		return hourly.Record{}, fmt.Errorf("close hour %s: %w", hour.Format(time.RFC3339), err)
 	}
+	return rec, nil
+}
+
+// closedHour updates the station's mirror after its hour at hour closed.
+func (p *Pipeline) closedHour(st *station, hour time.Time, rec hourly.Record) {
 	st.cursor, st.closed = hour.Add(time.Hour), true
 	if st.pruneAt.IsZero() {
 		st.pruneSoon = true // samples held back by the cursor may go now
 	}
 	p.m.closed.WithLabelValues(st.site, st.id, strconv.FormatBool(rec.Complete)).Inc()
 	p.observeRecord(st, rec)
-	return rec, nil
 }
 
 // revise re-emits every closed hour of the station marked dirty. When now
@@ -493,60 +572,95 @@ func loadHour(sb stationBuckets, hour time.Time) ([]hourly.Sample, error) {
 // prune deletes samples of closed hours whose late window has passed, and
 // closed-hour states older than both the late window and hourStatsKeep.
 func (p *Pipeline) prune(st *station, now time.Time) error {
-	if !st.hasCursor {
+	return p.pruneAll([]*station{st}, now)
+}
+
+// pruneAll prunes the stations in one read transaction that looks and at
+// most one write transaction that deletes, and sets when each has work next.
+func (p *Pipeline) pruneAll(sts []*station, now time.Time) error {
+	type first struct {
+		sample, hour       time.Time
+		hasSample, hasHour bool
+	}
+	type job struct {
+		st                      *station
+		sampleLimit, stateLimit time.Time
+		first
+	}
+	var jobs []job
+	for _, st := range sts {
+		st.pruneSoon = false
+		if !st.hasCursor {
+			continue // its first closed hour asks again
+		}
+		j := job{st: st,
+			sampleLimit: now.Add(-st.cfg.LateWindow.D() - time.Hour),
+			stateLimit:  now.Add(-max(st.cfg.LateWindow.D(), hourStatsKeep) - time.Hour)}
+		if st.cursor.Before(j.sampleLimit) {
+			j.sampleLimit = st.cursor
+		}
+		if st.cursor.Before(j.stateLimit) {
+			j.stateLimit = st.cursor
+		}
+		jobs = append(jobs, j)
+	}
+	if len(jobs) == 0 {
 		return nil
 	}
-	sampleLimit := now.Add(-st.cfg.LateWindow.D() - time.Hour)
-	stateLimit := now.Add(-max(st.cfg.LateWindow.D(), hourStatsKeep) - time.Hour)
-	if st.cursor.Before(sampleLimit) {
-		sampleLimit = st.cursor
-	}
-	if st.cursor.Before(stateLimit) {
-		stateLimit = st.cursor
-	}
-	var firstSample, firstHour time.Time
-	var hasSample, hasHour bool
-	firsts := func(sb stationBuckets) {
-		var k []byte
-		k, _ = sb.samples.Cursor().First()
-		if hasSample = k != nil; hasSample {
-			firstSample = hourFromKey(k)
+	firsts := func(sb stationBuckets) (f first) {
+		if k, _ := sb.samples.Cursor().First(); k != nil {
+			f.sample, f.hasSample = hourFromKey(k), true
 		}
-		k, _ = sb.hours.Cursor().First()
-		if hasHour = k != nil; hasHour {
-			firstHour = hourFromKey(k)
+		if k, _ := sb.hours.Cursor().First(); k != nil {
+			f.hour, f.hasHour = hourFromKey(k), true
 		}
+		return f
 	}
+	need := false
 	if err := p.db.View(func(tx *bbolt.Tx) error {
-		sb, err := st.buckets(tx)
-		if err != nil {
-			return err
-		}
-		firsts(sb)
-		return nil
-	}); err != nil {
-		return err
-	}
-	if (hasSample && firstSample.Before(sampleLimit)) || (hasHour && firstHour.Before(stateLimit)) {
-		if err := p.db.Update(func(tx *bbolt.Tx) error {
-			sb, err := st.buckets(tx)
+		for i := range jobs {
+			sb, err := jobs[i].st.buckets(tx)
 			if err != nil {
 				return err
 			}
-			if err := deleteBefore(sb.samples, sampleLimit); err != nil {
-				return err
+			j := &jobs[i]
+			j.first = firsts(sb)
+			need = need || (j.hasSample && j.sample.Before(j.sampleLimit)) || (j.hasHour && j.hour.Before(j.stateLimit))
+		}
+		return nil
+	}); err != nil {
+		return fmt.Errorf("prune: %w", err)
+	}
+	if need {
+		if err := p.db.Update(func(tx *bbolt.Tx) error {
+			for i := range jobs {
+				j := &jobs[i]
+				if !(j.hasSample && j.sample.Before(j.sampleLimit)) && !(j.hasHour && j.hour.Before(j.stateLimit)) {
+					continue
+				}
+				sb, err := j.st.buckets(tx)
+				if err != nil {
+					return err
+				}
+				if err := deleteBefore(sb.samples, j.sampleLimit); err != nil {
+					return err
+				}
+				if err := deleteBefore(sb.hours, j.stateLimit); err != nil {
+					return err
+				}
+				j.first = firsts(sb)
 			}
-			if err := deleteBefore(sb.hours, stateLimit); err != nil {
-				return err
-			}
-			firsts(sb)
 			return nil
 		}); err != nil {
-			return err
+			for _, j := range jobs {
+				j.st.pruneSoon = true // again at the next pass
+			}
+			return fmt.Errorf("prune: %w", err)
 		}
 	}
-	st.pruneSoon = false
-	st.pruneAt = st.nextPrune(now, firstSample, hasSample, firstHour, hasHour)
+	for _, j := range jobs {
+		j.st.pruneAt = j.st.nextPrune(now, j.sample, j.hasSample, j.hour, j.hasHour)
+	}
 	return nil
 }
 

@@ -7,6 +7,7 @@ import (
 
 	"github.com/stretchr/testify/assert"
 	"github.com/stretchr/testify/require"
+	"go.etcd.io/bbolt"
 )
 
 // A pass of the clock with nothing due touches no station: no transaction
@@ -36,4 +37,55 @@ func TestTickWithNothingDueOpensNoTransaction(t *testing.T) {
 	out, err := p.Tick(h10.Add(75 * time.Minute))
 	require.NoError(t, err)
 	require.Len(t, out, 1)
+}
+
+// Hours that fall due together for many stations close in one write
+// transaction (one fsync) per hour of the clock, not one per station; the
+// prunes that follow take one more. Measured with bbolt's count of write transactions.
+func TestHoursOfManyStationsCloseInOneTransaction(t *testing.T) {
+	cfg := manyStationsConfig(t, 50)
+	db := openDB(t, filepath.Join(t.TempDir(), "s.db"))
+	p, err := New(cfg, Options{DB: db})
+	require.NoError(t, err)
+	_, err = p.Ingest(h10.Add(time.Hour), networkReadings(cfg, h10, h10.Add(time.Hour), 10*time.Minute))
+	require.NoError(t, err)
+	_, err = p.Tick(h10.Add(time.Hour)) // the first pass after start
+	require.NoError(t, err)
+
+	before := commits(t, db)
+	recs, err := p.Tick(h10.Add(time.Hour + 20*time.Minute)) // silence closes every station's hour
+	require.NoError(t, err)
+	require.Len(t, recs, 50)
+	assert.LessOrEqual(t, commits(t, db)-before, 2, "write transactions for 50 closed hours")
+	for i, r := range recs {
+		assert.Equal(t, cfg.Sites[0].Stations[i].ID, r.Station, "records in configuration order")
+		assert.Equal(t, h10, r.Start)
+	}
+
+	// Seven hours later every station's samples of that hour leave the
+	// late window (6h): pruned together.
+	before = commits(t, db)
+	recs, err = p.Tick(h10.Add(8*time.Hour + 1*time.Minute))
+	require.NoError(t, err)
+	require.Len(t, recs, 50*6, "six empty hours each")
+	// One round per hour of the clock (each hour's quality gate is asked
+	// after the station's previous hour closed), one for the prunes.
+	assert.LessOrEqual(t, commits(t, db)-before, 7, "write transactions for 300 closed hours and 50 prunes")
+	require.NoError(t, db.View(func(tx *bbolt.Tx) error {
+		for _, st := range p.order {
+			sb, err := st.buckets(tx)
+			require.NoError(t, err)
+			k, _ := sb.samples.Cursor().First()
+			assert.Nil(t, k, "samples of %s pruned", st.id)
+		}
+		return nil
+	}))
+}
+
+// commits returns the id of the latest committed write transaction (a read
+// transaction's id): the difference of two calls counts the commits between.
+func commits(t *testing.T, db *bbolt.DB) (id int) {
+	t.Helper()
+	require.NoError(t, db.View(func(tx *bbolt.Tx) error { id = tx.ID(); return nil }))
+	return id
 }
