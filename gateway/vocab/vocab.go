@@ -2,9 +2,9 @@
 // quantities and fields wherever it writes them: the hourly record on MQTT,
 // the retained station and zone state, the store's fields, the calc and
 // replay CSV columns (and the weather CSV columns calc reads), the local
-// history export, the status API and the
-// morning report. A quantity has one name everywhere: its trade symbol or a
-// plain word with the unit as suffix (air_temp_c, wind_2m_m_s, ra_mj_m2).
+// history export, the status API and the morning report. A quantity has one
+// name everywhere: its trade symbol or a plain word with the unit as suffix
+// (air_temp_c, wind_2m_m_s, ra_mj_m2).
 // Each name carries its unit, so its decimals on the wire come from the
 // payload rounding table (gateway/internal/precision).
 package vocab
