@@ -1,0 +1,53 @@
+package ingest
+
+import (
+	"fmt"
+	"strings"
+	"testing"
+
+	"github.com/stretchr/testify/require"
+
+	"etpulse/gateway/config"
+)
+
+// BenchmarkRouteJSON decodes a JSON value payload with its time key.
+func BenchmarkRouteJSON(b *testing.B) {
+	r := newTestRouter(b)
+	p := []byte(`{"rh": 61.5, "ts": "2026-06-01T10:00:00Z"}`)
+	b.ReportAllocs()
+	for b.Loop() {
+		r.Route("bh/west/rh", p, arrival)
+	}
+}
+
+// BenchmarkRouteManyStations routes a number payload among the sensors of
+// n invented stations of six sensors: the topic lookup is a map, so the
+// cost does not depend on n.
+func BenchmarkRouteManyStations(b *testing.B) {
+	for _, n := range []int{20, 1000, 5000} {
+		b.Run(fmt.Sprintf("stations=%d", n), func(b *testing.B) {
+			var c strings.Builder
+			c.WriteString("broker: {url: \"tcp://127.0.0.1:1883\", client_id: ingest-bench}\nsites:\n  - id: net\n    stations:\n")
+			for i := 0; i < n; i++ {
+				fmt.Fprintf(&c, "      - id: s%05d\n        latitude: 36.6\n        longitude: -120.4\n        elevation_m: 90\n        utc_offset_hours: -8\n        sensors:\n", i)
+				for _, q := range []string{"t:air_temp:degC", "rh:rel_humidity:%", "u:wind:m/s", "rs:solar:W/m2", "td:dew_point:degC", "rain:rain:mm"} {
+					f := strings.SplitN(q, ":", 3)
+					fmt.Fprintf(&c, "          - {id: %s, topic: net/s%05d/%s, format: number, quantity: %s, unit: %q}\n", f[0], i, f[0], f[1], f[2])
+				}
+			}
+			cfg, err := config.Parse([]byte(c.String()))
+			require.NoError(b, err)
+			r, err := NewRouter(cfg)
+			require.NoError(b, err)
+			topic := fmt.Sprintf("net/s%05d/t", n-1)
+			p := []byte(`21.5`)
+			if rds, rjs := r.Route(topic, p, arrival); len(rds) != 1 || len(rjs) != 0 {
+				b.Fatalf("route: %v %v", rds, rjs)
+			}
+			b.ReportAllocs()
+			for b.Loop() {
+				r.Route(topic, p, arrival)
+			}
+		})
+	}
+}
