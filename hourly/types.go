@@ -182,10 +182,15 @@ const (
 	Rain           Quantity = "rain"            // mm fallen since the previous sample (increment)
 	NetRad         Quantity = "net_rad"         // W m-2
 	SoilHeat       Quantity = "soil_heat"       // W m-2, positive into the soil
+	// SoilWater and SoilTension are soil-moisture probe readings at the
+	// depth the probe's zone configuration states; the pipeline hands them
+	// to the zones, they take no part in ET.
+	SoilWater   Quantity = "soil_water"   // volumetric water content, % (m3/m3 x 100)
+	SoilTension Quantity = "soil_tension" // soil water tension (suction), kPa, positive
 )
 
 // Quantities lists every Quantity in a stable order.
-var Quantities = []Quantity{AirTemp, RelHumidity, DewPoint, VapourPressure, Wind, Solar, Rain, NetRad, SoilHeat}
+var Quantities = []Quantity{AirTemp, RelHumidity, DewPoint, VapourPressure, Wind, Solar, Rain, NetRad, SoilHeat, SoilWater, SoilTension}
 
 // Sample is one reading of one sensor, already converted to the canonical
 // unit of its quantity.

@@ -82,6 +82,9 @@ var (
 		NetRad:         fluxUnits,
 		SoilHeat:       fluxUnits,
 		Rain:           {{"mm", identity}, {"in", InchesToMM}},
+		// A centibar is a kilopascal (1 cbar = 1 kPa, SI definition).
+		SoilWater:   {{"%", identity}, {"m3/m3", func(v float64) float64 { return v * 100 }}},
+		SoilTension: {{"kPa", identity}, {"cbar", identity}, {"hPa", HPaToKPa}},
 	}
 )
 
