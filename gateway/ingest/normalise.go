@@ -28,6 +28,8 @@ var PhysicalRanges = map[hourly.Quantity]Range{
 	hourly.Rain:           {0, 500},    // mm per message (increment)
 	hourly.NetRad:         {-300, 1200},
 	hourly.SoilHeat:       {-300, 500},
+	hourly.SoilWater:      {0, 100},  // % by volume
+	hourly.SoilTension:    {0, 2000}, // kPa suction; past the 1500 kPa wilting point no probe reads
 }
 
 // Limits of raw rain values (common practice, no source).

@@ -62,6 +62,8 @@ var rawUnits = map[hourly.Quantity]string{
 	hourly.Rain:           "mm",
 	hourly.NetRad:         "w_m2",
 	hourly.SoilHeat:       "w_m2",
+	hourly.SoilWater:      "pct",
+	hourly.SoilTension:    "kpa",
 }
 
 // RawUnit returns the unit suffix used in field names for quantity q
