@@ -4,6 +4,7 @@ import (
 	"fmt"
 	"math"
 	"sort"
+	"strings"
 	"time"
 )
 
@@ -225,7 +226,7 @@ func PlanRuns(now time.Time, zones []ZoneInput, sources []Source, ledger []Comma
 	for i := range ledger {
 		c := &ledger[i]
 		if (c.State == Expired && !c.Credited && c.Attempts > 0) || c.State == Failed ||
-			(c.State == Stopped && (c.StopAt.IsZero() || c.StopReason == silentStop)) {
+			(c.State == Stopped && (c.StopAt.IsZero() || c.StopReason == silentStop || strings.HasPrefix(c.StopReason, FlowStopPrefix))) {
 			troubled = append(troubled, c)
 		}
 		if c.Stopping() {

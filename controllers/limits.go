@@ -1,5 +1,7 @@
 package controllers
 
+import "time"
+
 // Bounds of a zone's parameters. Zone.Validate and its parts enforce them;
 // the configuration translates them to its field paths and never restates
 // the numbers.
@@ -50,4 +52,17 @@ const (
 	MaxOverrunMargin = 1.0
 	// MaxSeasonDays bounds the length of a crop season, days: one year.
 	MaxSeasonDays = 366
+)
+
+// Flow meters (issue 16): the bounds of a Meter.
+const (
+	// MinFlowTolerance and MaxFlowTolerance bound a meter's tolerance, a
+	// share of the expected flow: below 5 % a meter's own error (a few per
+	// cent for turbine and pulse meters) would alarm, above 100 % a closed
+	// valve is never low (common practice, no source).
+	MinFlowTolerance, MaxFlowTolerance = 0.05, 1.0
+	// MaxFlowDelay bounds how long a flow condition may last before it is
+	// reported: a burst left running longer is no longer caught in time
+	// (common practice, no source).
+	MaxFlowDelay = 2 * time.Hour
 )

@@ -48,6 +48,9 @@ type Input struct {
 	// the broker first delivers the reports queued while the gateway was
 	// away. Zero: no delay.
 	Resume time.Time
+	// Meters are the flow meters of the site and their recent readings
+	// (CheckFlow); nil: no meter is judged.
+	Meters []MeterInput
 }
 
 // Decision is what Decide returns: the actions in the order to carry them
@@ -57,6 +60,9 @@ type Decision struct {
 	Actions []Action
 	Skips   []Skip
 	Wake    time.Time
+	// Flows are the meters showing a high or low flow, or a flow with no
+	// valve open (reported or still within their delay).
+	Flows []FlowCheck
 }
 
 // silentStop is the reason of a stop sent because a run's latest possible
@@ -104,6 +110,15 @@ func Decide(now time.Time, in Input) Decision {
 		}
 	}
 	soon(in.Resume)
+	for _, mi := range in.Meters {
+		if fc := CheckFlow(now, mi, ledger); fc.Kind != FlowOK {
+			d.Flows = append(d.Flows, fc)
+			if fc.Reported && fc.Kind == FlowHigh && mi.Meter.StopOnHigh {
+				stopForFlow(now, fc, ledger)
+			}
+			soon(fc.Due)
+		}
+	}
 	for i := range ledger {
 		c := &ledger[i]
 		if !c.State.Open() && !c.MayRun() {
