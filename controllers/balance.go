@@ -58,6 +58,9 @@ type Zone struct {
 	// Salinity gives the leaching requirement added to each run; the zero
 	// value (no water EC) adds none.
 	Salinity Salinity
+	// Forecast says how the site's forecast is used; the zero value uses
+	// none.
+	Forecast ForecastRules
 }
 
 // Validate reports the first impossible parameter.
@@ -94,6 +97,9 @@ func (z *Zone) Validate() error {
 		}
 	}
 	if err := z.Salinity.Validate(); err != nil {
+		return fmt.Errorf("zone %s: %w", z.ID, err)
+	}
+	if err := z.Forecast.Validate(); err != nil {
 		return fmt.Errorf("zone %s: %w", z.ID, err)
 	}
 	if len(z.Windows) == 0 {

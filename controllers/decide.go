@@ -151,14 +151,28 @@ var farFuture = time.Date(9999, 1, 1, 0, 0, 0, 0, time.UTC)
 // trigger before the end of the next window occurrence (waiting would water
 // too late); or the zone's previous run, in an earlier window, was cut short
 // by a cap or its window's end and the remainder is still owed. It returns
-// the reason and its text ("" when the zone is not due).
-func (z *Zone) due(st *State, lv Levels, now time.Time, slot Slot, last *Command) (Reason, string) {
+// the reason and its text ("" when the zone is not due). A fresh forecast
+// (fc) that covers the time to the end of the next window replaces the
+// recent crop ET by the forecast crop ET in the projection.
+func (z *Zone) due(st *State, lv Levels, now time.Time, slot Slot, last *Command, fc *Forecast) (Reason, string) {
 	r := Reason{DepletionMM: round2(st.Depletion), TriggerMM: round2(lv.Trigger), EtcSinceLastMM: round2(st.EtcSinceRun)}
 	if st.Depletion >= lv.Trigger {
 		r.Basis = BasisTrigger
 		return r, fmt.Sprintf("depletion %.1f mm at or above the trigger %.1f mm", st.Depletion, lv.Trigger)
 	}
-	if rate, how := z.RecentETc(st, now); rate > 0 {
+	answered := false // the forecast covers the horizon: recent ET is not used
+	if next, ok := SlotAt(z.Windows, z.Loc, NextSlotStart(z.Windows, z.Loc, slot.Start)); ok && fc != nil {
+		if etc, covered := z.forecastETc(fc, now, next.End); covered {
+			answered = true
+			proj := st.Depletion + etc
+			if proj >= lv.Trigger {
+				r.Basis, r.ProjectedMM = BasisProjected, round2(proj)
+				return r, fmt.Sprintf("depletion %.1f mm projected to %.1f mm by the end of the next window (%s) with %.1f mm forecast ETc (%s), trigger %.1f mm",
+					st.Depletion, proj, next.End.In(z.Loc).Format("2006-01-02 15:04"), etc, forecastLabel(fc, z.Loc), lv.Trigger)
+			}
+		}
+	}
+	if rate, how := z.RecentETc(st, now); rate > 0 && !answered {
 		if next, ok := SlotAt(z.Windows, z.Loc, NextSlotStart(z.Windows, z.Loc, slot.Start)); ok {
 			proj := st.Depletion + rate*next.End.Sub(now).Hours()
 			if proj >= lv.Trigger {
@@ -219,6 +233,13 @@ func lastRuns(ledger []Command) map[string]*Command {
 // failed, or was stopped at the controller without a stop asked for, the
 // zone is not watered again in the same window occurrence (alerted skip).
 func PlanRuns(now time.Time, zones []ZoneInput, sources []Source, ledger []Command, holds Holds) Plan {
+	return planRuns(now, zones, sources, ledger, holds, nil)
+}
+
+// planRuns is PlanRuns with the site's forecast (nil: none), which each
+// zone uses as its ForecastRules say: forecast crop ET for the projected
+// basis, forecast rain to shorten or skip a run, forecast frost to hold it.
+func planRuns(now time.Time, zones []ZoneInput, sources []Source, ledger []Command, holds Holds, forecast *Forecast) Plan {
 	var plan Plan
 	open := map[string]bool{}
 	var troubled []*Command // expired without report, failed, stopped at the controller
@@ -290,7 +311,8 @@ func PlanRuns(now time.Time, zones []ZoneInput, sources []Source, ledger []Comma
 			}
 			continue
 		}
-		reason, why := z.due(st, lv, now, slot, last[z.ID])
+		fc := z.forecastFor(forecast, now)
+		reason, why := z.due(st, lv, now, slot, last[z.ID], fc)
 		if why == "" {
 			continue
 		}
@@ -306,7 +328,16 @@ func PlanRuns(now time.Time, zones []ZoneInput, sources []Source, ledger []Comma
 		if c := last[z.ID]; c != nil && !c.Start.Before(slot.Start) && c.Start.Before(slot.End) {
 			continue // one run per window occurrence
 		}
-		need := st.Depletion - lv.Target
+		if r := z.forecastFrost(fc, now, slot.End); r != "" {
+			skip(r, false)
+			continue
+		}
+		need, fcNote, fcSkip := z.forecastNeed(fc, st, lv, now, slot, st.Depletion-lv.Target)
+		if fcSkip != "" {
+			skip(fcSkip, false)
+			continue
+		}
+		why += fcNote
 		lr := z.Salinity.LeachingRequirement()
 		m := GrossMinutes(GrossForLeaching(need, lr), z.System.Efficiency, z.System.Rate)
 		deficit := false

@@ -54,6 +54,17 @@ const (
 	MaxSeasonDays = 366
 )
 
+// Forecast input (issue 16): the bounds of ForecastRules.
+const (
+	// MaxForecastAgeHours bounds ForecastRules.MaxAge, hours: a forecast
+	// older than two days is no longer a forecast of the next window
+	// (common practice, no source).
+	MaxForecastAgeHours = 48
+	// MaxForecastRainMinMM bounds ForecastRules.RainMinMM, mm (common
+	// practice, no source: above any single run's need).
+	MaxForecastRainMinMM = 100.0
+)
+
 // Flow meters (issue 16): the bounds of a Meter.
 const (
 	// MinFlowTolerance and MaxFlowTolerance bound a meter's tolerance, a

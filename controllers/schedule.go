@@ -48,6 +48,9 @@ type Input struct {
 	// the broker first delivers the reports queued while the gateway was
 	// away. Zero: no delay.
 	Resume time.Time
+	// Forecast is the site's latest forecast; nil: none. Zones use it as
+	// their ForecastRules say, and ignore it when it is stale.
+	Forecast *Forecast
 	// Meters are the flow meters of the site and their recent readings
 	// (CheckFlow); nil: no meter is judged.
 	Meters []MeterInput
@@ -60,6 +63,9 @@ type Decision struct {
 	Actions []Action
 	Skips   []Skip
 	Wake    time.Time
+	// ForecastIgnored says why zones that use the forecast ignored it
+	// (stale or issued in the future); "" when it was used or absent.
+	ForecastIgnored string
 	// Flows are the meters showing a high or low flow, or a flow with no
 	// valve open (reported or still within their delay).
 	Flows []FlowCheck
@@ -82,7 +88,12 @@ const silentStop = "no final report by the latest possible end of the run"
 func Decide(now time.Time, in Input) Decision {
 	var d Decision
 	ledger := append([]Command(nil), in.Ledger...)
-	plan := PlanRuns(now, in.Zones, in.Sources, ledger, in.Holds)
+	plan := planRuns(now, in.Zones, in.Sources, ledger, in.Holds, in.Forecast)
+	for _, zi := range in.Zones {
+		if p := zi.Zone.Forecast.ForecastProblem(in.Forecast, now); p != "" {
+			d.ForecastIgnored = p
+		}
+	}
 	d.Skips = plan.Skips
 	why := map[string]string{}
 	for _, w := range plan.Why {
@@ -199,6 +210,9 @@ func step(now time.Time, c *Command, zi ZoneInput, configured bool, p CommandPol
 				reason, _ = zi.Zone.Blocked(zi.State, in.Holds, now)
 				if reason == "" {
 					reason = zi.Zone.SendCheck(c, ledger)
+				}
+				if reason == "" {
+					reason = zi.Zone.forecastFrost(in.Forecast, now, c.Start.Add(time.Duration(c.Minutes)*time.Minute))
 				}
 			}
 			if reason != "" {
