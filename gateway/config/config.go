@@ -47,6 +47,7 @@ type Site struct {
 	Stations []Station     `yaml:"stations"`
 	Zones    []Zone        `yaml:"zones"`
 	Sources  []WaterSource `yaml:"sources"`
+	Meters   []Meter       `yaml:"meters"` // flow meters (meters.go)
 }
 
 // Load reads, decodes, defaults and validates the file at path.
@@ -173,6 +174,7 @@ func (s *Site) validate(path string, p *Problems) {
 	for j := range s.Sources {
 		s.Sources[j].validate(fmt.Sprintf("%s.sources[%d]", path, j), p, s)
 	}
+	s.validateMeters(path, p)
 }
 
 // StationByID returns the station with the given id, or nil.
