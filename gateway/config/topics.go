@@ -176,6 +176,7 @@ func validateOwnTopics(c *Config, p *Problems) {
 			owner[HoldReplyTopic(prefix, s.ID)] = fmt.Sprintf("the hold replies of sites[%d]", i)
 			owner[WaterTopic(prefix, s.ID)] = fmt.Sprintf("the water requests of sites[%d]", i)
 			owner[WaterReplyTopic(prefix, s.ID)] = fmt.Sprintf("the water replies of sites[%d]", i)
+			owner[ForecastTopic(prefix, s.ID)] = fmt.Sprintf("the forecast of sites[%d]", i)
 		}
 	}
 	for i := range c.Sites {

@@ -30,6 +30,8 @@ type Zone struct {
 	// full demand; Salinity adds the leaching requirement to each run.
 	DeficitStages []ZoneDeficitStage `yaml:"deficit_stages"`
 	Salinity      *ZoneSalinity      `yaml:"salinity"`
+	// Forecast is how the zone uses the site's forecast; absent: not at all.
+	Forecast *ZoneForecast `yaml:"forecast"`
 	// Greenhouse marks a zone under cover: without a station it takes the
 	// site's one station with inside_greenhouse. Kc values of greenhouse
 	// crops are the grower's own (no table is built in).
@@ -305,6 +307,7 @@ func (z *Zone) Controller(st *Station) (*controllers.Zone, error) {
 			OverrunMargin: *z.Commands.OverrunMarginPct / 100,
 		},
 		FailSafe: controllers.FailSafe{MaxMissingHours: z.FailSafe.MaxMissingHours, Fallback: z.FailSafe.Mode == "fallback"},
+		Forecast: z.forecastRules(),
 	}
 	if z.Holds.FrostBelowC != nil {
 		cz.Holds.FrostC, cz.Holds.HasFrost = *z.Holds.FrostBelowC, true
@@ -372,6 +375,7 @@ func (z *Zone) validate(path string, p *Problems, site *Site) {
 	z.validateWetted(path+".soil", p)
 	z.validateDeficit(path, p)
 	z.validateSalinity(path, p)
+	z.validateForecast(path, p)
 	z.validateGreenhouse(path, p, site)
 	switch controllers.RainMethod(z.Rain.Method) {
 	case controllers.RainAll, controllers.RainNone:
