@@ -128,6 +128,10 @@ type Service struct {
 	mu       sync.Mutex
 	resumeAt time.Time // retries of commands sent before this run wait until then
 	started  time.Time // when this service started: the stale-ET alert's grace starts here
+	// forecasts are the sites' latest forecasts (SetForecast); kept in
+	// memory: the forecast topic is retained.
+	forecasts      map[string]*controllers.Forecast
+	forecastWarned map[string]*controllers.Forecast
 }
 
 // New builds the service for every zone of cfg.
@@ -376,6 +380,10 @@ func (s *Service) Start(ctx context.Context) error {
 		if err := s.o.MQTT.Subscribe(t, 1, s.onHold(site)); err != nil {
 			return fmt.Errorf("run zones: subscribe %s: %w", t, err)
 		}
+		ft := config.ForecastTopic(s.o.TopicPrefix, site.id)
+		if err := s.o.MQTT.Subscribe(ft, 1, s.onForecast(site)); err != nil {
+			return fmt.Errorf("run zones: subscribe %s: %w", ft, err)
+		}
 		wt := config.WaterTopic(s.o.TopicPrefix, site.id)
 		if err := s.o.MQTT.Subscribe(wt, 1, s.onWater(site)); err != nil {
 			return fmt.Errorf("run zones: subscribe %s: %w", wt, err)
@@ -471,7 +479,9 @@ func (s *Service) tick(now time.Time) (time.Time, []outgoing, error) {
 				inputs = append(inputs, controllers.ZoneInput{Zone: ref.z, State: &recs[ref.id].State})
 			}
 
-			d := controllers.Decide(now, controllers.Input{Zones: inputs, Sources: site.sources, Ledger: ledger, Holds: holds, Resume: resumeAt})
+			d := controllers.Decide(now, controllers.Input{Zones: inputs, Sources: site.sources, Ledger: ledger, Holds: holds, Resume: resumeAt,
+				Forecast: s.forecastOf(site.id)})
+			s.noteForecast(site.id, d)
 			if d.Wake.Before(next) {
 				next = d.Wake
 			}
