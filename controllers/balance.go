@@ -58,6 +58,8 @@ type Zone struct {
 	// Salinity gives the leaching requirement added to each run; the zero
 	// value (no water EC) adds none.
 	Salinity Salinity
+	// Probes are the zone's soil-moisture probes (nil: none); see FuseProbes.
+	Probes *ProbeSet
 	// Forecast says how the site's forecast is used; the zero value uses
 	// none.
 	Forecast ForecastRules
@@ -98,6 +100,11 @@ func (z *Zone) Validate() error {
 	}
 	if err := z.Salinity.Validate(); err != nil {
 		return fmt.Errorf("zone %s: %w", z.ID, err)
+	}
+	if z.Probes != nil {
+		if err := z.Probes.Validate(z.Soil); err != nil {
+			return fmt.Errorf("zone %s: %w", z.ID, err)
+		}
 	}
 	if err := z.Forecast.Validate(); err != nil {
 		return fmt.Errorf("zone %s: %w", z.ID, err)
@@ -142,6 +149,8 @@ type State struct {
 	Depletion float64 `json:"depletion"`
 	// Hours are the applied hours of the last KeepHours, oldest first.
 	Hours []HourEntry `json:"hours"`
+	// Probe is the probes' fusion and watch state (nil: no probes).
+	Probe *ProbeState `json:"probe,omitempty"`
 	// LastValid is the end of the latest hour with valid ET (zero: never).
 	LastValid time.Time `json:"last_valid"`
 	// EtcSinceRun is the crop ET applied since the last credited irrigation, mm.
@@ -245,6 +254,9 @@ type Step struct {
 	// the same values as the step); a store that overwrites the hour's
 	// point by time keeps these.
 	Hour HourEntry
+	// Probe is the probes' correction of the depletion after the hour
+	// (nil: no probe estimate); Depletion already includes it.
+	Probe *ProbeFusion
 }
 
 // Levels are a zone's thresholds at one moment.

@@ -77,3 +77,20 @@ const (
 	// (common practice, no source).
 	MaxFlowDelay = 2 * time.Hour
 )
+
+// Soil-moisture probes (issue 16): the bounds of a ProbeSet.
+const (
+	// MaxRetentionAlpha bounds the van Genuchten α, 1/kPa: the coarsest
+	// texture of Carsel and Parrish (1988), sand, has 0.145 1/cm (1.5
+	// 1/kPa, from memory); 20 leaves room for gravelly soils.
+	MaxRetentionAlpha = 20.0
+	// MaxRetentionN bounds the van Genuchten n (sand 2.68 in Carsel and
+	// Parrish 1988, from memory; fitted n of uniform sands reach about 10,
+	// van Genuchten 1980 Table 1, from memory).
+	MaxRetentionN = 15.0
+	// MinProbeSD and MaxProbeSD bound the probe estimate's standard
+	// deviation, mm; MaxModelRel the model's relative uncertainty per mm it
+	// moves (common practice, no source).
+	MinProbeSD, MaxProbeSD = 0.5, 100.0
+	MaxModelRel            = 2.0
+)
