@@ -32,6 +32,8 @@ type Zone struct {
 	Salinity      *ZoneSalinity      `yaml:"salinity"`
 	// Forecast is how the zone uses the site's forecast; absent: not at all.
 	Forecast *ZoneForecast `yaml:"forecast"`
+	// Probes are the zone's soil-moisture probes; absent: none.
+	Probes *ZoneProbes `yaml:"probes"`
 	// Greenhouse marks a zone under cover: without a station it takes the
 	// site's one station with inside_greenhouse. Kc values of greenhouse
 	// crops are the grower's own (no table is built in).
@@ -308,6 +310,7 @@ func (z *Zone) Controller(st *Station) (*controllers.Zone, error) {
 		},
 		FailSafe: controllers.FailSafe{MaxMissingHours: z.FailSafe.MaxMissingHours, Fallback: z.FailSafe.Mode == "fallback"},
 		Forecast: z.forecastRules(),
+		Probes:   z.probeSet(),
 	}
 	if z.Holds.FrostBelowC != nil {
 		cz.Holds.FrostC, cz.Holds.HasFrost = *z.Holds.FrostBelowC, true
@@ -376,6 +379,7 @@ func (z *Zone) validate(path string, p *Problems, site *Site) {
 	z.validateDeficit(path, p)
 	z.validateSalinity(path, p)
 	z.validateForecast(path, p)
+	z.validateProbes(path, p, site)
 	z.validateGreenhouse(path, p, site)
 	switch controllers.RainMethod(z.Rain.Method) {
 	case controllers.RainAll, controllers.RainNone:
