@@ -47,6 +47,10 @@ const (
 	KindValveOverrun  Kind = "valve-overrun"   // a report claims more minutes or water than commanded
 	KindValveStopped  Kind = "valve-stopped"   // the controller stopped a run on its own (flow alarm, stop in the field)
 	KindOutboxNearCap Kind = "outbox-near-cap" // the store outbox is close to its size cap
+	KindFlowHigh      Kind = "flow-high"       // a flow meter reads more than the open valves pass (leak, burst)
+	KindFlowLow       Kind = "flow-low"        // a flow meter reads less than the open valves pass (clog, closed valve, low pressure)
+	KindFlowNoValve   Kind = "flow-no-valve"   // a flow meter reads flow with no valve commanded open (stuck valve, water taken)
+	KindFlowVolume    Kind = "flow-volume"     // a run's metered volume differs from its reported or commanded volume
 )
 
 // The kinds the gateway's intake raises (key from StateKey) while it holds

@@ -137,4 +137,4 @@ func Measurements() []string {
 	return slices.Clone(measurements)
 }
 
-var measurements = []string{MeasurementHour, MeasurementRaw, MeasurementZone, MeasurementCommand, MeasurementReport, MeasurementAlert, MeasurementZoneAlert}
+var measurements = []string{MeasurementHour, MeasurementRaw, MeasurementZone, MeasurementCommand, MeasurementReport, MeasurementAlert, MeasurementZoneAlert, MeasurementFlow}

@@ -49,7 +49,20 @@ const (
 	// (ClassAlert): stale ET, a valve that does not answer, a run cut
 	// short. Tags: site, zone, kind.
 	MeasurementZoneAlert = "zone_alert"
+	// MeasurementFlow is one flow meter's readings over a minute or so
+	// (ClassReport). Tags: site, meter, and zone or source. Fields:
+	// flow_l_min (mean over the interval), volume_l (litres in the
+	// interval), seconds (the interval's length).
+	MeasurementFlow = "flow_meter"
 )
+
+// FlowPoint builds a flow meter point (ClassReport, MeasurementFlow) at the
+// start of the interval it covers; scope is "zone" or "source" and id its
+// configured id.
+func FlowPoint(site, meter, scope, id string, t time.Time, flowLMin, volumeL, seconds float64) Point {
+	return Point{Class: ClassReport, Measurement: MeasurementFlow, Tags: tags("site", site, "meter", meter, scope, id),
+		Fields: map[string]any{"flow_l_min": flowLMin, "volume_l": volumeL, "seconds": seconds}, Time: t}
+}
 
 // rawUnits names the canonical unit of each quantity in field names.
 var rawUnits = map[hourly.Quantity]string{

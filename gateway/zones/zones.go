@@ -132,6 +132,7 @@ type Service struct {
 	// memory: the forecast topic is retained.
 	forecasts      map[string]*controllers.Forecast
 	forecastWarned map[string]*controllers.Forecast
+	meters         map[string][]*meterRef // per site (meters.go)
 }
 
 // New builds the service for every zone of cfg.
@@ -181,6 +182,7 @@ func New(o Options) (*Service, error) {
 			s.sites = append(s.sites, sr)
 		}
 	}
+	s.newMeters()
 	m, err := newMetrics(o.Registerer, s)
 	if err != nil {
 		return nil, fmt.Errorf("new zones: %w", err)
@@ -384,6 +386,9 @@ func (s *Service) Start(ctx context.Context) error {
 		if err := s.o.MQTT.Subscribe(ft, 1, s.onForecast(site)); err != nil {
 			return fmt.Errorf("run zones: subscribe %s: %w", ft, err)
 		}
+		if err := s.subscribeMeters(site.id); err != nil {
+			return err
+		}
 		wt := config.WaterTopic(s.o.TopicPrefix, site.id)
 		if err := s.o.MQTT.Subscribe(wt, 1, s.onWater(site)); err != nil {
 			return fmt.Errorf("run zones: subscribe %s: %w", wt, err)
@@ -480,7 +485,7 @@ func (s *Service) tick(now time.Time) (time.Time, []outgoing, error) {
 			}
 
 			d := controllers.Decide(now, controllers.Input{Zones: inputs, Sources: site.sources, Ledger: ledger, Holds: holds, Resume: resumeAt,
-				Forecast: s.forecastOf(site.id)})
+				Forecast: s.forecastOf(site.id), Meters: s.meterInputs(site.id)})
 			s.noteForecast(site.id, d)
 			if d.Wake.Before(next) {
 				next = d.Wake
@@ -499,6 +504,10 @@ func (s *Service) tick(now time.Time) (time.Time, []outgoing, error) {
 			}
 			evs, err := s.noteZones(tx, b, site, recs, d.Skips, now)
 			if err != nil {
+				return err
+			}
+			events = append(events, evs...)
+			if evs, err = s.noteFlows(tx, site.id, d.Flows, ledger, now); err != nil {
 				return err
 			}
 			events = append(events, evs...)
