@@ -178,6 +178,9 @@ func validateOwnTopics(c *Config, p *Problems) {
 			owner[WaterReplyTopic(prefix, s.ID)] = fmt.Sprintf("the water replies of sites[%d]", i)
 			owner[ForecastTopic(prefix, s.ID)] = fmt.Sprintf("the forecast of sites[%d]", i)
 		}
+		for j := range s.Meters {
+			owner[MeterTopic(prefix, s.ID, s.Meters[j].ID)] = fmt.Sprintf("the readings of sites[%d].meters[%d]", i, j)
+		}
 	}
 	for i := range c.Sites {
 		s := &c.Sites[i]
