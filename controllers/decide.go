@@ -366,6 +366,7 @@ func planRuns(now time.Time, zones []ZoneInput, sources []Source, ledger []Comma
 			reason.Stage = lv.Stage.Name
 			why += fmt.Sprintf("; deficit stage %s", lv.Stage.Name)
 		}
+		why += st.ProbeNote(now, z.Loc)
 		if lr > 0 {
 			reason.LeachMM = round2(GrossForLeaching(need, lr) - need)
 			why += fmt.Sprintf("; leaching fraction %.2f adds %.1f mm", lr, reason.LeachMM)

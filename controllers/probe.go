@@ -276,8 +276,9 @@ type ProbeState struct {
 	DisagreeSign float64 `json:"disagree_sign"`
 	ProbeDryMM   float64 `json:"probe_dry_mm"`
 	ModelDryMM   float64 `json:"model_dry_mm"`
-	LastProbeMM  float64 `json:"last_probe_mm"`
-	HasLast      bool    `json:"has_last"`
+	// LastProbeMM is the probes' latest depletion estimate, made at LastAt.
+	LastProbeMM float64   `json:"last_probe_mm"`
+	LastAt      time.Time `json:"last_at,omitzero"`
 	// AwaitSince is when an irrigation that the shallowest probe should
 	// answer was credited; AwaitBase its water content then, %.
 	AwaitSince time.Time `json:"await_since,omitzero"`
@@ -367,7 +368,7 @@ func (z *Zone) FuseProbes(st *State, s *Step, latest map[string]ProbeReading) ([
 		pst.ProbeDryMM += s.ETc + (d - modelMM)
 		pst.ModelDryMM += s.ETc
 	}
-	pst.LastProbeMM, pst.HasLast = est.DepletionMM, true
+	pst.LastProbeMM, pst.LastAt = est.DepletionMM, s.End
 	out = append(out, z.dayDisagreement(pst, d-modelMM, s.End)...)
 	return out, nil
 }
@@ -526,4 +527,15 @@ func (z *Zone) disagreeEvidence(pst *ProbeState, mean float64) string {
 		return head + fmt.Sprintf("; the probe dries at %.2f times the model's crop ET: the Kc (or the reference ET) is likely wrong", ratio)
 	}
 	return head + fmt.Sprintf("; the probe dries at the model's rate (%.2f times): it likely sits in a %s spot or its calibration is off", ratio, map[bool]string{true: "wet", false: "dry"}[mean < 0])
+}
+
+// ProbeNote is the text a decision adds when the depletion it used was
+// corrected by the zone's probes within the last day ("" otherwise).
+func (st *State) ProbeNote(now time.Time, loc *time.Location) string {
+	p := st.Probe
+	if p == nil || p.LastAt.IsZero() || now.Sub(p.LastAt) > 24*time.Hour {
+		return ""
+	}
+	return fmt.Sprintf("; depletion corrected by the soil-moisture probes (%+.1f mm today; they read %.1f mm at %s)",
+		p.DayInnovMM, p.LastProbeMM, p.LastAt.In(loc).Format("15:04"))
 }

@@ -216,3 +216,18 @@ func TestFusionSyntheticSeason(t *testing.T) {
 		assert.Contains(t, kinds[0], "Kc")
 	}
 }
+
+func TestPlanSaysProbesCorrected(t *testing.T) {
+	z := maizeZone()
+	z.Probes = defaultProbes()
+	now := at(1, 21, 0)
+	st := withWeather(&State{Depletion: 75}, now)
+	p := PlanRuns(now, []ZoneInput{{z, st}}, nil, nil, Holds{})
+	require.Len(t, p.Why, 1)
+	assert.NotContains(t, p.Why[0].Reason, "probes", "no fusion yet: the reason does not name the probes")
+
+	st.Probe = &ProbeState{LastAt: now.Add(-time.Hour), LastProbeMM: 80, DayInnovMM: 12.5}
+	p = PlanRuns(now, []ZoneInput{{z, st}}, nil, nil, Holds{})
+	require.Len(t, p.Why, 1)
+	assert.Contains(t, p.Why[0].Reason, "depletion corrected by the soil-moisture probes (+12.5 mm today; they read 80.0 mm at 20:00)")
+}

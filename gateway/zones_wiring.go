@@ -33,12 +33,14 @@ func wireZones(cfg *config.Config, deps Deps, outbox store.Enqueuer, alerts aler
 		return err
 	}
 	comp.Handlers = append(comp.Handlers, svc)
+	comp.Observers = append(comp.Observers, svc) // soil-moisture probe readings
 	comp.Services = append(comp.Services, svc)
 	return nil
 }
 
 var (
-	_ pipeline.HourHandler = (*zones.Service)(nil)
-	_ pipeline.HourHandler = (*zones.Backtest)(nil)
-	_ Service              = (*zones.Service)(nil)
+	_ pipeline.HourHandler    = (*zones.Service)(nil)
+	_ pipeline.HourHandler    = (*zones.Backtest)(nil)
+	_ Service                 = (*zones.Service)(nil)
+	_ pipeline.SampleObserver = (*zones.Service)(nil)
 )

@@ -128,6 +128,10 @@ type ZoneBalance struct {
 	StaleAlert bool `json:"stale_alert,omitempty"`
 	// LastSkip is the last reason the zone got no command (change-only logs).
 	LastSkip string `json:"last_skip,omitempty"`
+	// Probe is the zone's soil-moisture probe fusion and watch state
+	// (variance of the model's depletion, last readings, alert marks);
+	// absent for a zone without probes.
+	Probe *controllers.ProbeState `json:"probe,omitempty"`
 }
 
 // BalanceHour is one applied station hour of a zone (controllers.HourEntry).
@@ -151,7 +155,7 @@ type BalanceHour struct {
 // ZoneBalanceOf converts a zone's balance and scheduler marks.
 func ZoneBalanceOf(st controllers.State, staleAlert bool, lastSkip string) ZoneBalance {
 	b := ZoneBalance{DepletionMM: st.Depletion, LastValidET: st.LastValid, ETcSinceRunMM: st.EtcSinceRun,
-		Hours: make([]BalanceHour, 0, len(st.Hours)), StaleAlert: staleAlert, LastSkip: lastSkip}
+		Hours: make([]BalanceHour, 0, len(st.Hours)), StaleAlert: staleAlert, LastSkip: lastSkip, Probe: st.Probe}
 	for _, h := range st.Hours {
 		bh := BalanceHour{Start: h.Start, Revision: h.Revision, Valid: h.Valid, Fallback: h.Fallback,
 			ETMM: h.ET, Kc: h.Kc, Ks: h.Ks, ETcMM: h.ETc, ETcPotMM: h.ETcPot, RainMM: h.Rain,
@@ -169,7 +173,7 @@ func ZoneBalanceOf(st controllers.State, staleAlert bool, lastSkip string) ZoneB
 
 // State converts the balance back to the domain type.
 func (b ZoneBalance) State() controllers.State {
-	st := controllers.State{Depletion: b.DepletionMM, LastValid: b.LastValidET, EtcSinceRun: b.ETcSinceRunMM}
+	st := controllers.State{Depletion: b.DepletionMM, LastValid: b.LastValidET, EtcSinceRun: b.ETcSinceRunMM, Probe: b.Probe}
 	for _, h := range b.Hours {
 		e := controllers.HourEntry{Start: h.Start, Revision: h.Revision, Valid: h.Valid, Fallback: h.Fallback,
 			ET: h.ETMM, Kc: h.Kc, Ks: h.Ks, ETc: h.ETcMM, ETcPot: h.ETcPotMM, Rain: h.RainMM,

@@ -132,7 +132,9 @@ type Service struct {
 	// memory: the forecast topic is retained.
 	forecasts      map[string]*controllers.Forecast
 	forecastWarned map[string]*controllers.Forecast
-	meters         map[string][]*meterRef // per site (meters.go)
+	meters         map[string][]*meterRef  // per site (meters.go)
+	probeRefs      map[probeKey][]*zoneRef // probe channels (probes.go)
+	probeLatest    probeLatest
 }
 
 // New builds the service for every zone of cfg.
@@ -183,6 +185,7 @@ func New(o Options) (*Service, error) {
 		}
 	}
 	s.newMeters()
+	s.newProbes()
 	m, err := newMetrics(o.Registerer, s)
 	if err != nil {
 		return nil, fmt.Errorf("new zones: %w", err)
@@ -269,6 +272,9 @@ func (s *Service) HandleHour(tx *bbolt.Tx, rec hourly.Record) error {
 		if !ok {
 			continue
 		}
+		if err := s.fuseProbes(tx, ref, &zr.State, &step); err != nil {
+			return fmt.Errorf("zones handle hour: %w", err)
+		}
 		if err := putZone(b, ref.site, ref.id, &zr); err != nil {
 			return fmt.Errorf("zones handle hour: %w", err)
 		}
@@ -301,6 +307,7 @@ func stepPoint(site string, st controllers.Step) store.Point {
 		"revision": int64(st.Revision), "fallback": st.Fallback, "missing": st.Missing,
 		"estimated": st.Fill != "",
 	}
+	probeFields(f, st)
 	notes := map[string]string{"kind": string(st.Kind)}
 	if st.Fill != "" {
 		notes["fill"] = st.Fill
@@ -804,6 +811,7 @@ func (s *Service) applyReport(ref *zoneRef, r controllers.Report, now time.Time)
 		if err != nil {
 			return err
 		}
+		ref.z.NoteIrrigation(&zr.State, out.CreditMM, now)
 		if err := putZone(b, ref.site, ref.id, &zr); err != nil {
 			return err
 		}
