@@ -3,9 +3,11 @@ package state
 import (
 	"encoding/json"
 	"fmt"
+	"maps"
 	"time"
 
 	"etpulse/controllers"
+	"etpulse/hourly"
 )
 
 // LedgerEntry is how the state file keeps one valve command (bucket
@@ -131,7 +133,68 @@ type ZoneBalance struct {
 	// Probe is the zone's soil-moisture probe fusion and watch state
 	// (variance of the model's depletion, last readings, alert marks);
 	// absent for a zone without probes.
-	Probe *controllers.ProbeState `json:"probe,omitempty"`
+	Probe *ZoneProbe `json:"probe,omitempty"`
+}
+
+// ZoneProbe is how the state file keeps controllers.ProbeState (schema
+// version 3): the persistence form, so the domain type may change.
+type ZoneProbe struct {
+	VarMM2       float64              `json:"var_mm2"`
+	Marks        map[string]ProbeMark `json:"marks,omitempty"`
+	Day          time.Time            `json:"day,omitzero"`
+	DayInnovMM   float64              `json:"day_innov_mm"`
+	DayHours     int                  `json:"day_hours"`
+	DisagreeDays int                  `json:"disagree_days"`
+	DisagreeSign float64              `json:"disagree_sign"`
+	ProbeDryMM   float64              `json:"probe_dry_mm"`
+	ModelDryMM   float64              `json:"model_dry_mm"`
+	LastProbeMM  float64              `json:"last_probe_mm"`
+	LastAt       time.Time            `json:"last_at,omitzero"`
+	AwaitSince   time.Time            `json:"await_since,omitzero"`
+	AwaitBase    float64              `json:"await_base"`
+	Active       map[string]bool      `json:"active,omitempty"`
+}
+
+// ProbeMark is one probe's last reading and when it last changed
+// (controllers.ProbeMark).
+type ProbeMark struct {
+	Value     float64   `json:"value"`
+	Quantity  string    `json:"quantity"`
+	Time      time.Time `json:"time"`
+	ChangedAt time.Time `json:"changed_at"`
+	ETcSinceM float64   `json:"etc_since"` // model crop ET since ChangedAt, mm
+}
+
+func zoneProbeOf(p *controllers.ProbeState) *ZoneProbe {
+	if p == nil {
+		return nil
+	}
+	z := &ZoneProbe{VarMM2: p.VarMM2, Day: p.Day, DayInnovMM: p.DayInnovMM, DayHours: p.DayHours,
+		DisagreeDays: p.DisagreeDays, DisagreeSign: p.DisagreeSign, ProbeDryMM: p.ProbeDryMM, ModelDryMM: p.ModelDryMM,
+		LastProbeMM: p.LastProbeMM, LastAt: p.LastAt, AwaitSince: p.AwaitSince, AwaitBase: p.AwaitBase, Active: maps.Clone(p.Active)}
+	if p.Marks != nil {
+		z.Marks = make(map[string]ProbeMark, len(p.Marks))
+		for k, m := range p.Marks {
+			z.Marks[k] = ProbeMark{Value: m.Value, Quantity: string(m.Quantity), Time: m.Time, ChangedAt: m.ChangedAt, ETcSinceM: m.ETcSince}
+		}
+	}
+	return z
+}
+
+func (z *ZoneProbe) domain() *controllers.ProbeState {
+	if z == nil {
+		return nil
+	}
+	p := &controllers.ProbeState{VarMM2: z.VarMM2, Day: z.Day, DayInnovMM: z.DayInnovMM, DayHours: z.DayHours,
+		DisagreeDays: z.DisagreeDays, DisagreeSign: z.DisagreeSign, ProbeDryMM: z.ProbeDryMM, ModelDryMM: z.ModelDryMM,
+		LastProbeMM: z.LastProbeMM, LastAt: z.LastAt, AwaitSince: z.AwaitSince, AwaitBase: z.AwaitBase, Active: maps.Clone(z.Active)}
+	if z.Marks != nil {
+		p.Marks = make(map[string]controllers.ProbeMark, len(z.Marks))
+		for k, m := range z.Marks {
+			p.Marks[k] = controllers.ProbeMark{Value: m.Value, Quantity: hourly.Quantity(m.Quantity), Time: m.Time, ChangedAt: m.ChangedAt, ETcSince: m.ETcSinceM}
+		}
+	}
+	return p
 }
 
 // BalanceHour is one applied station hour of a zone (controllers.HourEntry).
@@ -155,7 +218,7 @@ type BalanceHour struct {
 // ZoneBalanceOf converts a zone's balance and scheduler marks.
 func ZoneBalanceOf(st controllers.State, staleAlert bool, lastSkip string) ZoneBalance {
 	b := ZoneBalance{DepletionMM: st.Depletion, LastValidET: st.LastValid, ETcSinceRunMM: st.EtcSinceRun,
-		Hours: make([]BalanceHour, 0, len(st.Hours)), StaleAlert: staleAlert, LastSkip: lastSkip, Probe: st.Probe}
+		Hours: make([]BalanceHour, 0, len(st.Hours)), StaleAlert: staleAlert, LastSkip: lastSkip, Probe: zoneProbeOf(st.Probe)}
 	for _, h := range st.Hours {
 		bh := BalanceHour{Start: h.Start, Revision: h.Revision, Valid: h.Valid, Fallback: h.Fallback,
 			ETMM: h.ET, Kc: h.Kc, Ks: h.Ks, ETcMM: h.ETc, ETcPotMM: h.ETcPot, RainMM: h.Rain,
@@ -173,7 +236,7 @@ func ZoneBalanceOf(st controllers.State, staleAlert bool, lastSkip string) ZoneB
 
 // State converts the balance back to the domain type.
 func (b ZoneBalance) State() controllers.State {
-	st := controllers.State{Depletion: b.DepletionMM, LastValid: b.LastValidET, EtcSinceRun: b.ETcSinceRunMM, Probe: b.Probe}
+	st := controllers.State{Depletion: b.DepletionMM, LastValid: b.LastValidET, EtcSinceRun: b.ETcSinceRunMM, Probe: b.Probe.domain()}
 	for _, h := range b.Hours {
 		e := controllers.HourEntry{Start: h.Start, Revision: h.Revision, Valid: h.Valid, Fallback: h.Fallback,
 			ET: h.ETMM, Kc: h.Kc, Ks: h.Ks, ETc: h.ETcMM, ETcPot: h.ETcPotMM, Rain: h.RainMM,
