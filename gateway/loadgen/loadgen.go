@@ -24,6 +24,7 @@ import (
 	"math/rand/v2"
 	"os"
 	"path/filepath"
+	"runtime/pprof"
 	"strings"
 	"time"
 
@@ -205,7 +206,11 @@ func Run(ctx context.Context, o Options) (sum Summary, err error) {
 	if err != nil {
 		return sum, fmt.Errorf("load: %w", err)
 	}
+	stuck := false // the gateway did not stop: it may hold the state file
 	defer func() {
+		if stuck {
+			return
+		}
 		if cerr := db.Close(); cerr != nil && err == nil {
 			err = fmt.Errorf("load: close state: %w", cerr)
 		}
@@ -244,17 +249,29 @@ func Run(ctx context.Context, o Options) (sum Summary, err error) {
 		defer close(runDone)
 		runErr = g.Run(runCtx)
 	}()
-	defer func() { // before the connection and the state file close
+	var stopErr error
+	stop := func() error { // cancel the gateway and wait a bounded time for it
 		cancel()
-		<-runDone
+		if !stuck && stopErr == nil {
+			if stopErr = waitStopped(runDone, stopTimeout); stopErr != nil {
+				stuck = true
+			}
+		}
+		return stopErr
+	}
+	defer func() { // before the connection and the state file close
+		if serr := stop(); serr != nil && err == nil {
+			err = fmt.Errorf("load: %w", serr)
+		}
 	}()
 	select {
 	case <-g.Ready():
 	case <-runDone:
 		return sum, fmt.Errorf("load: gateway stopped: %w", runErr)
 	case <-ctx.Done():
-		cancel()
-		<-runDone
+		if serr := stop(); serr != nil {
+			return sum, fmt.Errorf("load: %w", serr)
+		}
 		return sum, fmt.Errorf("load: %w", ctx.Err())
 	}
 
@@ -319,8 +336,9 @@ func Run(ctx context.Context, o Options) (sum Summary, err error) {
 		sum.Problems = strings.Split(err.Error(), "\n")
 	}
 	sum.Consistent = len(sum.Problems) == 0
-	cancel()
-	<-runDone
+	if serr := stop(); serr != nil {
+		return sum, fmt.Errorf("load: %w", serr)
+	}
 	if runErr != nil {
 		return sum, fmt.Errorf("load: gateway stopped: %w", runErr)
 	}
@@ -352,6 +370,28 @@ func drain(ctx context.Context, g *gateway.Gateway, n uint64, runDone <-chan str
 		}
 	}
 	return nil
+}
+
+// stopTimeout bounds the wait for the gateway to stop once cancelled.
+const stopTimeout = 30 * time.Second
+
+// ErrGatewayStuck is returned when the gateway does not stop after the run
+// cancels it: a deadlock, whose goroutine stacks the error carries.
+var ErrGatewayStuck = errors.New("gateway stuck")
+
+// waitStopped waits for done at most limit; after that it returns
+// ErrGatewayStuck with the process's goroutines grouped by stack.
+func waitStopped(done <-chan struct{}, limit time.Duration) error {
+	select {
+	case <-done:
+		return nil
+	case <-time.After(limit):
+	}
+	var stacks strings.Builder
+	if err := pprof.Lookup("goroutine").WriteTo(&stacks, 1); err != nil {
+		stacks.WriteString("(stacks unavailable: " + err.Error() + ")")
+	}
+	return fmt.Errorf("%w: did not stop within %s of being cancelled; its goroutines:\n%s", ErrGatewayStuck, limit, stacks.String())
 }
 
 // ErrNotLoopback is returned for a broker whose host is not a loopback

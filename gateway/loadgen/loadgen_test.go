@@ -168,3 +168,17 @@ func TestHistogram(t *testing.T) {
 	assert.Equal(t, time.Second, h.quantile(1))
 	assert.Equal(t, time.Second, h.max)
 }
+
+// TestStopBounded: a gateway that does not stop after its context is
+// cancelled (a deadlock) ends the run with an error naming it and the
+// goroutines' stacks, instead of hanging the load tool.
+func TestStopBounded(t *testing.T) {
+	done := make(chan struct{})
+	close(done)
+	require.NoError(t, waitStopped(done, time.Millisecond))
+
+	err := waitStopped(make(chan struct{}), time.Millisecond)
+	require.ErrorIs(t, err, ErrGatewayStuck)
+	assert.ErrorContains(t, err, "did not stop within 1ms")
+	assert.ErrorContains(t, err, "goroutine profile", "the stacks show where it hangs")
+}
