@@ -49,7 +49,7 @@ const lockWait = 5 * time.Second
 // Version. A new file gets the version at creation. A file of an older
 // version is first copied to BackupPath(path, old) and then migrated, all
 // migrations in one transaction; the backup is kept until the next start
-// that needs no migration, which removes it. A newer file is refused with
+// that needs no migration, which removes it (and Compact's backup). A newer file is refused with
 // ErrNewerVersion naming both versions; a file that is not a state file
 // with ErrNotStateFile. Open fails after a few seconds (ErrLocked) rather
 // than waiting forever when another process holds the file.
@@ -211,8 +211,11 @@ func FileVersion(db *bbolt.DB) (int, error) {
 func BackupPath(path string, v int) string { return fmt.Sprintf("%s.v%d.bak", path, v) }
 
 func removeBackups(path string, log *slog.Logger) {
+	backups := []string{CompactBackupPath(path)}
 	for v := 1; v < Version; v++ {
-		b := BackupPath(path, v)
+		backups = append(backups, BackupPath(path, v))
+	}
+	for _, b := range backups {
 		if err := os.Remove(b); err == nil {
 			log.Info("state file backup removed after a successful start", "backup", b)
 		}
