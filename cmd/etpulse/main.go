@@ -35,6 +35,7 @@ func commands() []command {
 		{"calc", "compute hourly reference ET from an hourly weather CSV", runCalc},
 		{"replay", "run recorded readings through the pipeline offline", runReplay},
 		{"export", "print the local history as CSV or line protocol", runExport},
+		{"compact", "return a stopped gateway's unused state file space to the disk", runCompact},
 		{"report", "print the morning report of a site for one day", runReport},
 		{"water", "record water the gateway did not command, or a measured depletion", runWater},
 		{"load", "measure the gateway's throughput with simulated stations on a local broker", runLoad},
