@@ -157,9 +157,6 @@ func (b *Backtest) HandleHour(_ *bbolt.Tx, rec hourly.Record) error {
 // after running the scheduler up to then, and runs the pass the live
 // service runs when a hold arrives.
 func (b *Backtest) Hold(site string, payload []byte, at time.Time) (HoldReply, error) {
-	if err := b.Advance(at); err != nil {
-		return HoldReply{}, err
-	}
 	var sr *siteRef
 	for _, x := range b.svc.sites {
 		if x.id == site {
@@ -169,12 +166,77 @@ func (b *Backtest) Hold(site string, payload []byte, at time.Time) (HoldReply, e
 	if sr == nil {
 		return HoldReply{}, fmt.Errorf("backtest hold: no site %q with zones", site)
 	}
-	at = b.clock.Now()
-	reply := b.svc.applyHold(sr, payload, at)
+	var reply HoldReply
+	err := b.inject(at, true, func(now time.Time) error {
+		reply = b.svc.applyHold(sr, payload, now)
+		return nil
+	})
+	return reply, err
+}
+
+// ObserveSample passes a replayed station reading to the zones as the live
+// gateway's pipeline does (pipeline.SampleObserver): a probe channel's
+// reading is kept for its zone's next hour step and fused there.
+func (b *Backtest) ObserveSample(site, station string, smp hourly.Sample, now time.Time) {
+	b.svc.ObserveSample(site, station, smp, now)
+}
+
+// Meter applies a reading of meter (of site) at at, after running the
+// scheduler up to then, as the meter's topic handler does live: a flow
+// rate in L/min (isFlow) or a running volume in litres. When the meter's
+// condition changes the scheduler pass the live service would be woken
+// for runs at once.
+func (b *Backtest) Meter(site, meter string, v float64, isFlow bool, at time.Time) error {
+	var mr *meterRef
+	for _, x := range b.svc.meters[site] {
+		if x.m.ID == meter {
+			mr = x
+		}
+	}
+	if mr == nil {
+		return fmt.Errorf("backtest meter: no meter %q at site %q", meter, site)
+	}
+	return b.inject(at, false, func(now time.Time) error {
+		if err := b.svc.applyMeter(mr, v, isFlow, now); err != nil {
+			return fmt.Errorf("backtest meter %s: %w", meter, err)
+		}
+		return nil
+	})
+}
+
+// Forecast makes f the latest forecast of site at at (the forecast topic's
+// message arriving), after running the scheduler up to then, and runs the
+// pass the live service runs when a forecast arrives.
+func (b *Backtest) Forecast(site string, f *controllers.Forecast, at time.Time) error {
+	return b.inject(at, true, func(time.Time) error {
+		b.svc.SetForecast(site, f)
+		return nil
+	})
+}
+
+// inject runs the scheduler up to at, applies an input at the time reached
+// and then runs the pass it triggers: always when pass is set, else when
+// the input woke the service (its wake channel, as live).
+func (b *Backtest) inject(at time.Time, pass bool, apply func(now time.Time) error) error {
+	if err := b.Advance(at); err != nil {
+		return err
+	}
+	now := b.clock.Now()
+	if err := apply(now); err != nil {
+		return err
+	}
+	select {
+	case <-b.svc.wake:
+		pass = true
+	default:
+	}
+	if !pass {
+		return nil
+	}
 	b.mu.Lock()
-	b.nextTick = at
+	b.nextTick = now
 	b.mu.Unlock()
-	return reply, b.Advance(at)
+	return b.Advance(now)
 }
 
 // Advance runs the scheduler up to t: its passes and the simulated valve

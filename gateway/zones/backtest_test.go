@@ -186,10 +186,5 @@ func TestBacktestCountsOnlyWaterThatRan(t *testing.T) {
 // state file removed when the test ends.
 func exampleBacktest(t *testing.T) *Backtest {
 	t.Helper()
-	cfg, err := config.Load(filepath.Join("..", "..", "testdata", "zones", "brackenby.yaml"))
-	require.NoError(t, err)
-	bt, closeBT, err := OpenBacktest(cfg)
-	require.NoError(t, err)
-	t.Cleanup(closeBT)
-	return bt
+	return backtestWith(t, func(*config.Config) {})
 }
