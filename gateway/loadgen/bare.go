@@ -25,6 +25,10 @@ type BareSummary struct {
 	// the publishers and the bare subscriber, as the gateway phase's figure
 	// is the publishers and the gateway.
 	CPUPerMsgUs float64 `json:"cpu_us_per_msg"`
+	// PeakHeapBytes is the live heap during the bare phase: the load
+	// tool's own share (publishers, tracker, bare subscriber) of the
+	// gateway phase's peak heap.
+	PeakHeapBytes uint64 `json:"peak_heap_bytes"`
 }
 
 // subscribeChunk is the number of topic filters in one SUBSCRIBE packet.
@@ -78,6 +82,8 @@ func runBare(ctx context.Context, o Options, f *farm, pl *plan, url, runID strin
 	pubCtx, stop := context.WithTimeout(ctx, o.BareDuration)
 	defer stop()
 	go func() { <-pubCtx.Done(); tr.stop() }()
+	mem := startMemory()
+	defer mem.stop()
 	cpu0 := ProcessCPU()
 	began := tr.since()
 	clock := demo.NewClock(SimStart) // nobody reads it in this phase
@@ -99,6 +105,8 @@ func runBare(ctx context.Context, o Options, f *farm, pl *plan, url, runID strin
 		time.Sleep(time.Millisecond)
 	}
 	cpu := ProcessCPU() - cpu0
+	mem.stop()
+	b.PeakHeapBytes = mem.peak.Load()
 	tr.mu.Lock()
 	defer tr.mu.Unlock()
 	b.Received = tr.acked

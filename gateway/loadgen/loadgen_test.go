@@ -61,6 +61,7 @@ func checkSmall(t *testing.T, sum Summary) {
 	assert.Positive(t, sum.Bare.Published)
 	assert.Equal(t, sum.Bare.Published, sum.Bare.Received)
 	assert.Positive(t, sum.Bare.MsgPerSecond)
+	assert.Positive(t, sum.Bare.PeakHeapBytes, "the tool's own heap: publishers, tracker, bare subscriber")
 	assert.InDelta(t, sum.MsgPerSecond/sum.Bare.MsgPerSecond, sum.RatioToBare, 1e-9)
 	require.NoError(t, sum.Check())
 }

@@ -294,8 +294,8 @@ func (s *Summary) WriteText(w io.Writer) error {
 			s.WriteBytesPerMsg, mib(s.WriteBytes), s.WriteCallBytesPerMsg, mib(s.WriteCallBytes))
 	}
 	if b := s.Bare; b != nil {
-		p("bare subscriber   %d of %d messages in %.2fs, %.0f msg/s, %.1f µs CPU per message (publishers and bare subscriber), p99 %.2f ms",
-			b.Received, b.Published, b.Seconds, b.MsgPerSecond, b.CPUPerMsgUs, b.AckP99Ms)
+		p("bare subscriber   %d of %d messages in %.2fs, %.0f msg/s, %.1f µs CPU per message (publishers and bare subscriber), p99 %.2f ms, peak heap %s",
+			b.Received, b.Published, b.Seconds, b.MsgPerSecond, b.CPUPerMsgUs, b.AckP99Ms, mib(b.PeakHeapBytes))
 		cpu := "n/a"
 		if b.CPUPerMsgUs > 0 && s.CPUPerMsgUs > 0 {
 			cpu = fmt.Sprintf("%.2f× the CPU per message (%+.1f µs)", s.CPUPerMsgUs/b.CPUPerMsgUs, s.CPUPerMsgUs-b.CPUPerMsgUs)
