@@ -73,6 +73,7 @@ type Env struct {
 // Summary describes a finished demo run.
 type Summary struct {
 	Messages, Duplicates, Late, Bad int // published, by kind
+	Field                           int // of Messages, the soil-moisture probe's readings
 	Records, Revisions              int // hourly records printed
 	History                         int // hourly records in the local history (store)
 	ZoneSteps                       int // zone balance steps in the local history
@@ -128,7 +129,7 @@ func Run(ctx context.Context, opt RunOptions) (sum Summary, err error) {
 	}
 	defer broker.Close()
 
-	sim := New(Options{Seed: opt.Seed, Faults: opt.Faults})
+	sim := New(Options{Seed: opt.Seed, Faults: opt.Faults, Scripted: true})
 	cfg, err := sim.Config(ConfigOptions{BrokerURL: url, ClientID: "etpulse-demo", StatePath: statePath})
 	if err != nil {
 		return sum, err
@@ -156,6 +157,10 @@ func Run(ctx context.Context, opt RunOptions) (sum Summary, err error) {
 	clk := clock.NewManual(sim.Start())
 	tr := newTraffic()
 	table := NewTable(opt.Out)
+	fld, err := newField(sim, cfg, table)
+	if err != nil {
+		return sum, err
+	}
 	reg := prometheus.NewRegistry()
 	comps := opt.Components
 	// The status pages get a listener of their own (below), which outlives
@@ -164,7 +169,7 @@ func Run(ctx context.Context, opt RunOptions) (sum Summary, err error) {
 	g, err := gateway.New(cfg, gateway.Deps{
 		Logger: opt.Logger, Registerer: reg, Gatherer: reg, DB: db, MQTT: tr.client("gateway", client),
 		Clock: clk, Components: comps,
-		OnRecord: table.Record, OnZoneEvent: func(e zones.Event) { zoneEvent(table, e) },
+		OnRecord: table.Record, OnZoneEvent: func(e zones.Event) { fld.zoneEvent(e); zoneEvent(table, e) },
 	})
 	if err != nil {
 		return sum, err
@@ -199,6 +204,9 @@ func Run(ctx context.Context, opt RunOptions) (sum Summary, err error) {
 		}
 		defer vc.Close(time.Second)
 		st.valves = v
+		if fld != nil {
+			fld.valves = v
+		}
 	}
 
 	end := sim.Start().Add(time.Duration(opt.Days) * 24 * time.Hour)
@@ -246,6 +254,19 @@ func Run(ctx context.Context, opt RunOptions) (sum Summary, err error) {
 	for at := sim.Start(); !at.After(last); at = at.Add(step) {
 		if err := publishUntil(at); err != nil {
 			return sum, err
+		}
+		if fld != nil && fld.valves != nil {
+			for _, m := range fld.messages(at) {
+				n := tr.expect(m.Topic, false)
+				if err := broker.Publish(m.Topic, m.Payload, false, 1); err != nil {
+					tr.add(-n)
+					return sum, fmt.Errorf("publish: %w", err)
+				}
+				if m.Reading {
+					st.readings++
+					sum.Field++
+				}
+			}
 		}
 		if err := st.settle(ctx, at); err != nil {
 			return sum, err

@@ -67,6 +67,10 @@ type Options struct {
 	// Stations limits the farm to these station ids; empty means all.
 	Stations []string
 	Faults   map[string]Fault
+	// Scripted makes the first local day's weather follow the demo's
+	// forecast feed: rain after the correct forecast, none after the wrong
+	// one (and no other rain that day).
+	Scripted bool
 	// Rates of injected messages, per normal message. Negative disables.
 	DupRate, LateRate, BadRate, ShuffleRate float64
 }
@@ -127,6 +131,9 @@ func New(o Options) *Sim {
 	s := &Sim{o: o, weather: map[string]*stationWeather{}}
 	for i, id := range o.Stations {
 		s.weather[id] = newStationWeather(id, o.Seed*7919+uint64(i)+1)
+		if o.Scripted {
+			s.weather[id].scripted = o.Start.Add(time.Duration(farmOffset*float64(time.Hour))).Unix() / 86400
+		}
 	}
 	return s
 }
@@ -319,6 +326,9 @@ type stationWeather struct {
 	st   hourly.Station
 	// per station character
 	tMean, tAmp, windBase, windAmp, transmit float64
+	// scripted is the local day (Unix days) whose rain follows the
+	// forecast script; 0: none.
+	scripted int64
 }
 
 func newStationWeather(id string, seed uint64) *stationWeather {
@@ -352,6 +362,9 @@ func (w *stationWeather) day(local time.Time) dayState {
 		ds.rainStart = 13 + 5*r.Float64()
 		ds.rainHours = 0.5 + 1.5*r.Float64()
 		ds.rainRate = 1 + 5*r.Float64()
+	}
+	if w.scripted != 0 && d == w.scripted {
+		ds.rainStart, ds.rainHours, ds.rainRate = scriptedRain()
 	}
 	return ds
 }
@@ -417,6 +430,11 @@ func (s *Sim) ConfigYAML(o ConfigOptions) string {
 	fmt.Fprintf(&b, "# Tallowwood Flats, the invented farm of the demo.\nbroker:\n  url: %q\n  client_id: %q\n", o.BrokerURL, o.ClientID)
 	// Metrics and health on any free loopback port: demos and tests may run side by side.
 	fmt.Fprintf(&b, "http:\n  listen: \"127.0.0.1:0\"\n")
+	if zonesYAML(s.o.Stations) != "" {
+		// The soil-moisture probe's plausible range, % by volume (above 60 %
+		// is no mineral soil: common practice, no source).
+		b.WriteString("alerts:\n  quantities:\n    soil_water: {min: 0.5, max: 60}\n")
+	}
 	fmt.Fprintf(&b, "state:\n  path: %q\nsites:\n  - id: %s\n    stations:\n", o.StatePath, Site)
 	timing := fmt.Sprintf("        close_grace: %s\n        late_window: %s\n        silence_close: %s\n        max_future: %s\n",
 		d(o.CloseGrace, 5*time.Minute), d(o.LateWindow, 6*time.Hour), d(o.SilenceClose, 20*time.Minute), d(o.MaxFuture, 5*time.Minute))
@@ -432,6 +450,7 @@ func (s *Sim) ConfigYAML(o ConfigOptions) string {
 				fmt.Fprintf(&b, "          - {id: %s, topic: %q, format: json, quantity: %s, unit: %q}\n", sn.id, s.Topic(Orchard, sn.id), sn.q, sn.unit)
 			}
 			fmt.Fprintf(&b, "          - {id: rain, topic: %q, format: number, quantity: rain, rain_mode: tips, mm_per_tip: 0.2}\n", s.Topic(Orchard, "rain"))
+			fmt.Fprintf(&b, "          - {id: %s, topic: %q, format: json, quantity: soil_water, unit: \"%%\"}\n", probeSensor, s.Topic(Orchard, probeSensor))
 		case Paddock:
 			station(Paddock, "short", 2)
 			fmt.Fprintf(&b, "          - id: obs\n            topic: %q\n            format: fields\n            time_key: ts\n            ignore: [batt_v]\n            fields:\n", s.Topic(Paddock, "obs"))

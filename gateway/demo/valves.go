@@ -140,3 +140,17 @@ func (v *valves) publish(topic string, r zones.ReportMessage) {
 		v.log.Warn("demo valves: report not published", "id", r.ID, "state", r.State, "err", err)
 	}
 }
+
+// running returns the commands whose valves are open now: started and not
+// yet finished or stopped.
+func (v *valves) running() []zones.CommandMessage {
+	v.mu.Lock()
+	defer v.mu.Unlock()
+	var out []zones.CommandMessage
+	for _, r := range v.runs {
+		if r.started && r.last == nil {
+			out = append(out, r.cmd)
+		}
+	}
+	return out
+}

@@ -4,6 +4,7 @@ import (
 	"context"
 	"fmt"
 	"log/slog"
+	"strings"
 	"time"
 
 	"etpulse/controllers"
@@ -28,6 +29,8 @@ func zonesYAML(stations []string) string {
 	}
 	return `    sources:
       - {id: creek-pump, max_valves: 2, max_flow_l_min: 3000}
+    meters:
+      - {id: creek-main, source: creek-pump, stop_on_high: true}
     zones:
       - id: apple-block-4
         station: orchard
@@ -46,6 +49,10 @@ func zonesYAML(stations []string) string {
           max_minutes_per_day: 240
         windows: ["20:00-06:00"]
         weather_holds: {frost_below_c: 1}
+        probes:
+          sensors: [{sensor: sm30, depth_m: 0.3}]
+          texture: loam
+        forecast: {rain_min_mm: 5, rain_min_probability: 0.7}
       - id: wheat-east
         station: paddock
         valve: v9
@@ -120,6 +127,10 @@ func zoneEvent(t *Table, e zones.Event) {
 	case zones.EventReport:
 		if c.State == controllers.Failed {
 			t.Event(e.Time, "valve command %s failed: %s", c.ID, c.Note)
+		}
+	case zones.EventSkip:
+		if strings.Contains(e.Text, "forecast") {
+			t.Event(e.Time, "zone %s not watered: %s", e.Zone, e.Text)
 		}
 	case zones.EventHold, zones.EventAlert:
 		t.Event(e.Time, "zone %s: %s", e.Zone, e.Text)

@@ -37,10 +37,15 @@ func TestDemoWatersZones(t *testing.T) {
 		seen[m[3]] = true
 		mm, _ := strconv.ParseFloat(m[2], 64)
 		dep, _ := strconv.ParseFloat(m[4], 64)
-		if m[1] == "wheat-east" {
+		stopped := strings.Contains(text, "valve stop for "+m[3]+" sent")
+		switch {
+		case stopped:
+			// The leak's flow alarm stopped it after a few minutes.
+			assert.Less(t, mm, 2.0, "%s stopped early", m[3])
+		case m[1] == "wheat-east":
 			// 40 min x 5 mm/h x 0.75 = 2.5 mm (60 x 12 L/min / (12 m x 12 m) = 5 mm/h).
 			assert.InDelta(t, 2.5, mm, 0.05)
-		} else {
+		default:
 			// 180 min x 1.333 mm/h x 0.9 = 3.6 mm (4 x 2 L/h / 6 m2 = 1.333 mm/h).
 			assert.InDelta(t, 3.6, mm, 0.05)
 		}
@@ -49,4 +54,21 @@ func TestDemoWatersZones(t *testing.T) {
 	assert.Len(t, seen, 4)
 	assert.Less(t, last["wheat-east"], 20.0, "below its trigger after the night's cycles")
 	assert.Less(t, last["apple-block-4"], 8.0)
+}
+
+// TestDemoFieldSensors: the demo's probe, flow meter and forecast feed each
+// show in the table, and the leak's flow alarm stops the wheat's first run
+// (the meter's stop_on_high).
+func TestDemoFieldSensors(t *testing.T) {
+	var out bytes.Buffer
+	_, err := Run(context.Background(), RunOptions{Days: 1, Seed: 1, Out: &out})
+	require.NoError(t, err)
+	text := out.String()
+	assert.Contains(t, text, "soil-moisture probe sm30 at 0.3 m in apple-block-4")
+	assert.Contains(t, text, "a wrong forecast")
+	assert.Contains(t, text, "a correct forecast")
+	assert.Regexp(t, `flow meter creek-main: a lateral bursts during wheat-east's run (\S+)`, text)
+	assert.Contains(t, text, "zone creek-main: flow alarm: meter creek-main")
+	assert.Regexp(t, `valve stop for wheat-east-\S+-c1 sent \(attempt 1\): flow alarm`, text)
+	assert.NotContains(t, text, "sm30/soil_water range", "the probe's readings are in range")
 }
