@@ -40,6 +40,16 @@ it is a terminal.`,
   sensor    optional: the sensor's name as the gateway gives it (id, or
             id.key); default the station's first sensor of the quantity
 
+Rows for the zone backtest, in the same file, in time order:
+  probe     a station reading of soil_water (%, m3/m3) or soil_tension
+            (kPa, cbar, hPa) whose sensor column names a zone's probe
+  meter     station = the meter's id (site/id when ids repeat), quantity
+            meter_flow (L/min, m3/h), meter_total (a running volume: L, m3)
+            or meter_pulses (pulses, with the meter's litres_per_pulse)
+  forecast  station = the site, quantity forecast, value = the forecast
+            topic's JSON payload (quoted, inner quotes doubled), unit
+            empty; time = when it arrived
+
 Output columns: site, station, reference, start_utc, end_utc, local_start,
 revision, complete, air_temp_c, ea_kpa, wind_2m_m_s, solar_mj_m2, rain_mm,
 ra_mj_m2, rso_mj_m2, rn_mj_m2, g_mj_m2, fcd, fcd_source, et_mm, flags, fill.
@@ -106,6 +116,7 @@ func runReplay(ctx context.Context, args []string, stdin io.Reader, stdout, stde
 	defer closeBT()
 	if bt != nil {
 		opts.Handlers = append(opts.Handlers, bt)
+		opts.Zones = bt
 	}
 	if f, ok := stderr.(*os.File); ok && term.IsTerminal(int(f.Fd())) {
 		bar := progressbar.DefaultBytes(size, "replaying")

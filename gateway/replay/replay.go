@@ -21,6 +21,12 @@
 // gate flags, excludes (filling an excluded pyranometer's hour by
 // Hargreaves-Samani) or stops hours exactly as live.
 //
+// With Options.Zones (a zone backtest) the file may also hold rows for the
+// zones (zonerows.go): meter rows (station = the meter, quantity
+// meter_flow, meter_total or meter_pulses) and forecast rows (station =
+// the site, quantity forecast, value = the forecast topic's JSON); probe
+// rows are ordinary soil_water or soil_tension readings.
+//
 // Rain values are increments (fallen since the previous row of the station).
 // Rows of one quantity and station deduplicate on time. Output is one CSV row
 // per hourly record (Columns), revisions as extra rows.
@@ -71,6 +77,10 @@ type Options struct {
 	MaxRowErrors int
 	// RowErrors receives one line per bad row (line number and problem); nil discards.
 	RowErrors io.Writer
+	// Zones, when set, sees every accepted station reading and takes the
+	// meter and forecast rows (a zone backtest); without it those rows are
+	// bad rows.
+	Zones ZoneFeed
 }
 
 // Summary counts what a replay did.
@@ -143,7 +153,7 @@ func Run(ctx context.Context, cfg *config.Config, in io.Reader, out io.Writer, o
 	if err := w.Write(Columns); err != nil {
 		return sum, fmt.Errorf("replay: write: %w", err)
 	}
-	rows, err := newRowReader(r, cfg)
+	rows, err := newRowReader(r, cfg, o.Zones != nil)
 	if err != nil {
 		return sum, fmt.Errorf("replay: %w", err)
 	}
@@ -214,7 +224,7 @@ func Run(ctx context.Context, cfg *config.Config, in io.Reader, out io.Writer, o
 		if err := ctx.Err(); err != nil {
 			return sum, err
 		}
-		rd, line, err := rows.next()
+		rd, zr, line, err := rows.next()
 		if errors.Is(err, io.EOF) {
 			break
 		}
@@ -232,6 +242,17 @@ func Run(ctx context.Context, cfg *config.Config, in io.Reader, out io.Writer, o
 			return sum, fmt.Errorf("replay: line %d: %w", line, err)
 		}
 		sum.Rows++
+		if zr != nil {
+			// The station rows before it go through first: the zones see
+			// the file in its order.
+			if err := flush(); err != nil {
+				return sum, err
+			}
+			if err := zr.feed(o.Zones); err != nil {
+				return sum, fmt.Errorf("replay: line %d: %w", line, err)
+			}
+			continue
+		}
 		key := rd.Site + "/" + rd.Station
 		if key != batchKey || len(batch) >= batchRows {
 			if err := flush(); err != nil {
@@ -277,11 +298,14 @@ func newLive(cfg *config.Config, db *bbolt.DB, o Options, clock func() time.Time
 		return nil, nil, err
 	}
 	po := pipeline.Options{DB: db, Logger: o.Logger, Handlers: o.Handlers}
+	if o.Zones != nil {
+		po.Observers = append(po.Observers, o.Zones) // probe readings
+	}
 	if !cfg.Alerts.Disabled {
 		arrived := pipeline.SampleObserverFunc(func(site, station string, s hourly.Sample, _ time.Time) {
 			mon.ObserveSample(site, station, s, s.Time)
 		})
-		po.Observers = []pipeline.SampleObserver{arrived}
+		po.Observers = append(po.Observers, arrived)
 		po.Handlers = append([]pipeline.HourHandler{mon}, o.Handlers...)
 		po.Gate = mon
 	}
@@ -319,9 +343,15 @@ type rowReader struct {
 	// as the live gateway names its readings (sensor id, or id.key), so the
 	// alert checks see the sensors they expect.
 	sensors map[stationRef]map[hourly.Quantity]string
+	// zones is set when a zone backtest takes the meter and forecast
+	// rows; meters and sites index them.
+	zones    bool
+	meters   map[string]meterRef
+	meterIDs []string
+	sites    map[string]bool
 }
 
-func newRowReader(r *csv.Reader, cfg *config.Config) (*rowReader, error) {
+func newRowReader(r *csv.Reader, cfg *config.Config, zones bool) (*rowReader, error) {
 	head, err := r.Read()
 	if err != nil {
 		if errors.Is(err, io.EOF) {
@@ -329,7 +359,8 @@ func newRowReader(r *csv.Reader, cfg *config.Config) (*rowReader, error) {
 		}
 		return nil, fmt.Errorf("readings csv: header: %w", err)
 	}
-	rr := &rowReader{r: r, col: map[string]int{}, stations: map[string]stationRef{}}
+	rr := &rowReader{r: r, col: map[string]int{}, stations: map[string]stationRef{}, zones: zones}
+	rr.indexMeters(cfg)
 	for i, h := range head {
 		rr.col[strings.ToLower(strings.TrimSpace(strings.TrimPrefix(h, "\ufeff")))] = i
 	}
@@ -367,15 +398,16 @@ func newRowReader(r *csv.Reader, cfg *config.Config) (*rowReader, error) {
 	return rr, nil
 }
 
-// next returns the next reading, a *rowError for a bad row, or io.EOF.
-func (rr *rowReader) next() (ingest.Reading, int, error) {
+// next returns the next reading or row for the zones, a *rowError for a
+// bad row, or io.EOF.
+func (rr *rowReader) next() (ingest.Reading, *zoneRow, int, error) {
 	rec, err := rr.r.Read()
 	if err != nil {
 		var pe *csv.ParseError
 		if errors.As(err, &pe) {
-			return ingest.Reading{}, pe.StartLine, &rowError{err}
+			return ingest.Reading{}, nil, pe.StartLine, &rowError{err}
 		}
-		return ingest.Reading{}, 0, err
+		return ingest.Reading{}, nil, 0, err
 	}
 	line, _ := rr.r.FieldPos(0)
 	get := func(c string) string {
@@ -385,12 +417,22 @@ func (rr *rowReader) next() (ingest.Reading, int, error) {
 		}
 		return strings.TrimSpace(rec[i])
 	}
-	bad := func(format string, args ...any) (ingest.Reading, int, error) {
-		return ingest.Reading{}, line, &rowError{fmt.Errorf(format, args...)}
+	bad := func(format string, args ...any) (ingest.Reading, *zoneRow, int, error) {
+		return ingest.Reading{}, nil, line, &rowError{fmt.Errorf(format, args...)}
 	}
 	at, err := time.Parse(time.RFC3339Nano, get("time"))
 	if err != nil {
 		return bad("time: %q is not an RFC 3339 time", get("time"))
+	}
+	if q := get("quantity"); isZoneQuantity(q) {
+		if !rr.zones {
+			return bad("%s: rows for the zones need a zone backtest (etpulse replay with zones in the configuration); skipped", q)
+		}
+		zr, err := rr.zoneRow(q, at.UTC(), get)
+		if err != nil {
+			return bad("%v", err)
+		}
+		return ingest.Reading{}, zr, line, nil
 	}
 	ref, ok := rr.stations[get("station")]
 	if !ok {
@@ -421,7 +463,7 @@ func (rr *rowReader) next() (ingest.Reading, int, error) {
 	}
 	return ingest.Reading{Site: ref.site, Station: ref.station, Sample: hourly.Sample{
 		Sensor: sensor, Quantity: q, Time: at.UTC(), Value: v,
-	}}, line, nil
+	}}, nil, line, nil
 }
 
 func recordRow(rec hourly.Record) []string {
