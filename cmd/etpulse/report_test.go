@@ -59,8 +59,8 @@ func TestReportAgainstHandSummedDay(t *testing.T) {
 	require.Len(t, rep.Stations, len(cfg.Sites[0].Stations))
 
 	type sums struct {
-		et                        map[string]float64
-		rain                      float64
+		et               map[string]float64
+		rain             float64
 		complete, filled int
 	}
 	want := map[string]*sums{}
