@@ -252,6 +252,17 @@ func DefaultLimits(q hourly.Quantity) Limits {
 	case hourly.Rain:
 		// Gauges in tip or event mode report only while it rains: no stuck or silence check.
 		l.Min, l.Max, l.SpikePerMinute, l.StuckHours, l.StuckTolerance, l.Silence = 0, 50, 0, 0, 0, 0
+	case hourly.SoilWater, hourly.SoilTension:
+		// Soil-moisture probes: the physical range (volumetric content 0-100 %,
+		// tension 0-2000 kPa, the ingest bounds); irrigation wets a probe within
+		// minutes, so no spike limit; a probe that does not move is the zone's
+		// probe-stuck check, which knows when water was applied. Probes
+		// commonly report every 15-60 min: silent after 3 h (common practice,
+		// no source).
+		l.Min, l.Max, l.SpikePerMinute, l.StuckHours, l.StuckTolerance, l.Silence = 0, 100, 0, 0, 0, 3*time.Hour
+		if q == hourly.SoilTension {
+			l.Max = 2000
+		}
 	}
 	return l
 }

@@ -58,3 +58,13 @@ func TestAlertDefaults(t *testing.T) {
 	h.setDefaults()
 	assert.Equal(t, DefaultHTTPListen, h.Listen)
 }
+
+// TestDefaultLimitsEveryQuantity: every quantity a sensor may carry has a
+// plausible range by default, so a new quantity cannot arrive with the
+// zero range that refuses every reading as "above the plausible maximum 0".
+func TestDefaultLimitsEveryQuantity(t *testing.T) {
+	for _, q := range hourly.Quantities {
+		l := DefaultLimits(q)
+		assert.Greater(t, l.Max, l.Min, "%s: default plausible range", q)
+	}
+}
