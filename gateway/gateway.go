@@ -101,7 +101,6 @@ type Gateway struct {
 	published atomic.Uint64
 	kick      chan struct{} // wakes the record publisher
 	pubMu     sync.Mutex    // guards pub: a record goes out once (publish.go)
-	markMu    sync.Mutex    // one markAcked at a time
 	pubWG     sync.WaitGroup
 	pub       recordPublisher
 	ready     chan struct{}

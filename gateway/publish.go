@@ -49,17 +49,19 @@ type recordPublisher struct {
 	idle    chan struct{}   // a waiter's: closed when nothing is in flight (waitPublished)
 	flight  map[recordKey]bool
 	acked   []hourly.Record // acknowledged, not yet marked published
-	marking int             // markAcked calls reporting a batch
+	marking bool            // a finish is marking acknowledged records (the marker)
 }
 
 // publishPending starts publishing every pending record that is not in
 // flight already. It waits only for a place in the window, bounded by ctx;
 // false when ctx ended before every record was started.
 func (g *Gateway) publishPending(ctx context.Context) bool {
+	// Pending is read under the lock: a record leaves flight only after it
+	// is marked published, so one not in flight here is truly unpublished.
 	g.pubMu.Lock()
-	defer g.pubMu.Unlock()
 	recs, err := g.pipe.Pending()
 	if err != nil {
+		g.pubMu.Unlock()
 		g.log.Error("reading pending records", "err", err)
 		return false
 	}
@@ -77,20 +79,26 @@ func (g *Gateway) publishPending(ctx context.Context) bool {
 		}
 		byStation[s] = append(byStation[s], r)
 	}
+	pubCtx := g.pub.ctx
+	g.pubMu.Unlock()
+	// The lock is not held while waiting for a place: the publishes that
+	// free one take it to finish.
 	for i, s := range order {
 		select {
 		case g.pub.window <- struct{}{}:
 		case <-ctx.Done():
+			g.pubMu.Lock()
 			for _, s := range order[i:] {
 				for _, r := range byStation[s] {
 					delete(g.pub.flight, keyOf(r))
 				}
 			}
 			g.settleIdle()
+			g.pubMu.Unlock()
 			return false
 		}
 		g.pubWG.Add(1)
-		go g.publishStation(g.pub.ctx, byStation[s])
+		go g.publishStation(pubCtx, byStation[s])
 	}
 	return true
 }
@@ -119,30 +127,47 @@ func (g *Gateway) publishStation(ctx context.Context, recs []hourly.Record) {
 	}
 }
 
-// finish takes failed records out of flight and marks acknowledged ones
-// published (taking them out of flight then), together with any others
-// acknowledged meanwhile.
+// finish takes failed records out of flight, or hands acknowledged ones to
+// the marker. The first finish to find no marker running becomes it: it
+// marks everything acknowledged so far published in one transaction, and
+// again for what was acknowledged meanwhile, until nothing is left (a group
+// commit: one fsync for many acknowledgements). Only the marker reports
+// records, one batch after the other, so OnRecord is never called
+// concurrently.
 func (g *Gateway) finish(recs []hourly.Record, acked bool) {
 	g.pubMu.Lock()
-	if acked {
-		// In flight until marked: Pending still lists them until then.
-		g.pub.acked = append(g.pub.acked, recs...)
-	} else {
+	defer g.pubMu.Unlock()
+	if !acked {
 		for _, r := range recs {
 			delete(g.pub.flight, keyOf(r))
 		}
+		g.settleIdle()
+		return
 	}
-	g.pubMu.Unlock()
-	g.markAcked()
-	g.pubMu.Lock()
+	// In flight until marked: Pending still lists them until then.
+	g.pub.acked = append(g.pub.acked, recs...)
+	if g.pub.marking {
+		return
+	}
+	g.pub.marking = true
+	for len(g.pub.acked) > 0 {
+		done := g.pub.acked
+		g.pub.acked = nil
+		g.pubMu.Unlock()
+		g.markPublished(done)
+		g.pubMu.Lock()
+		for _, r := range done {
+			delete(g.pub.flight, keyOf(r))
+		}
+	}
+	g.pub.marking = false
 	g.settleIdle()
-	g.pubMu.Unlock()
 }
 
 // busy reports records in flight or acknowledged but not yet reported.
 // g.pubMu must be held.
 func (g *Gateway) busy() bool {
-	return len(g.pub.flight) > 0 || len(g.pub.acked) > 0 || g.pub.marking > 0
+	return len(g.pub.flight) > 0 || len(g.pub.acked) > 0 || g.pub.marking
 }
 
 // settleIdle wakes the waiters of waitPublished once nothing is busy.
@@ -154,34 +179,12 @@ func (g *Gateway) settleIdle() {
 	}
 }
 
-// markAcked marks every acknowledged record published in one transaction,
+// markPublished marks acknowledged records published in one transaction,
 // then reports them (retained state, OnRecord, the Published count).
-func (g *Gateway) markAcked() {
-	g.markMu.Lock()
-	defer g.markMu.Unlock()
-	g.pubMu.Lock()
-	done := g.pub.acked
-	g.pub.acked = nil
-	if len(done) == 0 {
-		g.pubMu.Unlock()
-		return
-	}
-	g.pub.marking++
-	g.pubMu.Unlock()
-	defer func() {
-		g.pubMu.Lock()
-		g.pub.marking--
-		g.pubMu.Unlock()
-	}()
-	err := g.pipe.MarkPublished(done...)
-	if err != nil {
+func (g *Gateway) markPublished(done []hourly.Record) {
+	if err := g.pipe.MarkPublished(done...); err != nil {
 		g.log.Error("marking records published", "err", err)
 	}
-	g.pubMu.Lock()
-	for _, r := range done {
-		delete(g.pub.flight, keyOf(r))
-	}
-	g.pubMu.Unlock()
 	for _, rec := range done {
 		g.retained.noteRecord(rec)
 		if g.deps.OnRecord != nil {
