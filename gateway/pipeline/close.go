@@ -52,7 +52,7 @@ func (p *Pipeline) Tick(now time.Time) ([]hourly.Record, error) {
 	if err != nil {
 		errs = append(errs, err)
 	}
-	out = append(out, p.closeTogether(due, now)...)
+	out = append(out, p.closeTogether(due, now, nil)...)
 	var pruning []*station
 	for _, st := range due {
 		recs, err := p.tickStation(st, now)
@@ -78,8 +78,10 @@ const closeTogetherMax = 4096
 // hour of every station in one transaction (so each hour's quality gate is
 // asked after the station's previous hour closed, as closeDue does). A
 // failed round is left to closeDue, station by station. A station whose
-// first hour trimQuiet would trim is left to it too.
-func (p *Pipeline) closeTogether(due []*station, now time.Time) []hourly.Record {
+// first hour trimQuiet would trim is left to it too. Hours are due by the
+// station's watermark (or its entry in marks, when marks is not nil) and,
+// when now is not zero, by silence (see closeDue).
+func (p *Pipeline) closeTogether(due []*station, now time.Time, marks map[*station]time.Time) []hourly.Record {
 	type job struct {
 		st     *station
 		hour   time.Time
@@ -94,11 +96,15 @@ func (p *Pipeline) closeTogether(due []*station, now time.Time) []hourly.Record 
 				continue
 			}
 			end := st.cursor.Add(time.Hour)
-			if !st.closed && now.Sub(end) > st.cfg.LateWindow.D() {
+			if !now.IsZero() && !st.closed && now.Sub(end) > st.cfg.LateWindow.D() {
 				continue // trimQuiet's
 			}
-			byData := !st.watermark.Before(end.Add(st.cfg.CloseGrace.D()))
-			if byData || st.silent(end, now) {
+			wm := st.watermark
+			if marks != nil {
+				wm = marks[st]
+			}
+			byData := !wm.Before(end.Add(st.cfg.CloseGrace.D()))
+			if byData || (!now.IsZero() && st.silent(end, now)) {
 				jobs = append(jobs, job{st, st.cursor, !byData, p.gateFor(st, st.cursor)})
 			}
 		}

@@ -89,3 +89,32 @@ func commits(t *testing.T, db *bbolt.DB) (id int) {
 	require.NoError(t, db.View(func(tx *bbolt.Tx) error { id = tx.ID(); return nil }))
 	return id
 }
+
+// A batch that carries the next hour's first readings of many stations
+// closes their hours together: one commit for the readings before, one
+// for the closes, one for the readings after; not two per station.
+func TestBatchClosingManyStationsHours(t *testing.T) {
+	cfg := manyStationsConfig(t, 50)
+	db := openDB(t, filepath.Join(t.TempDir(), "s.db"))
+	p, err := New(cfg, Options{DB: db})
+	require.NoError(t, err)
+	_, err = p.Ingest(h10.Add(50*time.Minute), networkReadings(cfg, h10, h10.Add(time.Hour), 10*time.Minute))
+	require.NoError(t, err)
+
+	before := commits(t, db)
+	next := networkReadings(cfg, h10.Add(time.Hour+5*time.Minute), h10.Add(time.Hour+15*time.Minute), 10*time.Minute)
+	res, err := p.Ingest(h10.Add(time.Hour+5*time.Minute), next)
+	require.NoError(t, err)
+	require.Len(t, res.Records, 50)
+	assert.Equal(t, len(next), res.Accepted)
+	assert.LessOrEqual(t, commits(t, db)-before, 3, "write transactions for 50 stations' hours closed by one batch")
+	for i, r := range res.Records {
+		assert.Equal(t, cfg.Sites[0].Stations[i].ID, r.Station, "records in configuration order")
+		assert.Equal(t, 6, r.Stats["air_temp"].Count, r.Station)
+	}
+	// The readings after the close are in the new hour, not the closed one.
+	rec, ok, err := p.Record("net", "s00049", h10)
+	require.NoError(t, err)
+	require.True(t, ok)
+	assert.Equal(t, 6, rec.Stats["air_temp"].Count)
+}

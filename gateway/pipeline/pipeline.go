@@ -5,6 +5,7 @@ import (
 	"errors"
 	"fmt"
 	"log/slog"
+	"slices"
 	"strconv"
 	"sync"
 	"time"
@@ -303,48 +304,71 @@ func (p *Pipeline) ingest(now time.Time, readings []ingest.Reading) (IngestResul
 	var res IngestResult
 	noStop := map[*station]bool{}
 	for len(readings) > 0 {
-		n, stop, err := p.ingestTx(now, readings, noStop, &res)
+		rest, stops, err := p.ingestTx(now, readings, noStop, &res)
 		if err != nil {
 			return res, fmt.Errorf("ingest: %w", err)
 		}
-		readings = readings[n:]
-		if stop == nil {
+		readings = rest
+		if len(stops) == 0 {
 			continue
 		}
-		recs, err := p.closeDue(stop, readings[0].Sample.Time.UTC(), time.Time{})
-		res.Records = append(res.Records, recs...)
-		p.schedule(stop)
-		if err != nil {
-			// The hour stays open; Tick retries. Do not stop again for it.
-			p.log.Error("closing hour", "station", stop.id, "err", err)
-			noStop[stop] = true
+		// The stations whose readings made their hours due close them
+		// together (closeTogether), then one by one what is left.
+		stopped := make([]*station, 0, len(stops))
+		for st := range stops {
+			stopped = append(stopped, st)
+		}
+		slices.SortFunc(stopped, func(a, b *station) int { return a.index - b.index })
+		from := len(res.Records)
+		res.Records = append(res.Records, p.closeTogether(stopped, time.Time{}, stops)...)
+		for _, st := range stopped {
+			recs, err := p.closeDue(st, stops[st], time.Time{})
+			res.Records = append(res.Records, recs...)
+			p.schedule(st)
+			if err != nil {
+				// The hour stays open; Tick retries. Do not stop again for it.
+				p.log.Error("closing hour", "station", st.id, "err", err)
+				noStop[st] = true
+			}
+		}
+		if len(stopped) > 1 {
+			// closeTogether's records come round by round: put them in
+			// configuration order, each station's hours in order.
+			slices.SortStableFunc(res.Records[from:], func(a, b hourly.Record) int {
+				return p.stations[stationID{a.Site, a.Station}].index - p.stations[stationID{b.Site, b.Station}].index
+			})
 		}
 	}
 	return res, nil
 }
 
-// ingestTx stores readings in one transaction until one would make its
-// station's open hour due; it returns how many it consumed and that station.
-func (p *Pipeline) ingestTx(now time.Time, readings []ingest.Reading, noStop map[*station]bool, res *IngestResult) (int, *station, error) {
+// ingestTx stores readings in one transaction. A reading that would make
+// its station's open hour due stops that station: it and the station's
+// later readings are returned in rest (in order) for after the close, and
+// stops gives the reading's time as the station's watermark for closing;
+// other stations' readings go on.
+func (p *Pipeline) ingestTx(now time.Time, readings []ingest.Reading, noStop map[*station]bool, res *IngestResult) (rest []ingest.Reading, stops map[*station]time.Time, err error) {
 	type accepted struct {
 		st *station
 		s  hourly.Sample
 	}
 	var (
-		acc      []accepted
-		rejs     []ingest.Rejection
-		dups     []*station
-		updates  = map[*station]*mirror{}
-		consumed int
-		stop     *station
-		late     int
-		held     int
+		acc     []accepted
+		rejs    []ingest.Rejection
+		dups    []*station
+		updates = map[*station]*mirror{}
+		late    int
+		held    int
 	)
-	err := p.db.Update(func(tx *bbolt.Tx) error {
+	err = p.db.Update(func(tx *bbolt.Tx) error {
+		rest, stops = nil, nil
 		seen := map[*station]map[string]seenState{}
-		for i, rd := range readings {
-			consumed = i
+		for _, rd := range readings {
 			st := p.stations[stationID{rd.Site, rd.Station}]
+			if _, ok := stops[st]; ok && st != nil {
+				rest = append(rest, rd) // after its hours close
+				continue
+			}
 			if st == nil {
 				rejs = append(rejs, ingest.Rejection{Reason: ReasonUnknownStation, Site: rd.Site, Station: rd.Station, Sensor: rd.Sample.Sensor,
 					Err: fmt.Errorf("station %s/%s is not configured", rd.Site, rd.Station)})
@@ -448,8 +472,13 @@ func (p *Pipeline) ingestTx(now time.Time, readings []ingest.Reading, noStop map
 				continue
 			}
 			if drives && mu.hasCursor && !noStop[st] && !s.Time.Before(mu.cursor.Add(time.Hour+st.cfg.CloseGrace.D())) {
-				stop = st // close the due hours before taking this reading
-				return p.commitIngest(tx, updates, seen)
+				// Close the due hours before taking this reading.
+				if stops == nil {
+					stops = map[*station]time.Time{}
+				}
+				stops[st] = s.Time
+				rest = append(rest, rd)
+				continue
 			}
 			if rd.Counter {
 				inc, r, err := counterIncrement(sb.counters, s, rd.Rollover)
@@ -498,11 +527,10 @@ func (p *Pipeline) ingestTx(now time.Time, readings []ingest.Reading, noStop map
 			seen[st][s.Sensor] = ss
 			acc = append(acc, accepted{st, s})
 		}
-		consumed = len(readings)
 		return p.commitIngest(tx, updates, seen)
 	})
 	if err != nil {
-		return 0, nil, err
+		return nil, nil, err
 	}
 	for st, mu := range updates {
 		st.cursor, st.hasCursor, st.watermark = mu.cursor, mu.hasCursor, mu.watermark
@@ -546,7 +574,7 @@ func (p *Pipeline) ingestTx(now time.Time, readings []ingest.Reading, noStop map
 			o.ObserveSample(a.st.site, a.st.id, a.s, now)
 		}
 	}
-	return consumed, stop, nil
+	return rest, stops, nil
 }
 
 // mirror is a station's cursor and watermark as a transaction changes them.
