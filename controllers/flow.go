@@ -258,13 +258,30 @@ func MeterVolume(samples []FlowSample, from, to time.Time) (litres float64, ok b
 const FlowStopPrefix = "flow alarm: "
 
 // stopForFlow asks for a stop of the commands behind a reported high flow
-// on a meter that is set to stop on it, changing them in ledger.
-func stopForFlow(now time.Time, fc FlowCheck, ledger []Command) {
+// on a meter that is set to stop on it, changing them in ledger, and
+// cancels the later cycles of their runs that are still planned (the leak
+// is still there): it returns the cancellations, whose reason is the flow
+// alarm's.
+func stopForFlow(now time.Time, fc FlowCheck, ledger []Command) []Action {
+	var out []Action
 	for _, id := range fc.Commands {
 		for i := range ledger {
-			if ledger[i].ID == id && ledger[i].MayRun() {
-				_, _ = ledger[i].RequestStop(now, fc.Text)
+			s := &ledger[i]
+			if s.ID != id || !s.MayRun() {
+				continue
+			}
+			_, _ = s.RequestStop(now, fc.Text)
+			for j := range ledger {
+				c := &ledger[j]
+				if c.State != Planned || c.Zone != s.Zone || c.Cycles != s.Cycles || c.Cycle <= s.Cycle || !c.Start.After(s.Start) {
+					continue
+				}
+				reason := fmt.Sprintf("%s; cycle %d/%d stopped (%s), the rest of its run is cancelled", fc.Text, s.Cycle, s.Cycles, s.ID)
+				if c.Cancel(now, reason) == nil {
+					out = append(out, Action{Kind: ActCancel, Command: *c, Reason: reason})
+				}
 			}
 		}
 	}
+	return out
 }

@@ -179,3 +179,38 @@ func TestMeterValidate(t *testing.T) {
 		assert.ErrorIs(t, m.Validate(), ErrInput, name)
 	}
 }
+
+// TestFlowStopCancelsLaterCycles: a leak stop during cycle 1/3 of a
+// cycle-and-soak run cancels the run's planned cycles 2/3 and 3/3 at once,
+// with the flow alarm as their reason; another zone's planned run is left
+// alone.
+func TestFlowStopCancelsLaterCycles(t *testing.T) {
+	c := meteredCommand(t)
+	c.Cycle, c.Cycles = 1, 3
+	later := func(id string, k int, zone string) Command {
+		p := testCommand()
+		p.ID, p.Zone, p.Cycle, p.Cycles, p.Flow = id, zone, k, 3, 100
+		p.Start, p.Expiry = c.Start.Add(time.Duration(k-1)*90*time.Minute), c.Start.Add(time.Duration(k-1)*90*time.Minute+15*time.Minute)
+		return p
+	}
+	c2, c3 := later("c2", 2, c.Zone), later("c3", 3, c.Zone)
+	other := later("other-c2", 2, "other-zone")
+	m := testMeter()
+	m.StopOnHigh = true
+	s := samples(c.Start, c.Start.Add(10*time.Minute), 100)
+	s = append(s, samples(c.Start.Add(10*time.Minute+15*time.Second), c.Start.Add(13*time.Minute), 135)...)
+	in := Input{Ledger: []Command{c, c2, c3, other}, Meters: []MeterInput{{Meter: m, Samples: s}}}
+
+	d := Decide(c.Start.Add(13*time.Minute), in)
+	kinds := map[string]ActionKind{}
+	for _, a := range d.Actions {
+		kinds[a.Command.ID] = a.Kind
+		if a.Kind == ActCancel {
+			assert.True(t, strings.HasPrefix(a.Reason, FlowStopPrefix), a.Reason)
+			assert.Contains(t, a.Reason, "meter m1")
+			assert.Contains(t, a.Reason, "cycle 1/3 stopped")
+			assert.Equal(t, Cancelled, a.Command.State)
+		}
+	}
+	assert.Equal(t, map[string]ActionKind{c.ID: ActStop, "c2": ActCancel, "c3": ActCancel}, kinds)
+}

@@ -200,9 +200,10 @@ func (z *Zone) forecastFrost(fc *Forecast, from, to time.Time) string {
 // occurrence after slot, when at least RainMinMM, shortens the need by its
 // amount, or skips the run when it covers the need. A run is only skipped
 // or shortened when, were the rain not to come, the depletion projected to
-// the end of the next window stays below TAW, so the next window can still
-// water before the crop reaches the wilting point (common practice, no
-// source). It returns the need, a note for the run's reason and, when the
+// the end of the next window (at the forecast crop ET, else the recent crop
+// ET, else the worst case WorstCaseRefETPerDay) stays below TAW, so the next
+// window can still water before the crop reaches the wilting point (common
+// practice, no source). It returns the need, a note for the run's reason and, when the
 // run is skipped, the skip's reason.
 func (z *Zone) forecastNeed(fc *Forecast, st *State, lv Levels, now time.Time, slot Slot, need float64) (float64, string, string) {
 	if fc == nil || z.Forecast.RainMinMM <= 0 || need <= 0 {
@@ -218,21 +219,38 @@ func (z *Zone) forecastNeed(fc *Forecast, st *State, lv Levels, now time.Time, s
 		return need, "", ""
 	}
 	var dry float64
+	worst := "" // the worst case stood in for the ET of the coming hours
 	if etc, ok := z.forecastETc(fc, now, next.End); ok {
 		dry = st.Depletion + etc
 	} else if rate, _ := z.RecentETc(st, now); rate > 0 {
 		dry = st.Depletion + rate*next.End.Sub(now).Hours()
 	} else {
-		return need, "", "" // no way to tell what waiting costs
+		// No forecast ETo and too short a record (a gateway started
+		// today, no fallback ET): what waiting costs is bounded by the
+		// worst-case reference ET instead.
+		cover := z.Cover
+		if cover == 0 {
+			cover = 1
+		}
+		rate := z.Crop.KcOn(now.In(z.Loc)) * WorstCaseRefETPerDay / 24 * cover // FAO-56 eq. 56 with the worst-case ETo
+		dry = st.Depletion + rate*next.End.Sub(now).Hours()
+		worst = fmt.Sprintf(" (ET of the coming hours unknown: worst-case reference ET of %g mm/day assumed)", WorstCaseRefETPerDay)
 	}
 	label := forecastLabel(fc, z.Loc)
 	if dry >= lv.TAW {
-		return need, fmt.Sprintf("; %s: %.1f mm effective rain expected before %s not relied on (without it the depletion would reach %.1f mm, TAW %.1f mm)",
-			label, rain, next.Start.In(z.Loc).Format("2006-01-02 15:04"), dry, lv.TAW), ""
+		return need, fmt.Sprintf("; %s: %.1f mm effective rain expected before %s not relied on (without it the depletion would reach %.1f mm, TAW %.1f mm%s)",
+			label, rain, next.Start.In(z.Loc).Format("2006-01-02 15:04"), dry, lv.TAW, worst), ""
 	}
 	if rain >= need {
-		return 0, "", fmt.Sprintf("%s: %.1f mm effective rain at probability >= %.0f %% expected before the next window (%s) covers the need of %.1f mm",
-			label, rain, z.Forecast.RainMinProb*100, next.Start.In(z.Loc).Format("2006-01-02 15:04"), need)
+		return 0, "", fmt.Sprintf("%s: %.1f mm effective rain at probability >= %.0f %% expected before the next window (%s) covers the need of %.1f mm%s",
+			label, rain, z.Forecast.RainMinProb*100, next.Start.In(z.Loc).Format("2006-01-02 15:04"), need, worst)
 	}
-	return need - rain, fmt.Sprintf("; shortened by %.1f mm of rain expected before %s (%s)", rain, next.Start.In(z.Loc).Format("2006-01-02 15:04"), label), ""
+	return need - rain, fmt.Sprintf("; shortened by %.1f mm of rain expected before %s (%s)%s", rain, next.Start.In(z.Loc).Format("2006-01-02 15:04"), label, worst), ""
 }
+
+// WorstCaseRefETPerDay is the reference ET, mm/day, that the forecast rain
+// rule assumes for the hours until the next window ends when neither the
+// forecast's ETo nor a day of applied hours tells it: above the highest
+// regional mean ETo of FAO-56 Table 2 (about 8 mm/day for warm arid
+// regions, from memory); the margin is common practice, no source.
+const WorstCaseRefETPerDay = 15.0

@@ -153,3 +153,38 @@ func TestForecastValidate(t *testing.T) {
 	assert.ErrorContains(t, (&Forecast{}).Validate(), "forecast issued: missing")
 	assert.ErrorContains(t, ForecastRules{MaxAge: 72 * time.Hour}.Validate(), "forecast max age")
 }
+
+// TestForecastRainSkipsRunWithoutETHistory is the demo's first evening:
+// the gateway has run for 20 hours (fewer than the 24 RecentETc needs, no
+// fallback ET), the forecast gives rain but no ETo, and the rain falls two
+// hours after the window opens. 20 mm/h for 2 h at 90 %: effective
+// 2 x 0.8 x (20 - 0.5) = 31.2 mm covers the need of 24.95 mm. What waiting
+// costs is bounded by the worst-case reference ET (WorstCaseRefETPerDay,
+// 15 mm/day): 75 + 32 h x 1.2 x 15/24 = 99 mm, below TAW 130: the skip is
+// safe, and its reason says the worst case was assumed.
+func TestForecastRainSkipsRunWithoutETHistory(t *testing.T) {
+	now := at(1, 21, 0)
+	st := &State{Depletion: 75}
+	for h := 1; h <= 20; h++ {
+		s, _ := hourAt(h)
+		st.Hours = append(st.Hours, HourEntry{Start: s, Valid: true, ETcPot: 0.2, Wind2: 2, AirTemp: 20, HasWind: true, HasTemp: true})
+	}
+	st.LastValid = now
+	fc := &Forecast{Issued: at(1, 12, 0), Periods: []ForecastPeriod{
+		{Start: at(1, 23, 0), End: at(2, 0, 0), RainMM: 20, RainProb: 0.9},
+		{Start: at(2, 0, 0), End: at(2, 1, 0), RainMM: 20, RainProb: 0.9},
+	}}
+	p := planRuns(now, []ZoneInput{{forecastZone(), st}}, nil, nil, Holds{}, fc)
+	assert.Empty(t, p.Commands, "rain covering the need two hours after the window opens skips tonight's run")
+	require.Len(t, p.Skips, 1)
+	assert.Contains(t, p.Skips[0].Reason, "31.2 mm effective rain")
+	assert.Contains(t, p.Skips[0].Reason, "covers the need of 25.0 mm")
+	assert.Contains(t, p.Skips[0].Reason, "worst-case reference ET of 15 mm/day")
+
+	// Near the wilting point even the worst case refuses, and says so:
+	// 110 + 24 >= 130.
+	st.Depletion = 110
+	p = planRuns(now, []ZoneInput{{forecastZone(), st}}, nil, nil, Holds{}, fc)
+	require.Len(t, p.Commands, 1)
+	assert.Contains(t, p.Why[0].Reason, "not relied on")
+}

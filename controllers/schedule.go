@@ -125,7 +125,7 @@ func Decide(now time.Time, in Input) Decision {
 		if fc := CheckFlow(now, mi, ledger); fc.Kind != FlowOK {
 			d.Flows = append(d.Flows, fc)
 			if fc.Reported && fc.Kind == FlowHigh && mi.Meter.StopOnHigh {
-				stopForFlow(now, fc, ledger)
+				d.Actions = append(d.Actions, stopForFlow(now, fc, ledger)...)
 			}
 			soon(fc.Due)
 		}

@@ -372,6 +372,7 @@ type Table struct {
 	dayET     map[string]map[string]float64 // station -> local date -> ET of latest revisions
 	hourET    map[string]float64            // station/hour -> ET counted in dayET
 	refs      map[string]hourly.Reference
+	fcSkip    map[string]string // zone -> local date of its latest forecast skip line
 }
 
 // NewTable returns a table writing to w.
@@ -392,6 +393,23 @@ func (t *Table) Event(at time.Time, format string, args ...any) {
 	t.mu.Lock()
 	defer t.mu.Unlock()
 	t.events = append(t.events, fmt.Sprintf("  >> %s  %s", localTime(at), fmt.Sprintf(format, args...)))
+}
+
+// firstForecastSkip reports whether zone's forecast skip at at is its
+// first of the local day: the reason changes every minute while the rain
+// falls (less of it is still to come), the table shows it once.
+func (t *Table) firstForecastSkip(zone string, at time.Time) bool {
+	t.mu.Lock()
+	defer t.mu.Unlock()
+	day := localTime(at)[:10]
+	if t.fcSkip == nil {
+		t.fcSkip = map[string]string{}
+	}
+	if t.fcSkip[zone] == day {
+		return false
+	}
+	t.fcSkip[zone] = day
+	return true
 }
 
 const tableFormat = "%-11s %-16s %6s %5s %6s %6s %6s %6s %6s  %s\n"

@@ -129,7 +129,7 @@ func zoneEvent(t *Table, e zones.Event) {
 			t.Event(e.Time, "valve command %s failed: %s", c.ID, c.Note)
 		}
 	case zones.EventSkip:
-		if strings.Contains(e.Text, "forecast") {
+		if strings.Contains(e.Text, "forecast") && t.firstForecastSkip(e.Zone, e.Time) {
 			t.Event(e.Time, "zone %s not watered: %s", e.Zone, e.Text)
 		}
 	case zones.EventHold, zones.EventAlert:

@@ -13,9 +13,11 @@ import (
 )
 
 // TestDemoWatersZones runs one simulated day: the apple block (drip) and
-// the wheat paddock (sprinkler, three 40-minute cycles) are commanded in
-// their evening windows, the simulated valves report, and each run is
-// credited once: depletions fall back.
+// the wheat paddock (sprinkler, three 40-minute cycles) are due in their
+// evening windows. The correct forecast's 30 mm at 22:00-24:00 skips the
+// apple block's evening run; the leak stops the wheat's first cycle and
+// cancels its other two; the simulated valves report, and each run is
+// credited once.
 func TestDemoWatersZones(t *testing.T) {
 	var out bytes.Buffer
 	sum, err := Run(context.Background(), RunOptions{Days: 1, Seed: 1, Out: &out})
@@ -24,19 +26,23 @@ func TestDemoWatersZones(t *testing.T) {
 	// Every hour with valid ET steps both zones, and each step reaches the
 	// local history through the outbox.
 	assert.GreaterOrEqual(t, sum.ZoneSteps, 2*20, "zone steps in the local history")
-	commands := strings.Count(text, "valve command ") - strings.Count(text, " re-sent ")
-	assert.Equal(t, 4, commands, text)
-	assert.Contains(t, text, "apple-block-4 180 min from 2026-01-12 20:01 (cycle 1/1")
+	assert.Contains(t, text, "2026-01-12 20:00  zone apple-block-4 not watered: forecast issued 2026-01-12 12:00: 23.2 mm effective rain")
+	assert.Equal(t, 1, strings.Count(text, "zone apple-block-4 not watered"), "the forecast skip is shown once")
+	assert.NotContains(t, text, "apple-block-4 180 min from 2026-01-12 20:01")
 	assert.Contains(t, text, "wheat-east 40 min from 2026-01-12 21:01 (cycle 1/3")
+	assert.Regexp(t, `valve command wheat-east-\S+-c2 cancelled: flow alarm: meter creek-main`, text)
+	assert.Regexp(t, `valve command wheat-east-\S+-c3 cancelled: flow alarm: meter creek-main`, text)
 
+	minutes := map[string]float64{}
+	for _, m := range regexp.MustCompile(`valve command (\S+): \S+ (\d+) min from`).FindAllStringSubmatch(text, -1) {
+		minutes[m[1]], _ = strconv.ParseFloat(m[2], 64)
+	}
 	credit := regexp.MustCompile(`credited (\S+): ([0-9.]+) mm net from (\S+), depletion now ([0-9.]+) mm`)
 	seen := map[string]bool{}
-	var last = map[string]float64{}
 	for _, m := range credit.FindAllStringSubmatch(text, -1) {
 		assert.False(t, seen[m[3]], "%s credited twice", m[3])
 		seen[m[3]] = true
 		mm, _ := strconv.ParseFloat(m[2], 64)
-		dep, _ := strconv.ParseFloat(m[4], 64)
 		stopped := strings.Contains(text, "valve stop for "+m[3]+" sent")
 		switch {
 		case stopped:
@@ -46,14 +52,14 @@ func TestDemoWatersZones(t *testing.T) {
 			// 40 min x 5 mm/h x 0.75 = 2.5 mm (60 x 12 L/min / (12 m x 12 m) = 5 mm/h).
 			assert.InDelta(t, 2.5, mm, 0.05)
 		default:
-			// 180 min x 1.333 mm/h x 0.9 = 3.6 mm (4 x 2 L/h / 6 m2 = 1.333 mm/h).
-			assert.InDelta(t, 3.6, mm, 0.05)
+			// minutes x 1.333 mm/h x 0.9 (4 x 2 L/h / 6 m2 = 1.333 mm/h).
+			assert.InDelta(t, minutes[m[3]]/60*4*2/6*0.9, mm, 0.05)
 		}
-		last[m[1]] = dep
 	}
-	assert.Len(t, seen, 4)
-	assert.Less(t, last["wheat-east"], 20.0, "below its trigger after the night's cycles")
-	assert.Less(t, last["apple-block-4"], 8.0)
+	// Every command sent is credited once, except a run still going when
+	// the simulated day ends.
+	assert.GreaterOrEqual(t, len(seen), len(minutes)-1)
+	assert.NotEmpty(t, seen)
 }
 
 // TestDemoFieldSensors: the demo's probe, flow meter and forecast feed each
