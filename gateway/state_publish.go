@@ -176,18 +176,18 @@ type stationState struct {
 
 // zoneState is the retained payload of a zone.
 type zoneState struct {
-	FormatVersion int        `json:"format_version"` // vocab.FormatVersion
-	Site          string     `json:"site"`
-	Zone          string     `json:"zone"`
-	DepletionMM   float64    `json:"depletion_mm"`
-	RAWMM         float64    `json:"raw_mm"`
-	TAWMM         float64    `json:"taw_mm"`
-	TriggerMM     float64    `json:"trigger_mm"`
-	TargetMM      float64    `json:"target_mm"`
-	Stressed      bool       `json:"stressed"` // depletion beyond RAW: Ks < 1 (FAO-56 eq. 84)
-	LastValidET   *time.Time `json:"last_valid_et"`
-	Hold          *holdState `json:"hold"`
-	NextRun       *runState  `json:"next_run"`
+	FormatVersion int         `json:"format_version"` // vocab.FormatVersion
+	Site          string      `json:"site"`
+	Zone          string      `json:"zone"`
+	DepletionMM   float64     `json:"depletion_mm"`
+	RAWMM         float64     `json:"raw_mm"`
+	TAWMM         float64     `json:"taw_mm"`
+	TriggerMM     float64     `json:"trigger_mm"`
+	TargetMM      float64     `json:"target_mm"`
+	Stressed      bool        `json:"stressed"` // depletion beyond RAW: Ks < 1 (FAO-56 eq. 84)
+	LastValidET   *time.Time  `json:"last_valid_et"`
+	Hold          *holdState  `json:"hold"`
+	NextRun       *report.Run `json:"next_run"`
 }
 
 // newZoneState starts the retained payload of a zone.
@@ -200,15 +200,6 @@ type holdState struct {
 	Until   *time.Time `json:"until"` // null: until released
 	Reason  string     `json:"reason"`
 	Forever bool       `json:"forever"`
-}
-
-type runState struct {
-	ID      string    `json:"id"`
-	Start   time.Time `json:"start"`
-	Minutes int       `json:"minutes"`
-	Cycle   int       `json:"cycle"`
-	Cycles  int       `json:"cycles"`
-	State   string    `json:"state"`
 }
 
 // payloads builds every state topic's payload at now.
@@ -280,7 +271,7 @@ func (p *statePublisher) payloads(now time.Time) (map[string]string, error) {
 				continue
 			}
 			if z.NextRun == nil || c.Start.Before(z.NextRun.Start) {
-				z.NextRun = &runState{ID: c.ID, Start: c.Start.UTC(), Minutes: c.Minutes, Cycle: c.Cycle, Cycles: c.Cycles, State: string(c.State)}
+				z.NextRun = &report.Run{ID: c.ID, Start: c.Start.UTC(), Minutes: c.Minutes, Cycle: c.Cycle, Cycles: c.Cycles, State: string(c.State)}
 			}
 		}
 		put(config.ZoneStateTopic(p.prefix, zs.Site, zs.Zone), z)
