@@ -113,3 +113,24 @@ func (g *Gateway) StartHTTP(ctx context.Context) (stop func()) {
 	var once sync.Once
 	return func() { once.Do(func() { cancel(); <-done }) }
 }
+
+// resumeReadingChecks gives the alert monitor each sensor's latest reading
+// from the state file, so a jump between the last reading before a restart
+// and the first after it is checked like any other.
+func (g *Gateway) resumeReadingChecks() error {
+	if g.alerts == nil || g.cfg.Alerts.Disabled {
+		return nil
+	}
+	for _, st := range g.pipe.Stations() {
+		seen, err := g.pipe.LastSeen(st[0], st[1])
+		if err != nil {
+			return fmt.Errorf("resume reading checks: %w", err)
+		}
+		for _, s := range seen {
+			if s.Value != nil && s.Quantity != "" {
+				g.alerts.ResumeReading(st[0], st[1], s.Sensor, s.Quantity, s.Reading, *s.Value)
+			}
+		}
+	}
+	return nil
+}

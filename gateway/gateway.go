@@ -190,6 +190,9 @@ func New(cfg *config.Config, deps Deps) (*Gateway, error) {
 	if err != nil {
 		return nil, fmt.Errorf("new gateway: %w", err)
 	}
+	if err := g.resumeReadingChecks(); err != nil {
+		return nil, fmt.Errorf("new gateway: %w", err)
+	}
 	if err := g.attachStatus(); err != nil { // status pages (status_wiring.go)
 		return nil, fmt.Errorf("new gateway: %w", err)
 	}

@@ -522,7 +522,8 @@ func (p *Pipeline) ingestTx(now time.Time, readings []ingest.Reading, noStop map
 			ss := seen[st][s.Sensor]
 			ss.Arrival, ss.Stamped = now.UTC(), !rd.ArrivalStamped
 			if s.Time.After(ss.Reading) {
-				ss.Reading = s.Time
+				v := s.Value
+				ss.Reading, ss.Quantity, ss.Value = s.Time, s.Quantity, &v
 			}
 			seen[st][s.Sensor] = ss
 			acc = append(acc, accepted{st, s})
@@ -616,7 +617,7 @@ func (p *Pipeline) commitIngest(tx *bbolt.Tx, updates map[*station]*mirror, seen
 				return err
 			}
 			if old.Reading.After(ss.Reading) {
-				ss.Reading = old.Reading
+				ss.Reading, ss.Quantity, ss.Value = old.Reading, old.Quantity, old.Value
 			}
 			if err := putJSON(sb.seen, []byte(sensor), ss); err != nil {
 				return err

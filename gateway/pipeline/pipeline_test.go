@@ -638,6 +638,19 @@ func TestObserversAndLastSeen(t *testing.T) {
 	for _, s := range ls {
 		assert.Equal(t, h10.Add(5*time.Minute), s.Reading)
 		assert.Equal(t, now, s.Arrival)
+		// The latest reading's quantity and value are kept too (the reading
+		// checks resume from them after a restart).
+		var want *hourly.Sample
+		for i := range rds {
+			if rds[i].Sample.Sensor == s.Sensor && rds[i].Sample.Time.Equal(s.Reading) {
+				want = &rds[i].Sample
+			}
+		}
+		require.NotNil(t, want, s.Sensor)
+		assert.Equal(t, want.Quantity, s.Quantity, s.Sensor)
+		if assert.NotNil(t, s.Value, s.Sensor) {
+			assert.Equal(t, want.Value, *s.Value, s.Sensor)
+		}
 	}
 	_, err = p.LastSeen("larkspur", "nowhere")
 	assert.Error(t, err)

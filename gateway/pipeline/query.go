@@ -81,6 +81,10 @@ type Seen struct {
 	Sensor  string
 	Arrival time.Time // pipeline clock when its latest reading was accepted
 	Reading time.Time // latest reading timestamp accepted
+	// Quantity and Value of that latest reading; Value is nil in rows
+	// written before schema version 3 stored it.
+	Quantity hourly.Quantity
+	Value    *float64
 }
 
 // LastSeen returns, for every sensor of the station that has been heard, when
@@ -102,7 +106,7 @@ func (p *Pipeline) LastSeen(site, stationID string) ([]Seen, error) {
 			if err := jsonUnmarshal(v, &ss); err != nil {
 				return err
 			}
-			out = append(out, Seen{Sensor: string(k), Arrival: ss.Arrival, Reading: ss.Reading})
+			out = append(out, Seen{Sensor: string(k), Arrival: ss.Arrival, Reading: ss.Reading, Quantity: ss.Quantity, Value: ss.Value})
 			return nil
 		})
 	})

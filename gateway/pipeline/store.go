@@ -73,6 +73,11 @@ type seenState struct {
 	// Stamped: the sensor's latest reading carried its own time (not the
 	// arrival time).
 	Stamped bool `json:"stamped,omitempty"`
+	// Quantity and Value are those of the latest reading by its own time
+	// (schema version 3, optional): the reading checks resume from it after
+	// a restart, so a jump across the restart is still a spike.
+	Quantity hourly.Quantity `json:"quantity,omitempty"`
+	Value    *float64        `json:"value,omitempty"`
 }
 
 // heldReading is a reading further ahead of the gateway clock than the

@@ -205,6 +205,18 @@ func New(o Options) (*Monitor, error) {
 	return m, nil
 }
 
+// ResumeReading gives the station's reading checks the sensor's latest
+// reading as the state file kept it (pipeline.LastSeen), at start-up.
+func (m *Monitor) ResumeReading(site, station, sensor string, q hourly.Quantity, at time.Time, v float64) {
+	info := m.stations[stationID{site, station}]
+	if info == nil {
+		return
+	}
+	m.mu.Lock()
+	defer m.mu.Unlock()
+	info.readings.Resume(topicSafe(sensor), q, at, v)
+}
+
 // Notify adds fn to the functions called with every committed alert event
 // (raised, updated, cleared). fn must not block.
 func (m *Monitor) Notify(fn func(Event)) {

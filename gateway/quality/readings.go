@@ -74,6 +74,16 @@ func (c *ReadingChecks) LastSeen(sensor string, q hourly.Quantity, at time.Time)
 	c.seen[sensorID{sensor, q}] = at
 }
 
+// Resume sets the previous reading of a sensor quantity from the state
+// file after a restart (its time and value), unless one was observed since,
+// so the spike check compares the first reading after the restart with it.
+func (c *ReadingChecks) Resume(sensor string, q hourly.Quantity, at time.Time, v float64) {
+	id := sensorID{sensor, q}
+	if _, ok := c.last[id]; !ok {
+		c.last[id] = lastReading{t: at, v: v, sensor: sensor}
+	}
+}
+
 // Observe checks one accepted sample that arrived at now and returns a
 // finding for each check that applies to it.
 func (c *ReadingChecks) Observe(s hourly.Sample, now time.Time) []Finding {

@@ -143,3 +143,22 @@ func TestSpikeMessageAndPayloadRounded(t *testing.T) {
 	assert.Contains(t, string(b), `"value":3.12,`)
 	assert.Contains(t, string(b), `"limit":3,`)
 }
+
+// TestSpikeAcrossRestart: after a restart the checks resume from the last
+// reading the state file kept, so the first reading after it is compared
+// with that one (without it a jump across the restart went unseen); a
+// reading observed since is not overwritten.
+func TestSpikeAcrossRestart(t *testing.T) {
+	c := NewReadingChecks("brackenfold", "orchard", testAlerts())
+	c.Resume("t1", hourly.AirTemp, t0, 20.0)
+	fs := observe(c, alert.KindSpike, sample("t1", hourly.AirTemp, 1, 29.0))
+	require.Len(t, fs, 1)
+	assert.Equal(t, StatusBad, fs[0].Status)
+
+	c = NewReadingChecks("brackenfold", "orchard", testAlerts())
+	observe(c, alert.KindSpike, sample("t1", hourly.AirTemp, 0, 28.5))
+	c.Resume("t1", hourly.AirTemp, t0, 20.0)
+	fs = observe(c, alert.KindSpike, sample("t1", hourly.AirTemp, 1, 29.0))
+	require.Len(t, fs, 1)
+	assert.Equal(t, StatusGood, fs[0].Status, "the reading observed since the restart is the previous one")
+}
