@@ -13,6 +13,7 @@ import (
 	"github.com/stretchr/testify/require"
 
 	"etpulse/gateway/demo"
+	"etpulse/gateway/internal/testenv"
 )
 
 // TestEventLogLines runs a simulated day with a JSON logger at info level:
@@ -21,7 +22,7 @@ import (
 // flags and revision, and each valve command one "command sent" line with
 // its zone, id, minutes and the rule that made the zone due.
 func TestEventLogLines(t *testing.T) {
-	var logs syncBuffer // restart_test.go
+	var logs testenv.Buffer
 	log := slog.New(slog.NewJSONHandler(&logs, &slog.HandlerOptions{Level: slog.LevelInfo}))
 	var table bytes.Buffer
 	sum, err := demo.Run(context.Background(), demo.RunOptions{Days: 1, Seed: 1, Out: &table, Logger: log})

@@ -1,7 +1,6 @@
 package gateway_test
 
 import (
-	"bytes"
 	"context"
 	"fmt"
 	"os"
@@ -38,30 +37,13 @@ func buildEtpulse(t *testing.T, dir string) string {
 // daemon is one `etpulse run` process.
 type daemon struct {
 	cmd    *exec.Cmd
-	stderr *syncBuffer
+	stderr *testenv.Buffer
 	done   chan error
-}
-
-type syncBuffer struct {
-	mu sync.Mutex
-	b  bytes.Buffer
-}
-
-func (s *syncBuffer) Write(p []byte) (int, error) {
-	s.mu.Lock()
-	defer s.mu.Unlock()
-	return s.b.Write(p)
-}
-
-func (s *syncBuffer) String() string {
-	s.mu.Lock()
-	defer s.mu.Unlock()
-	return s.b.String()
 }
 
 func startDaemon(t *testing.T, bin, cfgPath string) *daemon {
 	t.Helper()
-	d := &daemon{cmd: exec.Command(bin, "run", "--config", cfgPath, "--log-level", "info"), stderr: &syncBuffer{}, done: make(chan error, 1)}
+	d := &daemon{cmd: exec.Command(bin, "run", "--config", cfgPath, "--log-level", "info"), stderr: &testenv.Buffer{}, done: make(chan error, 1)}
 	d.cmd.Stderr = d.stderr
 	require.NoError(t, d.cmd.Start())
 	go func() { d.done <- d.cmd.Wait() }()

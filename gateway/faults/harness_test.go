@@ -20,6 +20,7 @@ import (
 	"github.com/stretchr/testify/require"
 
 	"etpulse/gateway/demo"
+	"etpulse/gateway/internal/testenv"
 	"etpulse/gateway/mqtt"
 	"etpulse/gateway/pipeline"
 	"etpulse/hourly"
@@ -112,25 +113,8 @@ type gw struct {
 	mu     sync.Mutex
 	cmd    *exec.Cmd
 	done   chan struct{}
-	stderr *lockedBuf
+	stderr *testenv.Buffer
 	starts int
-}
-
-type lockedBuf struct {
-	mu sync.Mutex
-	b  bytes.Buffer
-}
-
-func (l *lockedBuf) Write(p []byte) (int, error) {
-	l.mu.Lock()
-	defer l.mu.Unlock()
-	return l.b.Write(p)
-}
-
-func (l *lockedBuf) String() string {
-	l.mu.Lock()
-	defer l.mu.Unlock()
-	return l.b.String()
 }
 
 // newGW writes the configuration of a gateway into dir.
@@ -163,7 +147,7 @@ func (g *gw) start() {
 	t := g.t
 	t.Helper()
 	cmd := exec.Command(g.bin, "run", "--config", g.cfgPath, "--log-level", "info")
-	buf := &lockedBuf{}
+	buf := &testenv.Buffer{}
 	cmd.Stderr = buf
 	require.NoError(t, cmd.Start())
 	done := make(chan struct{})

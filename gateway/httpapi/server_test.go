@@ -10,7 +10,6 @@ import (
 	"os/exec"
 	"path/filepath"
 	"strings"
-	"sync"
 	"sync/atomic"
 	"testing"
 	"time"
@@ -26,6 +25,7 @@ import (
 
 	"etpulse/gateway/alert"
 	"etpulse/gateway/config"
+	"etpulse/gateway/internal/testenv"
 	"etpulse/gateway/quality"
 	"etpulse/gateway/state"
 	"etpulse/gateway/store"
@@ -174,7 +174,7 @@ func TestRunRetriesABusyAddress(t *testing.T) {
 	require.NoError(t, busy.Listen())
 	addr := busy.Addr()
 
-	var logs syncBuffer
+	var logs testenv.Buffer
 	s := New(Options{Addr: addr, Gatherer: prometheus.NewRegistry(), Logger: slog.New(slog.NewTextHandler(&logs, nil))})
 	ctx, cancel := context.WithCancel(context.Background())
 	done := make(chan error, 1)
@@ -198,22 +198,4 @@ func TestRunRetriesABusyAddress(t *testing.T) {
 	cancel2()
 	require.NoError(t, <-done)
 	assert.Empty(t, s2.Addr())
-}
-
-// syncBuffer is a bytes.Buffer safe for the logger's goroutine and the test's.
-type syncBuffer struct {
-	mu sync.Mutex
-	b  bytes.Buffer
-}
-
-func (b *syncBuffer) Write(p []byte) (int, error) {
-	b.mu.Lock()
-	defer b.mu.Unlock()
-	return b.b.Write(p)
-}
-
-func (b *syncBuffer) String() string {
-	b.mu.Lock()
-	defer b.mu.Unlock()
-	return b.b.String()
 }

@@ -1,7 +1,6 @@
 package testenv
 
 import (
-	"bytes"
 	"fmt"
 	"net"
 	"os"
@@ -31,7 +30,7 @@ type Broker struct {
 	mu   sync.Mutex
 	cmd  *exec.Cmd
 	done chan struct{}
-	log  *lockedBuffer // the process writes while tests read
+	log  *Buffer // the process writes while tests read
 }
 
 // StartMosquitto starts a private mosquitto (path from Mosquitto(t); skipped
@@ -110,7 +109,7 @@ func (b *Broker) Start() {
 	}
 	var lastErr error
 	for attempt := 0; attempt < 3; attempt++ {
-		b.log = &lockedBuffer{}
+		b.log = &Buffer{}
 		cmd := exec.Command(b.bin, "-c", b.conf)
 		cmd.Stderr = b.log
 		cmd.Stdout = b.log
@@ -190,23 +189,4 @@ func waitListening(port int, exited <-chan struct{}, limit time.Duration) error 
 		time.Sleep(20 * time.Millisecond)
 	}
 	return fmt.Errorf("mosquitto not listening on %s after %s", addr, limit)
-}
-
-// lockedBuffer is a bytes.Buffer safe for the process's writes and a test's
-// concurrent reads.
-type lockedBuffer struct {
-	mu sync.Mutex
-	b  bytes.Buffer
-}
-
-func (l *lockedBuffer) Write(p []byte) (int, error) {
-	l.mu.Lock()
-	defer l.mu.Unlock()
-	return l.b.Write(p)
-}
-
-func (l *lockedBuffer) String() string {
-	l.mu.Lock()
-	defer l.mu.Unlock()
-	return l.b.String()
 }

@@ -1,0 +1,27 @@
+package testenv
+
+import (
+	"bytes"
+	"sync"
+)
+
+// Buffer is a bytes.Buffer safe for a writer goroutine (a logger, a child
+// process's output) and a test's concurrent reads.
+type Buffer struct {
+	mu sync.Mutex
+	b  bytes.Buffer
+}
+
+// Write appends p.
+func (l *Buffer) Write(p []byte) (int, error) {
+	l.mu.Lock()
+	defer l.mu.Unlock()
+	return l.b.Write(p)
+}
+
+// String returns what was written so far.
+func (l *Buffer) String() string {
+	l.mu.Lock()
+	defer l.mu.Unlock()
+	return l.b.String()
+}
