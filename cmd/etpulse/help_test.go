@@ -52,7 +52,8 @@ func TestHelpListsEveryFlag(t *testing.T) {
 		"replay": {"--config FILE ", "--in FILE ", "--state FILE ", "--zones FILE ", "--summary "},
 		"export": {"--from TIME ", "--to TIME ", "--station STATION ", "--measurement LIST ", "--format FORMAT ", "--state FILE ", "--config FILE ", "valve_report"},
 		"load": {"--broker URL ", "--stations N ", "--messages N ", "--duration D ", "--rate R ", "--interval D ",
-			"--publishers N ", "--window N ", "--bad N ", "--dir DIR ", "--every D ", "--json ", "(default 200000)"},
+			"--publishers N ", "--window N ", "--bad N ", "--dir DIR ", "--every D ", "--json ", "(default 200000)",
+			"--cpuprofile FILE ", "--memprofile FILE "},
 	} {
 		h := help(name)
 		for _, l := range lines {

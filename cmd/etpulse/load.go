@@ -6,13 +6,14 @@ import (
 	"flag"
 	"fmt"
 	"io"
+	"os"
 
 	"etpulse/gateway/loadgen"
 )
 
 var loadHelp = helpText{
 	name:  "load",
-	usage: "etpulse load [--broker tcp://127.0.0.1:PORT] [--stations N] [--messages N] [--duration D] [--rate R] [--no-bare] [--json]",
+	usage: "etpulse load [--broker tcp://127.0.0.1:PORT] [--stations N] [--messages N] [--duration D] [--rate R] [--no-bare] [--cpuprofile FILE] [--memprofile FILE] [--json]",
 	intro: `Measures the gateway's throughput: runs the real gateway in process
 (pipeline, state file in a temporary directory, outbox and local history,
 alerts) against an MQTT broker on this machine, fed by up to 10000
@@ -28,7 +29,13 @@ verdict.
 First, for at most --bare-duration, the same publishers feed a bare
 subscriber on the same broker (QoS 1, the same topics, each message
 acknowledged and counted, nothing else): the summary gives the gateway's
-rate and CPU per message as a ratio of that floor's.`,
+rate and CPU per message as a ratio of that floor's.
+
+--cpuprofile and --memprofile write profiles of the gateway phase in the
+format of 'go tool pprof' (e.g. 'go tool pprof -top FILE'): CPU from the
+first publication until the gateway has caught up (publishers included,
+the bare phase not), and the heap at the end of that phase, after a
+garbage collection, while the gateway still holds its state.`,
 	outro: `For mosquitto, set set_tcp_nodelay true and max_queued_messages 0.
 See deploy/PERFORMANCE.md for the figures and how to reproduce them.
 
@@ -55,6 +62,8 @@ func runLoad(ctx context.Context, args []string, stdin io.Reader, stdout, stderr
 	fs.DurationVar(&o.Every, "every", loadgen.DefaultEvery, "a progress line on stderr every `D`; 0 for none")
 	fs.DurationVar(&o.BareDuration, "bare-duration", loadgen.DefaultBare, "run the bare subscriber's phase for at most `D` (it also stops after --messages)")
 	fs.BoolVar(&o.NoBare, "no-bare", false, "skip the bare subscriber's phase")
+	cpuProfile := fs.String("cpuprofile", "", "write a CPU profile of the gateway phase to `FILE`")
+	memProfile := fs.String("memprofile", "", "write a heap profile taken at the end of the gateway phase to `FILE`")
 	asJSON := fs.Bool("json", false, "print the summary as JSON")
 	logLevel := fs.String("log-level", "error", "gateway log `level` on stderr: debug, info, warn or error")
 	if code, done := parseFlags(fs, args, loadHelp, stdout, stderr); done {
@@ -75,7 +84,15 @@ func runLoad(ctx context.Context, args []string, stdin io.Reader, stdout, stderr
 	if err := o.Validate(); err != nil {
 		return usageError(stderr, loadHelp, "%v", err)
 	}
+	closeProfiles, err := openProfiles(&o, *cpuProfile, *memProfile)
+	if err != nil {
+		fmt.Fprintf(stderr, "etpulse load: %v\n", err)
+		return exitError
+	}
 	sum, err := loadgen.Run(ctx, o)
+	if cerr := closeProfiles(); cerr != nil && err == nil {
+		err = cerr
+	}
 	if err != nil {
 		fmt.Fprintf(stderr, "etpulse load: %v\n", err)
 		return exitError
@@ -100,4 +117,36 @@ func runLoad(ctx context.Context, args []string, stdin io.Reader, stdout, stderr
 		return exitError
 	}
 	return exitOK
+}
+
+// openProfiles creates the profile files named by --cpuprofile and
+// --memprofile (empty: none) and sets them in o. The returned function
+// closes them and reports the first error.
+func openProfiles(o *loadgen.Options, cpuPath, memPath string) (func() error, error) {
+	var files []*os.File
+	closeAll := func() error {
+		var first error
+		for _, f := range files {
+			if err := f.Close(); err != nil && first == nil {
+				first = fmt.Errorf("close profile: %w", err)
+			}
+		}
+		return first
+	}
+	for _, p := range []struct {
+		flag, path string
+		w          *io.Writer
+	}{{"--cpuprofile", cpuPath, &o.CPUProfile}, {"--memprofile", memPath, &o.MemProfile}} {
+		if p.path == "" {
+			continue
+		}
+		f, err := os.Create(p.path)
+		if err != nil {
+			_ = closeAll() // the error that matters is the create's
+			return nil, fmt.Errorf("%s: %w (give a file in a writable directory)", p.flag, err)
+		}
+		files = append(files, f)
+		*p.w = f
+	}
+	return closeAll, nil
 }

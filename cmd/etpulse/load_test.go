@@ -2,8 +2,12 @@ package main
 
 import (
 	"bytes"
+	"compress/gzip"
 	"context"
 	"encoding/json"
+	"io"
+	"os"
+	"path/filepath"
 	"testing"
 
 	"github.com/stretchr/testify/assert"
@@ -74,4 +78,32 @@ func TestLoadRefusesRemoteBroker(t *testing.T) {
 	code = run(context.Background(), []string{"load", "--duration", "20m"}, nil, &out, &errOut)
 	assert.Equal(t, exitUsage, code)
 	assert.Contains(t, errOut.String(), "duration must be at most 10m0s, got 20m0s")
+}
+
+// TestLoadProfiles writes a CPU and a heap profile of the gateway phase
+// (gzip-compressed pprof protobufs naming the gateway's code), and names the
+// flag when a profile file cannot be created.
+func TestLoadProfiles(t *testing.T) {
+	dir := t.TempDir()
+	cpu, heap := filepath.Join(dir, "cpu.pprof"), filepath.Join(dir, "heap.pprof")
+	var out, errOut bytes.Buffer
+	code := run(context.Background(), []string{"load", "--stations", "3", "--messages", "1200", "--interval", "1m",
+		"--no-bare", "--every", "0", "--cpuprofile", cpu, "--memprofile", heap}, nil, &out, &errOut)
+	require.Equal(t, exitOK, code, "stderr: %s", errOut.String())
+	for path, want := range map[string]string{cpu: "samples", heap: "inuse_space"} {
+		raw, err := os.ReadFile(path)
+		require.NoError(t, err)
+		zr, err := gzip.NewReader(bytes.NewReader(raw))
+		require.NoError(t, err, path)
+		body, err := io.ReadAll(zr)
+		require.NoError(t, err, path)
+		assert.Contains(t, string(body), want, path)
+		assert.Contains(t, string(body), "etpulse/gateway", path)
+	}
+
+	errOut.Reset()
+	code = run(context.Background(), []string{"load", "--stations", "3", "--messages", "60", "--no-bare",
+		"--cpuprofile", filepath.Join(dir, "missing", "cpu.pprof")}, nil, &out, &errOut)
+	assert.Equal(t, exitError, code)
+	assert.Contains(t, errOut.String(), "--cpuprofile: open ")
 }

@@ -24,6 +24,7 @@ import (
 	"math/rand/v2"
 	"os"
 	"path/filepath"
+	"runtime"
 	"runtime/pprof"
 	"strings"
 	"time"
@@ -71,6 +72,15 @@ type Options struct {
 	// Messages); default 15s, at most MaxDuration.
 	BareDuration time.Duration
 	NoBare       bool // skip the bare phase
+	// CPUProfile, when not nil, receives a CPU profile (pprof format) of
+	// the gateway phase: from the first publication until the gateway has
+	// caught up. The bare phase is not in it.
+	CPUProfile io.Writer
+	// MemProfile, when not nil, receives a heap profile (pprof format)
+	// taken at the end of the gateway phase, after a garbage collection,
+	// while the gateway still holds its state: in-use bytes are the live
+	// heap then; allocated bytes cover the whole process.
+	MemProfile io.Writer
 }
 
 // Defaults and limits of Options.
@@ -302,6 +312,19 @@ func Run(ctx context.Context, o Options) (sum Summary, err error) {
 	prog := startProgress(o.Progress, o.Every, tr, g, mem)
 	sum.PeakRSSGatewayOnly = resetPeakRSS()
 	io0 := readIO()
+	if o.CPUProfile != nil {
+		if err := pprof.StartCPUProfile(o.CPUProfile); err != nil {
+			return sum, fmt.Errorf("load: cpu profile: %w", err)
+		}
+	}
+	cpuProfiling := o.CPUProfile != nil
+	stopCPUProfile := func() {
+		if cpuProfiling {
+			pprof.StopCPUProfile()
+			cpuProfiling = false
+		}
+	}
+	defer stopCPUProfile()
 	cpu0 := ProcessCPU()
 	began := tr.since()
 	pubErr := runPublishers(pubCtx, stopPub, pubs, pl, tr, clock)
@@ -326,6 +349,7 @@ func Run(ctx context.Context, o Options) (sum Summary, err error) {
 		total += p.sent.Load()
 	}
 	drainErr := drain(ctx, g, uint64(total), runDone)
+	stopCPUProfile()
 	sum.collect(o, f, tr, g, reg, pubs, began, publishing)
 	if cpu := ProcessCPU() - cpu0; cpu0 > 0 && sum.Acked > 0 {
 		sum.CPUSeconds = cpu.Seconds()
@@ -336,6 +360,12 @@ func Run(ctx context.Context, o Options) (sum Summary, err error) {
 		sum.Problems = strings.Split(err.Error(), "\n")
 	}
 	sum.Consistent = len(sum.Problems) == 0
+	if o.MemProfile != nil { // before the gateway stops and lets go of its state
+		runtime.GC()
+		if err := pprof.WriteHeapProfile(o.MemProfile); err != nil {
+			return sum, fmt.Errorf("load: heap profile: %w", err)
+		}
+	}
 	if serr := stop(); serr != nil {
 		return sum, fmt.Errorf("load: %w", serr)
 	}
