@@ -14,8 +14,22 @@ type item struct {
 	seq      uint64
 	skey     []byte
 	point    Point
-	line     []byte
 	enqueued time.Time
+}
+
+// readItem decodes one outbox entry; ok is false when it cannot be decoded.
+func readItem(k, v []byte) (it item, ok bool) {
+	it.seq = binary.BigEndian.Uint64(k)
+	if len(v) < 8 {
+		return it, false
+	}
+	p, err := decodePoint(v[8:])
+	if err != nil {
+		return it, false
+	}
+	it.point, it.skey = p, appendSeriesKey(nil, p)
+	it.enqueued = time.Unix(0, int64(binary.BigEndian.Uint64(v)))
+	return it, true
 }
 
 // next reads up to maxHead of the oldest pending points and, when more are
@@ -29,23 +43,11 @@ func (o *Outbox) next(maxHead, maxLive int, liveSince time.Time) ([]item, error)
 	err := o.db.View(func(tx *bbolt.Tx) error {
 		c := tx.Bucket(bucketOutbox).Cursor()
 		read := func(k, v []byte) {
-			seq := binary.BigEndian.Uint64(k)
-			if len(v) < 8 {
-				corrupt = append(corrupt, seq)
-				return
+			if it, ok := readItem(k, v); ok {
+				items = append(items, it)
+			} else {
+				corrupt = append(corrupt, it.seq)
 			}
-			p, err := decodePoint(v[8:])
-			if err != nil {
-				corrupt = append(corrupt, seq)
-				return
-			}
-			items = append(items, item{
-				seq:      seq,
-				skey:     appendSeriesKey(nil, p),
-				point:    p,
-				line:     AppendLine(nil, p),
-				enqueued: time.Unix(0, int64(binary.BigEndian.Uint64(v))),
-			})
 		}
 		var lastHead []byte
 		n := 0
@@ -77,6 +79,34 @@ func (o *Outbox) next(maxHead, maxLive int, liveSince time.Time) ([]item, error)
 	})
 	if err != nil {
 		return nil, fmt.Errorf("outbox next: %w", err)
+	}
+	if len(corrupt) > 0 {
+		if err := o.dropCorrupt(corrupt); err != nil {
+			return nil, err
+		}
+	}
+	return items, nil
+}
+
+// nextAfter reads up to n pending points with a sequence number above
+// after, in sequence order: the pipelined drain reads on while the points it
+// sent last are still being removed. Undecodable entries are quarantined.
+func (o *Outbox) nextAfter(after uint64, n int) ([]item, error) {
+	items := make([]item, 0, n)
+	var corrupt []uint64
+	err := o.db.View(func(tx *bbolt.Tx) error {
+		c := tx.Bucket(bucketOutbox).Cursor()
+		for k, v := c.Seek(seqKey(after + 1)); k != nil && len(items)+len(corrupt) < n; k, v = c.Next() {
+			if it, ok := readItem(k, v); ok {
+				items = append(items, it)
+			} else {
+				corrupt = append(corrupt, it.seq)
+			}
+		}
+		return nil
+	})
+	if err != nil {
+		return nil, fmt.Errorf("outbox next after %d: %w", after, err)
 	}
 	if len(corrupt) > 0 {
 		if err := o.dropCorrupt(corrupt); err != nil {
@@ -139,7 +169,7 @@ func (o *Outbox) done(written []item, bad []item, reasons []string) error {
 			return err
 		}
 		for _, it := range written {
-			if err := q.remove(it.seq, it.skey); err != nil {
+			if err := q.removeSent(it); err != nil {
 				return err
 			}
 		}
@@ -162,8 +192,38 @@ func (o *Outbox) done(written []item, bad []item, reasons []string) error {
 	if len(bad) > 0 {
 		o.metrics.quarantined.Add(float64(len(bad)))
 		for i := range bad {
-			o.log.Warn("outbox: point quarantined", "reason", reasons[i], "point", string(bad[i].line))
+			o.log.Warn("outbox: point quarantined", "reason", reasons[i], "point", Line(bad[i].point))
 		}
+	}
+	return nil
+}
+
+// removeSent deletes a point the drain read, unless a revision replaced it
+// meanwhile (then the revision and its series entry stay). It seeks once per
+// bucket where a lookup and a delete would seek twice, and only ClassRaw
+// points have an entry in the raw bucket to delete.
+func (q *buckets) removeSent(it item) error {
+	k := seqKey(it.seq)
+	c := q.outbox.Cursor()
+	if ck, _ := c.Seek(k); !bytes.Equal(ck, k) {
+		return nil
+	}
+	if err := c.Delete(); err != nil {
+		return err
+	}
+	sc := q.series.Cursor()
+	if sk, v := sc.Seek(it.skey); bytes.Equal(sk, it.skey) && bytes.Equal(v, k) {
+		if err := sc.Delete(); err != nil {
+			return err
+		}
+	}
+	if it.point.Class == ClassRaw {
+		if err := q.raw.Delete(k); err != nil {
+			return err
+		}
+	}
+	if q.count > 0 {
+		q.count--
 	}
 	return nil
 }

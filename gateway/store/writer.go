@@ -255,21 +255,66 @@ func (w *Writer) waitForPoints(ctx context.Context) bool {
 // outbox is empty, a write fails or ctx ends. A failed write to the server
 // is logged, not returned: the points stay in the outbox for the next start,
 // which is no failure of a shutdown. Errors of the state file are returned.
+//
+// Flush pipelines its batches: while the removal of one accepted batch
+// commits to the state file, the next batch is read and sent. At most one
+// accepted batch waits for its removal while the next is in flight, so a
+// SIGKILL during a flush makes the next start send at most two batches
+// again (harmless, see Sink).
 func (w *Writer) Flush(ctx context.Context) error {
-	for {
-		n, err := w.step(ctx, w.opt.BatchSize, 0)
-		if errors.Is(err, errServer) {
-			depth, _ := w.o.Stats()
-			w.log.Warn("store: flush stopped; points stay in the outbox", "pending", depth, "err", err)
-			return nil
+	err := w.drain(ctx)
+	if errors.Is(err, errServer) {
+		depth, _ := w.o.Stats()
+		w.log.Warn("store: flush stopped; points stay in the outbox", "pending", depth, "err", err)
+		return nil
+	}
+	if err != nil {
+		return fmt.Errorf("flush: %w", err)
+	}
+	return nil
+}
+
+// drain writes batches, oldest first, until the outbox is empty or an error
+// stops it. This goroutine reads and sends batch k+1 while a committer
+// goroutine removes batch k from the outbox; the hand-over is unbuffered,
+// so batch k+2 is not sent before batch k's removal committed.
+func (w *Writer) drain(ctx context.Context) error {
+	commits := make(chan outcome)
+	failed := make(chan struct{})
+	committed := make(chan error, 1)
+	go func() {
+		var err error
+		for out := range commits {
+			if err != nil {
+				continue // drained after a failure so the sender never blocks
+			}
+			if err = w.commit(out); err != nil {
+				close(failed)
+			}
 		}
-		if err != nil {
-			return fmt.Errorf("flush: %w", err)
+		committed <- err
+	}()
+	var after uint64
+	var serr error
+	for !isClosed(failed) {
+		var items []item
+		items, serr = w.o.nextAfter(after, w.opt.BatchSize)
+		if serr != nil || len(items) == 0 {
+			break
 		}
-		if n.read == 0 {
-			return nil
+		after = items[len(items)-1].seq
+		var out outcome
+		out, serr = w.send(ctx, items)
+		commits <- out
+		if serr != nil {
+			break
 		}
 	}
+	close(commits)
+	if err := <-committed; err != nil {
+		return err
+	}
+	return serr
 }
 
 // stepCount tells what one step did: points read from the outbox, how many
@@ -295,6 +340,23 @@ func (w *Writer) step(ctx context.Context, head, live int) (stepCount, error) {
 	return stepCount{read: len(items), head: nHead, written: written}, err
 }
 
+func isClosed(ch <-chan struct{}) bool {
+	select {
+	case <-ch:
+		return true
+	default:
+		return false
+	}
+}
+
+// outcome is what the sink did with one batch: the points it stored, and
+// those it refused with the reasons (reasons[i] for bad[i]). Points left
+// unsettled by an outage are in neither.
+type outcome struct {
+	ok, bad []item
+	reasons []string
+}
+
 // write hands items to the sink, then in one transaction removes the points
 // it stored from the outbox and moves the ones it refused to the quarantine.
 // Points left unsettled by an outage stay pending.
@@ -302,6 +364,17 @@ func (w *Writer) write(ctx context.Context, items []item) (int, error) {
 	if len(items) == 0 {
 		return 0, nil
 	}
+	out, serr := w.send(ctx, items)
+	if err := w.commit(out); err != nil {
+		return 0, err
+	}
+	return len(out.ok), serr
+}
+
+// send hands items to the sink and sorts them by what it did. A failed write
+// is returned wrapped in errServer, with the outcome of the points the sink
+// settled before it failed.
+func (w *Writer) send(ctx context.Context, items []item) (outcome, error) {
 	pts := make([]Point, len(items))
 	for i, it := range items {
 		pts[i] = it.point
@@ -315,33 +388,38 @@ func (w *Writer) write(ctx context.Context, items []item) (int, error) {
 		settled = len(items)
 	}
 	if settled < 0 || settled > len(items) {
-		return 0, fmt.Errorf("%w: sink settled %d points of a batch of %d", errServer, settled, len(items))
+		return outcome{}, fmt.Errorf("%w: sink settled %d points of a batch of %d", errServer, settled, len(items))
 	}
 	isBad := make([]bool, settled)
-	var bad []item
-	var reasons []string
+	var out outcome
 	for _, r := range refused {
 		if r.Index < 0 || r.Index >= settled || isBad[r.Index] {
-			return 0, fmt.Errorf("%w: sink refused point %d of %d settled (out of range or twice)", errServer, r.Index, settled)
+			return outcome{}, fmt.Errorf("%w: sink refused point %d of %d settled (out of range or twice)", errServer, r.Index, settled)
 		}
 		isBad[r.Index] = true
-		bad = append(bad, items[r.Index])
-		reasons = append(reasons, r.Reason)
+		out.bad = append(out.bad, items[r.Index])
+		out.reasons = append(out.reasons, r.Reason)
 	}
-	var ok []item
+	out.ok = make([]item, 0, settled-len(out.bad))
 	for i, it := range items[:settled] {
 		if !isBad[i] {
-			ok = append(ok, it)
+			out.ok = append(out.ok, it)
 		}
 	}
-	if err := w.o.done(ok, bad, reasons); err != nil {
-		return 0, err
-	}
-	w.metrics.written.Add(float64(len(ok)))
 	if werr != nil {
-		return len(ok), fmt.Errorf("%w: write %d points: %w", errServer, len(items)-settled, werr)
+		return out, fmt.Errorf("%w: write %d points: %w", errServer, len(items)-settled, werr)
 	}
-	return len(ok), nil
+	return out, nil
+}
+
+// commit removes the stored points of out from the outbox and quarantines
+// the refused ones, in one transaction.
+func (w *Writer) commit(out outcome) error {
+	if err := w.o.done(out.ok, out.bad, out.reasons); err != nil {
+		return err
+	}
+	w.metrics.written.Add(float64(len(out.ok)))
+	return nil
 }
 
 // nextBackoff doubles the previous delay up to max, with jitter of up to a
