@@ -116,7 +116,11 @@ type Monitor struct {
 	state   map[alert.Key]alert.Alert // committed state: active alerts and recently cleared ones
 	pending []Event                   // reading-level events not yet persisted
 	acc     map[accKey]map[hourly.Quantity]*QStats
-	next    time.Time // earliest silence deadline
+	// accPruned is the cutoff of pruneAcc's latest scan of acc; accScans
+	// counts the scans.
+	accPruned time.Time
+	accScans  int
+	next      time.Time // earliest silence deadline
 }
 
 var (
@@ -586,9 +590,20 @@ func (m *Monitor) observe(info *stationInfo, rec hourly.Record) HourObs {
 	return o
 }
 
+// pruneAcc drops the readings accumulated for hours before before. Every
+// station closing the same hour asks for the same cutoff: the map (all
+// stations' hours) is scanned only when the cutoff moves past the last
+// scan's, so an hour close does not cost a visit of every station. A
+// station-hour accumulated later for an hour before the last cutoff (a
+// late reading) goes at the next scan.
 func (m *Monitor) pruneAcc(before time.Time) {
 	m.mu.Lock()
 	defer m.mu.Unlock()
+	if !before.After(m.accPruned) {
+		return
+	}
+	m.accPruned = before
+	m.accScans++
 	maps.DeleteFunc(m.acc, func(k accKey, _ map[hourly.Quantity]*QStats) bool { return k.hour.Before(before) })
 }
 
