@@ -85,6 +85,12 @@ func TestRunEmbedded(t *testing.T) {
 	require.NoError(t, json.Unmarshal(b, &back))
 	assert.EqualValues(t, 39, back["hours_closed"])
 	assert.EqualValues(t, sum.Published, back["messages_acked"])
+	if sum.PeakRSSBytes > 0 { // /proc/self/status is there
+		assert.Positive(t, sum.PeakRSSAnonBytes, "anonymous memory: heap and stacks")
+		assert.Positive(t, sum.PeakRSSFileBytes, "file-backed: the binary and the state file's mapped pages")
+		assert.LessOrEqual(t, sum.PeakRSSAnonBytes, sum.PeakRSSBytes)
+		assert.Contains(t, text.String(), "anonymous ")
+	}
 }
 
 func TestRunMosquitto(t *testing.T) {

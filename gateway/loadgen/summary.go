@@ -86,8 +86,15 @@ type Summary struct {
 	PeakRSSBytes  uint64  `json:"peak_rss_bytes"`  // VmHWM of the whole process; 0 where unavailable
 	// PeakRSSGatewayOnly says the peak was reset when the gateway phase
 	// began (so it is not the bare phase's); false: since the process began.
-	PeakRSSGatewayOnly bool   `json:"peak_rss_reset_at_gateway_phase"`
-	GCCycles           uint32 `json:"gc_cycles"`
+	PeakRSSGatewayOnly bool `json:"peak_rss_reset_at_gateway_phase"`
+	// PeakRSSAnonBytes and PeakRSSFileBytes split the resident memory
+	// (RssAnon, RssFile of /proc/self/status, each the peak of samples
+	// every 100 ms over the gateway phase): anonymous is the Go heap,
+	// stacks and runtime; file-backed is the binary and the pages of the
+	// state file that bbolt maps and has touched. 0 where unavailable.
+	PeakRSSAnonBytes uint64 `json:"peak_rss_anon_bytes"`
+	PeakRSSFileBytes uint64 `json:"peak_rss_file_bytes"`
+	GCCycles         uint32 `json:"gc_cycles"`
 
 	Consistent bool     `json:"consistent"`         // Check passed
 	Problems   []string `json:"problems,omitempty"` // what Check found
@@ -191,6 +198,7 @@ func sumMetric(g prometheus.Gatherer, name string, fn func(labels map[string]str
 func (s *Summary) memory(m *memory) {
 	s.PeakHeapBytes = m.peak.Load()
 	s.PeakRSSBytes = peakRSS()
+	s.PeakRSSAnonBytes, s.PeakRSSFileBytes = m.peakAnon.Load(), m.peakFile.Load()
 	var ms runtime.MemStats
 	runtime.ReadMemStats(&ms)
 	s.PeakHeapBytes = max(s.PeakHeapBytes, ms.HeapAlloc)
@@ -289,6 +297,9 @@ func (s *Summary) WriteText(w io.Writer) error {
 		since = "during the gateway phase"
 	}
 	p("memory            peak heap %s, peak RSS %s %s (this process: publishers and gateway%s), %d GC cycles", mib(s.PeakHeapBytes), rss, since, s.embeddedNote(), s.GCCycles)
+	if s.PeakRSSAnonBytes > 0 {
+		p("resident          anonymous up to %s (heap, stacks, runtime), file-backed up to %s (the binary and the state file's mapped pages)", mib(s.PeakRSSAnonBytes), mib(s.PeakRSSFileBytes))
+	}
 	if s.WriteCallBytes > 0 || s.WriteBytes > 0 {
 		p("written           %.0f B per message to storage (write_bytes %s), %.0f B per message in write calls (wchar %s)",
 			s.WriteBytesPerMsg, mib(s.WriteBytes), s.WriteCallBytesPerMsg, mib(s.WriteCallBytes))
@@ -325,12 +336,15 @@ func (s *Summary) embeddedNote() string {
 
 func mib(n uint64) string { return fmt.Sprintf("%.1f MiB", float64(n)/(1<<20)) }
 
-// memory samples the live heap every 100 ms and keeps the peak.
+// memory samples the live heap and the resident memory (anonymous and
+// file-backed) every 100 ms and keeps their peaks.
 type memory struct {
-	peak atomic.Uint64
-	done chan struct{}
-	once sync.Once
-	wg   sync.WaitGroup
+	peak     atomic.Uint64
+	peakAnon atomic.Uint64
+	peakFile atomic.Uint64
+	done     chan struct{}
+	once     sync.Once
+	wg       sync.WaitGroup
 }
 
 const heapMetric = "/memory/classes/heap/objects:bytes"
@@ -346,10 +360,11 @@ func startMemory() *memory {
 		for {
 			metrics.Read(sample)
 			if sample[0].Value.Kind() == metrics.KindUint64 {
-				if v := sample[0].Value.Uint64(); v > m.peak.Load() {
-					m.peak.Store(v)
-				}
+				storeMax(&m.peak, sample[0].Value.Uint64())
 			}
+			anon, file := residentSplit()
+			storeMax(&m.peakAnon, anon)
+			storeMax(&m.peakFile, file)
 			select {
 			case <-m.done:
 				return
@@ -370,6 +385,19 @@ func (m *memory) stop() {
 func peakRSS() uint64 { return procStatus("VmHWM:") }
 
 func currentRSS() uint64 { return procStatus("VmRSS:") }
+
+// storeMax stores v in p when it is larger (one writer).
+func storeMax(p *atomic.Uint64, v uint64) {
+	if v > p.Load() {
+		p.Store(v)
+	}
+}
+
+// residentSplit returns the process's anonymous and file-backed resident
+// bytes (RssAnon, RssFile), 0 where /proc/self/status is unavailable.
+func residentSplit() (anon, file uint64) {
+	return procStatus("RssAnon:"), procStatus("RssFile:")
+}
 
 func procStatus(key string) uint64 {
 	f, err := os.Open("/proc/self/status")
