@@ -80,7 +80,12 @@ func (r Rejection) Error() string {
 type binding struct {
 	site, station string
 	sensor        config.Sensor
-	ignore        map[string]bool
+	ignore        map[string]bool // nil when the sensor ignores no key
+	// names holds the Sample.Sensor of each channel key, built once
+	// (see sampleName); readings is the number of channels, the capacity
+	// of a message's readings.
+	names    map[string]string
+	readings int
 }
 
 // Router maps MQTT topics to configured sensors and decodes their payloads.
@@ -108,9 +113,20 @@ func NewRouter(cfg *config.Config) (*Router, error) {
 					return nil, fmt.Errorf("new router: topic %q used by %s/%s/%s and %s/%s/%s",
 						sn.Topic, prev.site, prev.station, prev.sensor.ID, site.ID, st.ID, sn.ID)
 				}
-				b := &binding{site: site.ID, station: st.ID, sensor: sn, ignore: map[string]bool{}}
+				b := &binding{site: site.ID, station: st.ID, sensor: sn}
 				for _, k := range sn.Ignore {
+					if b.ignore == nil {
+						b.ignore = map[string]bool{}
+					}
 					b.ignore[k] = true
+				}
+				chans := sn.Channels()
+				b.readings = max(1, len(chans))
+				if sn.Format == config.FormatFields || sn.Format == config.FormatSenML {
+					b.names = make(map[string]string, len(chans))
+					for k := range chans {
+						b.names[k] = sn.ChannelName(k)
+					}
 				}
 				r.topics[sn.Topic] = b
 				r.filters = append(r.filters, sn.Topic)
@@ -135,7 +151,7 @@ func (r *Router) Route(topic string, payload []byte, arrival time.Time) ([]Readi
 		return nil, []Rejection{b.reject(b.sensor.ID, ReasonTooLarge,
 			fmt.Errorf("payload of %d bytes exceeds max_payload_bytes %d", len(payload), r.maxPayload))}
 	}
-	d := decoding{b: b, arrival: arrival}
+	d := decoding{b: b, arrival: arrival, readings: make([]Reading, 0, b.readings)}
 	switch b.sensor.Format {
 	case config.FormatNumber:
 		d.number(payload)
@@ -148,6 +164,9 @@ func (r *Router) Route(topic string, payload []byte, arrival time.Time) ([]Readi
 	default:
 		d.rejectAll(ReasonUnparseable, fmt.Errorf("sensor format %q is not supported", b.sensor.Format))
 	}
+	if len(d.readings) == 0 {
+		return nil, d.rejections
+	}
 	return d.readings, d.rejections
 }
 
@@ -158,7 +177,12 @@ func (b *binding) reject(sensor string, reason Reason, err error) Rejection {
 // sampleName is the Sample.Sensor of a channel: the sensor id for the
 // single-value formats, "<sensor>.<key>" for fields and SenML records, so
 // that every quantity of a multi-quantity payload deduplicates on its own.
-func (b *binding) sampleName(key string) string { return b.sensor.ChannelName(key) }
+func (b *binding) sampleName(key string) string {
+	if n, ok := b.names[key]; ok {
+		return n
+	}
+	return b.sensor.ChannelName(key)
+}
 
 // decoding accumulates the result of one Route call.
 type decoding struct {
