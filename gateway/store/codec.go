@@ -5,6 +5,7 @@ import (
 	"errors"
 	"fmt"
 	"math"
+	"strconv"
 	"time"
 )
 
@@ -114,6 +115,69 @@ func decodePoint(b []byte) (Point, error) {
 	return p, nil
 }
 
+// lineInfo tells what appendLineEncoded found besides the line.
+type lineInfo struct {
+	time   time.Time
+	series int  // length of the series (measurement and tags) at the line's start
+	raw    bool // the point is ClassRaw
+}
+
+// appendLineEncoded appends the line protocol of the point encoded in b,
+// byte for byte what AppendLine renders for decodePoint(b), without building
+// the point's maps: tags and fields are stored sorted by key, the order a
+// line needs. The drain renders every pending point this way. On error dst
+// comes back unchanged.
+func appendLineEncoded(dst, b []byte) ([]byte, lineInfo, error) {
+	var info lineInfo
+	d := decoder{b: b}
+	if v := d.byte(); v != codecVersion {
+		return dst, info, fmt.Errorf("render point: %w: version %d", errCorrupt, v)
+	}
+	start := len(dst)
+	info.raw = string(d.bytes()) == string(ClassRaw)
+	dst = appendEscaped(dst, d.bytes(), measurementEscapes)
+	info.time = time.Unix(0, d.varint()).UTC()
+	for range d.count() {
+		dst = append(dst, ',')
+		dst = appendEscaped(dst, d.bytes(), keyEscapes)
+		dst = append(dst, '=')
+		dst = appendEscaped(dst, d.bytes(), keyEscapes)
+	}
+	info.series = len(dst) - start
+	dst = append(dst, ' ')
+	for i := range d.count() {
+		if i > 0 {
+			dst = append(dst, ',')
+		}
+		dst = appendEscaped(dst, d.bytes(), keyEscapes)
+		dst = append(dst, '=')
+		switch d.byte() {
+		case 'f':
+			dst = appendFloat(dst, math.Float64frombits(d.uint64()))
+		case 'i':
+			dst = strconv.AppendInt(dst, d.varint(), 10)
+			dst = append(dst, 'i')
+		case 'b':
+			dst = strconv.AppendBool(dst, d.byte() == 1)
+		case 's':
+			dst = append(dst, '"')
+			dst = appendEscaped(dst, d.bytes(), stringEscapes)
+			dst = append(dst, '"')
+		default:
+			d.fail()
+		}
+	}
+	for range d.count() { // notes stay in the local history
+		d.bytes()
+		d.bytes()
+	}
+	if d.err != nil {
+		return dst[:start], lineInfo{}, fmt.Errorf("render point: %w", d.err)
+	}
+	dst = append(dst, ' ')
+	return strconv.AppendInt(dst, info.time.UnixNano(), 10), info, nil
+}
+
 type decoder struct {
 	b   []byte
 	err error
@@ -168,13 +232,16 @@ func (d *decoder) count() int {
 	return int(v)
 }
 
-func (d *decoder) string() string {
+func (d *decoder) string() string { return string(d.bytes()) }
+
+// bytes reads a length-prefixed string without copying it.
+func (d *decoder) bytes() []byte {
 	l := d.count()
 	if l > len(d.b) {
 		d.fail()
-		return ""
+		return nil
 	}
-	s := string(d.b[:l])
+	s := d.b[:l]
 	d.b = d.b[l:]
 	return s
 }

@@ -9,28 +9,48 @@ import (
 	"go.etcd.io/bbolt"
 )
 
-// item is one pending point read from the outbox for writing.
+// item is one pending point read from the outbox for writing. Its slices
+// share one buffer per batch.
 type item struct {
 	seq      uint64
-	skey     []byte
-	point    Point
 	enqueued time.Time
+	time     time.Time // the point's time
+	raw      bool      // a ClassRaw point
+	skey     []byte    // series key, see appendSeriesKey
+	line     []byte    // line protocol, rendered from enc
+	enc      []byte    // the stored encoding; decoded only where a Point is needed
 }
 
-// readItem decodes one outbox entry; ok is false when it cannot be decoded.
-func readItem(k, v []byte) (it item, ok bool) {
+// decode returns the item's point.
+func (it item) decode() (Point, error) { return decodePoint(it.enc) }
+
+// readItem renders one outbox entry, appending its line, series key and
+// encoding to *buf; ok is false when it cannot be decoded.
+func readItem(k, v []byte, buf *[]byte) (it item, ok bool) {
 	it.seq = binary.BigEndian.Uint64(k)
 	if len(v) < 8 {
 		return it, false
 	}
-	p, err := decodePoint(v[8:])
+	a := *buf
+	start := len(a)
+	a, info, err := appendLineEncoded(a, v[8:])
 	if err != nil {
 		return it, false
 	}
-	it.point, it.skey = p, appendSeriesKey(nil, p)
+	lineEnd := len(a)
+	a = appendTimeKey(a, info.time)
+	a = append(a, a[start:start+info.series]...) // the series opens the line
+	skeyEnd := len(a)
+	a = append(a, v[8:]...)
+	it.line, it.skey, it.enc = a[start:lineEnd:lineEnd], a[lineEnd:skeyEnd:skeyEnd], a[skeyEnd:len(a):len(a)]
+	it.time, it.raw = info.time, info.raw
 	it.enqueued = time.Unix(0, int64(binary.BigEndian.Uint64(v)))
+	*buf = a
 	return it, true
 }
+
+// batchBuffer returns a buffer for the items of a batch of n points.
+func batchBuffer(n int) []byte { return make([]byte, 0, min(n, 1<<12)*256) }
 
 // next reads up to maxHead of the oldest pending points and, when more are
 // pending, up to maxLive of the newest ones enqueued at or after liveSince
@@ -42,8 +62,9 @@ func (o *Outbox) next(maxHead, maxLive int, liveSince time.Time) ([]item, error)
 	var corrupt []uint64
 	err := o.db.View(func(tx *bbolt.Tx) error {
 		c := tx.Bucket(bucketOutbox).Cursor()
+		buf := batchBuffer(maxHead + maxLive)
 		read := func(k, v []byte) {
-			if it, ok := readItem(k, v); ok {
+			if it, ok := readItem(k, v, &buf); ok {
 				items = append(items, it)
 			} else {
 				corrupt = append(corrupt, it.seq)
@@ -96,8 +117,9 @@ func (o *Outbox) nextAfter(after uint64, n int) ([]item, error) {
 	var corrupt []uint64
 	err := o.db.View(func(tx *bbolt.Tx) error {
 		c := tx.Bucket(bucketOutbox).Cursor()
+		buf := batchBuffer(n)
 		for k, v := c.Seek(seqKey(after + 1)); k != nil && len(items)+len(corrupt) < n; k, v = c.Next() {
-			if it, ok := readItem(k, v); ok {
+			if it, ok := readItem(k, v, &buf); ok {
 				items = append(items, it)
 			} else {
 				corrupt = append(corrupt, it.seq)
@@ -177,7 +199,11 @@ func (o *Outbox) done(written []item, bad []item, reasons []string) error {
 			if q.outbox.Get(seqKey(it.seq)) == nil {
 				continue // superseded by a revision meanwhile
 			}
-			if err := q.quarantine(now, it.point, reasons[i]); err != nil {
+			p, err := it.decode()
+			if err != nil {
+				return err
+			}
+			if err := q.quarantine(now, p, reasons[i]); err != nil {
 				return err
 			}
 			if err := q.remove(it.seq, it.skey); err != nil {
@@ -192,7 +218,7 @@ func (o *Outbox) done(written []item, bad []item, reasons []string) error {
 	if len(bad) > 0 {
 		o.metrics.quarantined.Add(float64(len(bad)))
 		for i := range bad {
-			o.log.Warn("outbox: point quarantined", "reason", reasons[i], "point", Line(bad[i].point))
+			o.log.Warn("outbox: point quarantined", "reason", reasons[i], "point", string(bad[i].line))
 		}
 	}
 	return nil
@@ -217,7 +243,7 @@ func (q *buckets) removeSent(it item) error {
 			return err
 		}
 	}
-	if it.point.Class == ClassRaw {
+	if it.raw {
 		if err := q.raw.Delete(k); err != nil {
 			return err
 		}

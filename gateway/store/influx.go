@@ -49,7 +49,10 @@ type InfluxSink struct {
 	api    lineWriter
 }
 
-var _ Sink = (*InfluxSink)(nil)
+var (
+	_ Sink     = (*InfluxSink)(nil)
+	_ lineSink = (*InfluxSink)(nil)
+)
 
 // NewInfluxSink returns a sink writing to the server at opt.URL. It does not
 // contact the server.
@@ -77,22 +80,33 @@ func (s *InfluxSink) Close() { s.client.Close() }
 
 // Write sends pts; see Sink.
 func (s *InfluxSink) Write(ctx context.Context, pts []Point) (int, []Refusal, error) {
+	times := make([]time.Time, len(pts))
+	lines := make([][]byte, len(pts))
+	for i, p := range pts {
+		times[i], lines[i] = p.Time, AppendLine(nil, p)
+	}
+	return s.writeLines(ctx, times, lines)
+}
+
+// writeLines is Write for points rendered already: lines[i] is the line of
+// the point at times[i].
+func (s *InfluxSink) writeLines(ctx context.Context, times []time.Time, lines [][]byte) (int, []Refusal, error) {
 	now := s.opt.Clock()
 	var early []Refusal
-	send := make([]int, 0, len(pts))
-	for i, p := range pts {
-		if err := CheckTime(p.Time, now, s.opt.MaxFuture, s.opt.MaxAge); err != nil {
+	send := make([]int, 0, len(lines))
+	for i, t := range times {
+		if err := CheckTime(t, now, s.opt.MaxFuture, s.opt.MaxAge); err != nil {
 			early = append(early, Refusal{Index: i, Reason: err.Error()})
 			continue
 		}
 		send = append(send, i)
 	}
-	n, refused, err := s.send(ctx, pts, send)
+	n, refused, err := s.send(ctx, lines, send)
 	if err == nil {
-		return len(pts), mergeRefusals(early, refused), nil
+		return len(lines), mergeRefusals(early, refused), nil
 	}
 	// Settled: every point before the first unsent one.
-	settled := len(pts)
+	settled := len(lines)
 	if n < len(send) {
 		settled = send[n]
 	}
@@ -100,21 +114,25 @@ func (s *InfluxSink) Write(ctx context.Context, pts []Point) (int, []Refusal, er
 	return settled, mergeRefusals(early, refused), err
 }
 
-// send writes pts[idx...] in one request, halving a batch the server refuses
-// as invalid. It returns how many of idx are settled (sent or refused, in
-// order) and the refusals among them.
-func (s *InfluxSink) send(ctx context.Context, pts []Point, idx []int) (int, []Refusal, error) {
+// send writes lines[idx...] in one request, halving a batch the server
+// refuses as invalid. It returns how many of idx are settled (sent or
+// refused, in order) and the refusals among them.
+func (s *InfluxSink) send(ctx context.Context, lines [][]byte, idx []int) (int, []Refusal, error) {
 	if len(idx) == 0 {
 		return 0, nil, nil
 	}
 	// One body for the request: the client joins the lines it is given
 	// into one string, so a single line costs no copy.
-	var body []byte
+	size := len(idx)
+	for _, j := range idx {
+		size += len(lines[j])
+	}
+	body := make([]byte, 0, size)
 	for i, j := range idx {
 		if i > 0 {
 			body = append(body, '\n')
 		}
-		body = AppendLine(body, pts[j])
+		body = append(body, lines[j]...)
 	}
 	err := s.api.WriteRecord(ctx, string(body))
 	if err == nil {
@@ -129,11 +147,11 @@ func (s *InfluxSink) send(ctx context.Context, pts []Point, idx []int) (int, []R
 		return 1, []Refusal{{Index: idx[0], Reason: reason}}, nil
 	}
 	half := len(idx) / 2
-	n1, r1, err := s.send(ctx, pts, idx[:half])
+	n1, r1, err := s.send(ctx, lines, idx[:half])
 	if err != nil {
 		return n1, r1, err
 	}
-	n2, r2, err := s.send(ctx, pts, idx[half:])
+	n2, r2, err := s.send(ctx, lines, idx[half:])
 	return n1 + n2, append(r1, r2...), err
 }
 

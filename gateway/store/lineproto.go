@@ -268,7 +268,7 @@ const (
 	stringEscapes      = "\"\\"
 )
 
-func appendEscaped(dst []byte, s, escapes string) []byte {
+func appendEscaped[S ~string | ~[]byte](dst []byte, s S, escapes string) []byte {
 	for i := 0; i < len(s); i++ {
 		c := s[i]
 		for j := 0; j < len(escapes); j++ {

@@ -1,6 +1,7 @@
 package store
 
 import (
+	"bytes"
 	"math"
 	"strings"
 	"testing"
@@ -80,38 +81,45 @@ func TestNormalizeDoesNotTouchCallerMap(t *testing.T) {
 	assert.Equal(t, 3, f["n"])
 }
 
+// drawPoint draws a valid point with names and values that need escapes,
+// every field type, and sometimes notes.
+func drawPoint(t *rapid.T) Point {
+	name := rapid.StringMatching(`[a-z][a-z0-9_ ,=]{0,12}`)
+	p := Point{
+		Class:       Class(rapid.SampledFrom([]Class{ClassHour, ClassRaw, ClassZone, ClassAlert}).Draw(t, "class")),
+		Measurement: name.Draw(t, "measurement"),
+		Tags:        rapid.MapOf(name, rapid.StringMatching(`[a-zA-Z0-9 =,"]{1,10}`)).Draw(t, "tags"),
+		Fields:      map[string]any{},
+		Time:        time.Unix(0, rapid.Int64Range(0, 1<<62).Draw(t, "ns")).UTC(),
+	}
+	for i, k := range rapid.SliceOfNDistinct(name, 1, 8, func(s string) string { return s }).Draw(t, "fields") {
+		if _, clash := p.Tags[k]; clash {
+			continue
+		}
+		switch i % 4 {
+		case 0:
+			p.Fields[k] = rapid.Float64().Draw(t, k)
+		case 1:
+			p.Fields[k] = rapid.Int64().Draw(t, k)
+		case 2:
+			p.Fields[k] = rapid.Bool().Draw(t, k)
+		case 3:
+			p.Fields[k] = rapid.String().Draw(t, k)
+		}
+	}
+	if len(p.Tags) == 0 {
+		p.Tags = nil
+	}
+	if rapid.Bool().Draw(t, "notes") {
+		p.Notes = map[string]string{"flags": rapid.String().Draw(t, "flags")}
+	}
+	return p
+}
+
 // TestCodecRoundTrip: any valid point decodes to itself.
 func TestCodecRoundTrip(t *testing.T) {
-	name := rapid.StringMatching(`[a-z][a-z0-9_ ,=]{0,12}`)
 	rapid.Check(t, func(t *rapid.T) {
-		p := Point{
-			Class:       Class(rapid.SampledFrom([]Class{ClassHour, ClassRaw, ClassZone, ClassAlert}).Draw(t, "class")),
-			Measurement: name.Draw(t, "measurement"),
-			Tags:        rapid.MapOf(name, rapid.StringMatching(`[a-zA-Z0-9 =,"]{1,10}`)).Draw(t, "tags"),
-			Fields:      map[string]any{},
-			Time:        time.Unix(0, rapid.Int64Range(0, 1<<62).Draw(t, "ns")).UTC(),
-		}
-		for i, k := range rapid.SliceOfNDistinct(name, 1, 8, func(s string) string { return s }).Draw(t, "fields") {
-			if _, clash := p.Tags[k]; clash {
-				continue
-			}
-			switch i % 4 {
-			case 0:
-				p.Fields[k] = rapid.Float64().Draw(t, k)
-			case 1:
-				p.Fields[k] = rapid.Int64().Draw(t, k)
-			case 2:
-				p.Fields[k] = rapid.Bool().Draw(t, k)
-			case 3:
-				p.Fields[k] = rapid.String().Draw(t, k)
-			}
-		}
-		if len(p.Tags) == 0 {
-			p.Tags = nil
-		}
-		if rapid.Bool().Draw(t, "notes") {
-			p.Notes = map[string]string{"flags": rapid.String().Draw(t, "flags")}
-		}
+		p := drawPoint(t)
 		got, err := decodePoint(appendPoint(nil, p))
 		require.NoError(t, err)
 		require.Equal(t, p, got)
@@ -120,5 +128,27 @@ func TestCodecRoundTrip(t *testing.T) {
 		cut := rapid.IntRange(0, len(enc)-1).Draw(t, "cut")
 		_, err = decodePoint(enc[:cut])
 		require.Error(t, err)
+	})
+}
+
+// TestLineFromEncoding: the drain renders a pending point's line straight
+// from its stored encoding, byte for byte the line of the decoded point,
+// with its time, its series key and its class; a truncated encoding is an
+// error (nothing appended), never a panic.
+func TestLineFromEncoding(t *testing.T) {
+	rapid.Check(t, func(t *rapid.T) {
+		p := drawPoint(t)
+		enc := appendPoint(nil, p)
+		prefix := []byte("kept\n")
+		got, info, err := appendLineEncoded(bytes.Clone(prefix), enc)
+		require.NoError(t, err)
+		require.Equal(t, string(prefix)+Line(p), string(got))
+		require.True(t, p.Time.Equal(info.time))
+		require.Equal(t, string(appendSeries(nil, p.Measurement, p.Tags)), string(got[len(prefix):len(prefix)+info.series]))
+		require.Equal(t, p.Class == ClassRaw, info.raw)
+		cut := rapid.IntRange(0, len(enc)-1).Draw(t, "cut")
+		got, _, err = appendLineEncoded(bytes.Clone(prefix), enc[:cut])
+		require.Error(t, err)
+		require.Equal(t, string(prefix), string(got), "no part of a line on error")
 	})
 }

@@ -58,7 +58,7 @@ func pending(t testing.TB, o *Outbox) []string {
 	require.NoError(t, err)
 	var lines []string
 	for _, it := range items {
-		lines = append(lines, Line(it.point))
+		lines = append(lines, string(it.line))
 	}
 	return lines
 }

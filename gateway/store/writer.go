@@ -375,12 +375,11 @@ func (w *Writer) write(ctx context.Context, items []item) (int, error) {
 // is returned wrapped in errServer, with the outcome of the points the sink
 // settled before it failed.
 func (w *Writer) send(ctx context.Context, items []item) (outcome, error) {
-	pts := make([]Point, len(items))
-	for i, it := range items {
-		pts[i] = it.point
-	}
 	start := time.Now()
-	settled, refused, werr := w.sink.Write(ctx, pts)
+	settled, refused, werr, err := w.sinkWrite(ctx, items)
+	if err != nil {
+		return outcome{}, err
+	}
 	w.metrics.duration.Observe(time.Since(start).Seconds())
 	if werr != nil {
 		w.metrics.errors.Inc()
@@ -410,6 +409,35 @@ func (w *Writer) send(ctx context.Context, items []item) (outcome, error) {
 		return out, fmt.Errorf("%w: write %d points: %w", errServer, len(items)-settled, werr)
 	}
 	return out, nil
+}
+
+// lineSink is a Sink that also takes points as the drain renders them,
+// lines[i] being the line of the point at times[i], so the drain need not
+// build Points (InfluxSink).
+type lineSink interface {
+	writeLines(ctx context.Context, times []time.Time, lines [][]byte) (settled int, refused []Refusal, err error)
+}
+
+// sinkWrite hands items to the sink, as lines when it takes them. err is a
+// pending point that cannot be decoded (a fault of the state file).
+func (w *Writer) sinkWrite(ctx context.Context, items []item) (settled int, refused []Refusal, werr, err error) {
+	if ls, ok := w.sink.(lineSink); ok {
+		times := make([]time.Time, len(items))
+		lines := make([][]byte, len(items))
+		for i, it := range items {
+			times[i], lines[i] = it.time, it.line
+		}
+		settled, refused, werr = ls.writeLines(ctx, times, lines)
+		return settled, refused, werr, nil
+	}
+	pts := make([]Point, len(items))
+	for i, it := range items {
+		if pts[i], err = it.decode(); err != nil {
+			return 0, nil, nil, fmt.Errorf("drain: point %d: %w", it.seq, err)
+		}
+	}
+	settled, refused, werr = w.sink.Write(ctx, pts)
+	return settled, refused, werr, nil
 }
 
 // commit removes the stored points of out from the outbox and quarantines
