@@ -113,6 +113,7 @@ type Gateway struct {
 	progress chan struct{} // closed when Handled, Emitted or Published grows; nil until asked for
 
 	retained *statePublisher // retained station and zone state (state_publish.go)
+	jr       *journalIntake  // the journal; nil when batches go straight into the state file (journal.go)
 }
 
 // New composes the gateway for cfg. It does not start anything.
@@ -398,6 +399,12 @@ const maxBatch = 512
 // intake drains the queue in batches: route, store in one transaction, ack,
 // close due hours, publish. It also wakes at the next silence deadline.
 func (g *Gateway) intake(ctx context.Context) error {
+	if g.jr = g.newJournalIntake(); g.jr != nil {
+		defer g.closeJournal(ctx)
+		if err := g.openJournal(ctx); err != nil {
+			return err
+		}
+	}
 	if err := g.startup(ctx); err != nil {
 		return err
 	}
@@ -412,6 +419,7 @@ func (g *Gateway) intake(ctx context.Context) error {
 		if next := g.pipe.NextDeadline(); !next.IsZero() && !g.stepped {
 			wake = g.deps.Clock.After(max(next.Sub(g.deps.Clock.Now()), 0))
 		}
+		ckpt, stopCkpt := g.checkpointTimer()
 		select {
 		case <-ctx.Done():
 			return nil
@@ -426,10 +434,16 @@ func (g *Gateway) intake(ctx context.Context) error {
 					break fill
 				}
 			}
+			if g.jr != nil {
+				batch = g.gather(ctx, batch, wake)
+			}
+		case <-ckpt:
 		case <-wake:
 		case <-idle.C:
+			stopCkpt()
 			continue // a beat for Alive
 		}
+		stopCkpt()
 		if err := g.step(ctx, batch, false); err != nil {
 			return err
 		}
@@ -507,6 +521,9 @@ func (g *Gateway) step(ctx context.Context, batch []mqtt.Message, byTime bool) e
 	if byTime {
 		slices.SortStableFunc(readings, func(a, b ingest.Reading) int { return a.Sample.Time.Compare(b.Sample.Time) })
 	}
+	if g.jr != nil {
+		return g.stepJournalled(ctx, now, batch, readings)
+	}
 	emitted, stored, err := g.store(ctx, now, readings, len(batch))
 	g.emitted.Add(uint64(emitted))
 	if err != nil || !stored {
@@ -526,6 +543,42 @@ func (g *Gateway) step(ctx context.Context, batch []mqtt.Message, byTime bool) e
 	return nil
 }
 
+// stepJournalled is step with the journal: the batch is journalled and
+// acknowledged, its readings wait for a checkpoint unless one is due.
+func (g *Gateway) stepJournalled(ctx context.Context, now time.Time, batch []mqtt.Message, readings []ingest.Reading) error {
+	if len(batch) > 0 {
+		stored, err := g.journal(ctx, now, batch)
+		if err != nil || !stored {
+			return err // not acknowledged: redelivered next run
+		}
+		for _, m := range batch {
+			if m.Ack != nil {
+				m.Ack()
+			}
+		}
+		if g.jr.since.IsZero() {
+			g.jr.since = time.Now()
+		}
+		for i := range readings {
+			readings[i].Arrived = now
+			g.alerts.Heard(readings[i].Site, readings[i].Station, readings[i].Sample, now)
+		}
+		g.jr.pending = append(g.jr.pending, readings...)
+	}
+	if g.checkpointDue(now, readings) {
+		if err := g.checkpoint(ctx, now); err != nil {
+			if ctx.Err() != nil {
+				return nil // the journal keeps them for the next start
+			}
+			return err
+		}
+	}
+	g.closeHours(now)
+	g.handled.Add(uint64(len(batch)))
+	g.progressed()
+	return nil
+}
+
 // store stores readings (from held messages) in the state file. A write the
 // disk refuses (full, quota, I/O error: stateDiskFault) pauses intake: the
 // messages stay unacknowledged, the pause is alerted and reported by
@@ -536,14 +589,25 @@ func (g *Gateway) store(ctx context.Context, now time.Time, readings []ingest.Re
 	if len(readings) == 0 {
 		return 0, true, nil
 	}
-	failures, wait := 0, pauseFirstRetry
-	for {
+	stored, err = g.persist(ctx, now, held, func(now time.Time) error {
 		res, err := g.pipe.Ingest(now, readings)
 		emitted += len(res.Records)
 		g.logClosed(res.Records)
+		return err
+	})
+	return emitted, stored, err
+}
+
+// persist runs write (a write of held messages to the state file or the
+// journal) until it succeeds, pausing intake on a disk fault (see store).
+// stored is false when ctx ended first.
+func (g *Gateway) persist(ctx context.Context, now time.Time, held int, write func(now time.Time) error) (stored bool, err error) {
+	failures, wait := 0, pauseFirstRetry
+	for {
+		err := write(now)
 		if err == nil {
 			g.pause.resume(g.deps.Clock.Now())
-			return emitted, true, nil
+			return true, nil
 		}
 		var pause time.Duration
 		if kind, ok := stateDiskFault(err); ok {
@@ -551,7 +615,7 @@ func (g *Gateway) store(ctx context.Context, now time.Time, readings []ingest.Re
 			g.pause.hold(now, kind, err, held, pause)
 		} else {
 			if failures == 2 {
-				return emitted, false, fmt.Errorf("intake: store readings: %w", err)
+				return false, fmt.Errorf("intake: store readings: %w", err)
 			}
 			failures++
 			pause = time.Duration(failures) * 200 * time.Millisecond
@@ -561,7 +625,7 @@ func (g *Gateway) store(ctx context.Context, now time.Time, readings []ingest.Re
 		select {
 		case <-time.After(pause):
 		case <-ctx.Done():
-			return emitted, false, nil
+			return false, nil
 		}
 		now = g.deps.Clock.Now()
 	}

@@ -34,10 +34,22 @@ type Config struct {
 	HTTP   HTTP   `yaml:"http"`
 }
 
-// State locates the durable state file.
+// State locates the durable state file and says how often it is written
+// (state.go).
 type State struct {
 	// Path of the state file (bbolt). Default "etpulse.db".
 	Path string `yaml:"path"`
+	// Journal makes received messages durable in an append-only journal
+	// beside the state file (Path + ".journal") and writes them into the
+	// state file at checkpoints; false writes every batch into the state
+	// file at once. Default true.
+	Journal *bool `yaml:"journal"`
+	// AckWindow is the longest a received message waits for others to be
+	// journalled (and acknowledged) with it. Default 2s.
+	AckWindow Duration `yaml:"ack_window"`
+	// CheckpointEvery is the longest a journalled reading waits to be
+	// written into the state file. Default 5m.
+	CheckpointEvery Duration `yaml:"checkpoint_every"`
 }
 
 // Site is one farm site: its stations, irrigation zones and water sources.
@@ -81,9 +93,7 @@ func Parse(b []byte) (*Config, error) {
 }
 
 func (c *Config) setDefaults() {
-	if c.State.Path == "" {
-		c.State.Path = "etpulse.db"
-	}
+	c.State.setDefaults()
 	if c.TopicPrefix == "" {
 		c.TopicPrefix = DefaultTopicPrefix
 	}
@@ -144,6 +154,7 @@ func (c *Config) Validate() error {
 	}
 	alerts.validate("alerts", &p, c)
 	c.HTTP.validate("http", &p)
+	c.State.validate("state", &p)
 	return p.Err()
 }
 

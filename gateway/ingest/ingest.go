@@ -32,6 +32,10 @@ type Reading struct {
 	// record with a relative or no time): Sample.Time is the arrival time,
 	// not the station's clock.
 	ArrivalStamped bool
+	// Arrived is the gateway clock when the message carrying the reading
+	// arrived, for a reading stored later than that (from the journal);
+	// zero means the clock of the call that stores it.
+	Arrived time.Time
 }
 
 // Reason classifies why (part of) a message was not used. The values are

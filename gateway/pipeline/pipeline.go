@@ -351,6 +351,7 @@ func (p *Pipeline) ingestTx(now time.Time, readings []ingest.Reading, noStop map
 	type accepted struct {
 		st *station
 		s  hourly.Sample
+		at time.Time // the pipeline clock when its message arrived
 	}
 	var (
 		acc     []accepted
@@ -385,6 +386,13 @@ func (p *Pipeline) ingestTx(now time.Time, readings []ingest.Reading, noStop map
 			}
 			s := rd.Sample
 			s.Time = s.Time.UTC()
+			// now is the clock of this call; at is the clock when the
+			// reading's message arrived (earlier for one kept in the journal
+			// until a checkpoint): every rule about arrival uses at.
+			at := now
+			if !rd.Arrived.IsZero() {
+				at = rd.Arrived
+			}
 			reject := func(reason ingest.Reason, err error) {
 				rejs = append(rejs, ingest.Rejection{Reason: reason, Site: st.site, Station: st.id, Sensor: s.Sensor, Err: err})
 			}
@@ -392,16 +400,16 @@ func (p *Pipeline) ingestTx(now time.Time, readings []ingest.Reading, noStop map
 				reject(ingest.ReasonTooOld, fmt.Errorf("%s reading time %s is before 1970", s.Quantity, s.Time.Format(time.RFC3339)))
 				continue
 			}
-			if lim := now.Add(st.cfg.MaxFuture.D()); s.Time.After(lim) {
+			if lim := at.Add(st.cfg.MaxFuture.D()); s.Time.After(lim) {
 				// The gateway clock may be behind (a box booted before its
 				// clock was set): hold the reading until the clock reaches
 				// it, up to the holding limit.
 				if st.held+mu.held >= p.heldLimit {
 					reject(ingest.ReasonTooFuture, fmt.Errorf("%s reading time %s is more than %s ahead of the gateway clock %s and the station already holds %d readings ahead of the clock (the limit): check the gateway's and the station's clocks",
-						s.Quantity, s.Time.Format(time.RFC3339), st.cfg.MaxFuture, now.UTC().Format(time.RFC3339), p.heldLimit))
+						s.Quantity, s.Time.Format(time.RFC3339), st.cfg.MaxFuture, at.UTC().Format(time.RFC3339), p.heldLimit))
 					continue
 				}
-				fresh, err := putHeld(sb.held, rd, now)
+				fresh, err := putHeld(sb.held, rd, at)
 				if err != nil {
 					return err
 				}
@@ -433,7 +441,7 @@ func (p *Pipeline) ingestTx(now time.Time, readings []ingest.Reading, noStop map
 			// only while no reading with a time of its own has come for
 			// SilenceClose: otherwise it would close the hours of a backlog
 			// or of a logger that publishes a few minutes late.
-			drives := !rd.ArrivalStamped || mu.stampedArrival.IsZero() || now.Sub(mu.stampedArrival) >= st.cfg.SilenceClose.D()
+			drives := !rd.ArrivalStamped || mu.stampedArrival.IsZero() || at.Sub(mu.stampedArrival) >= st.cfg.SilenceClose.D()
 			if drives && !st.closed && mu.hasCursor && s.Time.Sub(mu.cursor.Add(time.Hour)) > lw {
 				dropped, err := dropBefore(sb, st, st.hourStart(s.Time.Add(-lw)), lw, "the station's reading at "+s.Time.Format(time.RFC3339))
 				if err != nil {
@@ -458,7 +466,7 @@ func (p *Pipeline) ingestTx(now time.Time, readings []ingest.Reading, noStop map
 				case !ok && !st.closed:
 					// Nothing closed yet: move the cursor back.
 					mu.cursor = hour
-				case !ok || now.Sub(end) > st.cfg.LateWindow.D():
+				case !ok || at.Sub(end) > st.cfg.LateWindow.D():
 					reject(ingest.ReasonTooOld, fmt.Errorf("%s reading at %s: its hour closed and the late window of %s has passed",
 						s.Quantity, s.Time.Format(time.RFC3339), st.cfg.LateWindow))
 					continue
@@ -500,11 +508,14 @@ func (p *Pipeline) ingestTx(now time.Time, readings []ingest.Reading, noStop map
 				if _, err := getJSON(sb.hours, hourKey(hour), &hs); err != nil {
 					return err
 				}
-				hs.Dirty, hs.LateAt = true, now.UTC()
+				hs.Dirty, hs.LateAt = true, at.UTC()
 				if err := putJSON(sb.hours, hourKey(hour), hs); err != nil {
 					return err
 				}
 				mu.dirty = true
+				if at.After(mu.lateAt) {
+					mu.lateAt = at
+				}
 				late++
 			}
 			if !mu.hasCursor {
@@ -514,19 +525,19 @@ func (p *Pipeline) ingestTx(now time.Time, readings []ingest.Reading, noStop map
 				mu.watermark = s.Time
 			}
 			if !rd.ArrivalStamped {
-				mu.stampedArrival = now
+				mu.stampedArrival = at
 			}
 			if seen[st] == nil {
 				seen[st] = map[string]seenState{}
 			}
 			ss := seen[st][s.Sensor]
-			ss.Arrival, ss.Stamped = now.UTC(), !rd.ArrivalStamped
+			ss.Arrival, ss.Stamped = at.UTC(), !rd.ArrivalStamped
 			if s.Time.After(ss.Reading) {
 				v := s.Value
 				ss.Reading, ss.Quantity, ss.Value = s.Time, s.Quantity, &v
 			}
 			seen[st][s.Sensor] = ss
-			acc = append(acc, accepted{st, s})
+			acc = append(acc, accepted{st, s, at})
 		}
 		return p.commitIngest(tx, updates, seen)
 	})
@@ -537,8 +548,8 @@ func (p *Pipeline) ingestTx(now time.Time, readings []ingest.Reading, noStop map
 		st.cursor, st.hasCursor, st.watermark = mu.cursor, mu.hasCursor, mu.watermark
 		st.dirty = st.dirty || mu.dirty
 		if mu.dirty {
-			st.lateAt = now
-			if at := now.Add(st.cfg.CloseGrace.D()); st.reviseAt.IsZero() || at.Before(st.reviseAt) {
+			st.lateAt = mu.lateAt
+			if at := mu.lateAt.Add(st.cfg.CloseGrace.D()); st.reviseAt.IsZero() || at.Before(st.reviseAt) {
 				st.reviseAt = at // revise corrects it to the waiting hours' own
 			}
 		}
@@ -551,8 +562,8 @@ func (p *Pipeline) ingestTx(now time.Time, readings []ingest.Reading, noStop map
 		}
 	}
 	for _, a := range acc {
-		if now.After(a.st.arrival) {
-			a.st.arrival = now
+		if a.at.After(a.st.arrival) {
+			a.st.arrival = a.at
 		}
 	}
 	for st := range updates {
@@ -572,7 +583,7 @@ func (p *Pipeline) ingestTx(now time.Time, readings []ingest.Reading, noStop map
 	res.Held += held
 	for _, a := range acc {
 		for _, o := range p.observers {
-			o.ObserveSample(a.st.site, a.st.id, a.s, now)
+			o.ObserveSample(a.st.site, a.st.id, a.s, a.at)
 		}
 	}
 	return rest, stops, nil
@@ -584,6 +595,7 @@ type mirror struct {
 	hasCursor      bool
 	watermark      time.Time
 	dirty          bool
+	lateAt         time.Time // the latest arrival of a late reading
 	stampedArrival time.Time
 	held           int // readings added to the held bucket
 }

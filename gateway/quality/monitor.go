@@ -270,11 +270,36 @@ func (m *Monitor) ObserveSample(site, station string, s hourly.Sample, now time.
 	for _, f := range info.readings.Observe(s, now) {
 		m.stepLocked(f)
 	}
+	m.heardLocked(info, s.Quantity, now, n)
+}
+
+// Heard tells the silence check that a reading of s's sensor arrived at
+// now, before it is accepted: the gateway calls it for a reading it keeps
+// in its journal until a checkpoint, when ObserveSample runs the other
+// checks.
+func (m *Monitor) Heard(site, station string, s hourly.Sample, now time.Time) {
+	if m == nil || m.alerts.Disabled {
+		return
+	}
+	info := m.stations[stationID{site, station}]
+	if info == nil {
+		return
+	}
+	m.mu.Lock()
+	defer m.mu.Unlock()
+	n := len(m.pending)
+	m.stepLocked(info.readings.Heard(topicSafe(s.Sensor), s.Quantity, now))
+	m.heardLocked(info, s.Quantity, now, n)
+}
+
+// heardLocked moves the silence deadline for a reading of q heard at now
+// and wakes the publisher when findings were queued beyond the first n.
+func (m *Monitor) heardLocked(info *stationInfo, q hourly.Quantity, now time.Time, n int) {
 	// m.next is kept as a lower bound of the earliest silence deadline: a
 	// reading only moves its own sensor's deadline later, so the minimum is
 	// recomputed (over every sensor) only when it falls due, not per sample.
 	// A sensor seen for the first time may bring the bound forward.
-	if d := info.readings.SilenceDeadline(s.Quantity, now); !d.IsZero() && (m.next.IsZero() || d.Before(m.next)) {
+	if d := info.readings.SilenceDeadline(q, now); !d.IsZero() && (m.next.IsZero() || d.Before(m.next)) {
 		m.next = d
 		m.wake()
 	}

@@ -343,3 +343,40 @@ func TestMonitorSilenceSurvivesRestart(t *testing.T) {
 	assert.Empty(t, f2.evs)
 	assert.Equal(t, 0.0, kindTotal(t, f2.reg, "etpulse_alerts_raised_total", "silence"))
 }
+
+// A reading the gateway keeps in its journal until a checkpoint is heard
+// at once (Heard) and observed at the checkpoint with its arrival time: a
+// sensor reporting every 10 min is not taken for silent (limit 15 min)
+// while its readings wait for a 30-minute checkpoint.
+func TestMonitorHeardBeforeCheckpointIsNotSilent(t *testing.T) {
+	f := newFixture(t, testConfig(config.RespondKeep), filepath.Join(t.TempDir(), "h.db"), t0)
+	at := func(minute int) time.Time { return t0.Add(time.Duration(minute) * time.Minute) }
+	smp := func(minute int) hourly.Sample {
+		return hourly.Sample{Sensor: "t1", Quantity: hourly.AirTemp, Time: at(minute), Value: 20}
+	}
+	silentT1 := func() []alert.Alert {
+		var out []alert.Alert
+		for _, a := range f.mon.Active() {
+			if a.Sensor == "t1" && a.Kind == alert.KindSilence {
+				out = append(out, a)
+			}
+		}
+		return out
+	}
+	f.mon.ObserveSample("brackenfold", "orchard", smp(0), at(0))
+	for _, m := range []int{10, 20} {
+		f.mon.Heard("brackenfold", "orchard", smp(m), at(m))
+	}
+	f.mon.CheckSilence(at(29))
+	require.NoError(t, f.mon.Sync())
+	assert.Empty(t, silentT1(), "heard at 10 and 20 min, silent only after 35")
+	// The checkpoint at 30 min observes them with their arrival times.
+	for _, m := range []int{10, 20} {
+		f.mon.ObserveSample("brackenfold", "orchard", smp(m), at(m))
+	}
+	f.mon.CheckSilence(at(36))
+	require.NoError(t, f.mon.Sync())
+	got := silentT1()
+	require.Len(t, got, 1, "nothing heard since 20 min")
+	assert.Contains(t, got[0].Message, "no air_temp reading since 2026-06-03T18:20:00Z")
+}

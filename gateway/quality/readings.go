@@ -90,16 +90,7 @@ func (c *ReadingChecks) Observe(s hourly.Sample, now time.Time) []Finding {
 	id := sensorID{s.Sensor, s.Quantity}
 	lim := c.cfg.Limits(s.Quantity)
 	clearAfter := c.cfg.ClearAfter.D()
-	var out []Finding
-
-	if t, ok := c.seen[id]; !ok || now.After(t) {
-		c.seen[id] = now
-	}
-	out = append(out, Finding{
-		Key: c.key(s.Sensor, s.Quantity, alert.KindSilence), Status: StatusGood, Severity: alert.SeverityCritical,
-		Message: fmt.Sprintf("%s reading received at %s", s.Quantity, now.UTC().Format(time.RFC3339)),
-		At:      now,
-	})
+	out := []Finding{c.Heard(s.Sensor, s.Quantity, now)}
 
 	// Plausible range.
 	f := Finding{Key: c.key(s.Sensor, s.Quantity, alert.KindRange), Severity: alert.SeverityCritical, Value: s.Value, At: s.Time, ClearAfter: clearAfter}
@@ -179,6 +170,20 @@ func (c *ReadingChecks) dewFinding(dew lastReading, air float64, at time.Time) F
 		f.Message = fmt.Sprintf("dew point not above air temperature by more than %s °C", num(tol))
 	}
 	return f
+}
+
+// Heard notes that a reading of the sensor's quantity arrived at now (for
+// the silence check) and returns the finding that it is reporting.
+func (c *ReadingChecks) Heard(sensor string, q hourly.Quantity, now time.Time) Finding {
+	id := sensorID{sensor, q}
+	if t, ok := c.seen[id]; !ok || now.After(t) {
+		c.seen[id] = now
+	}
+	return Finding{
+		Key: c.key(sensor, q, alert.KindSilence), Status: StatusGood, Severity: alert.SeverityCritical,
+		Message: fmt.Sprintf("%s reading received at %s", q, now.UTC().Format(time.RFC3339)),
+		At:      now,
+	}
 }
 
 // Silence returns a finding for every known sensor quantity with a silence
