@@ -43,8 +43,12 @@ const (
 	// keepHours: closed-hour observations kept for the day-scale checks.
 	keepHours = (config.MaxAlertWindowDays + 1) * 24 * time.Hour
 	// keepAccumulated: readings accumulated per hour for quantities the
-	// gate excluded from the record.
+	// gate excluded from the record are kept at most this long (see
+	// stationInfo.keepAcc for the usual, shorter time).
 	keepAccumulated = 30 * time.Hour
+	// accMargin is added to the time a late reading may still revise an
+	// hour, for the revision's own wait (close grace, a busy gateway).
+	accMargin = 2 * time.Hour
 	// maxPublishBackoff bounds the wait between failed publish attempts.
 	maxPublishBackoff = time.Minute
 )
@@ -76,12 +80,51 @@ type stationInfo struct {
 	hs       hourly.Station
 	choices  config.StationAlerts
 	readings *ReadingChecks
+	// acc holds the readings accumulated per hour, oldest first (guarded
+	// by Monitor.mu). keepAcc is how long an hour's are kept after the
+	// start of the station's latest closed hour: while a late reading may
+	// still revise it (late window, max_future, close grace) plus
+	// accMargin, at most keepAccumulated. Readings arrive for the latest
+	// hours, so a search from the end finds their hour in a step or two.
+	acc     []accHour
+	keepAcc time.Duration
+	nq      int // distinct quantities of the station's channels
 }
 
-// accKey identifies readings accumulated for one station-hour.
-type accKey struct {
-	st   stationID
-	hour time.Time
+// accHour is the summary of one station-hour's readings, per quantity: a
+// short list (a station has a handful of quantities), not a map.
+type accHour struct {
+	hour  int64 // hour start, unix seconds
+	stats []accStat
+}
+
+type accStat struct {
+	q hourly.Quantity
+	s QStats
+}
+
+// accFor returns the station's summary list of hour (unix seconds),
+// inserted in order when absent.
+func (info *stationInfo) accFor(hour int64) *accHour {
+	i := len(info.acc)
+	for i > 0 && info.acc[i-1].hour > hour {
+		i--
+	}
+	if i > 0 && info.acc[i-1].hour == hour {
+		return &info.acc[i-1]
+	}
+	info.acc = slices.Insert(info.acc, i, accHour{hour: hour, stats: make([]accStat, 0, max(1, info.nq))})
+	return &info.acc[i]
+}
+
+// accAt returns the summaries of hour (unix seconds), nil when none.
+func (info *stationInfo) accAt(hour int64) []accStat {
+	for i := len(info.acc) - 1; i >= 0 && info.acc[i].hour >= hour; i-- {
+		if info.acc[i].hour == hour {
+			return info.acc[i].stats
+		}
+	}
+	return nil
 }
 
 // Monitor runs the checks, keeps alert state in the state file, publishes
@@ -115,12 +158,7 @@ type Monitor struct {
 	mu      sync.Mutex
 	state   map[alert.Key]alert.Alert // committed state: active alerts and recently cleared ones
 	pending []Event                   // reading-level events not yet persisted
-	acc     map[accKey]map[hourly.Quantity]*QStats
-	// accPruned is the cutoff of pruneAcc's latest scan of acc; accScans
-	// counts the scans.
-	accPruned time.Time
-	accScans  int
-	next      time.Time // earliest silence deadline
+	next    time.Time                 // earliest silence deadline
 }
 
 var (
@@ -145,7 +183,6 @@ func New(o Options) (*Monitor, error) {
 		notify:   make(chan struct{}, 1),
 		stations: map[stationID]*stationInfo{},
 		state:    map[alert.Key]alert.Alert{},
-		acc:      map[accKey]map[hourly.Quantity]*QStats{},
 		windows:  map[stationID][]HourObs{},
 		txWin:    map[stationID][]HourObs{},
 	}
@@ -165,13 +202,17 @@ func New(o Options) (*Monitor, error) {
 				cfg: sc, hs: sc.HourlyStation(),
 				choices:  m.alerts.StationChoices(site.ID, sc.ID),
 				readings: NewReadingChecks(site.ID, sc.ID, m.alerts),
+				keepAcc:  min(keepAccumulated, sc.LateWindow.D()+sc.MaxFuture.D()+sc.CloseGrace.D()+accMargin),
 			}
+			quantities := map[hourly.Quantity]bool{}
 			for _, sensor := range sc.Sensors {
 				channels := sensor.Channels()
 				for _, k := range config.SortedKeys(channels) {
 					info.readings.Expect(sensor.ChannelName(k), channels[k].Quantity, now)
+					quantities[channels[k].Quantity] = true
 				}
 			}
+			info.nq = len(quantities)
 			m.stations[stationID{site.ID, sc.ID}] = info
 		}
 	}
@@ -313,18 +354,20 @@ func (m *Monitor) heardLocked(info *stationInfo, q hourly.Quantity, now time.Tim
 
 // accumulate keeps a per-hour summary of each quantity's readings so the
 // hour-level checks still see a quantity the gate excluded from the record.
-func (m *Monitor) accumulate(id stationID, info *stationInfo, s hourly.Sample) {
+// m.mu must be held.
+func (m *Monitor) accumulate(_ stationID, info *stationInfo, s hourly.Sample) {
 	off := time.Duration(math.Round(info.hs.UTCOffset*3600)) * time.Second
-	hour := s.Time.Add(off).Truncate(time.Hour).Add(-off).UTC()
-	k := accKey{id, hour}
-	qs := m.acc[k]
-	if qs == nil {
-		qs = map[hourly.Quantity]*QStats{}
-		m.acc[k] = qs
+	hour := s.Time.Add(off).Truncate(time.Hour).Add(-off)
+	a := info.accFor(hour.Unix())
+	var st *QStats
+	for i := range a.stats {
+		if a.stats[i].q == s.Quantity {
+			st = &a.stats[i].s
+			break
+		}
 	}
-	st := qs[s.Quantity]
 	if st == nil {
-		qs[s.Quantity] = &QStats{N: 1, Min: s.Value, Max: s.Value, Mean: s.Value}
+		a.stats = append(a.stats, accStat{q: s.Quantity, s: QStats{N: 1, Min: s.Value, Max: s.Value, Mean: s.Value}})
 		return
 	}
 	st.N++
@@ -550,7 +593,7 @@ func (m *Monitor) HandleHour(tx *bbolt.Tx, rec hourly.Record) error {
 	if err != nil {
 		return fmt.Errorf("alerts: handle hour: %w", err)
 	}
-	m.pruneAcc(obs.Start.Add(-keepAccumulated))
+	m.pruneAcc(info, obs.Start.Add(-info.keepAcc))
 	if len(evs) > 0 || len(states) > 0 {
 		tx.OnCommit(func() { m.committed(evs, states, true) })
 	}
@@ -606,30 +649,31 @@ func (m *Monitor) observe(info *stationInfo, rec hourly.Record) HourObs {
 		}
 	}
 	m.mu.Lock()
-	for q, s := range m.acc[accKey{stationID{rec.Site, rec.Station}, o.Start}] {
-		if _, ok := o.Q[q]; !ok {
-			o.Q[q] = *s // excluded from the record by the gate: use the readings seen
+	for _, a := range info.accAt(o.Start.Unix()) {
+		if _, ok := o.Q[a.q]; !ok {
+			o.Q[a.q] = a.s // excluded from the record by the gate: use the readings seen
 		}
 	}
 	m.mu.Unlock()
 	return o
 }
 
-// pruneAcc drops the readings accumulated for hours before before. Every
-// station closing the same hour asks for the same cutoff: the map (all
-// stations' hours) is scanned only when the cutoff moves past the last
-// scan's, so an hour close does not cost a visit of every station. A
-// station-hour accumulated later for an hour before the last cutoff (a
-// late reading) goes at the next scan.
-func (m *Monitor) pruneAcc(before time.Time) {
+// pruneAcc drops the station's readings accumulated for hours before
+// before: a visit of its own few hours, not of every station's.
+func (m *Monitor) pruneAcc(info *stationInfo, before time.Time) {
 	m.mu.Lock()
 	defer m.mu.Unlock()
-	if !before.After(m.accPruned) {
+	cut := before.Unix()
+	i := 0
+	for i < len(info.acc) && info.acc[i].hour < cut {
+		i++
+	}
+	if i == 0 {
 		return
 	}
-	m.accPruned = before
-	m.accScans++
-	maps.DeleteFunc(m.acc, func(k accKey, _ map[hourly.Quantity]*QStats) bool { return k.hour.Before(before) })
+	n := copy(info.acc, info.acc[i:])
+	clear(info.acc[n:])
+	info.acc = info.acc[:n]
 }
 
 func obsKey(t time.Time) []byte { return binary.BigEndian.AppendUint64(nil, uint64(t.Unix())) }

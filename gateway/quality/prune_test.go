@@ -7,65 +7,74 @@ import (
 	"time"
 
 	"github.com/stretchr/testify/assert"
+	"github.com/stretchr/testify/require"
 
 	"etpulse/gateway/config"
 	"etpulse/hourly"
 )
 
-// Closing the same hour at every station scans the readings accumulated
-// for all stations once, not once per station: the cost of an hour close
-// does not grow with the number of stations. An earlier cutoff (a revision
-// of an older hour) finds nothing left to remove and scans nothing.
-func TestPruneAccumulatedOncePerCutoff(t *testing.T) {
-	f := newFixture(t, testConfig(config.RespondKeep), filepath.Join(t.TempDir(), "p.db"), t0)
+// Readings of a quantity left out of the record (net radiation here) are
+// kept per station-hour only while a late reading may still revise the
+// hour: the station's late window, its max_future and close grace, plus
+// two hours of margin (8 h 7 min here), not a fixed 30 hours at every
+// station. The hour being closed and the recent ones still see them.
+func TestAccumulatedKeptForTheLateWindow(t *testing.T) {
+	cfg := testConfig(config.RespondKeep)
+	sc := &cfg.Sites[0].Stations[0]
+	sc.LateWindow, sc.MaxFuture, sc.CloseGrace = config.Duration(6*time.Hour), config.Duration(5*time.Minute), config.Duration(2*time.Minute)
+	f := newFixture(t, cfg, filepath.Join(t.TempDir(), "p.db"), t0)
 	m := f.mon
-	const stations = 200
-	for i := range stations {
-		id := stationID{"brackenfold", fmt.Sprintf("st%03d", i)}
-		for h := range 3 {
-			m.acc[accKey{id, t0.Add(time.Duration(h) * time.Hour)}] = map[hourly.Quantity]*QStats{hourly.AirTemp: {N: 1}}
+	id := stationID{"brackenfold", "orchard"}
+	info := m.stations[id]
+	require.NotNil(t, info)
+	hours := weather{}.hours(30)
+	for _, o := range hours {
+		require.NotContains(t, o.Q, hourly.NetRad)
+		m.mu.Lock()
+		m.accumulate(id, info, hourly.Sample{Sensor: "rn1", Quantity: hourly.NetRad, Time: o.Start.Add(10 * time.Minute), Value: 300})
+		m.mu.Unlock()
+		f.closeHours(t, []HourObs{o})
+	}
+	last := len(hours) - 1
+	for back, kept := range map[int]bool{0: true, 1: true, 8: true, 9: false, 12: false, 29: false} {
+		obs := m.observe(info, record(hours[last-back]))
+		if kept {
+			assert.Contains(t, obs.Q, hourly.NetRad, "%d hours back", back)
+		} else {
+			assert.NotContains(t, obs.Q, hourly.NetRad, "%d hours back", back)
 		}
 	}
-	cut := t0.Add(time.Hour)
-	for range stations {
-		m.pruneAcc(cut)
-	}
-	assert.Equal(t, 1, m.accScans, "one scan for one cutoff")
-	assert.Len(t, m.acc, 2*stations, "the hour before the cutoff is gone at every station")
-
-	m.pruneAcc(t0) // a revision of an older hour
-	assert.Equal(t, 1, m.accScans)
-	m.pruneAcc(t0.Add(2 * time.Hour))
-	assert.Equal(t, 2, m.accScans)
-	assert.Len(t, m.acc, stations)
 }
 
-// BenchmarkPruneAccumulated measures the prune of accumulated readings as
-// the pipeline calls it: every station closes hour after hour, each hour's
-// closes asking for the same cutoff, with 30 hours kept per station.
+// BenchmarkPruneAccumulated measures accumulating a reading and closing
+// hours as the pipeline does at n stations: every station closes hour after
+// hour and prunes what it accumulated.
 func BenchmarkPruneAccumulated(b *testing.B) {
 	for _, stations := range []int{20, 5000} {
 		b.Run(fmt.Sprintf("stations=%d", stations), func(b *testing.B) {
-			f := newFixture(b, testConfig(config.RespondKeep), filepath.Join(b.TempDir(), "p.db"), t0)
+			cfg := testConfig(config.RespondKeep)
+			base := cfg.Sites[0].Stations[0]
+			cfg.Sites[0].Stations = nil
+			for i := range stations {
+				st := base
+				st.ID = fmt.Sprintf("st%05d", i)
+				st.LateWindow = config.Duration(6 * time.Hour)
+				cfg.Sites[0].Stations = append(cfg.Sites[0].Stations, st)
+			}
+			f := newFixture(b, cfg, filepath.Join(b.TempDir(), "p.db"), t0)
 			m := f.mon
 			ids := make([]stationID, stations)
 			for i := range ids {
 				ids[i] = stationID{"brackenfold", fmt.Sprintf("st%05d", i)}
 			}
 			hour := func(n int) time.Time { return t0.Add(time.Duration(n) * time.Hour) }
-			for h := range 30 {
-				for _, id := range ids {
-					m.acc[accKey{id, hour(h)}] = map[hourly.Quantity]*QStats{hourly.AirTemp: {N: 1}}
-				}
-			}
 			for i := 0; b.Loop(); i++ {
-				h := 30 + i/stations
-				if i%stations == 0 { // the hour's readings arrive
-					for _, id := range ids {
-						m.acc[accKey{id, hour(h)}] = map[hourly.Quantity]*QStats{hourly.AirTemp: {N: 1}}
-					}
-				}
-				m.pruneAcc(hour(h - 29))
+				h, st := i/stations, ids[i%stations]
+				info := m.stations[st]
+				m.mu.Lock()
+				m.accumulate(st, info, hourly.Sample{Sensor: "rn1", Quantity: hourly.NetRad, Time: hour(h + 1), Value: 1})
+				m.mu.Unlock()
+				m.pruneAcc(info, hour(h))
 			}
 		})
 	}
