@@ -36,12 +36,24 @@ func BenchmarkHandleHour(b *testing.B) {
 
 // BenchmarkObserveSample measures the reading-level checks of one sample.
 func BenchmarkObserveSample(b *testing.B) {
-	f := newFixture(b, testConfig(config.RespondKeep), filepath.Join(b.TempDir(), "o.db"), t0)
+	observe, _ := plausibleReadings(b, time.Second)
+	for b.Loop() {
+		observe()
+	}
+}
+
+// plausibleReadings returns a function that gives the monitor of a new
+// fixture the next plausible reading of its four sensors in turn, a round
+// every step.
+func plausibleReadings(t testing.TB, step time.Duration) (observe func(), mon *Monitor) {
+	f := newFixture(t, testConfig(config.RespondKeep), filepath.Join(t.TempDir(), "o.db"), t0)
 	qs := []hourly.Quantity{hourly.AirTemp, hourly.RelHumidity, hourly.Wind, hourly.Solar}
 	ids := []string{"t1", "h1", "u1", "p1"}
-	for i := 0; b.Loop(); i++ {
-		at := t0.Add(time.Duration(i/4) * time.Second)
+	i := 0
+	return func() {
+		at := t0.Add(time.Duration(i/4) * step)
 		k := i % 4
 		f.mon.ObserveSample("brackenfold", "orchard", hourly.Sample{Sensor: ids[k], Quantity: qs[k], Time: at, Value: 20 + float64(i%7)*0.1}, at)
-	}
+		i++
+	}, f.mon
 }

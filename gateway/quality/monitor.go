@@ -159,6 +159,7 @@ type Monitor struct {
 	state   map[alert.Key]alert.Alert // committed state: active alerts and recently cleared ones
 	pending []Event                   // reading-level events not yet persisted
 	next    time.Time                 // earliest silence deadline
+	scratch []Finding                 // ObserveSample's findings, reused from reading to reading
 }
 
 var (
@@ -213,6 +214,7 @@ func New(o Options) (*Monitor, error) {
 				}
 			}
 			info.nq = len(quantities)
+			info.readings.active = m.activeLocked
 			m.stations[stationID{site.ID, sc.ID}] = info
 		}
 	}
@@ -308,7 +310,8 @@ func (m *Monitor) ObserveSample(site, station string, s hourly.Sample, now time.
 	defer m.mu.Unlock()
 	m.accumulate(stationID{site, station}, info, s)
 	n := len(m.pending)
-	for _, f := range info.readings.Observe(s, now) {
+	m.scratch = info.readings.observeInto(m.scratch[:0], s, now)
+	for _, f := range m.scratch {
 		m.stepLocked(f)
 	}
 	m.heardLocked(info, s.Quantity, now, n)
@@ -373,6 +376,13 @@ func (m *Monitor) accumulate(_ stationID, info *stationInfo, s hourly.Sample) {
 	st.N++
 	st.Min, st.Max = math.Min(st.Min, s.Value), math.Max(st.Max, s.Value)
 	st.Mean += (s.Value - st.Mean) / float64(st.N)
+}
+
+// activeLocked reports whether the alert with key k is active; m.mu must
+// be held (the reading checks ask while the monitor steps their findings).
+func (m *Monitor) activeLocked(k alert.Key) bool {
+	a, ok := m.state[k]
+	return ok && a.Active()
 }
 
 // stepLocked applies a reading-level finding to the in-memory state and

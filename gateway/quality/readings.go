@@ -43,6 +43,10 @@ type ReadingChecks struct {
 	last          map[sensorID]lastReading
 	seen          map[sensorID]time.Time // arrival time of the latest reading
 	air, dew      lastReading            // latest air temperature and dew point readings
+	// active, when set, tells whether an alert is active for a key; a good
+	// verdict for a key with none would change nothing (see Step), so
+	// observeInto does not build it. Nil: every verdict is returned.
+	active func(alert.Key) bool
 }
 
 // NewReadingChecks returns the reading-level checks of one station.
@@ -87,12 +91,26 @@ func (c *ReadingChecks) Resume(sensor string, q hourly.Quantity, at time.Time, v
 // Observe checks one accepted sample that arrived at now and returns a
 // finding for each check that applies to it.
 func (c *ReadingChecks) Observe(s hourly.Sample, now time.Time) []Finding {
+	return c.observeInto(nil, s, now)
+}
+
+// wanted reports whether a good verdict for k is worth building: always,
+// unless active says no alert is active for k.
+func (c *ReadingChecks) wanted(k alert.Key) bool { return c.active == nil || c.active(k) }
+
+// observeInto is Observe appending to out (which the monitor reuses from
+// reading to reading); good verdicts that would change no alert are left
+// out when c.active is set.
+func (c *ReadingChecks) observeInto(out []Finding, s hourly.Sample, now time.Time) []Finding {
 	id := sensorID{s.Sensor, s.Quantity}
 	lim := c.cfg.Limits(s.Quantity)
 	clearAfter := c.cfg.ClearAfter.D()
-	out := []Finding{c.Heard(s.Sensor, s.Quantity, now)}
+	if f := c.heard(s.Sensor, s.Quantity, now); f.Status != StatusHold {
+		out = append(out, f)
+	}
 
-	// Plausible range.
+	// Plausible range. A finding left at StatusHold is a good verdict not
+	// built (see wanted): it would change nothing.
 	f := Finding{Key: c.key(s.Sensor, s.Quantity, alert.KindRange), Severity: alert.SeverityCritical, Value: s.Value, At: s.Time, ClearAfter: clearAfter}
 	switch {
 	case s.Value < lim.Min:
@@ -102,10 +120,14 @@ func (c *ReadingChecks) Observe(s hourly.Sample, now time.Time) []Finding {
 		f.Status, f.Limit = StatusBad, lim.Max
 		f.Message = fmt.Sprintf("%s reading %s above the plausible maximum %s", s.Quantity, num(s.Value), num(lim.Max))
 	default:
-		f.Status = StatusGood
-		f.Message = fmt.Sprintf("%s readings within %s..%s", s.Quantity, num(lim.Min), num(lim.Max))
+		if c.wanted(f.Key) {
+			f.Status = StatusGood
+			f.Message = fmt.Sprintf("%s readings within %s..%s", s.Quantity, num(lim.Min), num(lim.Max))
+		}
 	}
-	out = append(out, f)
+	if f.Status != StatusHold {
+		out = append(out, f)
+	}
 
 	// Spike: change per minute against the previous reading of the sensor.
 	// Readings less than a minute apart are compared as if a minute apart,
@@ -119,11 +141,13 @@ func (c *ReadingChecks) Observe(s hourly.Sample, now time.Time) []Finding {
 			f.Status = StatusBad
 			f.Message = fmt.Sprintf("%s changed %s -> %s in %s (%s per minute), limit %s per minute",
 				s.Quantity, num(prev.v), num(s.Value), precision.Duration(s.Time.Sub(prev.t)), num(rate), num(lim.SpikePerMinute))
-		} else {
+		} else if c.wanted(f.Key) {
 			f.Status = StatusGood
 			f.Message = fmt.Sprintf("%s changes within %s per minute", s.Quantity, num(lim.SpikePerMinute))
 		}
-		out = append(out, f)
+		if f.Status != StatusHold {
+			out = append(out, f)
+		}
 	}
 	if !hasPrev || s.Time.After(prev.t) {
 		c.last[id] = lastReading{t: s.Time, v: s.Value, sensor: s.Sensor}
@@ -136,24 +160,30 @@ func (c *ReadingChecks) Observe(s hourly.Sample, now time.Time) []Finding {
 		if s.Value > 100+tol {
 			f.Status = StatusBad
 			f.Message = fmt.Sprintf("relative humidity %s %%, more than %s %% above saturation", num(s.Value), num(tol))
-		} else {
+		} else if c.wanted(f.Key) {
 			f.Status = StatusGood
 			f.Message = fmt.Sprintf("relative humidity at most %s %%", num(100+tol))
 		}
-		out = append(out, f)
+		if f.Status != StatusHold {
+			out = append(out, f)
+		}
 	case hourly.AirTemp:
 		if s.Time.After(c.air.t) {
 			c.air = lastReading{t: s.Time, v: s.Value, sensor: s.Sensor}
 		}
 		if c.dew.sensor != "" && absDur(s.Time.Sub(c.dew.t)) <= pairWindow {
-			out = append(out, c.dewFinding(c.dew, s.Value, s.Time))
+			if f := c.dewFinding(c.dew, s.Value, s.Time); f.Status != StatusHold {
+				out = append(out, f)
+			}
 		}
 	case hourly.DewPoint:
 		if s.Time.After(c.dew.t) {
 			c.dew = lastReading{t: s.Time, v: s.Value, sensor: s.Sensor}
 		}
 		if c.air.sensor != "" && absDur(s.Time.Sub(c.air.t)) <= pairWindow {
-			out = append(out, c.dewFinding(lastReading{t: s.Time, v: s.Value, sensor: s.Sensor}, c.air.v, s.Time))
+			if f := c.dewFinding(lastReading{t: s.Time, v: s.Value, sensor: s.Sensor}, c.air.v, s.Time); f.Status != StatusHold {
+				out = append(out, f)
+			}
 		}
 	}
 	return out
@@ -165,25 +195,34 @@ func (c *ReadingChecks) dewFinding(dew lastReading, air float64, at time.Time) F
 	if dew.v > air+tol {
 		f.Status = StatusBad
 		f.Message = fmt.Sprintf("dew point %s °C above air temperature %s °C by %s °C, tolerance %s °C", num(dew.v), num(air), num(dew.v-air), num(tol))
-	} else {
+	} else if c.wanted(f.Key) {
 		f.Status = StatusGood
 		f.Message = fmt.Sprintf("dew point not above air temperature by more than %s °C", num(tol))
 	}
-	return f
+	return f // StatusHold: a good verdict not built (see wanted)
 }
 
 // Heard notes that a reading of the sensor's quantity arrived at now (for
-// the silence check) and returns the finding that it is reporting.
+// the silence check) and returns the finding that it is reporting (a hold
+// verdict, which changes nothing, when the monitor knows no silence alert
+// of the sensor is active).
 func (c *ReadingChecks) Heard(sensor string, q hourly.Quantity, now time.Time) Finding {
+	return c.heard(sensor, q, now)
+}
+
+// heard is Heard; its finding is StatusHold (changes nothing) instead of
+// a good verdict that would change no alert (see wanted).
+func (c *ReadingChecks) heard(sensor string, q hourly.Quantity, now time.Time) Finding {
 	id := sensorID{sensor, q}
 	if t, ok := c.seen[id]; !ok || now.After(t) {
 		c.seen[id] = now
 	}
-	return Finding{
-		Key: c.key(sensor, q, alert.KindSilence), Status: StatusGood, Severity: alert.SeverityCritical,
-		Message: fmt.Sprintf("%s reading received at %s", q, now.UTC().Format(time.RFC3339)),
-		At:      now,
+	f := Finding{Key: c.key(sensor, q, alert.KindSilence), Severity: alert.SeverityCritical, At: now}
+	if c.wanted(f.Key) {
+		f.Status = StatusGood
+		f.Message = fmt.Sprintf("%s reading received at %s", q, now.UTC().Format(time.RFC3339))
 	}
+	return f
 }
 
 // Silence returns a finding for every known sensor quantity with a silence
