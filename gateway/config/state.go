@@ -38,9 +38,9 @@ func (s State) Journalled() bool { return s.Journal == nil || *s.Journal }
 
 func (s *State) validate(path string, p *Problems) {
 	if s.AckWindow < 0 || s.AckWindow.D() > maxAckWindow {
-		p.Addf(path+".ack_window", "must be between 0s and %s, got %s (the broker holds unacknowledged messages meanwhile)", maxAckWindow, s.AckWindow)
+		p.Addf(path+".ack_window", "must be at most %s, got %s (the broker holds unacknowledged messages meanwhile; unset means %s)", maxAckWindow, s.AckWindow, DefaultAckWindow)
 	}
 	if s.CheckpointEvery < 0 || s.CheckpointEvery.D() > maxCheckpointEvery {
-		p.Addf(path+".checkpoint_every", "must be between 0s and %s, got %s (readings wait in the journal this long before the state file and the status pages have them)", maxCheckpointEvery, s.CheckpointEvery)
+		p.Addf(path+".checkpoint_every", "must be at most %s, got %s (readings wait in the journal this long before the state file and the status pages have them; unset means %s)", maxCheckpointEvery, s.CheckpointEvery, DefaultCheckpointEvery)
 	}
 }

@@ -25,6 +25,12 @@ func (c *Config) Summary(w io.Writer) error {
 	ew.printf("          keepalive %s, connect timeout %s, max in-flight %d, max payload %d bytes\n",
 		fmtDur(b.KeepAlive.D()), fmtDur(b.ConnectTimeout.D()), b.MaxInflight, b.MaxPayloadBytes)
 	ew.printf("state     %s\n", c.State.Path)
+	if c.State.Journalled() && c.State.CheckpointEvery > 0 {
+		ew.printf("journal   %s.journal: messages acknowledged in windows of up to %s or 16, written into the state file every %s (and whenever an hour closes)\n",
+			c.State.Path, fmtDur(c.State.AckWindow.D()), fmtDur(c.State.CheckpointEvery.D()))
+	} else {
+		ew.printf("journal   off: every batch of messages is written into the state file before it is acknowledged\n")
+	}
 	p := c.Prefix()
 	ew.printf("topics    records %s, zones %s and %s, holds %s, water %s, alerts %s/...\n",
 		RecordTopic(p, "<site>", "<station>"), ZoneCommandTopic(p, "<site>", "<zone>"), ZoneReportTopic(p, "<site>", "<zone>"),
