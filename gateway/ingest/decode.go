@@ -89,7 +89,7 @@ func (d *decoding) json(payload []byte) {
 		return
 	}
 	key := d.b.sensor.ValueKey
-	raw, ok := obj[key]
+	raw, ok := obj.get(key)
 	if !ok {
 		d.rejectAll(ReasonUnparseable, fmt.Errorf("payload: value key %q is missing", key))
 		return
@@ -113,21 +113,18 @@ func (d *decoding) fields(payload []byte) {
 	if !ok {
 		return
 	}
-	keys := make([]string, 0, len(obj))
-	for k := range obj {
-		keys = append(keys, k)
-	}
-	sort.Strings(keys)
-	for _, k := range keys {
-		if k == d.b.sensor.TimeKey || d.b.ignore[k] {
+	slices.SortFunc(obj, func(a, b member) int { return bytes.Compare(a.key, b.key) })
+	for _, m := range obj {
+		if string(m.key) == d.b.sensor.TimeKey || d.b.ignore[string(m.key)] {
 			continue
 		}
-		ch, ok := d.b.sensor.Fields[k]
+		kn, ok := d.b.names[string(m.key)] // every key of Fields
 		if !ok {
-			d.rejectAll(ReasonUnknownField, fmt.Errorf("field %q is not mapped in fields or listed in ignore", truncate(k, 100)))
+			d.rejectAll(ReasonUnknownField, fmt.Errorf("field %q is not mapped in fields or listed in ignore", truncate(string(m.key), 100)))
 			continue
 		}
-		v, present, err := jsonNumber(obj[k])
+		k, ch := kn.key, d.b.sensor.Fields[kn.key]
+		v, present, err := jsonNumber(m.raw)
 		if err != nil {
 			d.rejectKey(k, ReasonUnparseable, fmt.Errorf("%s: %w", k, err))
 			continue
@@ -318,7 +315,7 @@ func mustUnderstand(raw json.RawMessage) string {
 
 // timedObject decodes a JSON object payload and its reading time; on
 // failure it rejects the whole message and reports false.
-func (d *decoding) timedObject(payload []byte) (map[string]json.RawMessage, stamp, bool) {
+func (d *decoding) timedObject(payload []byte) (object, stamp, bool) {
 	obj, err := decodeObject(payload)
 	if err == nil {
 		var at stamp
@@ -330,14 +327,22 @@ func (d *decoding) timedObject(payload []byte) (map[string]json.RawMessage, stam
 	return nil, stamp{}, false
 }
 
-// decodeObject decodes a JSON object into its raw members.
-func decodeObject(payload []byte) (map[string]json.RawMessage, error) {
-	var obj map[string]json.RawMessage
-	if err := json.Unmarshal(payload, &obj); err != nil {
+// decodeObject decodes a JSON object into its raw members: a plain one by
+// scanFlat, without copies, any other by encoding/json.
+func decodeObject(payload []byte) (object, error) {
+	if obj, ok := scanFlat(payload, make(object, 0, 8)); ok {
+		return obj, nil
+	}
+	var m map[string]json.RawMessage
+	if err := json.Unmarshal(payload, &m); err != nil {
 		return nil, fmt.Errorf("payload: %w", jsonErr(err))
 	}
-	if obj == nil {
+	if m == nil {
 		return nil, fmt.Errorf("payload: want a JSON object, got null")
+	}
+	obj := make(object, 0, len(m))
+	for k, raw := range m {
+		obj = append(obj, member{key: []byte(k), raw: raw})
 	}
 	return obj, nil
 }
@@ -351,9 +356,9 @@ func jsonErr(err error) error {
 }
 
 // objectTime reads the optional timestamp of a json or fields payload.
-func (d *decoding) objectTime(obj map[string]json.RawMessage) (stamp, error) {
+func (d *decoding) objectTime(obj object) (stamp, error) {
 	key := d.b.sensor.TimeKey
-	raw, ok := obj[key]
+	raw, ok := obj.get(key)
 	if !ok || isNull(raw) {
 		return stamp{d.arrival, true}, nil
 	}
@@ -370,18 +375,39 @@ func isNull(raw json.RawMessage) bool { return bytes.Equal(bytes.TrimSpace(raw),
 // milliseconds when its magnitude is 1e11 or more (1e11 s lies in the year
 // 5138, 1e11 ms in 1973).
 func parseTime(raw json.RawMessage) (time.Time, error) {
+	// A plain string or a number (scanFlat's values) needs no decoder.
+	if str, end, ok := scanPlainString(raw, 0); ok && end == len(raw) {
+		return parseTimeString(string(str[1 : len(str)-1]))
+	}
+	if len(raw) > 0 && isPlainNumber(raw) {
+		n, err := strconv.ParseFloat(string(raw), 64)
+		if err != nil {
+			return time.Time{}, fmt.Errorf("want an RFC 3339 string or unix seconds/milliseconds, got %s", truncate(string(raw), 64))
+		}
+		return unixTime(n)
+	}
 	var s string
 	if json.Unmarshal(raw, &s) == nil {
-		t, err := time.Parse(time.RFC3339Nano, s)
-		if err != nil {
-			return time.Time{}, fmt.Errorf("%q is not an RFC 3339 time", truncate(s, 64))
-		}
-		return t, nil
+		return parseTimeString(s)
 	}
 	var n float64
 	if err := json.Unmarshal(raw, &n); err != nil {
 		return time.Time{}, fmt.Errorf("want an RFC 3339 string or unix seconds/milliseconds, got %s", truncate(string(raw), 64))
 	}
+	return unixTime(n)
+}
+
+// parseTimeString reads an RFC 3339 time.
+func parseTimeString(s string) (time.Time, error) {
+	t, err := time.Parse(time.RFC3339Nano, s)
+	if err != nil {
+		return time.Time{}, fmt.Errorf("%q is not an RFC 3339 time", truncate(s, 64))
+	}
+	return t, nil
+}
+
+// unixTime reads unix seconds, or milliseconds when n is 1e11 or more.
+func unixTime(n float64) (time.Time, error) {
 	if math.Abs(n) >= 1e11 {
 		n /= 1000
 	}

@@ -85,12 +85,15 @@ type binding struct {
 	site, station string
 	sensor        config.Sensor
 	ignore        map[string]bool // nil when the sensor ignores no key
-	// names holds the Sample.Sensor of each channel key, built once
-	// (see sampleName); readings is the number of channels, the capacity
-	// of a message's readings.
-	names    map[string]string
+	// names holds each channel key of a fields or SenML sensor with its
+	// Sample.Sensor, built once (see sampleName); readings is the number
+	// of channels, the capacity of a message's readings.
+	names    map[string]keyName
 	readings int
 }
+
+// keyName is a channel key and the Sample.Sensor of its readings.
+type keyName struct{ key, name string }
 
 // Router maps MQTT topics to configured sensors and decodes their payloads.
 // It is immutable after NewRouter and safe for concurrent use.
@@ -127,9 +130,9 @@ func NewRouter(cfg *config.Config) (*Router, error) {
 				chans := sn.Channels()
 				b.readings = max(1, len(chans))
 				if sn.Format == config.FormatFields || sn.Format == config.FormatSenML {
-					b.names = make(map[string]string, len(chans))
+					b.names = make(map[string]keyName, len(chans))
 					for k := range chans {
-						b.names[k] = sn.ChannelName(k)
+						b.names[k] = keyName{key: k, name: sn.ChannelName(k)}
 					}
 				}
 				r.topics[sn.Topic] = b
@@ -182,8 +185,8 @@ func (b *binding) reject(sensor string, reason Reason, err error) Rejection {
 // single-value formats, "<sensor>.<key>" for fields and SenML records, so
 // that every quantity of a multi-quantity payload deduplicates on its own.
 func (b *binding) sampleName(key string) string {
-	if n, ok := b.names[key]; ok {
-		return n
+	if kn, ok := b.names[key]; ok {
+		return kn.name
 	}
 	return b.sensor.ChannelName(key)
 }

@@ -54,8 +54,10 @@ func BenchmarkRouteManyStations(b *testing.B) {
 }
 
 // The readings of one message are built without growing their slice or
-// building their sensor names per message (both are per-binding): a budget
-// of allocations per message of each format, counted, not timed.
+// building their sensor names per message (both are per-binding), and a
+// plain JSON object is read without building a map of copies of its
+// members: a budget of allocations per message of each format, counted,
+// not timed.
 func TestRouteAllocationBudget(t *testing.T) {
 	r := newTestRouter(t)
 	for _, c := range []struct {
@@ -63,9 +65,9 @@ func TestRouteAllocationBudget(t *testing.T) {
 		readings       int
 		budget         float64
 	}{
-		{"bh/east/obs", `{"at": 1780308000000, "temp": 18.25, "dew": 9.5, "wind": 3.1, "sol": 512, "batt": 3.7, "rain_ctr": 17}`, 5, 39},
+		{"bh/east/obs", `{"at": 1780308000000, "temp": 18.25, "dew": 9.5, "wind": 3.1, "sol": 512, "batt": 3.7, "rain_ctr": 17}`, 5, 7},
 		{"bh/east/senml", `[{"bn":"east:","bt":1780308000,"n":"temp","u":"Cel","v":18.5},{"n":"vp","u":"kPa","v":1.2},{"n":"rn","u":"W/m2","v":412}]`, 3, 49},
-		{"bh/west/rh", `{"rh": 61.5, "ts": "2026-06-01T10:00:00Z"}`, 1, 17},
+		{"bh/west/rh", `{"rh": 61.5, "ts": "2026-06-01T10:00:00Z"}`, 1, 4},
 	} {
 		payload := []byte(c.payload)
 		rds, rjs := r.Route(c.topic, payload, arrival)
