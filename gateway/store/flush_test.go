@@ -123,6 +123,43 @@ func TestFlushSendsWhileRemovalCommits(t *testing.T) {
 	assert.Equal(t, float64(len(pts)), testutil.ToFloat64(w.metrics.written))
 }
 
+// TestFlushReadsAheadDuringWrite: Flush reads the next batch from the
+// state file while the sink is still writing the previous one (a read
+// transaction begins during the write), and after the last batch it looks
+// once more, so points enqueued during the last write are sent too.
+func TestFlushReadsAheadDuringWrite(t *testing.T) {
+	db := openTestDB(t)
+	o := openTestOutbox(t, db, OutboxOptions{Clock: time.Now})
+	var pts []Point
+	for h := range 6 {
+		pts = append(pts, zonePt("z1", h, float64(h)))
+	}
+	enqueue(t, db, o, pts...)
+	late := zonePt("z1", 6, 6)
+	var readDuringWrite bool
+	var start int // read transactions begun before the flush
+	sink := &hookSink{hook: func(n int, _ []Point) (int, error) {
+		switch n {
+		case 1:
+			// The flush read batch 1; wait for its read of batch 2.
+			deadline := time.Now().Add(10 * time.Second)
+			for db.Stats().TxN < start+2 && time.Now().Before(deadline) {
+				time.Sleep(time.Millisecond)
+			}
+			readDuringWrite = db.Stats().TxN >= start+2
+		case 3:
+			enqueue(t, db, o, late) // during the last write
+		}
+		return -1, nil
+	}}
+	w := hookWriter(t, o, sink, 2)
+	start = db.Stats().TxN
+	require.NoError(t, w.Flush(context.Background()))
+	assert.True(t, readDuringWrite, "no read of the next batch while batch 1 was being written")
+	assert.Equal(t, linesOf(append(pts, late)), sink.lines())
+	assert.Empty(t, pending(t, o))
+}
+
 // TestFlushOutageMidway: when the sink fails in the middle of a pipelined
 // flush, the batches it accepted before leave the outbox, the points it
 // settled of the failing batch too, and everything after stays pending in

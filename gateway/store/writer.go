@@ -256,11 +256,11 @@ func (w *Writer) waitForPoints(ctx context.Context) bool {
 // is logged, not returned: the points stay in the outbox for the next start,
 // which is no failure of a shutdown. Errors of the state file are returned.
 //
-// Flush pipelines its batches: while the removal of one accepted batch
-// commits to the state file, the next batch is read and sent. At most one
-// accepted batch waits for its removal while the next is in flight, so a
-// SIGKILL during a flush makes the next start send at most two batches
-// again (harmless, see Sink).
+// Flush pipelines its batches: while one batch is being written, the next
+// is read from the state file, and while the removal of an accepted batch
+// commits, the next is written. At most one accepted batch waits for its
+// removal while the next is in flight, so a SIGKILL during a flush makes
+// the next start send at most two batches again (harmless, see Sink).
 func (w *Writer) Flush(ctx context.Context) error {
 	err := w.drain(ctx)
 	if errors.Is(err, errServer) {
@@ -274,10 +274,11 @@ func (w *Writer) Flush(ctx context.Context) error {
 	return nil
 }
 
-// drain writes batches, oldest first, until the outbox is empty or an error
-// stops it. This goroutine reads and sends batch k+1 while a committer
-// goroutine removes batch k from the outbox; the hand-over is unbuffered,
-// so batch k+2 is not sent before batch k's removal committed.
+// drain writes batches, oldest first, until a read after the last write
+// finds the outbox empty, or an error stops it. Three goroutines: a reader
+// reads batch k+1 while this one writes batch k, and a committer removes
+// batch k-1 meanwhile. The hand-over to the committer is unbuffered, so
+// batch k+1 is not written before batch k-1's removal committed.
 func (w *Writer) drain(ctx context.Context) error {
 	commits := make(chan outcome)
 	failed := make(chan struct{})
@@ -294,21 +295,49 @@ func (w *Writer) drain(ctx context.Context) error {
 		}
 		committed <- err
 	}()
+	type read struct {
+		items []item
+		err   error
+	}
+	want, got := make(chan uint64), make(chan read) // one read outstanding at a time
+	go func() {
+		defer close(got)
+		for after := range want {
+			items, err := w.o.nextAfter(after, w.opt.BatchSize)
+			got <- read{items, err}
+		}
+	}()
 	var after uint64
 	var serr error
-	for !isClosed(failed) {
-		var items []item
-		items, serr = w.o.nextAfter(after, w.opt.BatchSize)
-		if serr != nil || len(items) == 0 {
+	want <- after
+	raced := false // the outstanding read overlapped a write
+	for {
+		r := <-got
+		if r.err != nil {
+			serr = r.err
 			break
 		}
-		after = items[len(items)-1].seq
+		if len(r.items) == 0 || isClosed(failed) {
+			if !raced || isClosed(failed) {
+				break
+			}
+			raced = false
+			want <- after // look once more, now that no write is in flight
+			continue
+		}
+		after = r.items[len(r.items)-1].seq
+		want <- after
+		raced = true
 		var out outcome
-		out, serr = w.send(ctx, items)
+		out, serr = w.send(ctx, r.items)
 		commits <- out
 		if serr != nil {
+			<-got // the read ahead is not needed
 			break
 		}
+	}
+	close(want)
+	for range got { // the reader has ended
 	}
 	close(commits)
 	if err := <-committed; err != nil {
