@@ -64,6 +64,19 @@ func hookWriter(t *testing.T, o *Outbox, sink Sink, batch int) *Writer {
 	return w
 }
 
+// pendingZone returns an outbox with n zone points pending, one per hour.
+func pendingZone(t *testing.T, n int) (*bbolt.DB, *Outbox, []Point) {
+	t.Helper()
+	db := openTestDB(t)
+	o := openTestOutbox(t, db, OutboxOptions{Clock: time.Now})
+	var pts []Point
+	for h := range n {
+		pts = append(pts, zonePt("z1", h, float64(h)))
+	}
+	enqueue(t, db, o, pts...)
+	return db, o, pts
+}
+
 func linesOf(pts []Point) []string {
 	out := make([]string, len(pts))
 	for i, p := range pts {
@@ -77,13 +90,7 @@ func linesOf(pts []Point) []string {
 // transaction the test holds), and sends no third batch before that removal
 // committed, so a kill re-sends at most two batches.
 func TestFlushSendsWhileRemovalCommits(t *testing.T) {
-	db := openTestDB(t)
-	o := openTestOutbox(t, db, OutboxOptions{Clock: time.Now})
-	var pts []Point
-	for h := range 8 {
-		pts = append(pts, zonePt("z1", h, float64(h)))
-	}
-	enqueue(t, db, o, pts...)
+	db, o, pts := pendingZone(t, 8)
 
 	held, release, second := make(chan struct{}), make(chan struct{}), make(chan struct{})
 	holdErr := make(chan error, 1)
@@ -128,13 +135,7 @@ func TestFlushSendsWhileRemovalCommits(t *testing.T) {
 // transaction begins during the write), and after the last batch it looks
 // once more, so points enqueued during the last write are sent too.
 func TestFlushReadsAheadDuringWrite(t *testing.T) {
-	db := openTestDB(t)
-	o := openTestOutbox(t, db, OutboxOptions{Clock: time.Now})
-	var pts []Point
-	for h := range 6 {
-		pts = append(pts, zonePt("z1", h, float64(h)))
-	}
-	enqueue(t, db, o, pts...)
+	db, o, pts := pendingZone(t, 6)
 	late := zonePt("z1", 6, 6)
 	var readDuringWrite bool
 	var start int // read transactions begun before the flush
@@ -165,13 +166,7 @@ func TestFlushReadsAheadDuringWrite(t *testing.T) {
 // settled of the failing batch too, and everything after stays pending in
 // order; the flush itself does not fail.
 func TestFlushOutageMidway(t *testing.T) {
-	db := openTestDB(t)
-	o := openTestOutbox(t, db, OutboxOptions{Clock: time.Now})
-	var pts []Point
-	for h := range 9 {
-		pts = append(pts, zonePt("z1", h, float64(h)))
-	}
-	enqueue(t, db, o, pts...)
+	_, o, pts := pendingZone(t, 9)
 	sink := &hookSink{hook: func(n int, _ []Point) (int, error) {
 		if n == 3 {
 			return 1, errors.New("connection refused")
