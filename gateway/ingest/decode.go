@@ -166,13 +166,19 @@ const senmlRelativeLimit = 1 << 28
 // unit = u, else bu, else the unit configured for the record. Records whose
 // resolved name is neither mapped nor ignored are rejected as unknown_field.
 func (d *decoding) senml(payload []byte) {
+	if recs, ok := scanSenML(payload); ok {
+		var base senmlBase
+		for i := range recs {
+			d.senmlRecord(i, &recs[i], &base)
+		}
+		return
+	}
 	var pack []json.RawMessage
 	if err := json.Unmarshal(payload, &pack); err != nil {
 		d.rejectAll(ReasonUnparseable, fmt.Errorf("senml pack: %w", jsonErr(err)))
 		return
 	}
-	var bn, bu string
-	var bt, bv, bs float64
+	var base senmlBase
 	for i, raw := range pack {
 		var r senmlRecord
 		if err := json.Unmarshal(raw, &r); err != nil {
@@ -183,76 +189,88 @@ func (d *decoding) senml(payload []byte) {
 			d.rejectAll(ReasonUnparseable, fmt.Errorf("senml record %d: unsupported must-understand label %q", i, truncate(mu, 100)))
 			continue
 		}
-		if r.BaseVersion != nil && *r.BaseVersion > 10 {
-			d.rejectAll(ReasonUnparseable, fmt.Errorf("senml record %d: unsupported version %v", i, *r.BaseVersion))
-			continue
-		}
-		if r.BaseName != nil {
-			bn = *r.BaseName
-		}
-		if r.BaseTime != nil {
-			bt = *r.BaseTime
-		}
-		if r.BaseUnit != nil {
-			bu = *r.BaseUnit
-		}
-		if r.BaseValue != nil {
-			bv = *r.BaseValue
-		}
-		if r.BaseSum != nil {
-			bs = *r.BaseSum
-		}
-		hasValue := r.Value != nil || r.Sum != nil || r.StringValue != nil || r.BoolValue != nil || r.DataValue != nil
-		if r.Name == nil && !hasValue {
-			continue // a record of base fields only
-		}
-		name := bn
-		if r.Name != nil {
-			name += *r.Name
-		}
-		if name == "" {
-			d.rejectAll(ReasonUnparseable, fmt.Errorf("senml record %d: empty name", i))
-			continue
-		}
-		if d.b.ignore[name] {
-			continue
-		}
-		ch, ok := d.b.sensor.Records[name]
-		if !ok {
-			d.rejectAll(ReasonUnknownField, fmt.Errorf("senml record %q is not mapped in records or listed in ignore", truncate(name, 100)))
-			continue
-		}
-		var v float64
-		switch {
-		case r.Value != nil:
-			v = bv + *r.Value
-		case r.Sum != nil:
-			v = bs + *r.Sum
-		default:
-			d.rejectKey(name, ReasonUnparseable, fmt.Errorf("senml record %q: no numeric value (v or s)", name))
-			continue
-		}
-		at, err := d.senmlTime(bt, r.Time)
-		if err != nil {
-			d.rejectKey(name, ReasonUnparseable, fmt.Errorf("senml record %q: %w", name, err))
-			continue
-		}
-		unit := ch.Unit
-		pu := bu
-		if r.Unit != nil {
-			pu = *r.Unit
-		}
-		if pu != "" && !(ch.Quantity == hourly.Rain && ch.MMPerTip > 0) {
-			eu, ok := senmlUnit(ch.Quantity, pu)
-			if !ok {
-				d.rejectKey(name, ReasonUnitMismatch, fmt.Errorf("senml record %q: unit %q is not valid for %s (accepted: %v or their SenML names)",
-					name, truncate(pu, 40), ch.Quantity, hourly.UnitsFor(ch.Quantity)))
-				continue
-			}
-			unit = eu
-		}
-		d.emit(name, ch, unit, v, at)
+		d.senmlRecord(i, &r, &base)
 	}
+}
+
+// senmlBase holds the base fields in force (RFC 8428 section 4.1).
+type senmlBase struct {
+	bn, bu     string
+	bt, bv, bs float64
+}
+
+// senmlRecord resolves record i of a pack against the base fields in force
+// (updating them) and emits or rejects its reading.
+func (d *decoding) senmlRecord(i int, r *senmlRecord, b *senmlBase) {
+	if r.BaseVersion != nil && *r.BaseVersion > 10 {
+		d.rejectAll(ReasonUnparseable, fmt.Errorf("senml record %d: unsupported version %v", i, *r.BaseVersion))
+		return
+	}
+	if r.BaseName != nil {
+		b.bn = *r.BaseName
+	}
+	if r.BaseTime != nil {
+		b.bt = *r.BaseTime
+	}
+	if r.BaseUnit != nil {
+		b.bu = *r.BaseUnit
+	}
+	if r.BaseValue != nil {
+		b.bv = *r.BaseValue
+	}
+	if r.BaseSum != nil {
+		b.bs = *r.BaseSum
+	}
+	hasValue := r.Value != nil || r.Sum != nil || r.StringValue != nil || r.BoolValue != nil || r.DataValue != nil
+	if r.Name == nil && !hasValue {
+		return // a record of base fields only
+	}
+	name := b.bn
+	if r.Name != nil {
+		name += *r.Name
+	}
+	if name == "" {
+		d.rejectAll(ReasonUnparseable, fmt.Errorf("senml record %d: empty name", i))
+		return
+	}
+	if d.b.ignore[name] {
+		return
+	}
+	ch, ok := d.b.sensor.Records[name]
+	if !ok {
+		d.rejectAll(ReasonUnknownField, fmt.Errorf("senml record %q is not mapped in records or listed in ignore", truncate(name, 100)))
+		return
+	}
+	var v float64
+	switch {
+	case r.Value != nil:
+		v = b.bv + *r.Value
+	case r.Sum != nil:
+		v = b.bs + *r.Sum
+	default:
+		d.rejectKey(name, ReasonUnparseable, fmt.Errorf("senml record %q: no numeric value (v or s)", name))
+		return
+	}
+	at, err := d.senmlTime(b.bt, r.Time)
+	if err != nil {
+		d.rejectKey(name, ReasonUnparseable, fmt.Errorf("senml record %q: %w", name, err))
+		return
+	}
+	unit := ch.Unit
+	pu := b.bu
+	if r.Unit != nil {
+		pu = *r.Unit
+	}
+	if pu != "" && !(ch.Quantity == hourly.Rain && ch.MMPerTip > 0) {
+		eu, ok := senmlUnit(ch.Quantity, pu)
+		if !ok {
+			d.rejectKey(name, ReasonUnitMismatch, fmt.Errorf("senml record %q: unit %q is not valid for %s (accepted: %v or their SenML names)",
+				name, truncate(pu, 40), ch.Quantity, hourly.UnitsFor(ch.Quantity)))
+			return
+		}
+		unit = eu
+	}
+	d.emit(name, ch, unit, v, at)
 }
 
 func (d *decoding) senmlTime(bt float64, t *float64) (stamp, error) {

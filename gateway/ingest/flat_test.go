@@ -3,6 +3,7 @@ package ingest
 import (
 	"encoding/json"
 	"math"
+	"reflect"
 	"testing"
 	"time"
 
@@ -90,6 +91,43 @@ func FuzzParseTime(f *testing.F) {
 		}
 		if err == nil && (math.IsNaN(float64(got.Unix())) || got.IsZero()) {
 			t.Fatalf("parseTime(%q) = %v", raw, got)
+		}
+	})
+}
+
+// FuzzScanSenML checks that every pack scanSenML accepts decodes with
+// encoding/json, record by record, into the same records, none with a
+// must-understand label.
+func FuzzScanSenML(f *testing.F) {
+	for _, s := range []string{
+		`[{"bn":"east:","bt":1780308000,"n":"temp","u":"Cel","v":18.5},{"n":"vp","u":"kPa","v":1.2},{"n":"rn","u":"W/m2","v":412}]`,
+		`[{"n":"a","v":1,"exp_":2}]`, `[{"n":"a","vb":true}]`, `[{"N":"a","v":1}]`, `[{"n":null,"v":1e999}]`, `[]`, `[{}]`,
+	} {
+		f.Add([]byte(s))
+	}
+	f.Fuzz(func(t *testing.T, p []byte) {
+		recs, ok := scanSenML(p)
+		if !ok {
+			return
+		}
+		var pack []json.RawMessage
+		if err := json.Unmarshal(p, &pack); err != nil {
+			t.Fatalf("scanSenML accepted %q, encoding/json: %v", p, err)
+		}
+		if len(pack) != len(recs) {
+			t.Fatalf("scanSenML gave %d records of %q, encoding/json %d", len(recs), p, len(pack))
+		}
+		for i, raw := range pack {
+			var r senmlRecord
+			if err := json.Unmarshal(raw, &r); err != nil {
+				t.Fatalf("record %d of %q: encoding/json: %v", i, p, err)
+			}
+			if mu := mustUnderstand(raw); mu != "" {
+				t.Fatalf("record %d of %q: must-understand label %q accepted", i, p, mu)
+			}
+			if !reflect.DeepEqual(r, recs[i]) {
+				t.Fatalf("record %d of %q: scanSenML %+v, encoding/json %+v", i, p, recs[i], r)
+			}
 		}
 	})
 }

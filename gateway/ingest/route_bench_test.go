@@ -66,7 +66,7 @@ func TestRouteAllocationBudget(t *testing.T) {
 		budget         float64
 	}{
 		{"bh/east/obs", `{"at": 1780308000000, "temp": 18.25, "dew": 9.5, "wind": 3.1, "sol": 512, "batt": 3.7, "rain_ctr": 17}`, 5, 7},
-		{"bh/east/senml", `[{"bn":"east:","bt":1780308000,"n":"temp","u":"Cel","v":18.5},{"n":"vp","u":"kPa","v":1.2},{"n":"rn","u":"W/m2","v":412}]`, 3, 49},
+		{"bh/east/senml", `[{"bn":"east:","bt":1780308000,"n":"temp","u":"Cel","v":18.5},{"n":"vp","u":"kPa","v":1.2},{"n":"rn","u":"W/m2","v":412}]`, 3, 19},
 		{"bh/west/rh", `{"rh": 61.5, "ts": "2026-06-01T10:00:00Z"}`, 1, 4},
 	} {
 		payload := []byte(c.payload)
