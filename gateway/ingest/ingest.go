@@ -83,7 +83,7 @@ func (r Rejection) Error() string {
 // binding is what the router knows about one topic.
 type binding struct {
 	site, station string
-	sensor        config.Sensor
+	sensor        *config.Sensor // in the configuration the router was built from
 	ignore        map[string]bool // nil when the sensor ignores no key
 	// names holds each channel key of a fields or SenML sensor with its
 	// Sample.Sensor, built once (see sampleName); readings is the number
@@ -104,7 +104,8 @@ type Router struct {
 }
 
 // NewRouter builds a router for every sensor of every station in cfg. The
-// configuration must have been validated (config.Load/Parse do).
+// configuration must have been validated (config.Load/Parse do); the
+// router refers to its sensors, so it must not change afterwards.
 func NewRouter(cfg *config.Config) (*Router, error) {
 	r := &Router{topics: map[string]*binding{}, maxPayload: cfg.Broker.MaxPayloadBytes}
 	if r.maxPayload <= 0 {
@@ -112,7 +113,8 @@ func NewRouter(cfg *config.Config) (*Router, error) {
 	}
 	for _, site := range cfg.Sites {
 		for _, st := range site.Stations {
-			for _, sn := range st.Sensors {
+			for k := range st.Sensors {
+				sn := &st.Sensors[k]
 				if sn.Topic == "" {
 					return nil, fmt.Errorf("new router: site %s station %s sensor %s: empty topic", site.ID, st.ID, sn.ID)
 				}
