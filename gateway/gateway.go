@@ -224,7 +224,8 @@ func (g *Gateway) Pipeline() *pipeline.Pipeline { return g.pipe }
 // Ready is closed once Run has subscribed to every sensor topic.
 func (g *Gateway) Ready() <-chan struct{} { return g.ready }
 
-// Handled returns how many MQTT messages have been fully handled: stored and
+// Handled returns how many MQTT messages have been fully handled: durable
+// (in the journal, or in the state file when the journal is off) and
 // acknowledged (or rejected), and the hours they closed committed.
 func (g *Gateway) Handled() uint64 { return g.handled.Load() }
 
