@@ -53,7 +53,7 @@ func TestHelpListsEveryFlag(t *testing.T) {
 		"export": {"--from TIME ", "--to TIME ", "--station STATION ", "--measurement LIST ", "--format FORMAT ", "--state FILE ", "--config FILE ", "valve_report"},
 		"load": {"--broker URL ", "--stations N ", "--messages N ", "--duration D ", "--rate R ", "--interval D ",
 			"--publishers N ", "--window N ", "--bad N ", "--dir DIR ", "--every D ", "--json ", "(default 200000)",
-			"--cpuprofile FILE ", "--memprofile FILE "},
+			"--cpuprofile FILE ", "--memprofile FILE ", "--memprofile-peak FILE "},
 	} {
 		h := help(name)
 		for _, l := range lines {

@@ -13,7 +13,7 @@ import (
 
 var loadHelp = helpText{
 	name:  "load",
-	usage: "etpulse load [--broker tcp://127.0.0.1:PORT] [--stations N] [--messages N] [--duration D] [--rate R] [--no-bare] [--cpuprofile FILE] [--memprofile FILE] [--json]",
+	usage: "etpulse load [--broker tcp://127.0.0.1:PORT] [--stations N] [--messages N] [--duration D] [--rate R] [--no-bare] [--cpuprofile FILE] [--memprofile FILE] [--memprofile-peak FILE] [--json]",
 	intro: `Measures the gateway's throughput: runs the real gateway in process
 (pipeline, state file in a temporary directory, outbox and local history,
 alerts) against an MQTT broker on this machine, fed by up to 10000
@@ -31,11 +31,14 @@ subscriber on the same broker (QoS 1, the same topics, each message
 acknowledged and counted, nothing else): the summary gives the gateway's
 rate and CPU per message as a ratio of that floor's.
 
---cpuprofile and --memprofile write profiles of the gateway phase in the
-format of 'go tool pprof' (e.g. 'go tool pprof -top FILE'): CPU from the
-first publication until the gateway has caught up (publishers included,
-the bare phase not), and the heap at the end of that phase, after a
-garbage collection, while the gateway still holds its state.`,
+--cpuprofile, --memprofile and --memprofile-peak write profiles of the
+gateway phase in the format of 'go tool pprof' (e.g. 'go tool pprof -top
+FILE'): CPU from the first publication until the gateway has caught up
+(publishers included, the bare phase not); the heap at the end of that
+phase, after a garbage collection, while the gateway still holds its
+state; and the heap while it was at its highest (sampled every 100 ms,
+within 10 %), whose in-use figures are the live data of the collection
+before.`,
 	outro: `For mosquitto, set set_tcp_nodelay true and max_queued_messages 0.
 See deploy/PERFORMANCE.md for the figures and how to reproduce them.
 
@@ -64,6 +67,7 @@ func runLoad(ctx context.Context, args []string, stdin io.Reader, stdout, stderr
 	fs.BoolVar(&o.NoBare, "no-bare", false, "skip the bare subscriber's phase")
 	cpuProfile := fs.String("cpuprofile", "", "write a CPU profile of the gateway phase to `FILE`")
 	memProfile := fs.String("memprofile", "", "write a heap profile taken at the end of the gateway phase to `FILE`")
+	peakProfile := fs.String("memprofile-peak", "", "write a heap profile taken at the gateway phase's highest heap to `FILE`")
 	asJSON := fs.Bool("json", false, "print the summary as JSON")
 	logLevel := fs.String("log-level", "error", "gateway log `level` on stderr: debug, info, warn or error")
 	if code, done := parseFlags(fs, args, loadHelp, stdout, stderr); done {
@@ -84,7 +88,7 @@ func runLoad(ctx context.Context, args []string, stdin io.Reader, stdout, stderr
 	if err := o.Validate(); err != nil {
 		return usageError(stderr, loadHelp, "%v", err)
 	}
-	closeProfiles, err := openProfiles(&o, *cpuProfile, *memProfile)
+	closeProfiles, err := openProfiles(&o, *cpuProfile, *memProfile, *peakProfile)
 	if err != nil {
 		fmt.Fprintf(stderr, "etpulse load: %v\n", err)
 		return exitError
@@ -119,10 +123,10 @@ func runLoad(ctx context.Context, args []string, stdin io.Reader, stdout, stderr
 	return exitOK
 }
 
-// openProfiles creates the profile files named by --cpuprofile and
-// --memprofile (empty: none) and sets them in o. The returned function
+// openProfiles creates the profile files named by --cpuprofile,
+// --memprofile and --memprofile-peak (empty: none) and sets them in o. The returned function
 // closes them and reports the first error.
-func openProfiles(o *loadgen.Options, cpuPath, memPath string) (func() error, error) {
+func openProfiles(o *loadgen.Options, cpuPath, memPath, peakPath string) (func() error, error) {
 	var files []*os.File
 	closeAll := func() error {
 		var first error
@@ -136,7 +140,7 @@ func openProfiles(o *loadgen.Options, cpuPath, memPath string) (func() error, er
 	for _, p := range []struct {
 		flag, path string
 		w          *io.Writer
-	}{{"--cpuprofile", cpuPath, &o.CPUProfile}, {"--memprofile", memPath, &o.MemProfile}} {
+	}{{"--cpuprofile", cpuPath, &o.CPUProfile}, {"--memprofile", memPath, &o.MemProfile}, {"--memprofile-peak", peakPath, &o.PeakMemProfile}} {
 		if p.path == "" {
 			continue
 		}

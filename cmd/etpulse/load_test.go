@@ -85,12 +85,12 @@ func TestLoadRefusesRemoteBroker(t *testing.T) {
 // flag when a profile file cannot be created.
 func TestLoadProfiles(t *testing.T) {
 	dir := t.TempDir()
-	cpu, heap := filepath.Join(dir, "cpu.pprof"), filepath.Join(dir, "heap.pprof")
+	cpu, heap, peak := filepath.Join(dir, "cpu.pprof"), filepath.Join(dir, "heap.pprof"), filepath.Join(dir, "peak.pprof")
 	var out, errOut bytes.Buffer
 	code := run(context.Background(), []string{"load", "--stations", "3", "--messages", "1200", "--interval", "1m",
-		"--no-bare", "--every", "0", "--cpuprofile", cpu, "--memprofile", heap}, nil, &out, &errOut)
+		"--no-bare", "--every", "0", "--cpuprofile", cpu, "--memprofile", heap, "--memprofile-peak", peak}, nil, &out, &errOut)
 	require.Equal(t, exitOK, code, "stderr: %s", errOut.String())
-	for path, want := range map[string]string{cpu: "samples", heap: "inuse_space"} {
+	for path, want := range map[string]string{cpu: "samples", heap: "inuse_space", peak: "inuse_space"} {
 		raw, err := os.ReadFile(path)
 		require.NoError(t, err)
 		zr, err := gzip.NewReader(bytes.NewReader(raw))

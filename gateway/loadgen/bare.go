@@ -82,7 +82,7 @@ func runBare(ctx context.Context, o Options, f *farm, pl *plan, url, runID strin
 	pubCtx, stop := context.WithTimeout(ctx, o.BareDuration)
 	defer stop()
 	go func() { <-pubCtx.Done(); tr.stop() }()
-	mem := startMemory()
+	mem := startMemory(false)
 	defer mem.stop()
 	cpu0 := ProcessCPU()
 	began := tr.since()

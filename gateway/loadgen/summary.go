@@ -9,6 +9,7 @@ import (
 	"os"
 	"runtime"
 	"runtime/metrics"
+	"runtime/pprof"
 	"sort"
 	"strconv"
 	"strings"
@@ -342,15 +343,22 @@ type memory struct {
 	peak     atomic.Uint64
 	peakAnon atomic.Uint64
 	peakFile atomic.Uint64
-	done     chan struct{}
-	once     sync.Once
-	wg       sync.WaitGroup
+	// With capture set, profile holds a heap profile taken when the heap
+	// was last sampled 10 % above the previous profile's (so at its peak,
+	// give or take 10 %), profileErr the error of writing one.
+	capture    bool
+	profile    bytes.Buffer
+	profileErr error
+	done       chan struct{}
+	once       sync.Once
+	wg         sync.WaitGroup
 }
 
 const heapMetric = "/memory/classes/heap/objects:bytes"
 
-func startMemory() *memory {
-	m := &memory{done: make(chan struct{})}
+func startMemory(capture bool) *memory {
+	m := &memory{done: make(chan struct{}), capture: capture}
+	var profiled uint64
 	m.wg.Add(1)
 	go func() {
 		defer m.wg.Done()
@@ -360,7 +368,13 @@ func startMemory() *memory {
 		for {
 			metrics.Read(sample)
 			if sample[0].Value.Kind() == metrics.KindUint64 {
-				storeMax(&m.peak, sample[0].Value.Uint64())
+				v := sample[0].Value.Uint64()
+				storeMax(&m.peak, v)
+				if m.capture && m.profileErr == nil && v > profiled+profiled/10 {
+					m.profile.Reset()
+					m.profileErr = pprof.WriteHeapProfile(&m.profile)
+					profiled = v
+				}
 			}
 			anon, file := residentSplit()
 			storeMax(&m.peakAnon, anon)
