@@ -18,7 +18,7 @@ import (
 const drainChunk = 10 * DefaultBatchSize
 
 // maxDrainIterations bounds BenchmarkOutboxDrainVsBare in count (each
-// iteration is two chunks of points written to the server).
+// iteration writes three chunks of points to the server).
 const maxDrainIterations = 40
 
 // BenchmarkOutboxDrainVsBare measures, in one run against the same real
@@ -33,14 +33,17 @@ const maxDrainIterations = 40
 //     beforehand (not timed) and posted in batches of the same size through
 //     the same client's blocking write API (timed): the POSTs alone, the
 //     floor of any poster.
+//   - bare_render: the same, with each batch rendered from its Points
+//     (AppendLine) inside the timed loop: a bare poster that is given
+//     points, as the outbox is.
 //
-// The two alternate within each iteration (the order flips every
-// iteration) so both see the same machine load. "hour" points are the
+// The three alternate within each iteration (the order rotates every
+// iteration) so all see the same machine load. "hour" points are the
 // et_hour points of the hour handler (about 30 fields each); "zone" points
 // are zone steps with one field, where the client's own cost weighs most.
-// It reports both rates in points/s and outbox/bare. Skipped without a
-// store server (ETPULSE_TEST_INFLUX); bounded to maxDrainIterations, e.g.
-// -benchtime 6x.
+// It reports the three rates in points/s, outbox/bare and
+// outbox/bare_render. Skipped without a store server (ETPULSE_TEST_INFLUX);
+// bounded to maxDrainIterations, e.g. -benchtime 10x.
 func BenchmarkOutboxDrainVsBare(b *testing.B) {
 	base := testenv.Influx(b)
 	for _, kind := range []string{"hour", "zone"} {
@@ -81,13 +84,13 @@ func benchDrainVsBare(b *testing.B, base, kind string) {
 		SetPrecision(time.Nanosecond).SetHTTPRequestTimeout(uint(DefaultWriteTimeout.Seconds())))
 	b.Cleanup(client.Close)
 	bare := client.WriteAPIBlocking("lowmead", "farm")
-	// Same tag lengths on both sides, so the lines are the same size.
+	// Same tag lengths for every path, so the lines are the same size.
 	stamp := time.Now().UnixNano()
-	obSite, bpSite := fmt.Sprintf("ob-%d", stamp), fmt.Sprintf("bp-%d", stamp)
+	obSite, bpSite, brSite := fmt.Sprintf("ob-%d", stamp), fmt.Sprintf("bp-%d", stamp), fmt.Sprintf("br-%d", stamp)
 	ctx := context.Background()
 
-	var obTime, bareTime time.Duration
-	var obPoints, barePoints int
+	var obTime, bareTime, renderTime time.Duration
+	var obPoints, barePoints, renderPoints int
 	runOutbox := func(first int) {
 		b.StopTimer()
 		pts := benchPoints(kind, obSite, first, drainChunk)
@@ -107,48 +110,70 @@ func benchDrainVsBare(b *testing.B, base, kind string) {
 			b.Fatalf("%d points left in the outbox after a flush", d)
 		}
 	}
-	runBare := func(first int) {
+	// post renders each batch of pts and posts it; with rendered set, the
+	// bodies are rendered before the clock starts and only the POSTs are
+	// timed.
+	post := func(pts []Point, rendered bool) time.Duration {
 		b.StopTimer()
-		pts := benchPoints(kind, bpSite, first, drainChunk)
-		var bodies []string // rendered before the clock starts: the POSTs alone are timed
+		var bodies []string
+		var batches [][]Point
 		for len(pts) > 0 {
 			n := min(DefaultBatchSize, len(pts))
+			batches, pts = append(batches, pts[:n]), pts[n:]
+		}
+		body := func(batch []Point) string {
 			var buf []byte
-			for i, p := range pts[:n] {
+			for i, p := range batch {
 				if i > 0 {
 					buf = append(buf, '\n')
 				}
 				buf = AppendLine(buf, p)
 			}
-			bodies = append(bodies, string(buf))
-			barePoints += n
-			pts = pts[n:]
+			return string(buf)
+		}
+		if rendered {
+			for _, batch := range batches {
+				bodies = append(bodies, body(batch))
+			}
 		}
 		b.StartTimer()
 		t := time.Now()
-		for _, body := range bodies {
-			if err := bare.WriteRecord(ctx, body); err != nil {
+		for i, batch := range batches {
+			var s string
+			if rendered {
+				s = bodies[i]
+			} else {
+				s = body(batch)
+			}
+			if err := bare.WriteRecord(ctx, s); err != nil {
 				b.Fatal(err)
 			}
 		}
-		bareTime += time.Since(t)
+		return time.Since(t)
 	}
+	runBare := func(first int) {
+		bareTime += post(benchPoints(kind, bpSite, first, drainChunk), true)
+		barePoints += drainChunk
+	}
+	runRender := func(first int) {
+		renderTime += post(benchPoints(kind, brSite, first, drainChunk), false)
+		renderPoints += drainChunk
+	}
+	paths := []func(int){runOutbox, runBare, runRender}
 	b.ReportAllocs()
 	b.ResetTimer()
 	for i := range b.N {
-		first := i * drainChunk
-		if i%2 == 0 {
-			runOutbox(first)
-			runBare(first)
-		} else {
-			runBare(first)
-			runOutbox(first)
+		for j := range paths { // the order rotates every iteration
+			paths[(i+j)%len(paths)](i * drainChunk)
 		}
 	}
 	b.StopTimer()
 	obRate := float64(obPoints) / obTime.Seconds()
 	bareRate := float64(barePoints) / bareTime.Seconds()
+	renderRate := float64(renderPoints) / renderTime.Seconds()
 	b.ReportMetric(obRate, "outbox_points/s")
 	b.ReportMetric(bareRate, "bare_points/s")
+	b.ReportMetric(renderRate, "bare_render_points/s")
 	b.ReportMetric(obRate/bareRate, "outbox/bare")
+	b.ReportMetric(obRate/renderRate, "outbox/bare_render")
 }
