@@ -177,3 +177,29 @@ func benchDrainVsBare(b *testing.B, base, kind string) {
 	b.ReportMetric(obRate/bareRate, "outbox/bare")
 	b.ReportMetric(obRate/renderRate, "outbox/bare_render")
 }
+
+// BenchmarkRenderLine measures rendering one et_hour point (about 30
+// fields) to line protocol: from its stored encoding, as the drain does,
+// and from the Point (AppendLine), as a poster given points does.
+func BenchmarkRenderLine(b *testing.B) {
+	p := HourPoints(example19Record())[0]
+	enc := appendPoint(nil, normalize(p))
+	b.Run("encoded", func(b *testing.B) {
+		b.ReportAllocs()
+		var buf []byte
+		for range b.N {
+			var err error
+			if buf, _, err = appendLineEncoded(buf[:0], enc); err != nil {
+				b.Fatal(err)
+			}
+		}
+		b.ReportMetric(float64(len(buf)), "bytes/line")
+	})
+	b.Run("point", func(b *testing.B) {
+		b.ReportAllocs()
+		var buf []byte
+		for range b.N {
+			buf = AppendLine(buf[:0], p)
+		}
+	})
+}
