@@ -369,6 +369,7 @@ func (w *Writer) step(ctx context.Context, head, live int) (stepCount, error) {
 	return stepCount{read: len(items), head: nHead, written: written}, err
 }
 
+// isClosed reports whether ch is closed, without waiting.
 func isClosed(ch <-chan struct{}) bool {
 	select {
 	case <-ch:
