@@ -153,10 +153,12 @@ func benchDrainVsBare(b *testing.B, base, kind string) {
 		return time.Since(t)
 	}
 	runBare := func(first int) {
+		b.StopTimer() // making the points is not measured
 		bareTime += post(benchPoints(kind, bpSite, first, drainChunk), true)
 		barePoints += drainChunk
 	}
 	runRender := func(first int) {
+		b.StopTimer()
 		renderTime += post(benchPoints(kind, brSite, first, drainChunk), false)
 		renderPoints += drainChunk
 	}
