@@ -12,6 +12,7 @@ import (
 	"strings"
 	"time"
 
+	"etpulse/gateway/internal/plainjson"
 	"etpulse/hourly"
 )
 
@@ -394,10 +395,10 @@ func isNull(raw json.RawMessage) bool { return bytes.Equal(bytes.TrimSpace(raw),
 // 5138, 1e11 ms in 1973).
 func parseTime(raw json.RawMessage) (time.Time, error) {
 	// A plain string or a number (scanFlat's values) needs no decoder.
-	if str, end, ok := scanPlainString(raw, 0); ok && end == len(raw) {
+	if str, end, ok := plainjson.ScanString(raw, 0); ok && end == len(raw) {
 		return parseTimeString(string(str[1 : len(str)-1]))
 	}
-	if len(raw) > 0 && isPlainNumber(raw) {
+	if len(raw) > 0 && plainjson.IsNumber(raw) {
 		n, err := strconv.ParseFloat(string(raw), 64)
 		if err != nil {
 			return time.Time{}, fmt.Errorf("want an RFC 3339 string or unix seconds/milliseconds, got %s", truncate(string(raw), 64))

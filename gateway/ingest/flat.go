@@ -4,6 +4,8 @@ import (
 	"bytes"
 	"encoding/json"
 	"strconv"
+
+	"etpulse/gateway/internal/plainjson"
 )
 
 // member is one member of a JSON object: its key and its raw value.
@@ -35,8 +37,8 @@ func (o object) get(k string) (json.RawMessage, bool) {
 // payload scanFlat accepts and its own error for a bad one. The raw values
 // are slices of p.
 func scanFlat(p []byte, out object) (object, bool) {
-	out, end, ok := scanFlatAt(p, skipSpace(p, 0), out)
-	return out, ok && skipSpace(p, end) == len(p)
+	out, end, ok := scanFlatAt(p, plainjson.SkipSpace(p, 0), out)
+	return out, ok && plainjson.SkipSpace(p, end) == len(p)
 }
 
 // scanFlatAt reads a plain object (see scanFlat) starting at p[i] and
@@ -45,21 +47,21 @@ func scanFlatAt(p []byte, i int, out object) (object, int, bool) {
 	if i == len(p) || p[i] != '{' {
 		return nil, 0, false
 	}
-	i = skipSpace(p, i+1)
+	i = plainjson.SkipSpace(p, i+1)
 	if i < len(p) && p[i] == '}' {
 		return out, i + 1, true
 	}
 	for {
-		key, j, ok := scanPlainString(p, i)
+		key, j, ok := plainjson.ScanString(p, i)
 		if !ok {
 			return nil, 0, false
 		}
 		key = key[1 : len(key)-1]
-		i = skipSpace(p, j)
+		i = plainjson.SkipSpace(p, j)
 		if i == len(p) || p[i] != ':' {
 			return nil, 0, false
 		}
-		i = skipSpace(p, i+1)
+		i = plainjson.SkipSpace(p, i+1)
 		raw, j, ok := scanPlainValue(p, i)
 		if !ok {
 			return nil, 0, false
@@ -70,7 +72,7 @@ func scanFlatAt(p []byte, i int, out object) (object, int, bool) {
 			}
 		}
 		out = append(out, member{key: key, raw: raw})
-		i = skipSpace(p, j)
+		i = plainjson.SkipSpace(p, j)
 		switch {
 		case i == len(p):
 			return nil, 0, false
@@ -79,34 +81,8 @@ func scanFlatAt(p []byte, i int, out object) (object, int, bool) {
 		case p[i] != ',':
 			return nil, 0, false
 		}
-		i = skipSpace(p, i+1)
+		i = plainjson.SkipSpace(p, i+1)
 	}
-}
-
-// skipSpace returns the index of the first byte at or after i that is not
-// JSON white space.
-func skipSpace(p []byte, i int) int {
-	for i < len(p) && (p[i] == ' ' || p[i] == '\t' || p[i] == '\n' || p[i] == '\r') {
-		i++
-	}
-	return i
-}
-
-// scanPlainString reads a string of printable ASCII without escapes at i and
-// returns it with its quotes and the index after it.
-func scanPlainString(p []byte, i int) ([]byte, int, bool) {
-	if i == len(p) || p[i] != '"' {
-		return nil, 0, false
-	}
-	for j := i + 1; j < len(p); j++ {
-		switch c := p[j]; {
-		case c == '"':
-			return p[i : j+1], j + 1, true
-		case c < 0x20 || c >= 0x7f || c == '\\':
-			return nil, 0, false
-		}
-	}
-	return nil, 0, false
 }
 
 // scanPlainValue reads a number, null or plain string at i and returns its
@@ -117,68 +93,19 @@ func scanPlainValue(p []byte, i int) ([]byte, int, bool) {
 	}
 	switch c := p[i]; {
 	case c == '"':
-		return scanPlainString(p, i)
+		return plainjson.ScanString(p, i)
 	case c == 'n':
 		if bytes.HasPrefix(p[i:], []byte("null")) {
 			return p[i : i+4], i + 4, true
 		}
 		return nil, 0, false
 	case c == '-' || c >= '0' && c <= '9':
-		if j, ok := scanNumber(p, i); ok {
+		if j, ok := plainjson.ScanNumber(p, i); ok {
 			return p[i:j], j, true
 		}
 		return nil, 0, false
 	}
 	return nil, 0, false
-}
-
-// isPlainNumber reports whether p (not empty) is one JSON number.
-func isPlainNumber(p []byte) bool {
-	end, ok := scanNumber(p, 0)
-	return ok && end == len(p)
-}
-
-// scanNumber reads a JSON number at i < len(p) (RFC 8259 section 6:
-// -?(0|[1-9][0-9]*)(.[0-9]+)?([eE][+-]?[0-9]+)?) and returns the index after it.
-func scanNumber(p []byte, i int) (int, bool) {
-	digits := func(j int) int {
-		for j < len(p) && p[j] >= '0' && p[j] <= '9' {
-			j++
-		}
-		return j
-	}
-	if p[i] == '-' {
-		i++
-	}
-	switch {
-	case i == len(p):
-		return 0, false
-	case p[i] == '0':
-		i++
-	case p[i] >= '1' && p[i] <= '9':
-		i = digits(i)
-	default:
-		return 0, false
-	}
-	if i < len(p) && p[i] == '.' {
-		j := digits(i + 1)
-		if j == i+1 {
-			return 0, false
-		}
-		i = j
-	}
-	if i < len(p) && (p[i] == 'e' || p[i] == 'E') {
-		i++
-		if i < len(p) && (p[i] == '+' || p[i] == '-') {
-			i++
-		}
-		j := digits(i)
-		if j == i {
-			return 0, false
-		}
-		i = j
-	}
-	return i, true
 }
 
 // scanSenML reads p as a SenML pack (RFC 8428 section 5: a JSON array of
@@ -189,7 +116,7 @@ func scanNumber(p []byte, i int) (int, bool) {
 // of range): the caller then decodes the pack with encoding/json, which
 // gives the same records here and its own errors there.
 func scanSenML(p []byte) ([]senmlRecord, bool) {
-	i := skipSpace(p, 0)
+	i := plainjson.SkipSpace(p, 0)
 	if i == len(p) || p[i] != '[' {
 		return nil, false
 	}
@@ -197,9 +124,9 @@ func scanSenML(p []byte) ([]senmlRecord, bool) {
 		recs    []senmlRecord
 		members = make(object, 0, 8)
 	)
-	i = skipSpace(p, i+1)
+	i = plainjson.SkipSpace(p, i+1)
 	if i < len(p) && p[i] == ']' {
-		return recs, skipSpace(p, i+1) == len(p)
+		return recs, plainjson.SkipSpace(p, i+1) == len(p)
 	}
 	for {
 		var ok bool
@@ -215,16 +142,16 @@ func scanSenML(p []byte) ([]senmlRecord, bool) {
 			}
 		}
 		recs = append(recs, r)
-		i = skipSpace(p, i)
+		i = plainjson.SkipSpace(p, i)
 		switch {
 		case i == len(p):
 			return nil, false
 		case p[i] == ']':
-			return recs, skipSpace(p, i+1) == len(p)
+			return recs, plainjson.SkipSpace(p, i+1) == len(p)
 		case p[i] != ',':
 			return nil, false
 		}
-		i = skipSpace(p, i+1)
+		i = plainjson.SkipSpace(p, i+1)
 	}
 }
 

@@ -83,7 +83,7 @@ func (r Rejection) Error() string {
 // binding is what the router knows about one topic.
 type binding struct {
 	site, station string
-	sensor        *config.Sensor // in the configuration the router was built from
+	sensor        *config.Sensor  // in the configuration the router was built from
 	ignore        map[string]bool // nil when the sensor ignores no key
 	// names holds each channel key of a fields or SenML sensor with its
 	// Sample.Sensor, built once (see sampleName); readings is the number
