@@ -624,14 +624,15 @@ func (p *Pipeline) commitIngest(tx *bbolt.Tx, updates map[*station]*mirror, seen
 			return err
 		}
 		for sensor, ss := range m {
+			key := []byte(sensor)
 			var old seenState
-			if _, err := getJSON(sb.seen, []byte(sensor), &old); err != nil {
+			if _, err := getSeen(sb.seen, key, &old); err != nil {
 				return err
 			}
 			if old.Reading.After(ss.Reading) {
 				ss.Reading, ss.Quantity, ss.Value = old.Reading, old.Quantity, old.Value
 			}
-			if err := putJSON(sb.seen, []byte(sensor), ss); err != nil {
+			if err := putSeen(sb.seen, key, ss); err != nil {
 				return err
 			}
 		}

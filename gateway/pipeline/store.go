@@ -1,14 +1,17 @@
 package pipeline
 
 import (
+	"bytes"
 	"encoding/binary"
 	"encoding/json"
 	"fmt"
 	"math"
+	"strconv"
 	"time"
 
 	"go.etcd.io/bbolt"
 
+	"etpulse/gateway/internal/plainjson"
 	"etpulse/gateway/state"
 	"etpulse/hourly"
 )
@@ -212,4 +215,167 @@ func pendingKey(st *station, hour time.Time, revision int) []byte {
 	k = append(k, '/')
 	k = append(k, hourKey(hour)...)
 	return append(k, u64(uint64(revision))...)
+}
+
+// getSeen reads a sensor's seen row into ss as getJSON does (left as it is
+// when absent).
+// Rows as appendSeenState writes them are read without encoding/json; any
+// other row (an older writer's, a damaged one) goes through getJSON, with
+// its result and errors.
+func getSeen(b *bbolt.Bucket, key []byte, ss *seenState) (bool, error) {
+	raw := b.Get(key)
+	if raw == nil {
+		return false, nil
+	}
+	fast := *ss // as encoding/json, fields the row lacks keep their value
+	if parseSeenState(raw, &fast) {
+		*ss = fast
+		return true, nil
+	}
+	return getJSON(b, key, ss)
+}
+
+// putSeen writes a sensor's seen row: the bytes json.Marshal would write,
+// without its reflection for the usual row.
+func putSeen(b *bbolt.Bucket, key []byte, ss seenState) error {
+	raw, ok := appendSeenState(make([]byte, 0, 128), ss)
+	if !ok {
+		return putJSON(b, key, ss)
+	}
+	return b.Put(key, raw)
+}
+
+// appendSeenState appends ss as json.Marshal encodes it (fields in order,
+// empty ones omitted, times as Time.MarshalJSON writes them, the value as
+// encoding/json formats a float64). ok is false when a field needs
+// encoding/json itself: a time it refuses (year outside 0-9999, a zone
+// hour outside 0-23), a quantity it would escape, a value that is not
+// finite.
+func appendSeenState(b []byte, ss seenState) ([]byte, bool) {
+	var ok bool
+	b = append(b, `{"arrival":`...)
+	if b, ok = appendJSONTime(b, ss.Arrival); !ok {
+		return nil, false
+	}
+	b = append(b, `,"reading":`...)
+	if b, ok = appendJSONTime(b, ss.Reading); !ok {
+		return nil, false
+	}
+	if ss.Stamped {
+		b = append(b, `,"stamped":true`...)
+	}
+	if ss.Quantity != "" {
+		for i := 0; i < len(ss.Quantity); i++ {
+			if c := ss.Quantity[i]; c < 0x20 || c >= 0x7f || c == '"' || c == '\\' || c == '<' || c == '>' || c == '&' {
+				return nil, false
+			}
+		}
+		b = append(b, `,"quantity":"`...)
+		b = append(b, ss.Quantity...)
+		b = append(b, '"')
+	}
+	if ss.Value != nil {
+		v := *ss.Value
+		if math.IsNaN(v) || math.IsInf(v, 0) {
+			return nil, false
+		}
+		// encoding/json's float64 format: 'e' below 1e-6 and from 1e21,
+		// with a one-digit negative exponent written without its zero.
+		format := byte('f')
+		if a := math.Abs(v); a != 0 && (a < 1e-6 || a >= 1e21) {
+			format = 'e'
+		}
+		b = append(b, `,"value":`...)
+		b = strconv.AppendFloat(b, v, format, -1, 64)
+		if n := len(b); format == 'e' && n >= 4 && b[n-4] == 'e' && b[n-3] == '-' && b[n-2] == '0' {
+			b[n-2] = b[n-1]
+			b = b[:n-1]
+		}
+	}
+	return append(b, '}'), true
+}
+
+// appendJSONTime appends t quoted as Time.MarshalJSON writes it; false
+// where Time.MarshalJSON fails.
+func appendJSONTime(b []byte, t time.Time) ([]byte, bool) {
+	b = append(b, '"')
+	n0 := len(b)
+	b = t.AppendFormat(b, time.RFC3339Nano)
+	if len(b) < n0+len("9999-") || b[n0+4] != '-' {
+		return nil, false // year not exactly four digits
+	}
+	if b[len(b)-1] != 'Z' {
+		if c := b[len(b)-len("Z07:00")]; c >= '0' && c <= '9' {
+			return nil, false
+		}
+		if h := 10*int(b[len(b)-5]-'0') + int(b[len(b)-4]-'0'); h >= 24 {
+			return nil, false
+		}
+	}
+	return append(b, '"'), true
+}
+
+// parseSeenState reads a seen row in appendSeenState's form (no white
+// space, fields in its order, strings without escapes) into ss, as
+// encoding/json would; false for anything else.
+func parseSeenState(raw []byte, ss *seenState) bool {
+	rest, ok := bytes.CutPrefix(raw, []byte(`{"arrival":`))
+	if !ok {
+		return false
+	}
+	var tok []byte
+	if tok, rest, ok = cutString(rest); !ok || ss.Arrival.UnmarshalJSON(tok) != nil {
+		return false
+	}
+	if rest, ok = bytes.CutPrefix(rest, []byte(`,"reading":`)); !ok {
+		return false
+	}
+	if tok, rest, ok = cutString(rest); !ok || ss.Reading.UnmarshalJSON(tok) != nil {
+		return false
+	}
+	if r, ok := bytes.CutPrefix(rest, []byte(`,"stamped":true`)); ok {
+		ss.Stamped, rest = true, r
+	}
+	if r, ok := bytes.CutPrefix(rest, []byte(`,"quantity":`)); ok {
+		if tok, rest, ok = cutString(r); !ok || len(tok) == 2 {
+			return false
+		}
+		ss.Quantity = quantityOf(tok[1 : len(tok)-1])
+	}
+	if r, ok := bytes.CutPrefix(rest, []byte(`,"value":`)); ok {
+		if len(r) == 0 {
+			return false
+		}
+		end, ok := plainjson.ScanNumber(r, 0)
+		if !ok {
+			return false
+		}
+		v, err := strconv.ParseFloat(string(r[:end]), 64)
+		if err != nil {
+			return false
+		}
+		ss.Value, rest = &v, r[end:]
+	}
+	return string(rest) == "}"
+}
+
+// cutString cuts a plain JSON string (see plainjson.ScanString) from the
+// front of p: the string with its quotes, and the rest.
+func cutString(p []byte) (tok, rest []byte, ok bool) {
+	tok, end, ok := plainjson.ScanString(p, 0)
+	if !ok {
+		return nil, nil, false
+	}
+	return tok, p[end:], true
+}
+
+// quantityOf returns the quantity named b, the package's own string for a
+// known one (no copy per row).
+func quantityOf(b []byte) hourly.Quantity {
+	for _, q := range hourly.Quantities {
+		if string(b) == string(q) {
+			return q
+		}
+	}
+	return hourly.Quantity(b)
 }
