@@ -552,6 +552,12 @@ func (g *Gateway) stepJournalled(ctx context.Context, now time.Time, batch []mqt
 		if err != nil || !stored {
 			return err // not acknowledged: redelivered next run
 		}
+		// Heard before the acknowledgement: the broker's next messages (and
+		// a simulated clock driven by them) must find the sensors heard.
+		for i := range readings {
+			readings[i].Arrived = now
+			g.alerts.Heard(readings[i].Site, readings[i].Station, readings[i].Sample, now)
+		}
 		for _, m := range batch {
 			if m.Ack != nil {
 				m.Ack()
@@ -559,10 +565,6 @@ func (g *Gateway) stepJournalled(ctx context.Context, now time.Time, batch []mqt
 		}
 		if g.jr.since.IsZero() {
 			g.jr.since = time.Now()
-		}
-		for i := range readings {
-			readings[i].Arrived = now
-			g.alerts.Heard(readings[i].Site, readings[i].Station, readings[i].Sample, now)
 		}
 		g.jr.pending = append(g.jr.pending, readings...)
 	}

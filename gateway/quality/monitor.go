@@ -332,7 +332,9 @@ func (m *Monitor) Heard(site, station string, s hourly.Sample, now time.Time) {
 	m.mu.Lock()
 	defer m.mu.Unlock()
 	n := len(m.pending)
-	m.stepLocked(info.readings.Heard(topicSafe(s.Sensor), s.Quantity, now))
+	if f := info.readings.Heard(topicSafe(s.Sensor), s.Quantity, now); f.Status != StatusHold {
+		m.stepLocked(f)
+	}
 	m.heardLocked(info, s.Quantity, now, n)
 }
 
