@@ -114,6 +114,7 @@ type Gateway struct {
 
 	retained *statePublisher // retained station and zone state (state_publish.go)
 	jr       *journalIntake  // the journal; nil when batches go straight into the state file (journal.go)
+	recent   recentSeen      // sensors heard in the journal since its last checkpoint (journal.go)
 }
 
 // New composes the gateway for cfg. It does not start anything.
@@ -567,6 +568,7 @@ func (g *Gateway) stepJournalled(ctx context.Context, now time.Time, batch []mqt
 			g.jr.since = time.Now()
 		}
 		g.jr.pending = append(g.jr.pending, readings...)
+		g.recent.note(readings, now)
 	}
 	if g.checkpointDue(now, readings) {
 		if err := g.checkpoint(ctx, now); err != nil {

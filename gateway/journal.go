@@ -3,10 +3,13 @@ package gateway
 import (
 	"context"
 	"fmt"
+	"slices"
+	"sync"
 	"time"
 
 	"etpulse/gateway/ingest"
 	"etpulse/gateway/mqtt"
+	"etpulse/gateway/pipeline"
 	"etpulse/gateway/state"
 )
 
@@ -207,6 +210,7 @@ func (g *Gateway) checkpoint(ctx context.Context, now time.Time) error {
 		}
 	}
 	jr.pending = jr.pending[:0]
+	g.recent.clear()
 	if err := jr.j.Reset(); err != nil {
 		// The readings are in the state file; should the journal keep them,
 		// the next start stores them again as duplicates.
@@ -214,4 +218,82 @@ func (g *Gateway) checkpoint(ctx context.Context, now time.Time) error {
 	}
 	jr.since = time.Time{}
 	return nil
+}
+
+// recentSeen is, per station, what the sensors' readings kept in the
+// journal since the last checkpoint say of when each was last heard: the
+// status pages show it with the state file's (LastSeen), so a station's
+// last reading is not checkpoint_every old on them. Written by the intake
+// goroutine, read by the status pages'.
+type recentSeen struct {
+	mu sync.Mutex
+	by map[[2]string][]pipeline.Seen
+}
+
+// note adds readings that arrived at at.
+func (r *recentSeen) note(readings []ingest.Reading, at time.Time) {
+	r.mu.Lock()
+	defer r.mu.Unlock()
+	if r.by == nil {
+		r.by = map[[2]string][]pipeline.Seen{}
+	}
+	for _, rd := range readings {
+		k := [2]string{rd.Site, rd.Station}
+		rows := r.by[k]
+		i := slices.IndexFunc(rows, func(s pipeline.Seen) bool { return s.Sensor == rd.Sample.Sensor })
+		if i < 0 {
+			rows = append(rows, pipeline.Seen{Sensor: rd.Sample.Sensor})
+			i = len(rows) - 1
+		}
+		s := &rows[i]
+		if at.After(s.Arrival) {
+			s.Arrival = at
+		}
+		if rd.Sample.Time.After(s.Reading) {
+			v := rd.Sample.Value
+			s.Reading, s.Quantity, s.Value = rd.Sample.Time, rd.Sample.Quantity, &v
+		}
+		r.by[k] = rows
+	}
+}
+
+// clear forgets them once a checkpoint has put them in the state file.
+func (r *recentSeen) clear() {
+	r.mu.Lock()
+	defer r.mu.Unlock()
+	clear(r.by)
+}
+
+// merge returns rows (the state file's) with each sensor's later arrival
+// and later reading taken from the journal's.
+func (r *recentSeen) merge(site, station string, rows []pipeline.Seen) []pipeline.Seen {
+	r.mu.Lock()
+	defer r.mu.Unlock()
+	for _, p := range r.by[[2]string{site, station}] {
+		i := slices.IndexFunc(rows, func(s pipeline.Seen) bool { return s.Sensor == p.Sensor })
+		if i < 0 {
+			rows = append(rows, p)
+			continue
+		}
+		s := &rows[i]
+		if p.Arrival.After(s.Arrival) {
+			s.Arrival = p.Arrival
+		}
+		if p.Reading.After(s.Reading) {
+			s.Reading, s.Quantity, s.Value = p.Reading, p.Quantity, p.Value
+		}
+	}
+	return rows
+}
+
+// LastSeen returns, for every sensor of the station that has been heard,
+// when it was last heard and its latest reading: the state file's
+// (pipeline.LastSeen) with the readings the journal holds since the last
+// checkpoint.
+func (g *Gateway) LastSeen(site, station string) ([]pipeline.Seen, error) {
+	rows, err := g.pipe.LastSeen(site, station)
+	if err != nil {
+		return nil, err
+	}
+	return g.recent.merge(site, station, rows), nil
 }

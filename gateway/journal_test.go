@@ -112,6 +112,15 @@ func TestJournalHoldsReadingsUntilCheckpoint(t *testing.T) {
 	for _, s := range seen {
 		assert.Equal(t, first[0].Time.UTC(), s.Reading.UTC(), "%s: only the first reading is in the state file before a checkpoint", s.Sensor)
 	}
+	// The status pages' last readings include the journal's.
+	shown, err := r.g.LastSeen(demo.Site, demo.Paddock)
+	require.NoError(t, err)
+	require.Len(t, shown, len(seen))
+	last := first[len(first)-1]
+	for _, s := range shown {
+		assert.Equal(t, last.Time.UTC(), s.Reading.UTC(), "%s: the latest reading, from the journal", s.Sensor)
+		assert.Equal(t, last.At.UTC(), s.Arrival.UTC(), "%s: heard when the last message arrived", s.Sensor)
+	}
 	select {
 	case rec := <-r.recs:
 		t.Fatalf("record before the hour closed: %s", rec.LocalStart)

@@ -7,7 +7,6 @@ import (
 
 	"etpulse/gateway/config"
 	"etpulse/gateway/httpapi"
-	"etpulse/gateway/pipeline"
 	"etpulse/gateway/status"
 	"etpulse/gateway/store"
 	"etpulse/gateway/zones"
@@ -20,7 +19,7 @@ import (
 func (g *Gateway) StatusReader() (*status.Reader, error) {
 	o := status.Options{
 		Config: g.cfg, Now: g.deps.Clock.Now,
-		LastSeen: func(site, station string) ([]pipeline.Seen, error) { return g.pipe.LastSeen(site, station) },
+		LastSeen: g.LastSeen,
 	}
 	for _, s := range g.comp.Services {
 		if h, ok := s.(*store.History); ok {
