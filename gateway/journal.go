@@ -30,10 +30,11 @@ import (
 // pipeline's timing depends on (pipeline.Urgent: it closes or revises an
 // hour, or is held ahead of the clock) or when a pass of the pipeline is
 // due: hour records, revisions, zone steps and commands are not delayed.
-// What is delayed, by at most checkpoint_every, is what reads the state
-// file or the accepted samples between checkpoints: the status pages' last
-// reading, the reading-level checks (range, spike, stuck; the silence check
-// hears every message at once) and the pipeline's metrics.
+// What is delayed, by at most checkpoint_every, is what reads the accepted
+// samples between checkpoints: the reading-level checks (range, spike,
+// stuck) and the pipeline's metrics. The silence check (Monitor.Heard) and
+// the status pages' last readings (Gateway.LastSeen) hear every message at
+// once.
 //
 // At start the readings left in the journal by a stop or a crash are
 // stored before anything else; a message stored twice (a crash between a
