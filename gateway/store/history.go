@@ -165,6 +165,11 @@ func (h *History) Run(ctx context.Context) error {
 		} else if n > 0 {
 			h.log.Info("history: pruned", "points", n, "retention", h.retention.String())
 		}
+		if n, err := h.PruneQuarantine(now); err != nil {
+			h.log.Error("outbox quarantine: prune", "err", err)
+		} else if n > 0 {
+			h.log.Info("outbox quarantine: pruned", "points", n, "retention", h.retention.String(), "at_most", maxQuarantined)
+		}
 		// Wake just after the next hour boundary of the (possibly
 		// accelerated) clock, but at least every real hour.
 		wait := min(max(now.Truncate(time.Hour).Add(time.Hour).Sub(now)+time.Second, time.Second), time.Hour)
