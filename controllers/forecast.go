@@ -195,6 +195,24 @@ func (z *Zone) forecastFrost(fc *Forecast, from, to time.Time) string {
 	return ""
 }
 
+// forecastRainRecheck returns why a command planned but not yet sent (a
+// later cycle, or one waiting for its source) is cancelled at its send for
+// forecast rain, or "": the rain rule of planning (forecastNeed) applied
+// at now to the zone's need now, so a forecast that came after the plan
+// counts as frost does. A forecast the plan already saw does not cancel a
+// cycle: the plan's water was the need less that rain, so the need before
+// any of its cycles is more than the rain.
+func (z *Zone) forecastRainRecheck(fc *Forecast, st *State, now time.Time) string {
+	fc = z.forecastFor(fc, now)
+	slot, ok := SlotAt(z.Windows, z.Loc, now)
+	if fc == nil || !ok {
+		return ""
+	}
+	lv := z.LevelsAt(st, now)
+	_, _, skip := z.forecastNeed(fc, st, lv, now, slot, st.Depletion-lv.Target)
+	return skip
+}
+
 // forecastNeed applies the forecast rain to a run's net need: rain expected
 // (at RainMinProb or more) between now and the start of the next window
 // occurrence after slot, when at least RainMinMM, shortens the need by its

@@ -127,6 +127,32 @@ func TestForecastFrostHolds(t *testing.T) {
 	require.Len(t, planWith(z, 75, fc).Commands, 1)
 }
 
+// A command planned but not yet sent is cancelled at its send when a
+// forecast that came after the plan expects rain covering the need (the
+// planning rule of TestForecastRainSkipsRun); one planned with the same
+// forecast, shortened by its rain, is sent.
+func TestForecastRainAfterPlanCancelsAtSend(t *testing.T) {
+	z := forecastZone()
+	now := at(1, 21, 0)
+	st := withWeather(&State{Depletion: 75}, now)
+	rain := sixHourly().rainAt(at(2, 6, 0), 40, 0.8)
+
+	planned := planWith(z, 75, nil).Commands
+	require.Len(t, planned, 1)
+	d := Decide(now.Add(time.Minute), Input{Zones: []ZoneInput{{z, st}}, Ledger: planned, Forecast: rain})
+	require.NotEmpty(t, d.Actions)
+	assert.Equal(t, ActCancel, d.Actions[0].Kind)
+	assert.Contains(t, d.Actions[0].Reason, "forecast issued 2026-07-01 18:00: 29.6 mm effective rain")
+
+	shortening := sixHourly().rainAt(at(2, 6, 0), 30, 0.8)
+	planned = planWith(z, 75, shortening).Commands
+	require.Len(t, planned, 1)
+	d = Decide(now.Add(time.Minute), Input{Zones: []ZoneInput{{z, st}}, Ledger: planned, Forecast: shortening})
+	require.NotEmpty(t, d.Actions)
+	assert.Equal(t, ActSend, d.Actions[0].Kind, "the rain the plan allowed for does not cancel it")
+	assert.Equal(t, 54, d.Actions[0].Command.Minutes)
+}
+
 func TestForecastETcProjects(t *testing.T) {
 	// Depletion 65 below the trigger 71.5, no recent ET: not due. Forecast
 	// ETc to the next window's end: 32 h x 0.25 x 1.2 = 9.6 mm -> 74.6 mm,

@@ -214,6 +214,9 @@ func step(now time.Time, c *Command, zi ZoneInput, configured bool, p CommandPol
 				if reason == "" {
 					reason = zi.Zone.forecastFrost(in.Forecast, now, c.Start.Add(time.Duration(c.Minutes)*time.Minute))
 				}
+				if reason == "" {
+					reason = zi.Zone.forecastRainRecheck(in.Forecast, zi.State, now)
+				}
 			}
 			if reason != "" {
 				if err := c.Cancel(now, reason); err != nil {
