@@ -132,7 +132,7 @@ func TestGrafanaDashboardMatchesSchema(t *testing.T) {
 		}
 	}
 	assert.GreaterOrEqual(t, panels, 8)
-	for _, m := range []string{store.MeasurementHour, store.MeasurementZone, store.MeasurementCommand, store.MeasurementReport, store.MeasurementAlert, store.MeasurementZoneAlert} {
+	for _, m := range []string{store.MeasurementHour, store.MeasurementZone, store.MeasurementCommand, store.MeasurementReport, store.MeasurementAlert, store.MeasurementZoneAlert, store.MeasurementFlow} {
 		assert.True(t, queried[m], "a panel shows %s", m)
 	}
 }
