@@ -4,6 +4,7 @@ import (
 	"bytes"
 	"encoding/binary"
 	"fmt"
+	"slices"
 	"time"
 
 	"go.etcd.io/bbolt"
@@ -52,90 +53,80 @@ func readItem(k, v []byte, buf *[]byte) (it item, ok bool) {
 // batchBuffer returns a buffer for the items of a batch of n points.
 func batchBuffer(n int) []byte { return make([]byte, 0, min(n, 1<<12)*256) }
 
+// batchRead says which pending points a read of the drain takes.
+type batchRead struct {
+	after uint64          // only points with a higher sequence number
+	skip  map[uint64]bool // and none of these (live points handed out already)
+	head  int             // up to head of the oldest of them
+	// live: when more are pending, up to live of the newest ones enqueued
+	// at or after liveSince (the live share of a batch during a backfill).
+	live      int
+	liveSince time.Time
+}
+
 // next reads up to maxHead of the oldest pending points and, when more are
-// pending, up to maxLive of the newest ones enqueued at or after liveSince
-// (the live share of a batch during a backfill). The result is in sequence
-// order: head first, then the live tail. A point that cannot be decoded is
-// quarantined on the spot.
+// pending, up to maxLive of the newest ones enqueued at or after liveSince.
 func (o *Outbox) next(maxHead, maxLive int, liveSince time.Time) ([]item, error) {
-	var items []item
+	items, _, err := o.read(batchRead{head: maxHead, live: maxLive, liveSince: liveSince})
+	return items, err
+}
+
+// read reads the points r selects, in sequence order: the nHead points of
+// the head first, then the live tail. A point that cannot be decoded is
+// quarantined on the spot.
+func (o *Outbox) read(r batchRead) (items []item, nHead int, err error) {
 	var corrupt []uint64
-	err := o.db.View(func(tx *bbolt.Tx) error {
+	err = o.db.View(func(tx *bbolt.Tx) error {
 		c := tx.Bucket(bucketOutbox).Cursor()
-		buf := batchBuffer(maxHead + maxLive)
-		read := func(k, v []byte) {
+		buf := batchBuffer(r.head + r.live)
+		take := func(k, v []byte) {
 			if it, ok := readItem(k, v, &buf); ok {
 				items = append(items, it)
 			} else {
 				corrupt = append(corrupt, it.seq)
 			}
 		}
-		var lastHead []byte
+		floor := r.after // the tail takes only points above the head
 		n := 0
-		for k, v := c.First(); k != nil && n < maxHead; k, v = c.Next() {
-			read(k, v)
-			lastHead = bytes.Clone(k)
+		for k, v := c.Seek(seqKey(r.after + 1)); k != nil && n < r.head; k, v = c.Next() {
+			seq := binary.BigEndian.Uint64(k)
+			if r.skip[seq] {
+				continue
+			}
+			take(k, v)
+			floor = seq
 			n++
 		}
-		if maxLive <= 0 {
+		nHead = len(items)
+		if r.live <= 0 {
 			return nil
 		}
-		var tail []item
 		headItems := items
 		items = nil
 		n = 0
-		for k, v := c.Last(); k != nil && n < maxLive && (lastHead == nil || bytes.Compare(k, lastHead) > 0); k, v = c.Prev() {
-			if len(v) >= 8 && int64(binary.BigEndian.Uint64(v)) < liveSince.UnixNano() {
+		for k, v := c.Last(); k != nil && n < r.live && binary.BigEndian.Uint64(k) > floor; k, v = c.Prev() {
+			if len(v) >= 8 && int64(binary.BigEndian.Uint64(v)) < r.liveSince.UnixNano() {
 				break
 			}
-			read(k, v)
+			if r.skip[binary.BigEndian.Uint64(k)] {
+				continue
+			}
+			take(k, v)
 			n++
 		}
-		tail = items
-		for i, j := 0, len(tail)-1; i < j; i, j = i+1, j-1 {
-			tail[i], tail[j] = tail[j], tail[i]
-		}
-		items = append(headItems, tail...)
+		slices.Reverse(items)
+		items = append(headItems, items...)
 		return nil
 	})
 	if err != nil {
-		return nil, fmt.Errorf("outbox next: %w", err)
+		return nil, 0, fmt.Errorf("outbox read after %d: %w", r.after, err)
 	}
 	if len(corrupt) > 0 {
 		if err := o.dropCorrupt(corrupt); err != nil {
-			return nil, err
+			return nil, 0, err
 		}
 	}
-	return items, nil
-}
-
-// nextAfter reads up to n pending points with a sequence number above
-// after, in sequence order: the pipelined drain reads on while the points it
-// sent last are still being removed. Undecodable entries are quarantined.
-func (o *Outbox) nextAfter(after uint64, n int) ([]item, error) {
-	items := make([]item, 0, n)
-	var corrupt []uint64
-	err := o.db.View(func(tx *bbolt.Tx) error {
-		c := tx.Bucket(bucketOutbox).Cursor()
-		buf := batchBuffer(n)
-		for k, v := c.Seek(seqKey(after + 1)); k != nil && len(items)+len(corrupt) < n; k, v = c.Next() {
-			if it, ok := readItem(k, v, &buf); ok {
-				items = append(items, it)
-			} else {
-				corrupt = append(corrupt, it.seq)
-			}
-		}
-		return nil
-	})
-	if err != nil {
-		return nil, fmt.Errorf("outbox next after %d: %w", after, err)
-	}
-	if len(corrupt) > 0 {
-		if err := o.dropCorrupt(corrupt); err != nil {
-			return nil, err
-		}
-	}
-	return items, nil
+	return items, nHead, nil
 }
 
 // dropCorrupt moves undecodable entries to the quarantine.

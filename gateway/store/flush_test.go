@@ -3,6 +3,7 @@ package store
 import (
 	"context"
 	"errors"
+	"slices"
 	"sync"
 	"testing"
 	"time"
@@ -85,6 +86,28 @@ func linesOf(pts []Point) []string {
 	return out
 }
 
+// holdingSink returns a sink that, at its first write, holds the state
+// file's write lock before the batch is accepted, so no removal can commit
+// until release is closed (holdErr then tells how the hold ended), and
+// closes reached at write number at.
+func holdingSink(db *bbolt.DB, at int) (sink *hookSink, reached, release chan struct{}, holdErr chan error) {
+	held := make(chan struct{})
+	reached, release, holdErr = make(chan struct{}), make(chan struct{}), make(chan error, 1)
+	sink = &hookSink{hook: func(n int, _ []Point) (int, error) {
+		if n == 1 {
+			go func() {
+				holdErr <- db.Update(func(*bbolt.Tx) error { close(held); <-release; return nil })
+			}()
+			<-held
+		}
+		if n == at {
+			close(reached)
+		}
+		return -1, nil
+	}}
+	return sink, reached, release, holdErr
+}
+
 // TestFlushSendsWhileRemovalCommits: Flush sends the next batch while the
 // removal of the previous one waits to commit (here: behind a write
 // transaction the test holds), and sends no third batch before that removal
@@ -92,22 +115,7 @@ func linesOf(pts []Point) []string {
 func TestFlushSendsWhileRemovalCommits(t *testing.T) {
 	db, o, pts := pendingZone(t, 8)
 
-	held, release, second := make(chan struct{}), make(chan struct{}), make(chan struct{})
-	holdErr := make(chan error, 1)
-	sink := &hookSink{hook: func(n int, _ []Point) (int, error) {
-		switch n {
-		case 1:
-			// Hold the state file's write lock before batch 1 is
-			// accepted: its removal cannot commit until released.
-			go func() {
-				holdErr <- db.Update(func(*bbolt.Tx) error { close(held); <-release; return nil })
-			}()
-			<-held
-		case 2:
-			close(second)
-		}
-		return -1, nil
-	}}
+	sink, second, release, holdErr := holdingSink(db, 2)
 	w := hookWriter(t, o, sink, 2)
 	flushed := make(chan error, 1)
 	go func() { flushed <- w.Flush(context.Background()) }()
@@ -228,4 +236,64 @@ func mustNext(t *testing.T, o *Outbox, n int) []item {
 	items, err := o.next(n, 0, time.Time{})
 	require.NoError(t, err)
 	return items
+}
+
+// TestRunSendsWhileRemovalCommits: Run drains a backlog through the same
+// pipeline as Flush: it sends the next batch while the removal of the
+// previous one waits to commit, and no more than drainWindow batches are
+// sent and not yet removed (the bound of what a kill re-sends).
+func TestRunSendsWhileRemovalCommits(t *testing.T) {
+	db, o, pts := pendingZone(t, 12)
+
+	sink, window, release, holdErr := holdingSink(db, drainWindow)
+	w := hookWriter(t, o, sink, 2)
+	stop := runWriter(t, w)
+
+	select {
+	case <-window:
+	case <-time.After(10 * time.Second):
+		close(release)
+		stop()
+		t.Fatalf("Run sent %d batches while the removal of batch 1 waited to commit, want %d", sink.writes(), drainWindow)
+	}
+	time.Sleep(100 * time.Millisecond) // room for one batch too many, which must not come
+	assert.Equal(t, drainWindow, sink.writes(), "more batches sent than a kill may re-send")
+	close(release)
+	require.NoError(t, <-holdErr)
+	waitFor(t, "outbox drained", func() bool { d, _ := o.Stats(); return d == 0 })
+	stop()
+
+	assert.Equal(t, linesOf(pts), sink.lines(), "every point once, in order")
+	assert.Equal(t, float64(len(pts)), testutil.ToFloat64(w.metrics.written))
+}
+
+// TestRunBackfillLetsLivePointsThrough: while Run drains a backlog at the
+// backfill rate, a point enqueued meanwhile goes out with the live share of
+// a batch, before the backlog is through; every point is sent once.
+func TestRunBackfillLetsLivePointsThrough(t *testing.T) {
+	db, o, pts := pendingZone(t, 24)
+	live := zonePt("z2", 0, 1)
+	sink := &hookSink{hook: func(n int, _ []Point) (int, error) {
+		if n == 1 {
+			enqueue(t, db, o, live)
+		}
+		return -1, nil
+	}}
+	w, err := NewWriter(o, WriterOptions{Sink: sink, BatchSize: 4, BackfillRate: 40, Registerer: prometheus.NewRegistry()})
+	require.NoError(t, err)
+	stop := runWriter(t, w)
+	waitFor(t, "outbox drained", func() bool { d, _ := o.Stats(); return d == 0 })
+	stop()
+
+	got := sink.lines()
+	assert.ElementsMatch(t, linesOf(append(pts, live)), got, "every point once")
+	i := slices.Index(got, Line(live))
+	assert.Less(t, i, slices.Index(got, Line(pts[len(pts)-1])), "the live point waited for the whole backlog")
+	var backlog []string
+	for _, l := range got {
+		if l != Line(live) {
+			backlog = append(backlog, l)
+		}
+	}
+	assert.Equal(t, linesOf(pts), backlog, "the backlog in order")
 }

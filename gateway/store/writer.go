@@ -6,6 +6,8 @@ import (
 	"fmt"
 	"log/slog"
 	"math/rand/v2"
+	"sync"
+	"sync/atomic"
 	"time"
 
 	"github.com/prometheus/client_golang/prometheus"
@@ -95,8 +97,6 @@ type Writer struct {
 	closer  func() // closes a sink the writer built; nil otherwise
 	log     *slog.Logger
 	metrics *writerMetrics
-
-	liveSince time.Time // points enqueued since then count as live
 }
 
 // NewWriter returns a writer of o's points to opt.Sink, or to the server at
@@ -136,7 +136,7 @@ func NewWriter(o *Outbox, opt WriterOptions) (*Writer, error) {
 	if err != nil {
 		return nil, fmt.Errorf("new writer: %w", err)
 	}
-	w := &Writer{o: o, opt: opt, sink: opt.Sink, log: opt.Logger, metrics: m, liveSince: o.now()}
+	w := &Writer{o: o, opt: opt, sink: opt.Sink, log: opt.Logger, metrics: m}
 	if w.sink == nil {
 		influx.Clock = o.now
 		s, err := NewInfluxSink(influx)
@@ -158,11 +158,13 @@ func setDefault[T comparable](v *T, d T) {
 // Run drains the outbox until ctx ends. For a last drain at shutdown call
 // Flush with a bounded context afterwards (the gateway does: Writer is a
 // Flusher). What stays unwritten remains in the outbox for the next start.
+//
+// Run drains through the same pipeline as Flush, paced by the backfill
+// rule: a SIGKILL during Run makes the next start send at most drainWindow
+// batches again (harmless, see Sink).
 func (w *Writer) Run(ctx context.Context) error {
-	tokens := float64(w.opt.BatchSize)
-	last := time.Now()
+	src := &backfill{w: w, tokens: float64(w.opt.BatchSize), last: time.Now(), liveSince: w.o.now()}
 	backoff := time.Duration(0)
-	failing := false
 	for {
 		depth, _ := w.o.Stats()
 		if depth == 0 {
@@ -171,62 +173,138 @@ func (w *Writer) Run(ctx context.Context) error {
 			}
 			continue
 		}
-		now := time.Now()
-		tokens = min(tokens+now.Sub(last).Seconds()*w.opt.BackfillRate, float64(w.opt.BatchSize))
-		last = now
-		head, live := w.opt.BatchSize, 0
-		backlog := depth > w.opt.BatchSize
-		if backlog {
-			head = min(w.opt.BatchSize, int(tokens))
-			if !failing {
-				// While writes fail, every pending point is backlog;
-				// the live share starts again after the recovery.
-				live = w.opt.BatchSize / 4
-				head = min(w.opt.BatchSize-live, int(tokens))
-			}
-		}
-		n, err := w.step(ctx, head, live)
+		src.after, src.handed = 0, nil
+		read, err := w.drain(ctx, src)
 		if err != nil {
 			if ctx.Err() != nil {
 				break
 			}
 			backoff = nextBackoff(backoff, w.opt.MinBackoff, w.opt.MaxBackoff)
-			if !failing {
+			if !src.fail() {
 				w.log.Warn("store: write failed, retrying", "err", err, "pending", depth, "retry_in", backoff.String())
 			} else {
 				w.log.Debug("store: write failed again", "err", err, "retry_in", backoff.String())
 			}
-			failing = true
 			if !sleep(ctx, backoff) {
 				break
 			}
 			continue
 		}
-		if failing {
-			w.log.Info("store: writes recovered", "pending", depth)
-			failing = false
-			w.liveSince = w.o.now()
-		}
 		backoff = 0
-		if n.read == 0 && head > 0 {
+		if read == 0 {
 			// The depth says points are pending but none could be read:
 			// do not spin; wait for the next commit or flush interval.
 			if !sleep(ctx, w.opt.FlushInterval) {
 				break
 			}
-			continue
-		}
-		if backlog {
-			tokens -= float64(n.head)
-			if tokens < 1 {
-				wait := time.Duration((1 - tokens) / w.opt.BackfillRate * float64(time.Second))
-				if !sleep(ctx, wait) {
-					break
-				}
-			}
 		}
 	}
 	return nil
+}
+
+// backfill is the batchSource of Run: the backfill rule of Writer. The
+// drain calls next from its reader goroutine and sent from its sender.
+type backfill struct {
+	w      *Writer
+	tokens float64 // head points that may be read now
+	last   time.Time
+
+	// Of the current drain (reset by Run before each): the highest
+	// sequence number of a head read, and the live points above it
+	// handed out already.
+	after  uint64
+	handed map[uint64]bool
+
+	mu        sync.Mutex
+	failing   bool      // writes fail; every pending point counts as backlog
+	liveSince time.Time // points enqueued since then count as live
+}
+
+var _ batchSource = (*backfill)(nil)
+
+// next reads a full batch when no more than one is pending beyond the
+// unremoved points of the drain, else a backlog batch: up to the tokens of
+// the backfill rate of the oldest points (waiting for one token) plus a
+// quarter of the batch from the live ones.
+func (s *backfill) next(ctx context.Context, unremoved int) ([]item, error) {
+	w := s.w
+	batch := w.opt.BatchSize
+	depth, _ := w.o.Stats()
+	r := batchRead{after: s.after, skip: s.handed, head: batch}
+	backlog := depth-unremoved > batch
+	if backlog {
+		s.refill()
+		if s.tokens < 1 {
+			if !sleep(ctx, time.Duration((1-s.tokens)/w.opt.BackfillRate*float64(time.Second))) {
+				return nil, ctx.Err()
+			}
+			s.refill()
+		}
+		r.head = min(batch, int(s.tokens))
+		s.mu.Lock()
+		if !s.failing {
+			r.live, r.liveSince = batch/4, s.liveSince
+			r.head = min(batch-r.live, int(s.tokens))
+		}
+		s.mu.Unlock()
+	}
+	items, nHead, err := w.o.read(r)
+	if err != nil {
+		return nil, err
+	}
+	if nHead > 0 {
+		s.after = items[nHead-1].seq
+	}
+	for seq := range s.handed {
+		if seq <= s.after {
+			delete(s.handed, seq)
+		}
+	}
+	for _, it := range items[nHead:] {
+		if s.handed == nil {
+			s.handed = map[uint64]bool{}
+		}
+		s.handed[it.seq] = true
+	}
+	if backlog { // its backlog points spend tokens, live ones do not
+		for _, it := range items[:nHead] {
+			if r.live == 0 || it.enqueued.Before(r.liveSince) {
+				s.tokens--
+			}
+		}
+	}
+	return items, nil
+}
+
+// refill adds the tokens earned since the last refill, up to a batch.
+func (s *backfill) refill() {
+	now := time.Now()
+	s.tokens = min(s.tokens+now.Sub(s.last).Seconds()*s.w.opt.BackfillRate, float64(s.w.opt.BatchSize))
+	s.last = now
+}
+
+// fail marks writes as failing and reports whether they were already.
+func (s *backfill) fail() bool {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	was := s.failing
+	s.failing = true
+	return was
+}
+
+// sent ends a failure at the first write the sink accepts: the live share
+// starts again, with the points enqueued from now on.
+func (s *backfill) sent(err error) {
+	if err != nil {
+		return
+	}
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	if s.failing {
+		s.failing, s.liveSince = false, s.w.o.now()
+		depth, _ := s.w.o.Stats()
+		s.w.log.Info("store: writes recovered", "pending", depth)
+	}
 }
 
 // Close releases the connections of the sink the writer built (a sink given
@@ -256,13 +334,12 @@ func (w *Writer) waitForPoints(ctx context.Context) bool {
 // is logged, not returned: the points stay in the outbox for the next start,
 // which is no failure of a shutdown. Errors of the state file are returned.
 //
-// Flush pipelines its batches: while one batch is being written, the next
-// is read from the state file, and while the removal of an accepted batch
-// commits, the next is written. At most one accepted batch waits for its
-// removal while the next is in flight, so a SIGKILL during a flush makes
-// the next start send at most two batches again (harmless, see Sink).
+// Flush pipelines its batches as Run does: while one batch is being
+// written, the next is read from the state file, and the removal of
+// accepted batches commits meanwhile. A SIGKILL during a flush makes the
+// next start send at most drainWindow batches again (harmless, see Sink).
 func (w *Writer) Flush(ctx context.Context) error {
-	err := w.drain(ctx)
+	_, err := w.drain(ctx, &seqSource{o: w.o, n: w.opt.BatchSize})
 	if errors.Is(err, errServer) {
 		depth, _ := w.o.Stats()
 		w.log.Warn("store: flush stopped; points stay in the outbox", "pending", depth, "err", err)
@@ -274,23 +351,74 @@ func (w *Writer) Flush(ctx context.Context) error {
 	return nil
 }
 
-// drain writes batches, oldest first, until a read after the last write
-// finds the outbox empty, or an error stops it. Three goroutines: a reader
-// reads batch k+1 while this one writes batch k, and a committer removes
-// batch k-1 meanwhile. The hand-over to the committer is unbuffered, so
-// batch k+1 is not written before batch k-1's removal committed.
-func (w *Writer) drain(ctx context.Context) error {
-	commits := make(chan outcome)
+// drainWindow is how many batches a drain may have handed to the sink and
+// not yet removed from the outbox: the batch being written and the accepted
+// ones whose removal waits to commit. It bounds what a SIGKILL re-sends.
+const drainWindow = 2
+
+// batchSource gives a drain its batches, oldest first. The drain calls next
+// from one goroutine, one call at a time, and sent from another.
+type batchSource interface {
+	// next returns the next batch, none when the outbox holds no more
+	// for this drain; unremoved is how many points the earlier batches
+	// of this drain hold that are not yet removed.
+	next(ctx context.Context, unremoved int) ([]item, error)
+	// sent tells the outcome of writing a batch (nil: accepted whole).
+	sent(err error)
+}
+
+// seqSource is the batchSource of Flush: full batches in sequence order.
+type seqSource struct {
+	o     *Outbox
+	n     int
+	after uint64 // the highest sequence number read
+}
+
+func (s *seqSource) next(context.Context, int) ([]item, error) {
+	items, _, err := s.o.read(batchRead{after: s.after, head: s.n})
+	if len(items) > 0 {
+		s.after = items[len(items)-1].seq
+	}
+	return items, err
+}
+
+func (s *seqSource) sent(error) {}
+
+// drain writes the batches of src until a read after the last write finds
+// none, or an error stops it; it returns how many points it read. Three
+// goroutines: a reader reads batch k+1 while this one writes batch k, and a
+// committer removes accepted batches meanwhile, all those waiting in one
+// transaction. A batch is written only when fewer than drainWindow batches
+// are written and not yet removed.
+func (w *Writer) drain(ctx context.Context, src batchSource) (int, error) {
+	var readN, removedN atomic.Int64
+	commits := make(chan outcome, drainWindow) // never full: slots bound it
+	slots := make(chan struct{}, drainWindow)  // one per batch written and not yet removed
 	failed := make(chan struct{})
 	committed := make(chan error, 1)
 	go func() {
 		var err error
 		for out := range commits {
-			if err != nil {
-				continue // drained after a failure so the sender never blocks
+			group := []outcome{out}
+			for more := true; more; {
+				select {
+				case o, ok := <-commits:
+					if ok {
+						group = append(group, o)
+					}
+					more = ok
+				default:
+					more = false
+				}
 			}
-			if err = w.commit(out); err != nil {
-				close(failed)
+			if err == nil { // after a failure, drained so the sender never blocks
+				if err = w.commit(group...); err != nil {
+					close(failed)
+				}
+			}
+			for _, o := range group {
+				removedN.Add(int64(o.n))
+				<-slots
 			}
 		}
 		committed <- err
@@ -299,19 +427,20 @@ func (w *Writer) drain(ctx context.Context) error {
 		items []item
 		err   error
 	}
-	want, got := make(chan uint64), make(chan read) // one read outstanding at a time
+	want, got := make(chan struct{}), make(chan read) // one read outstanding at a time
 	go func() {
 		defer close(got)
-		for after := range want {
-			items, err := w.o.nextAfter(after, w.opt.BatchSize)
+		for range want {
+			items, err := src.next(ctx, int(readN.Load()-removedN.Load()))
+			readN.Add(int64(len(items)))
 			got <- read{items, err}
 		}
 	}()
-	var after uint64
 	var serr error
-	want <- after
+	want <- struct{}{}
 	raced := false // the outstanding read overlapped a write
-	for {
+	pending := true
+	for pending {
 		r := <-got
 		if r.err != nil {
 			serr = r.err
@@ -322,14 +451,22 @@ func (w *Writer) drain(ctx context.Context) error {
 				break
 			}
 			raced = false
-			want <- after // look once more, now that no write is in flight
+			want <- struct{}{} // look once more, now that no write is in flight
 			continue
 		}
-		after = r.items[len(r.items)-1].seq
-		want <- after
+		want <- struct{}{}
 		raced = true
+		select {
+		case slots <- struct{}{}:
+		case <-failed:
+			<-got // the read ahead is not needed
+			pending = false
+			continue
+		}
 		var out outcome
 		out, serr = w.send(ctx, r.items)
+		src.sent(serr)
+		out.n = len(r.items)
 		commits <- out
 		if serr != nil {
 			<-got // the read ahead is not needed
@@ -341,32 +478,9 @@ func (w *Writer) drain(ctx context.Context) error {
 	}
 	close(commits)
 	if err := <-committed; err != nil {
-		return err
+		return int(readN.Load()), err
 	}
-	return serr
-}
-
-// stepCount tells what one step did: points read from the outbox, how many
-// of them were backlog (not live), and how many the store accepted.
-type stepCount struct{ read, head, written int }
-
-// step writes one batch of up to head oldest and live newest points.
-func (w *Writer) step(ctx context.Context, head, live int) (stepCount, error) {
-	items, err := w.o.next(head, live, w.liveSince)
-	if err != nil {
-		return stepCount{}, err
-	}
-	nHead := len(items)
-	if live > 0 {
-		nHead = 0
-		for _, it := range items {
-			if it.enqueued.Before(w.liveSince) {
-				nHead++
-			}
-		}
-	}
-	written, err := w.write(ctx, items)
-	return stepCount{read: len(items), head: nHead, written: written}, err
+	return int(readN.Load()), serr
 }
 
 // isClosed reports whether ch is closed, without waiting.
@@ -385,6 +499,7 @@ func isClosed(ch <-chan struct{}) bool {
 type outcome struct {
 	ok, bad []item
 	reasons []string
+	n       int // points in the batch
 }
 
 // write hands items to the sink, then in one transaction removes the points
@@ -470,9 +585,18 @@ func (w *Writer) sinkWrite(ctx context.Context, items []item) (settled int, refu
 	return settled, refused, werr, nil
 }
 
-// commit removes the stored points of out from the outbox and quarantines
+// commit removes the stored points of outs from the outbox and quarantines
 // the refused ones, in one transaction.
-func (w *Writer) commit(out outcome) error {
+func (w *Writer) commit(outs ...outcome) error {
+	out := outs[0]
+	if len(outs) > 1 {
+		out = outcome{}
+		for _, o := range outs {
+			out.ok = append(out.ok, o.ok...)
+			out.bad = append(out.bad, o.bad...)
+			out.reasons = append(out.reasons, o.reasons...)
+		}
+	}
 	if err := w.o.done(out.ok, out.bad, out.reasons); err != nil {
 		return err
 	}
