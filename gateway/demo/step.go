@@ -47,6 +47,11 @@ func (s *stepper) settle(ctx context.Context, now time.Time) error {
 		if err := s.quiet(ctx); err != nil {
 			return err
 		}
+		if s.valves != nil && s.valves.answerStops() {
+			if err := s.quiet(ctx); err != nil {
+				return err
+			}
+		}
 		if s.traffic.Sent() == sent {
 			return nil
 		}

@@ -20,14 +20,17 @@ import (
 // accepted as it arrives, reported started at its start and finished when
 // its minutes have run. A repeated command id is answered with its latest
 // report and never run twice; a stop closes a running valve (stopped, with
-// the minutes run) or keeps a waiting run from starting.
+// the minutes run) or keeps a waiting run from starting. A stop is answered
+// when the demo asks (answerStops), after the gateway's pass that sent it
+// has come to rest, so the table shows the stop before its credit.
 type valves struct {
 	mqtt  gateway.Broker
 	clock func() time.Time
 	log   *slog.Logger
 
-	mu   sync.Mutex
-	runs map[string]*valveRun // command id -> run
+	mu    sync.Mutex
+	runs  map[string]*valveRun // command id -> run
+	stops []*valveRun          // stopped runs whose report is still to send, in arrival order
 }
 
 type valveRun struct {
@@ -97,7 +100,20 @@ func (v *valves) stopLocked(id, reportTopic string) {
 		}
 		r.last = &zones.ReportMessage{ID: id, State: "stopped", MinutesRun: &ran}
 	}
-	v.publish(r.topic, *r.last)
+	v.stops = append(v.stops, r)
+}
+
+// answerStops publishes the reports of the stops received since the last
+// call and returns whether there were any.
+func (v *valves) answerStops() bool {
+	v.mu.Lock()
+	defer v.mu.Unlock()
+	for _, r := range v.stops {
+		v.publish(r.topic, *r.last)
+	}
+	n := len(v.stops)
+	v.stops = v.stops[:0]
+	return n > 0
 }
 
 // step reports the runs that start or finish by now, in order of start and id.
