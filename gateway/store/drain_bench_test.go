@@ -7,6 +7,7 @@ import (
 	"time"
 
 	influxdb2 "github.com/influxdata/influxdb-client-go/v2"
+	"github.com/prometheus/client_golang/prometheus/testutil"
 	"github.com/stretchr/testify/require"
 	"go.etcd.io/bbolt"
 
@@ -18,7 +19,7 @@ import (
 const drainChunk = 10 * DefaultBatchSize
 
 // maxDrainIterations bounds BenchmarkOutboxDrainVsBare in count (each
-// iteration writes three chunks of points to the server).
+// iteration writes four chunks of points to the server).
 const maxDrainIterations = 40
 
 // BenchmarkOutboxDrainVsBare measures, in one run against the same real
@@ -29,6 +30,9 @@ const maxDrainIterations = 40
 //     timed), then a Writer built as Setup builds it (InfluxSink over
 //     influxdb-client-go's blocking write API, fsync on) drains them with
 //     Flush (timed): read, send, remove after the server accepted them.
+//   - outbox_run: the same, drained by the writer's Run (the steady drain
+//     of the live gateway; its backfill rate set out of the way), timed
+//     until the last point is removed.
 //   - bare: the same kind and number of points, rendered to line protocol
 //     beforehand (not timed) and posted in batches of the same size through
 //     the same client's blocking write API (timed): the POSTs alone, the
@@ -37,12 +41,12 @@ const maxDrainIterations = 40
 //     (AppendLine) inside the timed loop: a bare poster that is given
 //     points, as the outbox is.
 //
-// The three alternate within each iteration (the order rotates every
+// The four alternate within each iteration (the order rotates every
 // iteration) so all see the same machine load. "hour" points are the
 // et_hour points of the hour handler (about 30 fields each); "zone" points
 // are zone steps with one field, where the client's own cost weighs most.
-// It reports the three rates in points/s, outbox/bare and
-// outbox/bare_render. Skipped without a store server (ETPULSE_TEST_INFLUX);
+// It reports the four rates in points/s, outbox/bare, outbox/bare_render,
+// outbox_run/bare and outbox_run/bare_render. Skipped without a store server (ETPULSE_TEST_INFLUX);
 // bounded to maxDrainIterations, e.g. -benchtime 10x.
 func BenchmarkOutboxDrainVsBare(b *testing.B) {
 	base := testenv.Influx(b)
@@ -80,36 +84,67 @@ func benchDrainVsBare(b *testing.B, base, kind string) {
 	w, err := NewWriter(o, WriterOptions{URL: base, Org: "lowmead", Bucket: "farm"})
 	require.NoError(b, err)
 	b.Cleanup(w.Close)
+	// Run's backfill rate (1,000 points/s by default) would pace it far
+	// below either poster: set out of the way to measure the drain itself.
+	wr, err := NewWriter(o, WriterOptions{URL: base, Org: "lowmead", Bucket: "farm", BackfillRate: 1e12})
+	require.NoError(b, err)
+	b.Cleanup(wr.Close)
 	client := influxdb2.NewClientWithOptions(base, "", influxdb2.DefaultOptions().
 		SetPrecision(time.Nanosecond).SetHTTPRequestTimeout(uint(DefaultWriteTimeout.Seconds())))
 	b.Cleanup(client.Close)
 	bare := client.WriteAPIBlocking("lowmead", "farm")
 	// Same tag lengths for every path, so the lines are the same size.
 	stamp := time.Now().UnixNano()
-	obSite, bpSite, brSite := fmt.Sprintf("ob-%d", stamp), fmt.Sprintf("bp-%d", stamp), fmt.Sprintf("br-%d", stamp)
+	obSite, orSite := fmt.Sprintf("ob-%d", stamp), fmt.Sprintf("or-%d", stamp)
+	bpSite, brSite := fmt.Sprintf("bp-%d", stamp), fmt.Sprintf("br-%d", stamp)
 	ctx := context.Background()
 
-	var obTime, bareTime, renderTime time.Duration
-	var obPoints, barePoints, renderPoints int
-	runOutbox := func(first int) {
-		b.StopTimer()
-		pts := benchPoints(kind, obSite, first, drainChunk)
+	var obTime, runTime, bareTime, renderTime time.Duration
+	var obPoints, runPoints, barePoints, renderPoints int
+	fill := func(site string, first int) {
+		pts := benchPoints(kind, site, first, drainChunk)
 		db.NoSync = true // filling is not what is measured
 		for _, p := range pts {
 			require.NoError(b, db.Update(func(tx *bbolt.Tx) error { return o.Enqueue(tx, p) }))
 		}
 		db.NoSync = false
 		require.NoError(b, db.Sync()) // the fill's writes reach the disk before the clock starts
+	}
+	runOutbox := func(first int) {
+		b.StopTimer()
+		fill(obSite, first)
 		b.StartTimer()
 		t := time.Now()
 		if err := w.Flush(ctx); err != nil {
 			b.Fatal(err)
 		}
 		obTime += time.Since(t)
-		obPoints += len(pts)
+		obPoints += drainChunk
 		if d, _ := o.Stats(); d != 0 {
 			b.Fatalf("%d points left in the outbox after a flush", d)
 		}
+	}
+	runRun := func(first int) {
+		b.StopTimer()
+		fill(orSite, first)
+		runCtx, cancel := context.WithCancel(ctx)
+		done := make(chan error, 1)
+		want := testutil.ToFloat64(wr.metrics.written) + drainChunk
+		b.StartTimer()
+		t := time.Now()
+		go func() { done <- wr.Run(runCtx) }()
+		for testutil.ToFloat64(wr.metrics.written) < want {
+			time.Sleep(100 * time.Microsecond)
+		}
+		runTime += time.Since(t)
+		b.StopTimer()
+		cancel()
+		require.NoError(b, <-done)
+		runPoints += drainChunk
+		if d, _ := o.Stats(); d != 0 {
+			b.Fatalf("%d points left in the outbox after Run", d)
+		}
+		b.StartTimer()
 	}
 	// post renders each batch of pts and posts it; with rendered set, the
 	// bodies are rendered before the clock starts and only the POSTs are
@@ -162,7 +197,7 @@ func benchDrainVsBare(b *testing.B, base, kind string) {
 		renderTime += post(benchPoints(kind, brSite, first, drainChunk), false)
 		renderPoints += drainChunk
 	}
-	paths := []func(int){runOutbox, runBare, runRender}
+	paths := []func(int){runOutbox, runRun, runBare, runRender}
 	b.ReportAllocs()
 	b.ResetTimer()
 	for i := range b.N {
@@ -172,13 +207,17 @@ func benchDrainVsBare(b *testing.B, base, kind string) {
 	}
 	b.StopTimer()
 	obRate := float64(obPoints) / obTime.Seconds()
+	runRate := float64(runPoints) / runTime.Seconds()
 	bareRate := float64(barePoints) / bareTime.Seconds()
 	renderRate := float64(renderPoints) / renderTime.Seconds()
 	b.ReportMetric(obRate, "outbox_points/s")
+	b.ReportMetric(runRate, "outbox_run_points/s")
 	b.ReportMetric(bareRate, "bare_points/s")
 	b.ReportMetric(renderRate, "bare_render_points/s")
 	b.ReportMetric(obRate/bareRate, "outbox/bare")
 	b.ReportMetric(obRate/renderRate, "outbox/bare_render")
+	b.ReportMetric(runRate/bareRate, "outbox_run/bare")
+	b.ReportMetric(runRate/renderRate, "outbox_run/bare_render")
 }
 
 // BenchmarkRenderLine measures rendering one et_hour point (about 30
