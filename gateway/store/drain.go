@@ -181,8 +181,9 @@ func (o *Outbox) done(written []item, bad []item, reasons []string) error {
 		if err != nil {
 			return err
 		}
+		rm := q.sentRemover()
 		for _, it := range written {
-			if err := q.removeSent(it); err != nil {
+			if err := rm.remove(it); err != nil {
 				return err
 			}
 		}
@@ -215,32 +216,43 @@ func (o *Outbox) done(written []item, bad []item, reasons []string) error {
 	return nil
 }
 
-// removeSent deletes a point the drain read, unless a revision replaced it
+// sentRemover deletes points the drain read, with one cursor per bucket
+// for a whole removal (a cursor made per point cost allocations per point).
+type sentRemover struct {
+	q              *buckets
+	outbox, series *bbolt.Cursor
+}
+
+func (q *buckets) sentRemover() sentRemover {
+	return sentRemover{q: q, outbox: q.outbox.Cursor(), series: q.series.Cursor()}
+}
+
+// remove deletes a point the drain read, unless a revision replaced it
 // meanwhile (then the revision and its series entry stay). It seeks once per
 // bucket where a lookup and a delete would seek twice, and only ClassRaw
 // points have an entry in the raw bucket to delete.
-func (q *buckets) removeSent(it item) error {
-	k := seqKey(it.seq)
-	c := q.outbox.Cursor()
-	if ck, _ := c.Seek(k); !bytes.Equal(ck, k) {
+func (r sentRemover) remove(it item) error {
+	var kb [8]byte
+	binary.BigEndian.PutUint64(kb[:], it.seq)
+	k := kb[:]
+	if ck, _ := r.outbox.Seek(k); !bytes.Equal(ck, k) {
 		return nil
 	}
-	if err := c.Delete(); err != nil {
+	if err := r.outbox.Delete(); err != nil {
 		return err
 	}
-	sc := q.series.Cursor()
-	if sk, v := sc.Seek(it.skey); bytes.Equal(sk, it.skey) && bytes.Equal(v, k) {
-		if err := sc.Delete(); err != nil {
+	if sk, v := r.series.Seek(it.skey); bytes.Equal(sk, it.skey) && bytes.Equal(v, k) {
+		if err := r.series.Delete(); err != nil {
 			return err
 		}
 	}
 	if it.raw {
-		if err := q.raw.Delete(k); err != nil {
+		if err := r.q.raw.Delete(k); err != nil {
 			return err
 		}
 	}
-	if q.count > 0 {
-		q.count--
+	if r.q.count > 0 {
+		r.q.count--
 	}
 	return nil
 }
