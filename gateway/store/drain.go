@@ -4,6 +4,7 @@ import (
 	"bytes"
 	"encoding/binary"
 	"fmt"
+	"math"
 	"slices"
 	"time"
 
@@ -58,10 +59,13 @@ type batchRead struct {
 	after uint64          // only points with a higher sequence number
 	skip  map[uint64]bool // and none of these (live points handed out already)
 	head  int             // up to head of the oldest of them
-	// live: when more are pending, up to live of the newest ones enqueued
-	// at or after liveSince (the live share of a batch during a backfill).
+	// live: up to live of the newest ones enqueued at or after liveSince,
+	// above the head (the live share of a batch during a backfill).
 	live      int
 	liveSince time.Time
+	// size, when > 0, bounds the batch: the head takes what the live
+	// share leaves of it (so a batch without live points is full).
+	size int
 }
 
 // next reads up to maxHead of the oldest pending points and, when more are
@@ -78,7 +82,7 @@ func (o *Outbox) read(r batchRead) (items []item, nHead int, err error) {
 	var corrupt []uint64
 	err = o.db.View(func(tx *bbolt.Tx) error {
 		c := tx.Bucket(bucketOutbox).Cursor()
-		buf := batchBuffer(r.head + r.live)
+		buf := batchBuffer(max(r.head+r.live, r.size))
 		take := func(k, v []byte) {
 			if it, ok := readItem(k, v, &buf); ok {
 				items = append(items, it)
@@ -86,36 +90,42 @@ func (o *Outbox) read(r batchRead) (items []item, nHead int, err error) {
 				corrupt = append(corrupt, it.seq)
 			}
 		}
-		floor := r.after // the tail takes only points above the head
+		// The live tail first, newest first, so the head knows its room.
+		var ceiling uint64 = math.MaxUint64 // the head takes only points below the tail
 		n := 0
-		for k, v := c.Seek(seqKey(r.after + 1)); k != nil && n < r.head; k, v = c.Next() {
+		for k, v := c.Last(); k != nil && n < r.live && binary.BigEndian.Uint64(k) > r.after; k, v = c.Prev() {
+			if len(v) >= 8 && int64(binary.BigEndian.Uint64(v)) < r.liveSince.UnixNano() {
+				break
+			}
 			seq := binary.BigEndian.Uint64(k)
 			if r.skip[seq] {
 				continue
 			}
 			take(k, v)
-			floor = seq
+			ceiling = seq
 			n++
 		}
-		nHead = len(items)
-		if r.live <= 0 {
-			return nil
-		}
-		headItems := items
+		tail := items
+		slices.Reverse(tail)
 		items = nil
+		head := r.head
+		if r.size > 0 {
+			head = min(head, r.size-n)
+		}
 		n = 0
-		for k, v := c.Last(); k != nil && n < r.live && binary.BigEndian.Uint64(k) > floor; k, v = c.Prev() {
-			if len(v) >= 8 && int64(binary.BigEndian.Uint64(v)) < r.liveSince.UnixNano() {
+		for k, v := c.Seek(seqKey(r.after + 1)); k != nil && n < head; k, v = c.Next() {
+			seq := binary.BigEndian.Uint64(k)
+			if seq >= ceiling {
 				break
 			}
-			if r.skip[binary.BigEndian.Uint64(k)] {
+			if r.skip[seq] {
 				continue
 			}
 			take(k, v)
 			n++
 		}
-		slices.Reverse(items)
-		items = append(headItems, items...)
+		nHead = len(items)
+		items = append(items, tail...)
 		return nil
 	})
 	if err != nil {

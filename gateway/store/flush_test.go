@@ -297,3 +297,25 @@ func TestRunBackfillLetsLivePointsThrough(t *testing.T) {
 	}
 	assert.Equal(t, linesOf(pts), backlog, "the backlog in order")
 }
+
+// TestRunBackfillFullBatches: a backlog without live points drains in full
+// batches; the live share of a batch left empty goes to the backlog (each
+// batch is one removal transaction, with its fsyncs).
+func TestRunBackfillFullBatches(t *testing.T) {
+	_, o, pts := pendingZone(t, 40)
+	sink := &hookSink{}
+	w, err := NewWriter(o, WriterOptions{Sink: sink, BatchSize: 8, BackfillRate: 1e9, Registerer: prometheus.NewRegistry()})
+	require.NoError(t, err)
+	stop := runWriter(t, w)
+	waitFor(t, "outbox drained", func() bool { d, _ := o.Stats(); return d == 0 })
+	stop()
+
+	assert.Equal(t, linesOf(pts), sink.lines(), "every point once, in order")
+	sink.mu.Lock()
+	defer sink.mu.Unlock()
+	var sizes []int
+	for _, b := range sink.batches {
+		sizes = append(sizes, len(b))
+	}
+	assert.Equal(t, []int{8, 8, 8, 8, 8}, sizes, "points per batch")
+}

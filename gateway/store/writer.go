@@ -86,7 +86,7 @@ var errServer = errors.New("store server")
 // the oldest points, at most BackfillRate per second, plus up to a quarter of
 // the batch taken from the newest points enqueued since the writer last
 // recovered (live points), so current data keeps flowing during a long
-// drain. Reordering cannot change what the store ends up holding: the outbox
+// drain; what the live points leave of that quarter goes to the oldest. Reordering cannot change what the store ends up holding: the outbox
 // keeps at most one pending point per measurement, tags and time (a revision
 // replaces the pending earlier emission), so no two points in flight ever
 // overwrite each other.
@@ -243,8 +243,7 @@ func (s *backfill) next(ctx context.Context, unremoved int) ([]item, error) {
 		r.head = min(batch, int(s.tokens))
 		s.mu.Lock()
 		if !s.failing {
-			r.live, r.liveSince = batch/4, s.liveSince
-			r.head = min(batch-r.live, int(s.tokens))
+			r.live, r.liveSince, r.size = batch/4, s.liveSince, batch
 		}
 		s.mu.Unlock()
 	}
