@@ -23,10 +23,23 @@ type HourHandler interface {
 }
 
 // SampleObserver sees every accepted sample (drift and fault monitors). It is
-// called after the sample is durable, outside any transaction, and must not
-// block for long; now is the pipeline's clock at that moment.
+// called inside the write transaction that stores the sample, after the
+// sample is written, and must neither use the state file nor block for long;
+// now is when the sample's message arrived. Should that transaction fail,
+// the sample is offered again when it is stored again.
 type SampleObserver interface {
 	ObserveSample(site, station string, s hourly.Sample, now time.Time)
+}
+
+// SampleCommitter is a SampleObserver that keeps what its observations
+// changed in the state file: CommitObserved writes it in the transaction
+// that stores the samples, after they were observed, so that a kill cannot
+// keep the samples and lose what they changed (an alert a spike raised);
+// AbortObserved is called when that transaction does not commit.
+type SampleCommitter interface {
+	SampleObserver
+	CommitObserved(tx *bbolt.Tx) error
+	AbortObserved()
 }
 
 // QualityGate is asked, when an hour is computed, which flags to add and

@@ -348,13 +348,8 @@ func (p *Pipeline) ingest(now time.Time, readings []ingest.Reading) (IngestResul
 // stops gives the reading's time as the station's watermark for closing;
 // other stations' readings go on.
 func (p *Pipeline) ingestTx(now time.Time, readings []ingest.Reading, noStop map[*station]bool, res *IngestResult) (rest []ingest.Reading, stops map[*station]time.Time, err error) {
-	type accepted struct {
-		st *station
-		s  hourly.Sample
-		at time.Time // the pipeline clock when its message arrived
-	}
 	var (
-		acc     []accepted
+		acc     []observed
 		rejs    []ingest.Rejection
 		dups    []*station
 		updates = map[*station]*mirror{}
@@ -537,11 +532,15 @@ func (p *Pipeline) ingestTx(now time.Time, readings []ingest.Reading, noStop map
 				ss.Reading, ss.Quantity, ss.Value = s.Time, s.Quantity, &v
 			}
 			seen[st][s.Sensor] = ss
-			acc = append(acc, accepted{st, s, at})
+			acc = append(acc, observed{st, s, at})
 		}
-		return p.commitIngest(tx, updates, seen)
+		if err := p.commitIngest(tx, updates, seen); err != nil {
+			return err
+		}
+		return p.observe(tx, acc)
 	})
 	if err != nil {
+		p.abortObserved()
 		return nil, nil, err
 	}
 	for st, mu := range updates {
@@ -581,12 +580,45 @@ func (p *Pipeline) ingestTx(now time.Time, readings []ingest.Reading, noStop map
 	res.Accepted += len(acc)
 	res.Late += late
 	res.Held += held
-	for _, a := range acc {
+	return rest, stops, nil
+}
+
+// observed is an accepted sample for the observers.
+type observed struct {
+	st *station
+	s  hourly.Sample
+	at time.Time // when its message arrived
+}
+
+// observe shows the samples tx stores to the observers, then lets each
+// SampleCommitter write what they changed in tx.
+func (p *Pipeline) observe(tx *bbolt.Tx, obs []observed) error {
+	if len(obs) == 0 {
+		return nil
+	}
+	for _, a := range obs {
 		for _, o := range p.observers {
 			o.ObserveSample(a.st.site, a.st.id, a.s, a.at)
 		}
 	}
-	return rest, stops, nil
+	for _, o := range p.observers {
+		if c, ok := o.(SampleCommitter); ok {
+			if err := c.CommitObserved(tx); err != nil {
+				return fmt.Errorf("observers: %w", err)
+			}
+		}
+	}
+	return nil
+}
+
+// abortObserved tells the committers that the transaction observe wrote
+// in did not commit.
+func (p *Pipeline) abortObserved() {
+	for _, o := range p.observers {
+		if c, ok := o.(SampleCommitter); ok {
+			c.AbortObserved()
+		}
+	}
 }
 
 // mirror is a station's cursor and watermark as a transaction changes them.

@@ -155,6 +155,14 @@ type Monitor struct {
 	txOf    *bbolt.Tx               // the write transaction txWin belongs to (not its ID: a rolled-back ID is reused)
 	txWin   map[stationID][]HourObs // changed in transaction txID, not yet committed
 
+	// syncMu orders the persisting of reading-level events: held by Sync
+	// from taking pending until its transaction ends, and by
+	// CommitObserved until the pipeline's transaction ends, so events of
+	// one key are written in the order they happened.
+	syncMu  sync.Mutex
+	inTx    []Event // taken by CommitObserved, written in the pipeline's open transaction
+	holding bool    // CommitObserved holds syncMu (the pipeline's goroutine only)
+
 	mu      sync.Mutex
 	state   map[alert.Key]alert.Alert // committed state: active alerts and recently cleared ones
 	pending []Event                   // reading-level events not yet persisted
@@ -163,6 +171,7 @@ type Monitor struct {
 }
 
 var (
+	_ pipeline.SampleCommitter = (*Monitor)(nil)
 	_ pipeline.SampleObserver = (*Monitor)(nil)
 	_ pipeline.HourHandler    = (*Monitor)(nil)
 	_ pipeline.QualityGate    = (*Monitor)(nil)
@@ -465,6 +474,8 @@ func (m *Monitor) checkSilenceLocked(now time.Time) {
 // Sync persists the queued reading-level events in one transaction: alert
 // state, retained message to publish, and store point.
 func (m *Monitor) Sync() error {
+	m.syncMu.Lock()
+	defer m.syncMu.Unlock()
 	m.mu.Lock()
 	evs := m.pending
 	m.pending = nil
@@ -488,6 +499,51 @@ func (m *Monitor) Sync() error {
 		return fmt.Errorf("sync alerts: %w", err)
 	}
 	return nil
+}
+
+// CommitObserved writes the reading-level events queued so far (those of
+// the samples the pipeline's transaction tx stores, and any before them) in
+// tx, so that a kill cannot keep a sample and lose the alert it raised or
+// cleared (pipeline.SampleCommitter). While Sync is writing older events it
+// leaves them to the next Sync, which keeps each key's order.
+func (m *Monitor) CommitObserved(tx *bbolt.Tx) error {
+	if !m.syncMu.TryLock() {
+		return nil
+	}
+	m.holding = true
+	m.mu.Lock()
+	evs := m.pending
+	m.pending = nil
+	m.mu.Unlock()
+	m.inTx = evs
+	for i := range evs {
+		if err := m.persist(tx, evs[i].Alert, &evs[i]); err != nil {
+			return err // the pipeline calls AbortObserved
+		}
+	}
+	tx.OnCommit(func() {
+		m.inTx = nil
+		m.holding = false
+		m.syncMu.Unlock()
+		if len(evs) > 0 {
+			m.committed(evs, nil, false)
+		}
+	})
+	return nil
+}
+
+// AbortObserved is called when the transaction CommitObserved wrote in
+// did not commit: its events are queued again, ahead of later ones.
+func (m *Monitor) AbortObserved() {
+	if !m.holding {
+		return
+	}
+	m.mu.Lock()
+	m.pending = append(m.inTx, m.pending...)
+	m.mu.Unlock()
+	m.inTx = nil
+	m.holding = false
+	m.syncMu.Unlock()
 }
 
 // persist writes one alert's state, and for an event its retained message

@@ -380,3 +380,46 @@ func TestMonitorHeardBeforeCheckpointIsNotSilent(t *testing.T) {
 	require.Len(t, got, 1, "nothing heard since 20 min")
 	assert.Contains(t, got[0].Message, "no air_temp reading since 2026-06-03T18:20:00Z")
 }
+
+// A spike's alert is written in the transaction that stores the reading
+// (CommitObserved), not later by Sync: a kill between the two cannot keep
+// the reading and lose its alert. A transaction that does not commit gives
+// the events back, and Sync writes them.
+func TestMonitorCommitsObservedAlertsWithTheirReadings(t *testing.T) {
+	path := filepath.Join(t.TempDir(), "c.db")
+	f := newFixture(t, testConfig(config.RespondKeep), path, t0)
+	obs := func(minute int, v float64) {
+		at := t0.Add(time.Duration(minute) * time.Minute)
+		f.mon.ObserveSample("brackenfold", "orchard", hourly.Sample{Sensor: "h1", Quantity: hourly.RelHumidity, Time: at, Value: v}, at)
+	}
+	persisted := func() []string {
+		var out []string
+		require.NoError(t, f.db.View(func(tx *bbolt.Tx) error {
+			return tx.Bucket(state.BucketAlerts).ForEach(func(k, _ []byte) error {
+				out = append(out, string(k))
+				return nil
+			})
+		}))
+		return out
+	}
+	spike := "brackenfold/orchard/h1/rel_humidity/spike"
+
+	// A transaction that fails: the events come back.
+	obs(0, 60)
+	obs(1, 95) // 35 % in a minute, limit 15
+	failed := errors.New("disk gone")
+	err := f.db.Update(func(tx *bbolt.Tx) error {
+		require.NoError(t, f.mon.CommitObserved(tx))
+		return failed
+	})
+	require.ErrorIs(t, err, failed)
+	f.mon.AbortObserved()
+	assert.NotContains(t, persisted(), spike)
+
+	// The next transaction that stores readings writes them.
+	require.NoError(t, f.db.Update(func(tx *bbolt.Tx) error { return f.mon.CommitObserved(tx) }))
+	assert.Contains(t, persisted(), spike, "written with the readings' transaction, before any Sync")
+	require.Len(t, f.evs, 1, "the event is reported once, when its transaction commits")
+	require.NoError(t, f.mon.Sync())
+	assert.Len(t, f.evs, 1, "Sync has nothing left to write")
+}
