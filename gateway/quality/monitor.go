@@ -172,9 +172,9 @@ type Monitor struct {
 
 var (
 	_ pipeline.SampleCommitter = (*Monitor)(nil)
-	_ pipeline.SampleObserver = (*Monitor)(nil)
-	_ pipeline.HourHandler    = (*Monitor)(nil)
-	_ pipeline.QualityGate    = (*Monitor)(nil)
+	_ pipeline.SampleObserver  = (*Monitor)(nil)
+	_ pipeline.HourHandler     = (*Monitor)(nil)
+	_ pipeline.QualityGate     = (*Monitor)(nil)
 )
 
 // New opens the monitor's buckets, loads the alert state and registers the
