@@ -27,7 +27,9 @@ import (
 // published (QoS 1, retained) only when its payload changed, so a late
 // subscriber gets the current state at once and the broker sees few
 // messages. It is a stepped service: RunOnce each minute and after every
-// published record.
+// published record. A pass builds the payloads of the stations whose hour
+// changed since the last one, not of every station, and the morning
+// report at most once a minute: its cost does not grow with the network.
 type statePublisher struct {
 	prefix string
 	pub    mqtt.Publisher
@@ -40,8 +42,12 @@ type statePublisher struct {
 
 	mu       sync.Mutex
 	hours    map[[2]string]map[hourly.Reference]hourly.Record // latest hour per station, by reference
+	dirty    map[[2]string]bool                               // stations whose payload is to build and publish
 	sent     map[string]string                                // topic -> payload last published
 	connects uint64                                           // the client's connect count when sent was valid
+
+	reports  map[string]string // site's report topic -> its payload, as last built
+	reportAt time.Time         // when the reports are next built
 }
 
 // connectCounter is implemented by a publisher that counts its connects
@@ -53,9 +59,7 @@ var _ clock.Stepper = (*statePublisher)(nil)
 
 // wireStatePublisher adds the retained state publisher to comp.
 func wireStatePublisher(cfg *config.Config, deps Deps, comp *Components) *statePublisher {
-	p := &statePublisher{prefix: cfg.TopicPrefix, pub: deps.MQTT, clock: deps.Clock,
-		log: deps.Logger.With("component", "state-topics"), wake: make(chan struct{}, 1),
-		hours: map[[2]string]map[hourly.Reference]hourly.Record{}, sent: map[string]string{}, sites: siteIDs(cfg)}
+	p := newStatePublisher(cfg.TopicPrefix, deps.MQTT, deps.Clock, deps.Logger.With("component", "state-topics"), siteIDs(cfg))
 	for _, h := range comp.Handlers {
 		if z, ok := h.(*zones.Service); ok {
 			p.zones = z
@@ -75,6 +79,13 @@ func wireStatePublisher(cfg *config.Config, deps Deps, comp *Components) *stateP
 	}
 	comp.Services = append(comp.Services, p)
 	return p
+}
+
+// newStatePublisher returns a state publisher without zones or reports.
+func newStatePublisher(prefix string, pub mqtt.Publisher, clk clock.Clock, log *slog.Logger, sites []string) *statePublisher {
+	return &statePublisher{prefix: prefix, pub: pub, clock: clk, log: log, wake: make(chan struct{}, 1), sites: sites,
+		hours: map[[2]string]map[hourly.Reference]hourly.Record{}, dirty: map[[2]string]bool{}, sent: map[string]string{},
+		reports: map[string]string{}}
 }
 
 // noteRecord keeps a published record as its station's latest hour (a
@@ -102,6 +113,7 @@ func (p *statePublisher) noteRecord(rec hourly.Record) {
 		p.hours[k] = refs
 	}
 	refs[rec.Reference] = rec
+	p.dirty[k] = true
 	p.mu.Unlock()
 	select {
 	case p.wake <- struct{}{}:
@@ -122,10 +134,13 @@ func (p *statePublisher) RunOnce(ctx context.Context, now time.Time) (time.Time,
 		if n := cc.Connects(); n != p.connects {
 			p.mu.Lock()
 			p.sent, p.connects = map[string]string{}, n
+			for k := range p.hours {
+				p.dirty[k] = true
+			}
 			p.mu.Unlock()
 		}
 	}
-	msgs, err := p.payloads(now)
+	msgs, stations, err := p.payloads(now)
 	if err != nil {
 		p.log.Warn("state topics: reading the zones", "err", err)
 	}
@@ -146,6 +161,11 @@ func (p *statePublisher) RunOnce(ctx context.Context, now time.Time) (time.Time,
 		cancel()
 		if err != nil {
 			p.log.Warn("state topics: not published; will retry", "topic", t, "err", err)
+			if k, ok := stations[t]; ok {
+				p.mu.Lock()
+				p.dirty[k] = true
+				p.mu.Unlock()
+			}
 			continue
 		}
 		p.mu.Lock()
@@ -202,48 +222,65 @@ type holdState struct {
 	Forever bool       `json:"forever"`
 }
 
-// payloads builds every state topic's payload at now.
-func (p *statePublisher) payloads(now time.Time) (map[string]string, error) {
-	out := map[string]string{}
-	put := func(topic string, v any) {
+// payloads builds the state topics' payloads at now: the stations whose
+// hour changed since the last pass (stations maps their topics back), the
+// sites' reports (built again once a minute), every zone.
+func (p *statePublisher) payloads(now time.Time) (out map[string]string, stations map[string][2]string, err error) {
+	out, stations = map[string]string{}, map[string][2]string{}
+	encode := func(topic string, v any) (string, bool) {
 		b, err := json.Marshal(v)
 		if err != nil { // a non-finite number: keep the last good payload
 			p.log.Warn("state topics: encode", "topic", topic, "err", err)
-			return
+			return "", false
 		}
-		out[topic] = string(b)
+		return string(b), true
+	}
+	put := func(topic string, v any) {
+		if b, ok := encode(topic, v); ok {
+			out[topic] = b
+		}
 	}
 	p.mu.Lock()
-	for k, refs := range p.hours {
-		put(config.StationStateTopic(p.prefix, k[0], k[1]), stationPayload(refs))
+	for k := range p.dirty {
+		t := config.StationStateTopic(p.prefix, k[0], k[1])
+		put(t, stationPayload(p.hours[k]))
+		stations[t] = k
 	}
+	clear(p.dirty)
 	p.mu.Unlock()
-	if p.report != nil {
+	if p.report != nil && (len(p.reports) == 0 || !now.Before(p.reportAt)) {
+		p.reportAt = now.Add(time.Minute)
 		for _, site := range p.sites {
 			rep, err := p.report.Report(site, "")
 			if err != nil {
-				return out, err
+				return out, stations, err
 			}
 			rep.Generated = time.Time{} // unchanged days are not published again
-			put(config.ReportTopic(p.prefix, site), rep)
+			t := config.ReportTopic(p.prefix, site)
+			if b, ok := encode(t, rep); ok {
+				p.reports[t] = b
+			}
 		}
 	}
+	for t, b := range p.reports {
+		out[t] = b
+	}
 	if p.zones == nil {
-		return out, nil
+		return out, stations, nil
 	}
 	sts, err := p.zones.Status(now)
 	if err != nil {
-		return out, err
+		return out, stations, err
 	}
 	holds := map[string]controllers.Holds{}
 	ledgers := map[string][]controllers.Command{}
 	for _, zs := range sts {
 		if _, ok := holds[zs.Site]; !ok {
 			if holds[zs.Site], err = p.zones.Holds(zs.Site); err != nil {
-				return out, err
+				return out, stations, err
 			}
 			if ledgers[zs.Site], err = p.zones.Ledger(zs.Site); err != nil {
-				return out, err
+				return out, stations, err
 			}
 		}
 		z := newZoneState(zs.Site, zs.Zone)
@@ -276,7 +313,7 @@ func (p *statePublisher) payloads(now time.Time) (map[string]string, error) {
 		}
 		put(config.ZoneStateTopic(p.prefix, zs.Site, zs.Zone), z)
 	}
-	return out, nil
+	return out, stations, nil
 }
 
 // stationPayload summarises a station's latest hour (one record per

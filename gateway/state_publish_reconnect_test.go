@@ -2,7 +2,11 @@ package gateway
 
 import (
 	"context"
+	"errors"
+	"fmt"
 	"log/slog"
+	"maps"
+	"slices"
 	"sync"
 	"testing"
 	"time"
@@ -20,11 +24,16 @@ type countingBroker struct {
 	mu       sync.Mutex
 	topics   []string
 	connects uint64
+	fail     map[string]int // topic -> publishes still to refuse
 }
 
 func (b *countingBroker) Publish(_ context.Context, topic string, _ byte, _ bool, _ []byte) error {
 	b.mu.Lock()
 	defer b.mu.Unlock()
+	if b.fail[topic] > 0 {
+		b.fail[topic]--
+		return errors.New("broker gone")
+	}
 	b.topics = append(b.topics, topic)
 	return nil
 }
@@ -49,8 +58,7 @@ func (b *countingBroker) take() []string {
 func TestStateRepublishedAfterReconnect(t *testing.T) {
 	b := &countingBroker{connects: 1}
 	now := time.Date(2026, 7, 14, 6, 0, 0, 0, time.UTC)
-	p := &statePublisher{prefix: "farm", pub: b, clock: clock.NewManual(now), log: slog.New(slog.DiscardHandler),
-		wake: make(chan struct{}, 1), hours: map[[2]string]map[hourly.Reference]hourly.Record{}, sent: map[string]string{}}
+	p := newStatePublisher("farm", b, clock.NewManual(now), slog.New(slog.DiscardHandler), nil)
 	et := 0.31
 	p.noteRecord(hourly.Record{Site: "lowfield", Station: "mast", Reference: hourly.Short, Start: now.Add(-time.Hour),
 		End: now, Complete: true, Result: &hourly.Result{Reference: hourly.Short, ET: et}})
@@ -69,4 +77,40 @@ func TestStateRepublishedAfterReconnect(t *testing.T) {
 	_, err = p.RunOnce(ctx, now.Add(2*time.Minute))
 	require.NoError(t, err)
 	assert.Equal(t, []string{"farm/lowfield/mast/state"}, b.take(), "after a reconnect every state topic is published again")
+}
+
+// A pass builds the payloads of the stations whose hour changed since the
+// last pass, not of every station (at 5,000 stations every record cost
+// 5,000 payloads); a station whose publish failed is built and sent again.
+func TestStatePassBuildsOnlyChangedStations(t *testing.T) {
+	b := &countingBroker{connects: 1, fail: map[string]int{}}
+	now := time.Date(2026, 7, 14, 6, 0, 0, 0, time.UTC)
+	p := newStatePublisher("farm", b, clock.NewManual(now), slog.New(slog.DiscardHandler), nil)
+	note := func(station string, start time.Time) {
+		p.noteRecord(hourly.Record{Site: "lowfield", Station: station, Reference: hourly.Short, Start: start,
+			End: start.Add(time.Hour), Complete: true, Result: &hourly.Result{Reference: hourly.Short, ET: 0.2}})
+	}
+	for i := range 50 {
+		note(fmt.Sprintf("mast-%02d", i), now.Add(-time.Hour))
+	}
+	ctx := context.Background()
+	_, err := p.RunOnce(ctx, now)
+	require.NoError(t, err)
+	assert.Len(t, b.take(), 50)
+
+	note("mast-07", now)
+	msgs, _, err := p.payloads(now)
+	require.NoError(t, err)
+	assert.Equal(t, []string{"farm/lowfield/mast-07/state"}, slices.Collect(maps.Keys(msgs)), "only the station whose hour changed is built")
+
+	note("mast-08", now)
+	b.mu.Lock()
+	b.fail["farm/lowfield/mast-08/state"] = 1
+	b.mu.Unlock()
+	_, err = p.RunOnce(ctx, now.Add(time.Minute))
+	require.NoError(t, err)
+	assert.Empty(t, b.take(), "mast-07 was taken by the payloads call above; mast-08's publish failed")
+	_, err = p.RunOnce(ctx, now.Add(2*time.Minute))
+	require.NoError(t, err)
+	assert.Equal(t, []string{"farm/lowfield/mast-08/state"}, b.take(), "sent again at the next pass")
 }
