@@ -160,8 +160,10 @@ func setDefault[T comparable](v *T, d T) {
 // Flusher). What stays unwritten remains in the outbox for the next start.
 //
 // Run drains through the same pipeline as Flush, paced by the backfill
-// rule: a SIGKILL during Run makes the next start send at most drainWindow
-// batches again (harmless, see Sink).
+// rule: while one batch is written the next is read, and at most two
+// batches (drainWindow) are written and not yet removed, so a SIGKILL
+// during Run makes the next start send at most two batches again
+// (harmless, see Sink).
 func (w *Writer) Run(ctx context.Context) error {
 	src := &backfill{w: w, tokens: float64(w.opt.BatchSize), last: time.Now(), liveSince: w.o.now()}
 	backoff := time.Duration(0)
@@ -336,7 +338,8 @@ func (w *Writer) waitForPoints(ctx context.Context) bool {
 // Flush pipelines its batches as Run does: while one batch is being
 // written, the next is read from the state file, and the removal of
 // accepted batches commits meanwhile. A SIGKILL during a flush makes the
-// next start send at most drainWindow batches again (harmless, see Sink).
+// next start send at most two batches (drainWindow) again (harmless, see
+// Sink).
 func (w *Writer) Flush(ctx context.Context) error {
 	_, err := w.drain(ctx, &seqSource{o: w.o, n: w.opt.BatchSize})
 	if errors.Is(err, errServer) {
