@@ -172,11 +172,15 @@ func TestRestartAfterKillGivesSameRecords(t *testing.T) {
 		root := tag + name
 		sim := demo.New(demo.Options{Seed: 21, Start: start, TopicRoot: root, Stations: []string{demo.Paddock, demo.Glasshouse}})
 		cfgPath := filepath.Join(dir, name+".yaml")
-		require.NoError(t, os.WriteFile(cfgPath, []byte(sim.ConfigYAML(demo.ConfigOptions{
+		// A topic prefix of the run's own: other packages' tests run the
+		// same invented farm on the shared broker at the same time, and
+		// their records on the default prefix would mix with these.
+		prefix := root + "-out"
+		require.NoError(t, os.WriteFile(cfgPath, []byte("topic_prefix: "+prefix+"\n"+sim.ConfigYAML(demo.ConfigOptions{
 			BrokerURL: url, ClientID: root + "-gw", StatePath: filepath.Join(dir, name+".db"),
 			LateWindow: 12 * time.Hour, SilenceClose: 24 * time.Hour,
 		})), 0o600))
-		results := subscribeResults(t, url, root+"-results", pipeline.DefaultTopicPrefix)
+		results := subscribeResults(t, url, root+"-results", prefix)
 		msgs := sim.Generate(start, start.Add(6*time.Hour+10*time.Minute))
 
 		d := startDaemon(t, bin, cfgPath)
