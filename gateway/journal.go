@@ -126,10 +126,9 @@ func (g *Gateway) closeJournal(ctx context.Context) {
 // gather waits, for a window that has begun with batch, for more messages
 // until the window's time is up, ackMax messages are held, a pass of the
 // pipeline falls due (wake) or ctx ends. The window's time is ack_window of
-// real time or of the gateway clock, whichever passes first: a simulated
-// clock that runs fast (the load tool) must not see the silence check
-// wait for readings held in a window, and a stepped one must not hold
-// them for ever.
+// real time or of the gateway clock, whichever passes first: with a
+// simulated clock that runs fast (the load tool) a window ends when the
+// clock has moved on, as it would on a farm.
 func (g *Gateway) gather(ctx context.Context, batch []mqtt.Message, wake <-chan time.Time) []mqtt.Message {
 	if len(batch) >= ackMax || g.jr.window <= 0 {
 		return batch
@@ -178,12 +177,7 @@ func (g *Gateway) checkpointDue(now time.Time, fresh []ingest.Reading) bool {
 	if next := g.pipe.NextDeadline(); !next.IsZero() && !now.Before(next) {
 		return true // a pass of the pipeline is due: it must see every reading
 	}
-	for _, rd := range fresh {
-		if g.pipe.Urgent(rd, now) {
-			return true
-		}
-	}
-	return false
+	return g.pipe.Urgent(fresh, now)
 }
 
 // checkpointTimer fires when the journal's oldest message is due for a
