@@ -100,6 +100,10 @@ func (g *Gateway) openJournal(ctx context.Context) error {
 		}
 		readings = append(readings, rds...)
 	}
+	// In reading-time order, as startup stores a resumed session: the
+	// journal holds messages in arrival order, and a start-up batch was
+	// sorted only in memory before the stop.
+	slices.SortStableFunc(readings, func(a, b ingest.Reading) int { return a.Sample.Time.Compare(b.Sample.Time) })
 	g.jr.pending = readings
 	g.jr.since = time.Now()
 	g.log.Info("storing the journal's messages", "messages", len(entries), "readings", len(readings), "journal", path)
